@@ -1,0 +1,8 @@
+"""Allow ``python -m generator`` with the same arguments as ``hcpsite``."""
+from __future__ import annotations
+
+import sys
+
+from .cli import main
+
+sys.exit(main())

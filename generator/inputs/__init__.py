@@ -1,0 +1,1 @@
+"""Readers for the programme folder: one declared column spec per file (spec.py)."""

@@ -1,0 +1,73 @@
+"""Page models: what a template may use. No HTML here and no computation of results.
+
+A section module ``generator/pages/<section>.py`` exposes ``build(ctx: SiteContext) ->
+list[Page]``. It reads computed results from ``ctx.results`` and turns them into tables,
+charts (plotly figures made by ``generator.charts``) and plain values for its template.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any, Callable
+
+from ..model import Programme
+
+
+@dataclass
+class Table:
+    """A table for a template: header labels and rows of already formatted cells."""
+
+    columns: list[str]
+    rows: list[list[Any]]
+    caption: str = ""
+    #: optional per-column CSS class (e.g. "num" for right alignment)
+    classes: list[str] | None = None
+
+
+@dataclass
+class Chart:
+    """One interactive chart with its text summary and its data as a table."""
+
+    id: str  # stable: page slug + position, e.g. "exposure-1"
+    figure: Any  # plotly.graph_objects.Figure
+    summary: str  # one sentence a screen reader and a printout can use
+    table: Table
+    height: int = 420
+    title: str = ""
+
+
+@dataclass
+class Page:
+    """One HTML page of the site."""
+
+    slug: str  # file name without .html; may contain "/" for subfolders (e.g. "groups/g01")
+    title: str
+    template: str  # jinja2 template name, e.g. "exposure.html"
+    section: str  # navigation section id (see generator.pages.SECTIONS)
+    context: dict[str, Any] = field(default_factory=dict)
+    charts: list[Chart] = field(default_factory=list)
+    #: shown in the navigation (sub-pages are reached from their section page)
+    in_nav: bool = False
+    restricted: bool = False
+
+
+@dataclass
+class SiteContext:
+    """What page builders get: the programme, computed results and privacy helpers."""
+
+    programme: Programme
+    #: stage name -> result object, e.g. results["exposure"]
+    results: dict[str, Any]
+    #: rule-set id -> RuleSet, headline first
+    rules: dict[str, Any]
+    #: person_id -> pseudonymous code (public pages never show a raw id)
+    code: Callable[[str], str]
+    #: groups below the minimum size: their figures are suppressed on public pages
+    suppressed_groups: frozenset[str]
+    restricted: bool = False
+    #: pages built so far (the printable review reads them)
+    pages: list[Page] = field(default_factory=list)
+
+    @property
+    def headline(self) -> Any:
+        """Return the headline rule set."""
+        return next(iter(self.rules.values()))
