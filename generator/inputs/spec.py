@@ -94,6 +94,13 @@ def _oct_columns() -> tuple[Column, ...]:
                         lo=LEVEL_MIN, hi=LEVEL_MAX) for f in OCTAVE_BANDS)
 
 
+def _att_columns() -> tuple[Column, ...]:
+    return tuple(Column(f"att_{f}", "float", doc=f"mean attenuation at {f} Hz from the ISO 4869-1 test, dB "
+                        "(octave-band method)", lo=-10, hi=80) for f in OCTAVE_BANDS) + tuple(
+        Column(f"sd_{f}", "float", doc=f"standard deviation of the attenuation at {f} Hz, dB",
+               lo=0, hi=40) for f in OCTAVE_BANDS)
+
+
 def _booth_columns() -> tuple[Column, ...]:
     return tuple(Column(f"ob_{f}", "level", doc=f"booth background octave-band level at {f} Hz, dB",
                         lo=-20.0, hi=LEVEL_MAX) for f in BOOTH_BANDS)
@@ -141,6 +148,8 @@ NOISE = FileSpec(
         Column("duration_h", "hours", True, "run time in hours", lo=0, hi=24, lo_open=True),
         Column("laeq", "level", True, "A-weighted equivalent level over the run, dB(A)", lo=LEVEL_MIN, hi=LEVEL_MAX),
         Column("lcpeak", "level", doc="C-weighted peak, dB(C)", lo=PEAK_MIN, hi=PEAK_MAX),
+        Column("lceq", "level", doc="C-weighted equivalent level over the run, dB(C) (for the SNR, HML "
+               "and C-weighted NRR protector methods)", lo=LEVEL_MIN, hi=LEVEL_MAX),
         Column("instrument_class", "int", doc="1 or 2 (IEC 61672-1); personal exposimeters count as 2",
                lo=1, hi=2),
         Column("osha_dose_pct", "float", doc="OSHA dose as reported by the dosimeter, %", lo=0, hi=100000),
@@ -236,7 +245,7 @@ PROTECTORS = FileSpec(
         Column("m", "float", doc="HML M value, dB", lo=0, hi=50),
         Column("l", "float", doc="HML L value, dB", lo=0, hi=50),
         Column("name", "text", doc="catalogue name"),
-    ),
+    ) + _att_columns(),
     key=("protector_id",),
 )
 

@@ -57,6 +57,9 @@ class RuleSet:
     caution: str
     clauses: dict[str, str] = field(default_factory=dict)
     notes: tuple[str, ...] = ()
+    #: threshold of the dose compared with the limit value, when it differs from `threshold`
+    #: (OSHA: only levels >= 90 dB(A) count when the PEL decides on controls); None = `threshold`
+    limit_dose_threshold: float | None = None
 
     def band_labels(self) -> list[str]:
         """Return the band names in increasing order of exposure."""

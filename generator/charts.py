@@ -1,0 +1,271 @@
+"""Plotly figure helpers shared by every section, and one small site template.
+
+Helpers take plain sequences or DataFrames of already computed values (never one point
+per raw record) and return ``plotly.graph_objects.Figure`` objects; page builders wrap
+them in :class:`~generator.pages.base.Chart` with a summary sentence and a data table
+(:func:`table_from_frame`). Importing this module registers the site template and makes
+it the default, so figures stay small and look alike.
+"""
+from __future__ import annotations
+
+import math
+from typing import Any, Callable, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+import plotly.io as pio
+
+from .pages.base import Table
+
+TEMPLATE_NAME = "hcpsite"
+#: Colours of the site (also used by style.css): ink blue, amber, moss, plum, brick, slate, ochre, teal.
+PALETTE = ("#2b5d8a", "#e08a2e", "#4a9a6a", "#9b4f96", "#b8423c", "#6f7f8f", "#c9a227", "#3aa7b8")
+#: Colour of reference lines (action and limit values).
+REFERENCE_COLOUR = "#8a1c1c"
+FONT = "system-ui, -apple-system, 'Segoe UI', Roboto, 'Helvetica Neue', Arial, sans-serif"
+#: Cell shown for a missing number in tables.
+BLANK = "–"
+
+
+def _site_template() -> go.layout.Template:
+    """Return the small site template (fonts, colours, grid)."""
+    axis = dict(gridcolor="#e4e7eb", linecolor="#9aa4ae", zeroline=False, ticks="outside",
+                tickcolor="#9aa4ae", automargin=True)
+    return go.layout.Template(layout=dict(
+        font=dict(family=FONT, size=13, color="#1d2730"),
+        colorway=list(PALETTE),
+        paper_bgcolor="#ffffff", plot_bgcolor="#ffffff",
+        xaxis=axis, yaxis=axis,
+        margin=dict(l=60, r=24, t=48, b=48),
+        legend=dict(orientation="h", yanchor="bottom", y=1.02, xanchor="left", x=0),
+        hoverlabel=dict(font=dict(family=FONT)),
+        title=dict(x=0, xanchor="left", font=dict(size=15)),
+    ))
+
+
+def register_template() -> None:
+    """Register the site template and make it plotly's default (idempotent)."""
+    if TEMPLATE_NAME not in pio.templates:
+        pio.templates[TEMPLATE_NAME] = _site_template()
+    pio.templates.default = TEMPLATE_NAME
+
+
+register_template()
+
+
+def _values(seq: Any) -> list:
+    """Return *seq* as a JSON-friendly list (NaN -> None, numpy scalars -> Python)."""
+    if seq is None:
+        return []
+    if isinstance(seq, (pd.Series, pd.Index)):
+        seq = seq.tolist()
+    elif isinstance(seq, np.ndarray):
+        seq = seq.tolist()
+    out = []
+    for v in seq:
+        if isinstance(v, np.generic):
+            v = v.item()
+        if isinstance(v, float) and math.isnan(v):
+            v = None
+        elif isinstance(v, pd.Timestamp):
+            v = None if pd.isna(v) else v.strftime("%Y-%m-%d")
+        elif v is pd.NaT:
+            v = None
+        out.append(v)
+    return out
+
+
+def base_layout(fig: go.Figure, title: str | None = None, height: int = 420,
+                xaxis_title: str | None = None, yaxis_title: str | None = None) -> go.Figure:
+    """Apply the common layout (title, height, axis titles) to *fig* and return it."""
+    fig.update_layout(height=height)
+    if title:
+        fig.update_layout(title=dict(text=title))
+    if xaxis_title is not None:
+        fig.update_xaxes(title_text=xaxis_title)
+    if yaxis_title is not None:
+        fig.update_yaxes(title_text=yaxis_title)
+    return fig
+
+
+def bar(x: Sequence, y: Sequence, *, name: str | None = None, title: str | None = None,
+        xaxis_title: str | None = None, yaxis_title: str | None = None, horizontal: bool = False,
+        text: Sequence | None = None, colour: str | None = None, height: int = 420) -> go.Figure:
+    """Return a single-series bar chart."""
+    xs, ys = _values(x), _values(y)
+    kw: dict[str, Any] = dict(name=name or "", showlegend=bool(name))
+    if text is not None:
+        kw.update(text=_values(text), textposition="auto")
+    if colour:
+        kw["marker"] = dict(color=colour)
+    trace = go.Bar(x=ys, y=xs, orientation="h", **kw) if horizontal else go.Bar(x=xs, y=ys, **kw)
+    fig = go.Figure(trace)
+    if horizontal:
+        fig.update_yaxes(autorange="reversed")
+    return base_layout(fig, title, height, xaxis_title, yaxis_title)
+
+
+def _multi_bar(categories: Sequence, series: Mapping[str, Sequence], mode: str, title: str | None,
+               xaxis_title: str | None, yaxis_title: str | None, horizontal: bool, height: int,
+               colours: Mapping[str, str] | None) -> go.Figure:
+    cats = _values(categories)
+    fig = go.Figure()
+    for i, (label, vals) in enumerate(series.items()):
+        colour = (colours or {}).get(label, PALETTE[i % len(PALETTE)])
+        vs = _values(vals)
+        if horizontal:
+            fig.add_trace(go.Bar(x=vs, y=cats, name=str(label), orientation="h", marker=dict(color=colour)))
+        else:
+            fig.add_trace(go.Bar(x=cats, y=vs, name=str(label), marker=dict(color=colour)))
+    fig.update_layout(barmode=mode)
+    if horizontal:
+        fig.update_yaxes(autorange="reversed")
+    return base_layout(fig, title, height, xaxis_title, yaxis_title)
+
+
+def grouped_bar(categories: Sequence, series: Mapping[str, Sequence], *, title: str | None = None,
+                xaxis_title: str | None = None, yaxis_title: str | None = None,
+                horizontal: bool = False, height: int = 420,
+                colours: Mapping[str, str] | None = None) -> go.Figure:
+    """Return a bar chart with one bar per series side by side in each category."""
+    return _multi_bar(categories, series, "group", title, xaxis_title, yaxis_title, horizontal,
+                      height, colours)
+
+
+def stacked_bar(categories: Sequence, series: Mapping[str, Sequence], *, title: str | None = None,
+                xaxis_title: str | None = None, yaxis_title: str | None = None,
+                horizontal: bool = False, height: int = 420,
+                colours: Mapping[str, str] | None = None) -> go.Figure:
+    """Return a bar chart with the series stacked in each category."""
+    return _multi_bar(categories, series, "stack", title, xaxis_title, yaxis_title, horizontal,
+                      height, colours)
+
+
+def box_from_stats(stats: pd.DataFrame, *, label: str = "label", title: str | None = None,
+                   xaxis_title: str | None = None, yaxis_title: str | None = None,
+                   height: int = 420, name: str | None = None) -> go.Figure:
+    """Return a box plot drawn from precomputed quartiles.
+
+    *stats* has one row per box with columns *label*, ``q1``, ``median``, ``q3`` and
+    optionally ``lowerfence``, ``upperfence`` (whiskers; default: the quartiles) and
+    ``mean``.
+    """
+    labels = _values(stats[label])
+    q1, med, q3 = (_values(stats[c]) for c in ("q1", "median", "q3"))
+    lo = _values(stats["lowerfence"]) if "lowerfence" in stats else q1
+    hi = _values(stats["upperfence"]) if "upperfence" in stats else q3
+    kw: dict[str, Any] = {}
+    if "mean" in stats:
+        kw["mean"] = _values(stats["mean"])
+    fig = go.Figure(go.Box(x=labels, q1=q1, median=med, q3=q3, lowerfence=lo, upperfence=hi,
+                           name=name or "", showlegend=bool(name), boxpoints=False, **kw))
+    return base_layout(fig, title, height, xaxis_title, yaxis_title)
+
+
+def line(x: Sequence, series: Mapping[str, Sequence], *, title: str | None = None,
+         xaxis_title: str | None = None, yaxis_title: str | None = None, height: int = 420,
+         markers: bool = True, colours: Mapping[str, str] | None = None) -> go.Figure:
+    """Return a line chart with one line per series over the shared *x*."""
+    xs = _values(x)
+    fig = go.Figure()
+    for i, (label, vals) in enumerate(series.items()):
+        colour = (colours or {}).get(label, PALETTE[i % len(PALETTE)])
+        fig.add_trace(go.Scatter(x=xs, y=_values(vals), name=str(label),
+                                 mode="lines+markers" if markers else "lines",
+                                 line=dict(color=colour)))
+    return base_layout(fig, title, height, xaxis_title, yaxis_title)
+
+
+def scatter(x: Sequence, y: Sequence, *, text: Sequence | None = None, name: str | None = None,
+            title: str | None = None, xaxis_title: str | None = None,
+            yaxis_title: str | None = None, height: int = 420, colour: str | None = None,
+            size: float = 8) -> go.Figure:
+    """Return a scatter chart of (x, y) points (aggregate points, never raw records)."""
+    kw: dict[str, Any] = dict(mode="markers", name=name or "", showlegend=bool(name),
+                              marker=dict(size=size, color=colour or PALETTE[0]))
+    if text is not None:
+        kw.update(text=_values(text), hovertemplate="%{text}<br>%{x}, %{y}<extra></extra>")
+    fig = go.Figure(go.Scatter(x=_values(x), y=_values(y), **kw))
+    return base_layout(fig, title, height, xaxis_title, yaxis_title)
+
+
+def reference_lines(fig: go.Figure, values: Mapping[str, float | None], axis: str = "y",
+                    colour: str = REFERENCE_COLOUR) -> go.Figure:
+    """Draw a labelled dashed line across the plot at each level of *values* and return *fig*."""
+    for label, level in sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0, kv[0])):
+        if level is None or (isinstance(level, float) and math.isnan(level)):
+            continue
+        if axis == "y":
+            fig.add_hline(y=float(level), line=dict(color=colour, dash="dash", width=1),
+                          annotation_text=str(label), annotation_position="top left",
+                          annotation_font=dict(color=colour, size=11))
+        else:
+            fig.add_vline(x=float(level), line=dict(color=colour, dash="dash", width=1),
+                          annotation_text=str(label), annotation_position="top right",
+                          annotation_font=dict(color=colour, size=11))
+    return fig
+
+
+Formatter = Callable[[Any], str]
+
+
+def _formatter(spec: str | Formatter | None) -> Formatter:
+    if callable(spec):
+        return spec
+    if spec is None:
+        return _default_cell
+    fmt = spec if "{" in spec else "{:" + spec + "}"
+
+    def f(v: Any) -> str:
+        if v is None or (isinstance(v, float) and math.isnan(v)) or v is pd.NaT:
+            return BLANK
+        try:
+            return fmt.format(v)
+        except (ValueError, TypeError):
+            return str(v)
+    return f
+
+
+def _default_cell(v: Any) -> str:
+    if v is None or v is pd.NaT:
+        return BLANK
+    if isinstance(v, np.generic):
+        v = v.item()
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, float):
+        if math.isnan(v):
+            return BLANK
+        return f"{v:.1f}"
+    if isinstance(v, pd.Timestamp):
+        return v.strftime("%Y-%m-%d")
+    return str(v)
+
+
+def format_cells(values: pd.Series, spec: str | Formatter | None = None) -> list[str]:
+    """Return the formatted cells of one column (dates as YYYY-MM-DD, blanks as a dash)."""
+    f = _formatter(spec)
+    if pd.api.types.is_datetime64_any_dtype(values):
+        texts = values.dt.strftime("%Y-%m-%d")
+        return [BLANK if pd.isna(t) else str(t) for t in texts]
+    return [f(v) for v in values.tolist()]
+
+
+def table_from_frame(df: pd.DataFrame, columns: Sequence[str] | Mapping[str, str],
+                     formats: Mapping[str, str | Formatter] | None = None,
+                     caption: str = "") -> Table:
+    """Return a :class:`Table` of *columns* of *df* with cells formatted.
+
+    *columns* is a list of column names or a mapping column -> header label; *formats*
+    maps a column to a format spec (``".1f"``, ``"{:,.0f} h"``) or a function. Numbers
+    without a format get one decimal (dB); missing values show a dash.
+    """
+    formats = dict(formats or {})
+    labels = dict(columns) if isinstance(columns, Mapping) else {c: c for c in columns}
+    cols = list(labels)
+    cells = [format_cells(df[c], formats.get(c)) for c in cols]
+    rows = [list(r) for r in zip(*cells)] if cols else []
+    classes = ["num" if (pd.api.types.is_numeric_dtype(df[c]) and not pd.api.types.is_bool_dtype(df[c]))
+               else "" for c in cols]
+    return Table(columns=[labels[c] for c in cols], rows=rows, caption=caption, classes=classes)

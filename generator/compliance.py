@@ -1,0 +1,912 @@
+"""Programme compliance: enrolment, due dates, training, protectors, audiometer checks,
+one action list and year-over-year trends.
+
+Every figure is judged "as of" the end of the review period (``config.period.end``).
+Date rules, decided once and used everywhere (see content/methods/programme.md):
+
+* "within N months" / "every N months" is calendar months: ``date + pd.DateOffset(months=N)``
+  (29 CFR 1910.95(g)(5) "within 6 months", (g)(6) "at least annually" = 12 months,
+  (k)(2) training "repeated annually" = 12 months). The resulting due date is *inclusive*:
+  done on the due date is on time, the day after is late.
+* An open item is *overdue* when its due date lies before the as-of date and *due soon*
+  when it falls within :data:`DUE_SOON_DAYS` days from the as-of date (inclusive).
+* People who left before the period starts, or were hired after it ends, are out of scope.
+
+The module is pure pandas: it knows nothing of HTML, templates or charts.
+"""
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .model import Programme
+from .rules import RuleSet, load_rule_set
+
+log = logging.getLogger(__name__)
+
+#: Days ahead of the as-of date in which an open item is listed as due soon.
+DUE_SOON_DAYS = 60
+#: An audiogram dated this many days before the leave date (or later) counts as the exit
+#: audiogram even when its kind is not "exit" (common practice).
+EXIT_WINDOW_DAYS = 30
+#: Booth background limits, dB, per octave band (29 CFR 1910.95 App. D, Table D-1).
+BOOTH_LIMITS: dict[int, float] = {500: 40.0, 1000: 40.0, 2000: 47.0, 4000: 57.0, 8000: 62.0}
+#: Audiometer check intervals in calendar months (29 CFR 1910.95(h)(5)(ii)-(iii), App. E).
+ACOUSTIC_MONTHS = 12
+EXHAUSTIVE_MONTHS = 24
+#: Baseline limit with a mobile test van, months (29 CFR 1910.95(g)(5)(ii)).
+MOBILE_VAN_MONTHS = 12
+
+ACTION_COLUMNS = ["subject", "subject_type", "kind", "detail", "due_date", "clause", "source", "status"]
+STATUS_COLUMNS = ["audiometer_id", "date", "functional_ok", "acoustic_ok", "exhaustive_ok", "booth_ok",
+                  "ok", "reason"]
+FLAGGED_COLUMNS = ["person_id", "date", "ear", "audiometer_id", "reason"]
+DUE_COLUMNS = ["person_id", "group", "kind", "due_date", "status", "clause"]
+
+#: Clauses behind each rule, per rule-set family; RuleSet.clauses entries of the same key win.
+_CLAUSES: dict[str, dict[str, str]] = {
+    "osha": {
+        "enrolment": "29 CFR 1910.95(c)(1)",
+        "baseline": "29 CFR 1910.95(g)(5)",
+        "periodic": "29 CFR 1910.95(g)(6)",
+        "exit": "common practice (no exit audiogram in 1910.95)",
+        "training": "29 CFR 1910.95(k)(1)-(2)",
+        "protector": "29 CFR 1910.95(i)(1)",
+        "refit": "29 CFR 1910.95(g)(8)(ii)",
+        "functional": "29 CFR 1910.95(h)(5)(i)",
+        "acoustic": "29 CFR 1910.95(h)(5)(ii), App. E",
+        "exhaustive": "29 CFR 1910.95(h)(5)(iii), App. E",
+        "booth": "29 CFR 1910.95(h)(2), App. D Table D-1",
+    },
+    "eu": {
+        "enrolment": "Directive 2003/10/EC Art. 10",
+        "baseline": "Directive 2003/10/EC Art. 10(2)",
+        "periodic": "Directive 2003/10/EC Art. 10 (interval set nationally)",
+        "exit": "common practice",
+        "training": "Directive 2003/10/EC Art. 8",
+        "protector": "Directive 2003/10/EC Art. 6(1)",
+        "refit": "Directive 2003/10/EC Art. 10(3)",
+        "functional": "common practice (audiometer daily check)",
+        "acoustic": "common practice (annual acoustic calibration)",
+        "exhaustive": "common practice (exhaustive calibration)",
+        "booth": "29 CFR 1910.95 App. D Table D-1 (used as the booth reference)",
+    },
+    "niosh": {
+        "enrolment": "NIOSH 98-126 (REL 85 dB(A))",
+        "baseline": "NIOSH 98-126 (baseline audiogram)",
+        "periodic": "NIOSH 98-126 (annual audiogram)",
+        "exit": "common practice",
+        "training": "NIOSH 98-126 (annual training)",
+        "protector": "NIOSH 98-126 (hearing protectors)",
+        "refit": "NIOSH 98-126 (follow-up of a shift)",
+        "functional": "29 CFR 1910.95(h)(5)(i)",
+        "acoustic": "29 CFR 1910.95(h)(5)(ii), App. E",
+        "exhaustive": "29 CFR 1910.95(h)(5)(iii), App. E",
+        "booth": "29 CFR 1910.95(h)(2), App. D Table D-1",
+    },
+}
+
+
+@dataclass
+class ComplianceResult:
+    """Everything the programme, actions, trends and review pages show."""
+
+    #: as-of date (end of the review period)
+    as_of: pd.Timestamp
+    #: headline rule-set id
+    rules: str
+    #: one row per person in scope (see _person_status for the columns)
+    people: pd.DataFrame
+    #: [person_id, group, mismatch, detail]; mismatch "exposed_no_records" or "records_not_exposed"
+    enrolment: pd.DataFrame
+    #: overdue and due-soon items: [person_id, group, kind, due_date, status, clause]
+    due: pd.DataFrame
+    #: [group, n_required, n_trained, completion]
+    training_groups: pd.DataFrame
+    #: [group, n_required, n_with_protector, n_fit_tested, protector_share, fit_test_share]
+    protector_groups: pd.DataFrame
+    #: refits after a shift: [person_id, ear, trigger_date, due_date, done_date, status, clause]
+    refits: pd.DataFrame
+    #: [audiometer_id, date, functional_ok, acoustic_ok, exhaustive_ok, booth_ok, ok, reason]
+    audiometer_status: pd.DataFrame
+    #: audiograms on a day without a valid check or in a booth over the limits:
+    #: [person_id, date, ear, audiometer_id, reason]
+    audiograms_flagged: pd.DataFrame
+    #: latest state of each audiometer: [audiometer_id, last_functional, last_acoustic,
+    #: acoustic_due, last_exhaustive, exhaustive_due, last_booth, booth_ok, booth_detail]
+    audiometers: pd.DataFrame
+    #: [subject, subject_type, kind, detail, due_date, clause, source, status], sorted
+    actions: pd.DataFrame
+    #: one row per calendar year (see TREND_COLUMNS); band columns "band: <label>"
+    trends: pd.DataFrame
+    #: plain sentences "what changed since last year"
+    changes: list[str]
+    #: headline figures, JSON-serialisable, sorted keys
+    summary: dict[str, Any]
+    #: notes on what could not be judged (shown on the programme page)
+    notes: list[str] = field(default_factory=list)
+    findings: list[Any] = field(default_factory=list)
+
+
+# ---------------------------------------------------------------------------------------
+# small helpers
+
+
+def clause_for(rule: RuleSet, key: str) -> str:
+    """Return the clause text behind rule *key* for the rule set."""
+    if rule.clauses.get(key):
+        return str(rule.clauses[key])
+    family = "eu" if rule.id.startswith("eu") else "niosh" if rule.id.startswith("niosh") else "osha"
+    return _CLAUSES[family].get(key, rule.short)
+
+
+def add_months(dates: pd.Series, months: float | None) -> pd.Series:
+    """Return *dates* plus whole calendar months (NaT stays NaT; None gives all NaT)."""
+    dates = pd.to_datetime(pd.Series(dates), errors="coerce")
+    if months is None:
+        return pd.Series(pd.NaT, index=dates.index, dtype="datetime64[ns]")
+    return (dates + pd.DateOffset(months=int(round(float(months))))).astype("datetime64[ns]")
+
+
+def _as_dates(values: Any) -> pd.Series:
+    """Return *values* as a datetime64[ns] Series (all-NaN float columns included)."""
+    return pd.to_datetime(pd.Series(values), errors="coerce").astype("datetime64[ns]")
+
+
+def _lookup(keys: pd.Series, values: pd.Series) -> pd.Series:
+    """Return values[key] for each key (NaN/NaT where absent), keeping the index of *keys*."""
+    values = values[~values.index.duplicated(keep="first")]
+    return pd.Series(values.reindex(keys.to_numpy()).to_numpy(), index=keys.index, dtype=values.dtype
+                     if values.dtype.kind == "M" else None)
+
+
+def _ts(value: Any) -> pd.Timestamp:
+    return pd.Timestamp(value).normalize()
+
+
+def _empty(columns: list[str]) -> pd.DataFrame:
+    return pd.DataFrame({c: pd.Series(dtype="object") for c in columns})
+
+
+def _col(df: pd.DataFrame | None, name: str, default: Any = np.nan) -> pd.Series:
+    """Return column *name* of *df* or a column of *default* of matching length."""
+    if df is None:
+        return pd.Series(dtype="object")
+    if name in df.columns:
+        return df[name]
+    return pd.Series([default] * len(df), index=df.index)
+
+
+def _dates(df: pd.DataFrame, name: str = "date") -> pd.Series:
+    return pd.to_datetime(_col(df, name, pd.NaT), errors="coerce").astype("datetime64[ns]")
+
+
+def _table(programme: Programme, name: str) -> pd.DataFrame:
+    tables = getattr(programme, "tables", {}) or {}
+    df = tables.get(name)
+    return df.copy() if df is not None else pd.DataFrame()
+
+
+def _get(results: dict, stage: str, attr: str) -> pd.DataFrame | None:
+    obj = (results or {}).get(stage)
+    if obj is None:
+        return None
+    value = getattr(obj, attr, None)
+    if value is None and isinstance(obj, dict):
+        value = obj.get(attr)
+    return value if isinstance(value, pd.DataFrame) else None
+
+
+def _share(num: float, den: float) -> float | None:
+    return None if not den else round(float(num) / float(den), 4)
+
+
+def _bool(s: pd.Series) -> pd.Series:
+    return s.astype("boolean").fillna(False).astype(bool)
+
+
+# ---------------------------------------------------------------------------------------
+# inputs gathered once
+
+
+@dataclass
+class _Inputs:
+    people: pd.DataFrame  # person_id, group, hire_date, leave_date, must_enrol, first_exposed_date, group_exposed
+    audiograms: pd.DataFrame  # person_id, date, kind (one row per person and date)
+    training: pd.DataFrame  # person_id, date
+    fits: pd.DataFrame  # person_id, protector_id, date, par
+    rule: RuleSet
+    baseline_months: float | None
+    interval_months: float | None
+    training_months: float | None
+
+
+def _gather(programme: Programme, results: dict, rule: RuleSet) -> tuple[_Inputs, list[str]]:
+    """Collect the per-person inputs every rule needs."""
+    notes: list[str] = []
+    people = _table(programme, "people")
+    if people.empty and "person_id" not in people.columns:
+        people = pd.DataFrame({"person_id": pd.Series(dtype=str), "group": pd.Series(dtype=str)})
+    p = pd.DataFrame({
+        "person_id": _col(people, "person_id", "").astype(str),
+        "group": _col(people, "group", "").astype(str),
+        "hire_date": _dates(people, "hire_date"),
+        "leave_date": _dates(people, "leave_date"),
+    })
+    ex_people = _get(results, "exposure", "people")
+    ex_groups = _get(results, "exposure", "groups")
+    if ex_groups is not None and {"group", "exposed"} <= set(ex_groups.columns):
+        gexp = ex_groups.drop_duplicates("group").set_index("group")["exposed"]
+        p["group_exposed"] = _bool(_lookup(p["group"], gexp))
+    else:
+        p["group_exposed"] = False
+    if ex_people is not None and {"person_id", "exposed"} <= set(ex_people.columns):
+        ep = ex_people.drop_duplicates("person_id").set_index("person_id")
+        personal = _lookup(p["person_id"], ep["exposed"])
+        # a person the exposure stage did not judge falls back on the group's judgement
+        p["must_enrol"] = _bool(personal.where(personal.notna(), p["group_exposed"]))
+        first = _as_dates(_col(ep, "first_exposed_date", pd.NaT))
+        p["first_exposed_date"] = _as_dates(_lookup(p["person_id"], first))
+    else:
+        p["must_enrol"] = p["group_exposed"]
+        p["first_exposed_date"] = pd.Series(pd.NaT, index=p.index, dtype="datetime64[ns]")
+        if ex_people is None:
+            notes.append("No exposure results: nobody can be judged as required to be in the programme.")
+    # first exposure unknown: fall back on the hire date (the earliest the person can be exposed)
+    p["first_exposed_date"] = p["first_exposed_date"].where(
+        p["first_exposed_date"].notna() | ~p["must_enrol"], p["hire_date"])
+
+    aud = _table(programme, "audiograms")
+    a = pd.DataFrame({"person_id": _col(aud, "person_id", "").astype(str), "date": _dates(aud),
+                      "kind": _col(aud, "kind", "periodic").astype(str).replace("", "periodic")})
+    a = a.dropna(subset=["date"])
+    # one row per person and test date; an "exit" kind on either ear marks the test as exit
+    a["is_exit"] = a["kind"].eq("exit")
+    a = (a.groupby(["person_id", "date"], as_index=False, sort=True)
+         .agg(kind=("kind", "first"), is_exit=("is_exit", "any")))
+
+    tr = _table(programme, "training")
+    t = pd.DataFrame({"person_id": _col(tr, "person_id", "").astype(str), "date": _dates(tr)})
+    t = t.dropna(subset=["date"]).drop_duplicates().sort_values(["person_id", "date"], kind="mergesort")
+
+    fits = _table(programme, "protector_fits")
+    f = pd.DataFrame({"person_id": _col(fits, "person_id", "").astype(str),
+                      "protector_id": _col(fits, "protector_id", "").astype(str),
+                      "date": _dates(fits),
+                      "par": pd.to_numeric(_col(fits, "par"), errors="coerce")})
+
+    cfg = programme.config
+    baseline = rule.baseline_months
+    if baseline is not None and getattr(cfg.audiometry, "mobile_van", False):
+        baseline = max(float(baseline), float(MOBILE_VAN_MONTHS))
+    interval = rule.audiogram_interval_months
+    training = rule.training_interval_months
+    if baseline is None:
+        notes.append(f"{rule.short} sets no time limit for the baseline audiogram: baselines are not "
+                     "judged for timeliness.")
+    if interval is None:
+        notes.append(f"{rule.short} sets no interval between audiograms: periodic audiograms are not "
+                     "judged as due.")
+    if training is None:
+        notes.append(f"{rule.short} sets no training interval: training is not judged as due.")
+    return _Inputs(p, a, t, f, rule, baseline, interval, training), notes
+
+
+# ---------------------------------------------------------------------------------------
+# per-person status as of one date
+
+
+def _classify(due: pd.Series, as_of: pd.Timestamp, required: pd.Series, done: pd.Series) -> pd.Series:
+    """Return 'not_required' / 'done' / 'overdue' / 'due_soon' / 'scheduled' per row."""
+    soon = as_of + pd.Timedelta(days=DUE_SOON_DAYS)
+    out = np.select(
+        [~required, done, due.isna() | (due < as_of), due <= soon],
+        ["not_required", "done", "overdue", "due_soon"], "scheduled")
+    return pd.Series(out, index=due.index)
+
+
+def person_status(inp: _Inputs, as_of: pd.Timestamp, start: pd.Timestamp) -> pd.DataFrame:
+    """Return every in-scope person's enrolment, audiometry, training and protector status."""
+    p = inp.people
+    in_scope = (p["hire_date"].isna() | (p["hire_date"] <= as_of)) & \
+               (p["leave_date"].isna() | (p["leave_date"] >= start))
+    s = p.loc[in_scope].copy()
+    active = s["leave_date"].isna() | (s["leave_date"] >= as_of)
+    s["must_enrol"] = s["must_enrol"] & (s["first_exposed_date"].isna() | (s["first_exposed_date"] <= as_of))
+
+    aud = inp.audiograms[inp.audiograms["date"] <= as_of]
+    by_person = aud.groupby("person_id")["date"]
+    s["first_audiogram"] = _as_dates(_lookup(s["person_id"], by_person.min()))
+    s["last_audiogram"] = _as_dates(_lookup(s["person_id"], by_person.max()))
+    tr = inp.training[inp.training["date"] <= as_of]
+    s["last_training"] = _as_dates(_lookup(s["person_id"], tr.groupby("person_id")["date"].max()))
+    has_aud = s["last_audiogram"].notna()
+    has_tr = s["last_training"].notna()
+    s["has_records"] = has_aud | has_tr
+    s["enrolled"] = s["has_records"] | s["group_exposed"]
+    s["in_programme"] = s["must_enrol"] | s["enrolled"]
+
+    # baseline: within baseline_months of first exposure (29 CFR 1910.95(g)(5))
+    s["baseline_due"] = add_months(s["first_exposed_date"], inp.baseline_months) \
+        if inp.baseline_months is not None else pd.Series(pd.NaT, index=s.index, dtype="datetime64[ns]")
+    status = _classify(s["baseline_due"], as_of, s["must_enrol"], has_aud)
+    late = has_aud & s["baseline_due"].notna() & (s["first_audiogram"] > s["baseline_due"])
+    status = status.where(~(s["must_enrol"] & has_aud), np.where(late, "late", "on_time"))
+    if inp.baseline_months is None:
+        status = status.where(~(s["must_enrol"] & has_aud), "done")
+    s["baseline_status"] = status
+
+    # periodic: at least every interval_months after the last audiogram (1910.95(g)(6))
+    s["next_audiogram_due"] = add_months(s["last_audiogram"], inp.interval_months)
+    left_first = s["leave_date"].notna() & (s["leave_date"] <= s["next_audiogram_due"])
+    periodic_req = s["must_enrol"] & has_aud & (inp.interval_months is not None) & ~left_first
+    s["audiogram_status"] = _classify(s["next_audiogram_due"], as_of, periodic_req,
+                                      pd.Series(False, index=s.index))
+    s.loc[s["audiogram_status"].eq("scheduled"), "audiogram_status"] = "current"
+    cur_months = inp.interval_months if inp.interval_months is not None else 12
+    s["current_audiogram"] = has_aud & (add_months(s["last_audiogram"], cur_months) >= as_of)
+
+    # exit audiogram where a leave date is given (common practice)
+    exit_req = s["must_enrol"] & s["leave_date"].notna() & (s["leave_date"] <= as_of + pd.Timedelta(
+        days=DUE_SOON_DAYS))
+    ex = aud.merge(s[["person_id", "leave_date"]], on="person_id", how="inner")
+    ex_ok = ex["is_exit"] | (ex["date"] >= ex["leave_date"] - pd.Timedelta(days=EXIT_WINDOW_DAYS))
+    exit_done = s["person_id"].isin(ex.loc[ex_ok, "person_id"])
+    s["exit_status"] = _classify(s["leave_date"], as_of, exit_req, exit_done)
+
+    # training: at least every training_months (1910.95(k)(2)); first training on enrolment
+    s["next_training_due"] = add_months(s["last_training"], inp.training_months).where(
+        has_tr, s["first_exposed_date"].where(s["first_exposed_date"].notna(), as_of))
+    left_before = s["leave_date"].notna() & (s["leave_date"] <= s["next_training_due"])
+    train_req = s["in_programme"] & (inp.training_months is not None) & ~left_before
+    s["training_status"] = _classify(s["next_training_due"], as_of, train_req,
+                                     pd.Series(False, index=s.index))
+    s.loc[s["training_status"].eq("scheduled"), "training_status"] = "current"
+    tr_months = inp.training_months if inp.training_months is not None else 12
+    s["trained_current"] = has_tr & (add_months(s["last_training"], tr_months) >= as_of)
+    s["active"] = active
+
+    # protectors: issued or fitted on or before the as-of date (blank date counts)
+    fits = inp.fits[inp.fits["date"].isna() | (inp.fits["date"] <= as_of)]
+    s["has_protector"] = s["person_id"].isin(fits.loc[fits["protector_id"].ne(""), "person_id"])
+    s["has_fit_test"] = s["person_id"].isin(fits.loc[fits["par"].notna(), "person_id"])
+    s["protector_required"] = s["in_programme"] & active
+    return s.sort_values("person_id", kind="mergesort").reset_index(drop=True)
+
+
+# ---------------------------------------------------------------------------------------
+# audiometer and booth
+
+
+def _asof_check(tests: pd.DataFrame, checks: pd.DataFrame, kind: str, name: str) -> pd.DataFrame:
+    """Attach the latest passing *kind* check on or before each test date."""
+    c = checks.loc[checks["check"].eq(kind) & checks["result"].ne("fail"), ["audiometer_id", "date"]]
+    c = c.rename(columns={"date": name}).sort_values(name, kind="mergesort")
+    c["_key"] = c[name]
+    t = tests.sort_values("date", kind="mergesort")
+    if c.empty:
+        t[name] = pd.Series(pd.NaT, index=t.index, dtype="datetime64[ns]")
+        return t
+    m = pd.merge_asof(t, c, left_on="date", right_on="_key", by="audiometer_id", direction="backward")
+    return m.drop(columns="_key")
+
+
+def booth_judgement(checks: pd.DataFrame) -> pd.DataFrame:
+    """Judge booth measurements against 29 CFR 1910.95 App. D Table D-1; add booth_pass, booth_detail."""
+    b = checks.loc[checks["check"].eq("booth")].copy()
+    over = []
+    measured = pd.Series(False, index=b.index)
+    for f, lim in BOOTH_LIMITS.items():
+        col = pd.to_numeric(_col(b, f"ob_{f}"), errors="coerce")
+        measured |= col.notna()
+        text = f"{f} Hz " + col.round(1).map("{:g}".format).astype(str) + f" dB > {lim:g} dB"
+        over.append(np.where(col > lim, text, ""))
+    detail = pd.Series([""] * len(b), index=b.index, dtype=object)
+    for o in over:
+        o = pd.Series(o, index=b.index)
+        detail = detail.where(o.eq(""), np.where(detail.eq(""), o, detail + "; " + o))
+    failed = b["result"].eq("fail")
+    b["booth_pass"] = measured & detail.eq("") & ~failed
+    detail = detail.where(measured, "no octave-band levels recorded")
+    detail = detail.where(~(failed & detail.eq("")), "booth check recorded as failed")
+    b["booth_detail"] = detail
+    return b
+
+
+def audiometer_checks(programme: Programme, rule: RuleSet) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+    """Return (audiometer_status, audiograms_flagged, audiometers) for every test day."""
+    aud = _table(programme, "audiograms")
+    tests = pd.DataFrame({"person_id": _col(aud, "person_id", "").astype(str), "date": _dates(aud),
+                          "ear": _col(aud, "ear", "").astype(str),
+                          "audiometer_id": _col(aud, "audiometer_id", "").astype(str)}).dropna(subset=["date"])
+    raw = _table(programme, "audiometers")
+    checks = pd.DataFrame({"audiometer_id": _col(raw, "audiometer_id", "").astype(str), "date": _dates(raw),
+                           "check": _col(raw, "check", "").astype(str),
+                           "result": _col(raw, "result", "").astype(str)})
+    for f in BOOTH_LIMITS:
+        checks[f"ob_{f}"] = pd.to_numeric(_col(raw, f"ob_{f}"), errors="coerce")
+    checks = checks.dropna(subset=["date"])
+    if tests.empty:
+        return _empty(STATUS_COLUMNS), _empty(FLAGGED_COLUMNS), _audiometer_overview(checks, tests)
+
+    days = tests[["audiometer_id", "date"]].drop_duplicates().sort_values(
+        ["audiometer_id", "date"], kind="mergesort").reset_index(drop=True)
+    func = checks.loc[checks["check"].eq("functional") & checks["result"].ne("fail"),
+                      ["audiometer_id", "date"]].drop_duplicates()
+    func["functional_ok"] = True
+    st = days.merge(func, on=["audiometer_id", "date"], how="left")
+    st["functional_ok"] = _bool(st["functional_ok"])
+    st = _asof_check(st, checks, "acoustic", "last_acoustic")
+    st = _asof_check(st, checks, "exhaustive", "last_exhaustive")
+    booths = booth_judgement(checks)
+    bcols = booths[["audiometer_id", "date", "booth_pass", "booth_detail"]].rename(
+        columns={"date": "last_booth"}).sort_values("last_booth", kind="mergesort")
+    if bcols.empty:
+        st["last_booth"] = pd.NaT
+        st["booth_pass"] = False
+        st["booth_detail"] = "no booth measurement recorded"
+    else:
+        bcols["_key"] = bcols["last_booth"]
+        st = pd.merge_asof(st.sort_values("date", kind="mergesort"), bcols, left_on="date", right_on="_key",
+                           by="audiometer_id", direction="backward").drop(columns="_key")
+        st["booth_detail"] = st["booth_detail"].fillna("no booth measurement recorded")
+        st["booth_pass"] = _bool(st["booth_pass"])
+    # acoustic within 12 months, exhaustive within 24 months before the test (inclusive)
+    st["acoustic_ok"] = st["last_acoustic"].notna() & (add_months(st["last_acoustic"], ACOUSTIC_MONTHS)
+                                                      >= st["date"])
+    st["exhaustive_ok"] = st["last_exhaustive"].notna() & (add_months(st["last_exhaustive"], EXHAUSTIVE_MONTHS)
+                                                          >= st["date"])
+    st["booth_ok"] = st["booth_pass"]
+    known = st["audiometer_id"].ne("")
+    for c in ("functional_ok", "acoustic_ok", "exhaustive_ok", "booth_ok"):
+        st[c] = st[c] & known
+    st["ok"] = st["functional_ok"] & st["acoustic_ok"] & st["exhaustive_ok"] & st["booth_ok"]
+    reasons = [
+        (~known, "audiometer not recorded"),
+        (known & ~st["functional_ok"], "no functional check that day"),
+        (known & ~st["acoustic_ok"], "no acoustic calibration within 12 months"),
+        (known & ~st["exhaustive_ok"], "no exhaustive calibration within 24 months"),
+        (known & ~st["booth_ok"], "booth: " + st["booth_detail"].astype(str)),
+    ]
+    reason = pd.Series([""] * len(st), index=st.index, dtype=object)
+    for mask, text in reasons:
+        reason = reason.where(~mask, np.where(reason.eq(""), text, reason + "; " + text))
+    st["reason"] = reason
+    st = st.sort_values(["audiometer_id", "date"], kind="mergesort").reset_index(drop=True)
+    status = st[STATUS_COLUMNS].copy()
+
+    flagged = tests.merge(status.loc[~status["ok"], ["audiometer_id", "date", "reason"]],
+                          on=["audiometer_id", "date"], how="inner")
+    flagged = flagged[FLAGGED_COLUMNS].sort_values(["date", "person_id", "ear"], kind="mergesort") \
+        .reset_index(drop=True)
+    return status, flagged, _audiometer_overview(checks, tests)
+
+
+def _audiometer_overview(checks: pd.DataFrame, tests: pd.DataFrame) -> pd.DataFrame:
+    """Return the latest check of each kind per audiometer and the next calibration dates."""
+    cols = ["audiometer_id", "last_functional", "last_acoustic", "acoustic_due", "last_exhaustive",
+            "exhaustive_due", "last_booth", "booth_ok", "booth_detail", "last_used"]
+    ids = sorted(set(checks["audiometer_id"]) | set(tests.get("audiometer_id", pd.Series(dtype=str))) - {""})
+    if not ids:
+        return _empty(cols)
+    out = pd.DataFrame({"audiometer_id": ids})
+    ok = checks[checks["result"].ne("fail")]
+    for kind in ("functional", "acoustic", "exhaustive"):
+        last = ok[ok["check"].eq(kind)].groupby("audiometer_id")["date"].max()
+        out[f"last_{kind}"] = _as_dates(_lookup(out["audiometer_id"], last))
+    out["acoustic_due"] = add_months(out["last_acoustic"], ACOUSTIC_MONTHS)
+    out["exhaustive_due"] = add_months(out["last_exhaustive"], EXHAUSTIVE_MONTHS)
+    booths = booth_judgement(checks).sort_values(["audiometer_id", "date"], kind="mergesort")
+    latest = booths.drop_duplicates("audiometer_id", keep="last").set_index("audiometer_id")
+    out["last_booth"] = _as_dates(_lookup(out["audiometer_id"], latest["date"]))
+    out["booth_ok"] = _bool(_lookup(out["audiometer_id"], latest["booth_pass"]))
+    out["booth_detail"] = _lookup(out["audiometer_id"], latest["booth_detail"]).fillna(
+        "no booth measurement recorded")
+    if "audiometer_id" in tests.columns and not tests.empty:
+        out["last_used"] = _as_dates(_lookup(out["audiometer_id"], tests.groupby("audiometer_id")["date"].max()))
+    else:
+        out["last_used"] = pd.Series(pd.NaT, index=out.index, dtype="datetime64[ns]")
+    return out[cols]
+
+
+# ---------------------------------------------------------------------------------------
+# action list
+
+
+def _normalise_actions(df: pd.DataFrame | None, source: str) -> pd.DataFrame:
+    """Bring another stage's action table to ACTION_COLUMNS."""
+    if df is None or df.empty:
+        return _empty(ACTION_COLUMNS)
+    a = df.copy()
+    if "subject" not in a.columns:
+        if "person_id" in a.columns:
+            a["subject"] = a["person_id"]
+            a["subject_type"] = "person"
+        elif "group" in a.columns:
+            a["subject"] = a["group"]
+            a["subject_type"] = "group"
+        else:
+            a["subject"] = ""
+    if "subject_type" not in a.columns:
+        a["subject_type"] = np.where(a.get("person_id", pd.Series("", index=a.index)).astype(str).ne(""),
+                                     "person", "group") if "person_id" in a.columns else "group"
+    for c, default in (("kind", source), ("detail", ""), ("clause", ""), ("status", "open")):
+        if c not in a.columns:
+            a[c] = default
+    if "due_date" not in a.columns:
+        a["due_date"] = a["date"] if "date" in a.columns else pd.NaT
+    a["source"] = source if "source" not in df.columns else a["source"].where(a["source"].astype(str).ne(""),
+                                                                               source)
+    a["due_date"] = pd.to_datetime(a["due_date"], errors="coerce").astype("datetime64[ns]")
+    for c in ("subject", "subject_type", "kind", "detail", "clause", "source", "status"):
+        a[c] = a[c].fillna("").astype(str)
+    return a[ACTION_COLUMNS]
+
+
+def _person_actions(s: pd.DataFrame, inp: _Inputs, as_of: pd.Timestamp) -> pd.DataFrame:
+    """Return the open audiometry, training, enrolment and protector items of in-scope people."""
+    rule = inp.rule
+    parts = []
+    sel = s["baseline_status"].isin(["overdue", "due_soon"])
+    parts.append(pd.DataFrame({
+        "subject": s.loc[sel, "person_id"], "kind": "baseline audiogram",
+        "detail": np.where(s.loc[sel, "baseline_due"].isna(), "no baseline audiogram; first exposure date unknown",
+                           "no baseline audiogram yet"),
+        "due_date": s.loc[sel, "baseline_due"].fillna(as_of), "clause": clause_for(rule, "baseline"),
+        "status": s.loc[sel, "baseline_status"]}))
+    sel = s["audiogram_status"].isin(["overdue", "due_soon"])
+    parts.append(pd.DataFrame({
+        "subject": s.loc[sel, "person_id"], "kind": "annual audiogram",
+        "detail": "last audiogram " + s.loc[sel, "last_audiogram"].dt.strftime("%Y-%m-%d"),
+        "due_date": s.loc[sel, "next_audiogram_due"], "clause": clause_for(rule, "periodic"),
+        "status": s.loc[sel, "audiogram_status"]}))
+    sel = s["exit_status"].isin(["overdue", "due_soon"])
+    parts.append(pd.DataFrame({
+        "subject": s.loc[sel, "person_id"], "kind": "exit audiogram",
+        "detail": "leaves or left employment; no exit audiogram on record",
+        "due_date": s.loc[sel, "leave_date"], "clause": clause_for(rule, "exit"),
+        "status": s.loc[sel, "exit_status"]}))
+    sel = s["training_status"].isin(["overdue", "due_soon"])
+    parts.append(pd.DataFrame({
+        "subject": s.loc[sel, "person_id"], "kind": "training",
+        "detail": np.where(s.loc[sel, "last_training"].isna(), "no training on record",
+                           "last training " + s.loc[sel, "last_training"].dt.strftime("%Y-%m-%d").fillna("")),
+        "due_date": s.loc[sel, "next_training_due"], "clause": clause_for(rule, "training"),
+        "status": s.loc[sel, "training_status"]}))
+    sel = s["must_enrol"] & ~s["has_records"] & s["active"]
+    parts.append(pd.DataFrame({
+        "subject": s.loc[sel, "person_id"], "kind": "enrolment",
+        "detail": "exposed at or above the action value but no audiometry or training records",
+        "due_date": s.loc[sel, "first_exposed_date"].fillna(as_of), "clause": clause_for(rule, "enrolment"),
+        "status": np.where(s.loc[sel, "first_exposed_date"].fillna(as_of) < as_of, "overdue", "open")}))
+    sel = s["protector_required"] & ~s["has_protector"]
+    parts.append(pd.DataFrame({
+        "subject": s.loc[sel, "person_id"], "kind": "protector",
+        "detail": "no hearing protector issued or fitted on record",
+        "due_date": s.loc[sel, "first_exposed_date"].fillna(as_of), "clause": clause_for(rule, "protector"),
+        "status": np.where(s.loc[sel, "first_exposed_date"].fillna(as_of) < as_of, "overdue", "open")}))
+    out = pd.concat([p for p in parts if not p.empty], ignore_index=True) if any(
+        not p.empty for p in parts) else _empty(ACTION_COLUMNS)
+    out["subject_type"] = "person"
+    out["source"] = "compliance"
+    return out.reindex(columns=ACTION_COLUMNS)
+
+
+def _audiometer_actions(audiometers: pd.DataFrame, flagged: pd.DataFrame, rule: RuleSet,
+                        as_of: pd.Timestamp, start: pd.Timestamp) -> pd.DataFrame:
+    """Return calibration and booth items of audiometers used in the period, and flagged tests."""
+    parts = []
+    soon = as_of + pd.Timedelta(days=DUE_SOON_DAYS)
+    if audiometers.empty:
+        audiometers = audiometers.assign(last_used=pd.Series(dtype="datetime64[ns]"))
+    used = audiometers[audiometers["last_used"].notna() & (audiometers["last_used"] >= start)]
+    for kind, due_col, last_col, text in (
+            ("acoustic calibration", "acoustic_due", "last_acoustic", "acoustic calibration"),
+            ("exhaustive calibration", "exhaustive_due", "last_exhaustive", "exhaustive calibration")):
+        sel = used[due_col].isna() | (used[due_col] <= soon)
+        u = used.loc[sel]
+        if u.empty:
+            continue
+        parts.append(pd.DataFrame({
+            "subject": u["audiometer_id"], "subject_type": "audiometer", "kind": kind,
+            "detail": np.where(u[last_col].isna(), f"no {text} on record",
+                               f"last {text} " + u[last_col].dt.strftime("%Y-%m-%d").fillna("")),
+            "due_date": u[due_col].fillna(as_of),
+            "clause": clause_for(rule, "acoustic" if kind.startswith("acoustic") else "exhaustive"),
+            "status": np.where(u[due_col].fillna(as_of) < as_of, "overdue", "due_soon")}))
+    u = used.loc[~_bool(used["booth_ok"])] if not used.empty else used
+    if not u.empty:
+        parts.append(pd.DataFrame({
+            "subject": u["audiometer_id"], "subject_type": "audiometer", "kind": "booth",
+            "detail": "booth: " + u["booth_detail"].astype(str), "due_date": u["last_booth"].fillna(as_of),
+            "clause": clause_for(rule, "booth"), "status": "open"}))
+    f = flagged[flagged["date"] >= start]
+    if not f.empty:
+        f = f.groupby(["person_id", "date"], as_index=False, sort=True).agg(
+            reason=("reason", "first"), audiometer_id=("audiometer_id", "first"))
+        parts.append(pd.DataFrame({
+            "subject": f["person_id"], "subject_type": "person", "kind": "audiogram conditions",
+            "detail": "audiogram of " + f["date"].dt.strftime("%Y-%m-%d") + " taken when " + f["reason"]
+                      + "; have the reviewer judge whether it stands",
+            "due_date": f["date"], "clause": clause_for(rule, "functional") + "; " + clause_for(rule, "booth"),
+            "status": "open"}))
+    parts = [p for p in parts if not p.empty]
+    if not parts:
+        return _empty(ACTION_COLUMNS)
+    out = pd.concat(parts, ignore_index=True)
+    out["source"] = "compliance"
+    return out.reindex(columns=ACTION_COLUMNS)
+
+
+def sort_actions(actions: pd.DataFrame) -> pd.DataFrame:
+    """Sort actions by due date (blank last), then subject, kind and detail; drop repeats."""
+    a = actions.copy()
+    a["due_date"] = pd.to_datetime(a["due_date"], errors="coerce").astype("datetime64[ns]")
+    a = a.drop_duplicates(subset=["subject", "subject_type", "kind", "due_date"], keep="first")
+    a = a.sort_values(["due_date", "subject", "kind", "detail"], kind="mergesort", na_position="last")
+    return a.reset_index(drop=True)[ACTION_COLUMNS]
+
+
+# ---------------------------------------------------------------------------------------
+# trends
+
+
+def _year_bands(results: dict, rule: RuleSet, people: pd.DataFrame, as_of: pd.Timestamp) -> dict[str, int]:
+    """Count in-scope people per exposure band from the measurements up to *as_of*."""
+    m = _get(results, "exposure", "measurements")
+    col = f"band_{rule.id}"
+    if m is None or col not in m.columns or people.empty:
+        return {}
+    mm = pd.DataFrame({"person_id": _col(m, "person_id", "").fillna("").astype(str),
+                       "group": _col(m, "group", "").fillna("").astype(str),
+                       "date": _dates(m), "band": _col(m, col, "").fillna("").astype(str)})
+    mm = mm[(mm["date"] <= as_of) & mm["band"].ne("")].sort_values("date", kind="mergesort")
+    personal = mm[mm["person_id"].ne("")].drop_duplicates("person_id", keep="last").set_index("person_id")["band"]
+    group = mm.drop_duplicates("group", keep="last").set_index("group")["band"]
+    band = _lookup(people["person_id"], personal)
+    band = band.where(band.notna(), _lookup(people["group"], group)).fillna("not measured")
+    counts = band.value_counts()
+    labels = list(rule.band_labels()) + sorted(set(counts.index) - set(rule.band_labels()))
+    return {lab: int(counts.get(lab, 0)) for lab in labels}
+
+
+def _figures(s: pd.DataFrame, hearing: pd.DataFrame | None, year_start: pd.Timestamp,
+             as_of: pd.Timestamp) -> dict[str, Any]:
+    """Return the headline figures of one status table."""
+    must = s["must_enrol"]
+    must_active = must & s["active"]
+    req_train = s["in_programme"] & s["active"]
+    f: dict[str, Any] = {
+        "in_scope": int(len(s)),
+        "must_be_enrolled": int(must.sum()),
+        "enrolled": int(s["enrolled"].sum()),
+        "not_enrolled": int((must & ~s["has_records"]).sum()),
+        "enrolled_not_exposed": int((s["has_records"] & ~must).sum()),
+        "current_audiogram_share": _share((s["current_audiogram"] & must_active).sum(), must_active.sum()),
+        "trained_share": _share((s["trained_current"] & req_train).sum(), req_train.sum()),
+        "protector_share": _share((s["has_protector"] & s["protector_required"]).sum(),
+                                  s["protector_required"].sum()),
+        "fit_test_share": _share((s["has_fit_test"] & s["protector_required"]).sum(),
+                                 s["protector_required"].sum()),
+        "overdue_baselines": int(s["baseline_status"].eq("overdue").sum()),
+        "late_baselines": int(s["baseline_status"].eq("late").sum()),
+        "overdue_audiograms": int(s["audiogram_status"].eq("overdue").sum()
+                                  + s["baseline_status"].eq("overdue").sum()
+                                  + s["exit_status"].eq("overdue").sum()),
+        "due_soon_audiograms": int(s["audiogram_status"].eq("due_soon").sum()
+                                   + s["baseline_status"].eq("due_soon").sum()
+                                   + s["exit_status"].eq("due_soon").sum()),
+        "overdue_training": int(s["training_status"].eq("overdue").sum()),
+    }
+    sts = rec = 0
+    if hearing is not None and not hearing.empty:
+        d = _dates(hearing)
+        inyear = (d >= year_start) & (d <= as_of)
+        for key, col in (("sts", "sts"), ("rec", "recordable")):
+            if col in hearing.columns:
+                hit = inyear & _bool(hearing[col])
+                n = int(hearing.loc[hit, "person_id"].astype(str).nunique()) if "person_id" in hearing else 0
+                if key == "sts":
+                    sts = n
+                else:
+                    rec = n
+    f["sts"] = sts
+    f["recordables"] = rec
+    return f
+
+
+TREND_COLUMNS = ["year", "as_of", "in_scope", "must_be_enrolled", "enrolled", "current_audiogram_share",
+                 "trained_share", "protector_share", "sts", "recordables", "open_actions"]
+
+
+def compute_trends(inp: _Inputs, results: dict, start: pd.Timestamp, as_of: pd.Timestamp,
+                   first_year: int | None) -> pd.DataFrame:
+    """Return one row of headline figures per calendar year, as of each 31 Dec (as_of last)."""
+    if first_year is None or first_year > as_of.year:
+        return pd.DataFrame(columns=TREND_COLUMNS)
+    hearing = _get(results, "hearing", "audiograms")
+    rows = []
+    for year in range(first_year, as_of.year + 1):  # one pass per calendar year (a handful), not per row
+        y_end = as_of if year == as_of.year else pd.Timestamp(year=year, month=12, day=31)
+        y_start = start if year == as_of.year else pd.Timestamp(year=year, month=1, day=1)
+        s = person_status(inp, y_end, y_start)
+        f = _figures(s, hearing, y_start, y_end)
+        row = {"year": year, "as_of": y_end, **{k: f[k] for k in TREND_COLUMNS[2:-1]},
+               "open_actions": f["overdue_audiograms"] + f["overdue_training"]
+               + int((s["protector_required"] & ~s["has_protector"]).sum())}
+        for label, n in _year_bands(results, inp.rule, s, y_end).items():
+            row[f"band: {label}"] = n
+        rows.append(row)
+    out = pd.DataFrame(rows)
+    bands = [c for c in out.columns if c.startswith("band: ")]
+    out[bands] = out[bands].fillna(0).astype(int)
+    return out
+
+
+_TREND_WORDS = {
+    "enrolled": ("People enrolled", False),
+    "current_audiogram_share": ("Share with a current audiogram", True),
+    "trained_share": ("Share trained within the last 12 months", True),
+    "protector_share": ("Share with a hearing protector on record", True),
+    "sts": ("People with a standard threshold shift", False),
+    "recordables": ("People with a recordable hearing loss", False),
+    "open_actions": ("Open compliance items at year end", False),
+}
+
+
+def _fmt(value: Any, share: bool) -> str:
+    if value is None or (isinstance(value, float) and np.isnan(value)):
+        return "not known"
+    return f"{round(float(value) * 100):.0f} %" if share else f"{int(value)}"
+
+
+def describe_changes(trends: pd.DataFrame) -> list[str]:
+    """Return plain sentences on what changed between the last two years of *trends*."""
+    if len(trends) < 2:
+        return ["Only one year of records: there is no earlier year to compare with."]
+    prev, last = trends.iloc[-2], trends.iloc[-1]
+    out = []
+    for col, (label, share) in _TREND_WORDS.items():
+        if col not in trends.columns:
+            continue
+        a, b = prev[col], last[col]
+        if a is None or b is None or pd.isna(a) or pd.isna(b):
+            continue
+        fa, fb = _fmt(a, share), _fmt(b, share)
+        if fa == fb:
+            out.append(f"{label} stayed at {fb}.")
+        else:
+            verb = "rose" if float(b) > float(a) else "fell"
+            out.append(f"{label} {verb} from {fa} in {int(prev['year'])} to {fb} in {int(last['year'])}.")
+    bands = [c for c in trends.columns if c.startswith("band: ")]
+    for c in bands:
+        a, b = int(prev[c]), int(last[c])
+        if a != b:
+            out.append(f"People in exposure band {c[6:]} dB: {a} in {int(prev['year'])}, {b} in "
+                       f"{int(last['year'])}.")
+    return out
+
+
+# ---------------------------------------------------------------------------------------
+# the stage
+
+
+def _first_record_year(programme: Programme) -> int | None:
+    """Return the first calendar year the programme's records cover.
+
+    Noise measurements, training, protector issues and audiometer checks mark the years
+    the programme kept records; audiograms count only when none of those exist, because
+    baselines taken at hiring may date from decades before the records begin.
+    """
+    def first(names: tuple[str, ...]) -> int | None:
+        years = [int(d.min().year) for d in (_dates(_table(programme, n)).dropna() for n in names) if not d.empty]
+        return min(years) if years else None
+    return first(("noise", "training", "protector_fits", "audiometers")) or first(("audiograms",))
+
+
+def compute(programme: Programme, results: dict) -> ComplianceResult:
+    """Judge the programme against the headline rule set as of the end of the review period."""
+    cfg = programme.config
+    rules = (results or {}).get("rules")
+    rule = rules[cfg.rules] if isinstance(rules, dict) and cfg.rules in rules else load_rule_set(cfg.rules, cfg)
+    as_of, start = _ts(cfg.period.end), _ts(cfg.period.start)
+    inp, notes = _gather(programme, results, rule)
+    s = person_status(inp, as_of, start)
+
+    enrol = pd.concat([
+        s.loc[s["must_enrol"] & ~s["has_records"], ["person_id", "group"]].assign(
+            mismatch="exposed_no_records",
+            detail="exposed at or above the action value; no audiometry or training records"),
+        s.loc[s["has_records"] & ~s["must_enrol"], ["person_id", "group"]].assign(
+            mismatch="records_not_exposed",
+            detail="has audiometry or training records but is not judged exposed (information only)"),
+    ], ignore_index=True).sort_values(["mismatch", "person_id"], kind="mergesort").reset_index(drop=True)
+
+    due_parts = []
+    for kind, status_col, due_col, ckey in (
+            ("baseline", "baseline_status", "baseline_due", "baseline"),
+            ("periodic", "audiogram_status", "next_audiogram_due", "periodic"),
+            ("exit", "exit_status", "leave_date", "exit"),
+            ("training", "training_status", "next_training_due", "training")):
+        sel = s[status_col].isin(["overdue", "due_soon"])
+        due_parts.append(pd.DataFrame({"person_id": s.loc[sel, "person_id"], "group": s.loc[sel, "group"],
+                                       "kind": kind, "due_date": s.loc[sel, due_col],
+                                       "status": s.loc[sel, status_col], "clause": clause_for(rule, ckey)}))
+    due = pd.concat(due_parts, ignore_index=True).reindex(columns=DUE_COLUMNS)
+    due = due.sort_values(["due_date", "person_id", "kind"], kind="mergesort", na_position="first") \
+        .reset_index(drop=True)
+
+    req = s[s["in_programme"] & s["active"]]
+    tg = req.groupby("group", sort=True).agg(n_required=("person_id", "size"),
+                                             n_trained=("trained_current", "sum")).reset_index()
+    tg["n_trained"] = tg["n_trained"].astype(int)
+    tg["completion"] = (tg["n_trained"] / tg["n_required"]).round(4)
+    preq = s[s["protector_required"]]
+    pg = preq.groupby("group", sort=True).agg(n_required=("person_id", "size"),
+                                              n_with_protector=("has_protector", "sum"),
+                                              n_fit_tested=("has_fit_test", "sum")).reset_index()
+    for c in ("n_with_protector", "n_fit_tested"):
+        pg[c] = pg[c].astype(int)
+    pg["protector_share"] = (pg["n_with_protector"] / pg["n_required"]).round(4)
+    pg["fit_test_share"] = (pg["n_fit_tested"] / pg["n_required"]).round(4)
+
+    fu = _get(results, "hearing", "followups")
+    ref_cols = ["person_id", "ear", "trigger_date", "due_date", "done_date", "status", "clause"]
+    if fu is not None and not fu.empty and "kind" in fu.columns:
+        refits = fu.loc[fu["kind"].astype(str).eq("refit")].reindex(columns=ref_cols)
+        refits["clause"] = refits["clause"].fillna("").astype(str).replace("", clause_for(rule, "refit"))
+        refits = refits.sort_values(["due_date", "person_id"], kind="mergesort").reset_index(drop=True)
+    else:
+        refits = _empty(ref_cols)
+    open_refits = refits[refits["done_date"].isna()] if not refits.empty else refits
+    refit_actions = pd.DataFrame({
+        "subject": open_refits["person_id"], "subject_type": "person", "kind": "refit",
+        "detail": "refit and retrain protector use after a shift (ear " + open_refits["ear"].astype(str) + ")",
+        "due_date": open_refits["due_date"], "clause": open_refits["clause"], "source": "hearing",
+        "status": np.where(pd.to_datetime(open_refits["due_date"], errors="coerce") < as_of, "overdue", "open"),
+    }).reindex(columns=ACTION_COLUMNS) if not open_refits.empty else _empty(ACTION_COLUMNS)
+
+    status, flagged, meters = audiometer_checks(programme, rule)
+    if hasattr(programme, "has") and not programme.has("audiometers"):
+        notes.append("No audiometer records (data/audiometers.csv): audiograms cannot be checked against "
+                     "daily checks, calibrations and booth levels.")
+
+    parts = [a for a in (
+        _person_actions(s, inp, as_of),
+        _audiometer_actions(meters, flagged, rule, as_of, start),
+        _normalise_actions(_get(results, "exposure", "actions"), "exposure"),
+        _normalise_actions(_get(results, "protection", "actions"), "protection"),
+        _normalise_actions(_get(results, "hearing", "actions"), "hearing"),
+        refit_actions,
+    ) if not a.empty]
+    actions = sort_actions(pd.concat(parts, ignore_index=True)) if parts else _empty(ACTION_COLUMNS)
+
+    trends = compute_trends(inp, results, start, as_of, _first_record_year(programme))
+    changes = describe_changes(trends) if not trends.empty else []
+
+    fig = _figures(s, _get(results, "hearing", "audiograms"), start, as_of)
+    by_kind = actions["kind"].value_counts().sort_index() if not actions.empty else pd.Series(dtype=int)
+    summary: dict[str, Any] = {
+        **{k: v for k, v in fig.items() if k not in ("sts", "recordables")},
+        "as_of": as_of.strftime("%Y-%m-%d"),
+        "rules": rule.id,
+        "sts_this_period": fig["sts"],
+        "recordables_this_period": fig["recordables"],
+        "open_actions": {str(k): int(v) for k, v in by_kind.items()},
+        "open_actions_total": int(len(actions)),
+        "overdue_actions": int(actions["status"].eq("overdue").sum()) if not actions.empty else 0,
+        "overdue_training": fig["overdue_training"],
+        "refits_open": int(len(open_refits)),
+        "audiograms_flagged": int(len(flagged)),
+        "audiometer_days_ok_share": _share(status["ok"].sum(), len(status)) if not status.empty else None,
+    }
+    summary = dict(sorted(summary.items()))
+    log.info("compliance: %d people in scope, %d actions", len(s), len(actions))
+    return ComplianceResult(
+        as_of=as_of, rules=rule.id, people=s, enrolment=enrol, due=due, training_groups=tg,
+        protector_groups=pg, refits=refits, audiometer_status=status, audiograms_flagged=flagged,
+        audiometers=meters, actions=actions, trends=trends, changes=changes, summary=summary, notes=notes)

@@ -1,0 +1,1117 @@
+"""Hearing: baselines, threshold shifts, recordable cases, follow-ups and population views.
+
+Rules decided once here (content/methods/hearing.md explains them to readers):
+
+* **Ears are separate.** Every comparison is per person and ear, against the baseline in
+  force for that ear on the test date.
+* **Baseline.** The first audiogram of kind ``baseline`` with numbers at 2000, 3000 and
+  4000 Hz, else the first audiogram with those numbers. It is replaced only by a reviewer's
+  ``revise_baseline`` decision (reviews.csv), from the audiogram that decision names. The
+  program flags candidates for revision (persistent shift; marked improvement) and never
+  revises by itself.
+* **NR (no response)** is a censored value: the threshold lies at or beyond the
+  audiometer's limit, which the records do not give. An average or a shift that needs an
+  NR frequency is not computed (NaN); the row keeps ``nr_any`` and is listed for review
+  ("shift at least as large as the limit allows; not computed"). Order statistics
+  (medians, fractiles, shares above a norm) count NR as worse than every number; means
+  leave NR out and say how many were left out.
+* **OSHA STS** (29 CFR 1910.95(g)(10)): mean change at 2000/3000/4000 Hz of 10 dB or more,
+  shown without and with the App. F age correction; ``config.audiometry.age_correction``
+  picks the one that drives actions (no correction where sex or age is unknown, flagged).
+* **Retest** (1910.95(g)(7)(ii), 1904.10(b)(4)): the next audiogram of the same ear within
+  ``retest_days`` confirms (still a shift) or cancels (no shift) the first one; it is not
+  a new determination itself.
+* **Reviewer decisions** ``confirm_shift``/``cancel_shift`` override the retest, the later
+  decision wins; ``not_work_related`` removes a case from recordability and refits.
+* **Recordable** (29 CFR 1904.10): a shift in force (age correction allowed) whose current
+  2000/3000/4000 Hz average is 25 dB HL or more in the same ear (never age corrected),
+  not judged not work-related; one case per ear until that ear's baseline is revised.
+* **NIOSH** (DHHS (NIOSH) 98-126): 15 dB or more worse than baseline at any of
+  500-6000 Hz, confirmed at the same frequency on the next test of the same ear; never
+  age corrected.
+
+Results are figures for a qualified reviewer; nothing here is a diagnosis.
+"""
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from . import norms
+from .findings import WARNING, Finding
+from .inputs.spec import AUDIO_FREQS
+from .model import Programme
+
+log = logging.getLogger(__name__)
+
+#: Frequencies of the 2000/3000/4000 Hz average (29 CFR 1910.95(g)(10), 1904.10).
+STS_FREQS = (2000, 3000, 4000)
+#: Frequencies of the NIOSH shift and of the sequential-pair indicators.
+NIOSH_FREQS = (500, 1000, 2000, 3000, 4000, 6000)
+#: Frequencies compared with ISO 1999:2013 on the noise comparison.
+NOISE_FREQS = (3000, 4000, 6000)
+
+#: Values this module uses, with where each comes from.
+PARAMETERS: dict[str, Any] = {
+    "sts_db": 10.0,  # 29 CFR 1910.95(g)(10)(i)
+    "recordable_db": 25.0,  # 29 CFR 1904.10(a)
+    "niosh_db": 15.0,  # DHHS (NIOSH) 98-126
+    "indicator_db": 15.0,  # ANSI/ASA S12.13 TR-2002 sequential-pair criterion
+    "improvement_db": 5.0,  # program choice: 2/3/4 kHz average this much better on two tests in a row
+    "refit_days": 21,  # program choice: refit due with the written notice (1910.95(g)(8)(ii))
+    "referral_days": 21,  # program choice
+    "ci_level": 0.95,  # exact (Clopper-Pearson) binomial interval
+    "age_bands": (18, 30, 40, 50, 60, 200),
+    "clauses": {
+        "sts": "29 CFR 1910.95(g)(10)",
+        "notice": "29 CFR 1910.95(g)(8)(i)",
+        "retest": "29 CFR 1910.95(g)(7)(ii)",
+        "refit": "29 CFR 1910.95(g)(8)(ii)",
+        "referral": "29 CFR 1910.95(g)(8)(ii)(C)-(D)",
+        "baseline": "29 CFR 1910.95(g)(9)",
+        "recordable": "29 CFR 1904.10",
+        "quiet": "29 CFR 1910.95(g)(5)(iii)",
+        "review": "29 CFR 1910.95(g)(7)(iii)",
+        "niosh": "DHHS (NIOSH) 98-126",
+    },
+}
+
+#: Columns of hearing_results.csv (the contract), in order.
+HEARING_RESULTS_COLUMNS = (
+    "person_id", "ear", "date", "kind", "baseline_date", "avg_234", "shift_234",
+    "shift_234_age_corrected", "osha_sts", "osha_sts_age_corrected", "niosh_shift", "recordable",
+)
+FOLLOWUP_COLUMNS = ["person_id", "ear", "kind", "trigger_date", "due_date", "done_date", "status", "clause"]
+ACTION_COLUMNS = ["subject", "subject_type", "kind", "detail", "due_date", "clause"]
+CASE_COLUMNS = ["person_id", "ear", "date", "avg_234", "shift", "year", "group"]
+EAR_NAMES = {"R": "right ear", "L": "left ear"}
+
+
+@dataclass
+class HearingResult:
+    """Everything the hearing pages, the export and the compliance stage read."""
+
+    #: one row per audiogram and ear: HEARING_RESULTS_COLUMNS plus group, year, sex, age,
+    #: nr_any, sts, sts_computed, retest_status, review_decision, shift_status, valid_check,
+    #: hl_<f>/nr_<f>, base_hl_<f>, recordable_criteria, niosh_15 ...
+    audiograms: pd.DataFrame
+    #: one row per person and ear: baseline in force and revision candidates
+    baselines: pd.DataFrame
+    #: every baseline event: [person_id, ear, baseline_date, source, decided]
+    baseline_history: pd.DataFrame
+    #: recordable cases, CASE_COLUMNS
+    cases: pd.DataFrame
+    #: [year, n_cases, hours_worked, rate_per_200k]
+    incidence: pd.DataFrame
+    #: FOLLOWUP_COLUMNS
+    followups: pd.DataFrame
+    #: per group ("all" too) and year: counts, rates, exact CIs, mean 2/3/4 kHz average
+    population: pd.DataFrame
+    #: per group ("all" too) and year: %Worse-sequential, %Better-or-Worse-sequential
+    indicators: pd.DataFrame
+    #: observed hearing levels by age band, sex and frequency vs ISO 7029:2017
+    age_norms: pd.DataFrame
+    #: per group and frequency: ISO 1999:2013 expected change vs observed change
+    noise_expected: pd.DataFrame
+    #: ACTION_COLUMNS (refits are listed by the compliance stage from ``followups``)
+    actions: pd.DataFrame
+    #: [audiometer_id, date, valid, reason] for every test day
+    audiometer_ok: pd.DataFrame
+    #: headline figures (JSON-serialisable, sorted keys)
+    summary: dict[str, Any]
+    findings: list[Finding] = field(default_factory=list)
+    #: plain sentences on what could not be judged
+    notes: list[str] = field(default_factory=list)
+
+    def hearing_results(self) -> pd.DataFrame:
+        """Return the hearing_results.csv table (the contract's columns)."""
+        return self.audiograms.reindex(columns=list(HEARING_RESULTS_COLUMNS))
+
+
+# ---------------------------------------------------------------------------------------
+# small helpers
+
+
+def _col(df: pd.DataFrame, name: str, default: Any = np.nan) -> pd.Series:
+    """Return column *name* of *df*, or a column of *default* when it is absent."""
+    if name in df.columns:
+        return df[name]
+    return pd.Series([default] * len(df), index=df.index)
+
+
+def _dates(s: pd.Series) -> pd.Series:
+    """Return *s* as datetime64[ns]."""
+    return pd.to_datetime(s, errors="coerce").astype("datetime64[ns]")
+
+
+def _nbool(values: np.ndarray | pd.Series, known: np.ndarray | pd.Series) -> pd.Series:
+    """Return a nullable boolean Series: *values* where *known*, else NA."""
+    v = np.asarray(values, dtype=bool)
+    k = np.asarray(known, dtype=bool)
+    return pd.Series(pd.array(np.where(k, v, False), dtype="boolean")).where(k, pd.NA).astype("boolean")
+
+
+def _ge(x: pd.Series | np.ndarray, limit: float) -> np.ndarray:
+    """Return x >= limit with float noise removed (averages of whole dB values)."""
+    return np.round(np.asarray(x, dtype=float), 6) >= limit
+
+
+def _nxt(values: Any, same_next: np.ndarray, fill: Any) -> np.ndarray:
+    """Return the next row's value within the same person and ear (rows sorted), else *fill*."""
+    v = np.asarray(values)
+    out = np.empty_like(v)
+    if len(v):
+        out[:-1] = v[1:]
+        out[-1] = fill
+    return np.where(same_next, out, fill) if len(v) else out
+
+
+def _prv(values: Any, same_prev: np.ndarray, fill: Any) -> np.ndarray:
+    """Return the previous row's value within the same person and ear (rows sorted), else *fill*."""
+    v = np.asarray(values)
+    out = np.empty_like(v)
+    if len(v):
+        out[1:] = v[:-1]
+        out[0] = fill
+    return np.where(same_prev, out, fill) if len(v) else out
+
+
+def _path(programme: Programme, name: str) -> str:
+    """Return the path of data file *name* as the user named it."""
+    return programme.present.get(name, f"data/{name}.csv")
+
+
+def age_at(birth: pd.Series, date: pd.Series) -> pd.Series:
+    """Return age in whole years at *date* (NaN where either date is missing)."""
+    b = _dates(birth)
+    d = _dates(date)
+    before = (d.dt.month < b.dt.month) | ((d.dt.month == b.dt.month) & (d.dt.day < b.dt.day))
+    years = (d.dt.year - b.dt.year - before.astype(float)).astype(float)
+    return years.where(b.notna() & d.notna())
+
+
+def years_between(start: pd.Series, end: pd.Series) -> pd.Series:
+    """Return (end - start) in years of 365.25 days (NaN where missing)."""
+    return (_dates(end) - _dates(start)).dt.days / 365.25
+
+
+# ---------------------------------------------------------------------------------------
+# exact binomial confidence interval (no scipy at run time)
+
+
+def _lgamma(x: np.ndarray) -> np.ndarray:
+    """Return ln Γ(x) element-wise."""
+    return np.frompyfunc(math.lgamma, 1, 1)(x).astype(float)
+
+
+def _betacf(a: np.ndarray, b: np.ndarray, x: np.ndarray, iters: int = 400) -> np.ndarray:
+    """Return the continued fraction of the incomplete beta function (modified Lentz)."""
+    tiny = 1e-300
+    qab, qap, qam = a + b, a + 1.0, a - 1.0
+    c = np.ones_like(x)
+    d = 1.0 - qab * x / qap
+    d = np.where(np.abs(d) < tiny, tiny, d)
+    d = 1.0 / d
+    h = d.copy()
+    for m in range(1, iters + 1):
+        m2 = 2.0 * m
+        aa = m * (b - m) * x / ((qam + m2) * (a + m2))
+        d = 1.0 + aa * d
+        d = np.where(np.abs(d) < tiny, tiny, d)
+        c = 1.0 + aa / c
+        c = np.where(np.abs(c) < tiny, tiny, c)
+        d = 1.0 / d
+        h = h * d * c
+        aa = -(a + m) * (qab + m) * x / ((a + m2) * (qap + m2))
+        d = 1.0 + aa * d
+        d = np.where(np.abs(d) < tiny, tiny, d)
+        c = 1.0 + aa / c
+        c = np.where(np.abs(c) < tiny, tiny, c)
+        d = 1.0 / d
+        delta = d * c
+        h = h * delta
+        if np.all(np.abs(delta - 1.0) < 1e-15):
+            break
+    return h
+
+
+def betainc_reg(a: Any, b: Any, x: Any) -> np.ndarray:
+    """Return the regularised incomplete beta function I_x(a, b), vectorised."""
+    a, b, x = (np.asarray(v, dtype=float) for v in np.broadcast_arrays(a, b, x))
+    out = np.where(x <= 0, 0.0, np.where(x >= 1, 1.0, np.nan))
+    inner = (x > 0) & (x < 1)
+    if inner.any():
+        aa, bb, xx = a[inner], b[inner], x[inner]
+        lbt = _lgamma(aa + bb) - _lgamma(aa) - _lgamma(bb) + aa * np.log(xx) + bb * np.log1p(-xx)
+        front = np.exp(lbt)
+        direct = xx < (aa + 1.0) / (aa + bb + 2.0)
+        # evaluate the fraction only on the side where it converges fast
+        cf = _betacf(np.where(direct, aa, bb), np.where(direct, bb, aa), np.where(direct, xx, 1.0 - xx))
+        out[inner] = np.where(direct, front * cf / aa, 1.0 - front * cf / bb)
+    return out
+
+
+def beta_ppf(q: Any, a: Any, b: Any) -> np.ndarray:
+    """Return the q-quantile of the beta(a, b) distribution (bracketed Newton), vectorised."""
+    q, a, b = (np.asarray(v, dtype=float) for v in np.broadcast_arrays(q, a, b))
+    lo = np.zeros_like(q)
+    hi = np.ones_like(q)
+    for _ in range(8):  # bisection first: a bracket of 1/256
+        mid = 0.5 * (lo + hi)
+        below = betainc_reg(a, b, mid) < q
+        lo = np.where(below, mid, lo)
+        hi = np.where(below, hi, mid)
+    x = 0.5 * (lo + hi)
+    lbeta = _lgamma(a) + _lgamma(b) - _lgamma(a + b)
+    for _ in range(60):
+        err = betainc_reg(a, b, x) - q
+        lo = np.where(err < 0, x, lo)
+        hi = np.where(err < 0, hi, x)
+        with np.errstate(all="ignore"):
+            pdf = np.exp((a - 1.0) * np.log(x) + (b - 1.0) * np.log1p(-x) - lbeta)
+            step = x - err / pdf
+        bad = ~np.isfinite(step) | (step <= lo) | (step >= hi)
+        new = np.where(bad, 0.5 * (lo + hi), step)
+        if np.all(np.abs(new - x) <= 1e-15 * np.maximum(1.0, np.abs(x))) or np.all(hi - lo < 1e-16):
+            x = new
+            break
+        x = new
+    return x
+
+
+def clopper_pearson(k: Any, n: Any, level: float = 0.95) -> tuple[np.ndarray, np.ndarray]:
+    """Return the exact (Clopper-Pearson) binomial interval (lower, upper) for k of n."""
+    k = np.asarray(k, dtype=float)
+    n = np.asarray(n, dtype=float)
+    k, n = np.broadcast_arrays(k, n)
+    alpha = 1.0 - level
+    ok = (n > 0) & (k >= 0) & (k <= n)
+    lo = np.full(k.shape, np.nan)
+    hi = np.full(k.shape, np.nan)
+    if ok.any():
+        pairs, inv = np.unique(np.stack([k[ok], n[ok]], axis=1), axis=0, return_inverse=True)
+        kk, nn = pairs[:, 0], pairs[:, 1]
+        low = np.zeros(len(kk))
+        up = np.ones(len(kk))
+        m = kk > 0
+        if m.any():
+            low[m] = beta_ppf(alpha / 2, kk[m], nn[m] - kk[m] + 1)
+        m = kk < nn
+        if m.any():
+            up[m] = beta_ppf(1 - alpha / 2, kk[m] + 1, nn[m] - kk[m])
+        lo[ok] = low[inv.ravel()]
+        hi[ok] = up[inv.ravel()]
+    return lo, hi
+
+
+# ---------------------------------------------------------------------------------------
+# audiogram table
+
+
+def _prepare(programme: Programme) -> pd.DataFrame:
+    """Return audiograms joined with people, sorted by person, ear and date."""
+    raw = programme.table("audiograms")
+    people = programme.table("people")
+    ag = pd.DataFrame({
+        "person_id": _col(raw, "person_id", "").astype(str),
+        "ear": _col(raw, "ear", "").astype(str).str.upper(),
+        "date": _dates(_col(raw, "date", pd.NaT)),
+        "kind": _col(raw, "kind", "").astype(str).replace("", "periodic"),
+        "quiet_hours": pd.to_numeric(_col(raw, "quiet_hours"), errors="coerce"),
+        "audiometer_id": _col(raw, "audiometer_id", "").fillna("").astype(str),
+        "_row": pd.to_numeric(_col(raw, "_row"), errors="coerce"),
+    })
+    for f in AUDIO_FREQS:
+        ag[f"hl_{f}"] = pd.to_numeric(_col(raw, f"hl_{f}"), errors="coerce").astype(float)
+        ag[f"nr_{f}"] = _col(raw, f"nr_{f}", False).fillna(False).astype(bool)
+        # NR is never a number, whatever the reader left in the cell
+        ag.loc[ag[f"nr_{f}"], f"hl_{f}"] = np.nan
+    ag = ag[ag["date"].notna() & ag["ear"].isin(["L", "R"])]
+    pp = pd.DataFrame({
+        "person_id": _col(people, "person_id", "").astype(str),
+        "group": _col(people, "group", "").astype(str),
+        "sex": _col(people, "sex", "").fillna("").astype(str).str.upper(),
+        "birth_date": _dates(_col(people, "birth_date", pd.NaT)),
+        "hire_date": _dates(_col(people, "hire_date", pd.NaT)),
+    }).drop_duplicates("person_id")
+    ag = ag.merge(pp, on="person_id", how="left")
+    ag["group"] = ag["group"].fillna("")
+    ag["sex"] = ag["sex"].fillna("")
+    ag = ag.sort_values(["person_id", "ear", "date"], kind="mergesort").reset_index(drop=True)
+    ag["year"] = ag["date"].dt.year.astype(int)
+    ag["age"] = age_at(ag["birth_date"], ag["date"])
+    ag["nr_any"] = ag[[f"nr_{f}" for f in AUDIO_FREQS]].any(axis=1)
+    ag["nr_234"] = ag[[f"nr_{f}" for f in STS_FREQS]].any(axis=1)
+    key = (ag["person_id"] + "\x1f" + ag["ear"]).to_numpy(object)
+    same = np.zeros(len(ag), dtype=bool)
+    if len(ag) > 1:
+        same[1:] = key[1:] == key[:-1]
+    ag["_same_prev"] = same
+    ag["_same_next"] = np.r_[same[1:], False] if len(ag) else same
+    ag["avg_234"] = ag[[f"hl_{f}" for f in STS_FREQS]].mean(axis=1, skipna=False)
+    ag["valid_234"] = ag["avg_234"].notna()
+    return ag
+
+
+def _reviews(programme: Programme, ag: pd.DataFrame, findings: list[Finding]) -> pd.DataFrame:
+    """Return reviewer decisions matched to audiogram rows: [idx, review_date, decision, order]."""
+    rv = programme.table("reviews")
+    cols = ["idx", "review_date", "decision", "order"]
+    if rv.empty:
+        return pd.DataFrame(columns=cols)
+    r = pd.DataFrame({
+        "person_id": _col(rv, "person_id", "").astype(str),
+        "ear": _col(rv, "ear", "").astype(str).str.upper(),
+        "review_date": _dates(_col(rv, "date", pd.NaT)),
+        "decision": _col(rv, "decision", "").astype(str),
+        "audiogram_date": _dates(_col(rv, "audiogram_date", pd.NaT)),
+        "_row": pd.to_numeric(_col(rv, "_row"), errors="coerce"),
+    })
+    r["order"] = np.arange(len(r))
+    keyed = ag[["person_id", "ear", "date"]].reset_index().rename(columns={"index": "idx"})
+    # decisions naming an audiogram date
+    named = r[r["audiogram_date"].notna()].merge(
+        keyed, left_on=["person_id", "ear", "audiogram_date"], right_on=["person_id", "ear", "date"], how="left")
+    # decisions without one: the latest audiogram of that ear on or before the decision
+    unnamed = r[r["audiogram_date"].isna() & r["review_date"].notna()].sort_values("review_date", kind="mergesort")
+    if not unnamed.empty:
+        k2 = keyed.sort_values("date", kind="mergesort")
+        unnamed = pd.merge_asof(unnamed, k2, left_on="review_date", right_on="date", by=["person_id", "ear"],
+                                direction="backward")
+    m = pd.concat([named, unnamed], ignore_index=True)
+    missing = m[m["idx"].isna()]
+    if not missing.empty:
+        path = _path(programme, "reviews")
+        for row in missing["_row"].sort_values():
+            findings.append(Finding(path, None if pd.isna(row) else int(row), "audiogram_date", WARNING,
+                                    "the decision names no audiogram of that person and ear in audiograms.csv; "
+                                    "it is not applied", key="review-unmatched"))
+    m = m[m["idx"].notna()].copy()
+    m["idx"] = m["idx"].astype(int)
+    return m[cols].sort_values(["idx", "review_date", "order"], kind="mergesort").reset_index(drop=True)
+
+
+def _baseline_events(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
+    """Return every baseline event per person and ear: [person_id, ear, baseline_date, source, decided]."""
+    cand = ag.loc[ag["valid_234"], ["person_id", "ear", "date", "kind"]].copy()
+    cand["prio"] = (cand["kind"] != "baseline").astype(int)
+    first = cand.sort_values(["person_id", "ear", "prio", "date"], kind="mergesort").drop_duplicates(
+        ["person_id", "ear"])
+    ev = pd.DataFrame({
+        "person_id": first["person_id"], "ear": first["ear"], "baseline_date": first["date"],
+        "source": np.where(first["prio"].eq(0), "baseline kind", "first"),
+        "decided": pd.Series(pd.NaT, index=first.index, dtype="datetime64[ns]"),
+    })
+    rev = decisions[decisions["decision"].eq("revise_baseline")]
+    if not rev.empty:
+        rows = ag.loc[rev["idx"].to_numpy()]
+        ok = rows["valid_234"].to_numpy()
+        ev2 = pd.DataFrame({
+            "person_id": rows["person_id"].to_numpy()[ok], "ear": rows["ear"].to_numpy()[ok],
+            "baseline_date": rows["date"].to_numpy()[ok], "source": "revised by review",
+            "decided": rev["review_date"].to_numpy()[ok],
+        })
+        ev = pd.concat([ev, ev2], ignore_index=True)
+    ev["baseline_date"] = _dates(ev["baseline_date"])
+    ev["decided"] = _dates(ev["decided"])
+    ev = ev.sort_values(["person_id", "ear", "baseline_date", "decided"], kind="mergesort", na_position="first")
+    ev = ev.drop_duplicates(["person_id", "ear", "baseline_date"], keep="last").reset_index(drop=True)
+    return ev
+
+
+def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
+    """Add baseline_date, baseline_source and the baseline thresholds to each audiogram row."""
+    ag = ag.copy()
+    ag["_i"] = np.arange(len(ag))
+    left = ag[["_i", "person_id", "ear", "date"]].sort_values("date", kind="mergesort")
+    right = events[["person_id", "ear", "baseline_date", "source"]].sort_values("baseline_date", kind="mergesort")
+    if right.empty:
+        ag["baseline_date"] = pd.Series(pd.NaT, index=ag.index, dtype="datetime64[ns]")
+        ag["baseline_source"] = ""
+    else:
+        m = pd.merge_asof(left, right, left_on="date", right_on="baseline_date", by=["person_id", "ear"],
+                          direction="backward").set_index("_i").sort_index()
+        ag["baseline_date"] = _dates(m["baseline_date"].to_numpy())
+        ag["baseline_source"] = m["source"].fillna("").to_numpy()
+    base_cols = [f"hl_{f}" for f in AUDIO_FREQS] + ["age", "avg_234"]
+    base = ag[["person_id", "ear", "date"] + base_cols].rename(
+        columns={c: f"base_{c}" for c in base_cols} | {"date": "baseline_date"})
+    ag = ag.merge(base, on=["person_id", "ear", "baseline_date"], how="left")
+    ag = ag.sort_values("_i", kind="mergesort").drop(columns="_i").reset_index(drop=True)
+    return ag
+
+
+def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
+    """Add the OSHA, age-corrected and NIOSH shift columns."""
+    has_base = ag["baseline_date"].notna()
+    diffs = np.stack([(ag[f"hl_{f}"] - ag[f"base_hl_{f}"]).to_numpy() for f in STS_FREQS], axis=1)
+    ag["shift_234"] = diffs.mean(axis=1)
+    corr = np.stack([
+        norms.appf_correction(ag["age"].to_numpy(), f, ag["sex"].to_numpy(object))
+        - norms.appf_correction(ag["base_age"].to_numpy(), f, ag["sex"].to_numpy(object))
+        for f in STS_FREQS], axis=1)
+    for j, f in enumerate(STS_FREQS):
+        ag[f"shift_{f}"] = diffs[:, j]
+        ag[f"shift_{f}_age_corrected"] = diffs[:, j] - corr[:, j]
+    ag["age_correction_234"] = corr.mean(axis=1)
+    ag["shift_234_age_corrected"] = (diffs - corr).mean(axis=1)
+    known = np.isfinite(ag["shift_234"].to_numpy()) & has_base.to_numpy()
+    known_c = np.isfinite(ag["shift_234_age_corrected"].to_numpy()) & has_base.to_numpy()
+    ag["osha_sts"] = _nbool(_ge(ag["shift_234"], PARAMETERS["sts_db"]), known)
+    ag["osha_sts_age_corrected"] = _nbool(_ge(ag["shift_234_age_corrected"], PARAMETERS["sts_db"]), known_c)
+    if age_correction:
+        drive = ag["osha_sts_age_corrected"].where(ag["osha_sts_age_corrected"].notna(), ag["osha_sts"])
+        ag["sts_basis"] = np.where(ag["osha_sts_age_corrected"].notna(), "age corrected",
+                                   np.where(ag["osha_sts"].notna(), "not age corrected (sex or age unknown)", ""))
+        ag["shift_driving"] = ag["shift_234_age_corrected"].where(
+            ag["shift_234_age_corrected"].notna(), ag["shift_234"])
+    else:
+        drive = ag["osha_sts"]
+        ag["sts_basis"] = np.where(ag["osha_sts"].notna(), "not age corrected", "")
+        ag["shift_driving"] = ag["shift_234"]
+    ag["sts_computed"] = drive.astype("boolean")
+    # NIOSH: >= 15 dB at the same frequency on this and the next test of the ear
+    sn = ag["_same_next"].to_numpy(bool)
+    bd = ag["baseline_date"].to_numpy("datetime64[ns]")
+    same_next = sn & (_nxt(bd, sn, np.datetime64("NaT")) == bd)
+    s15 = []
+    conf = []
+    for f in NIOSH_FREQS:
+        d = (ag[f"hl_{f}"] - ag[f"base_hl_{f}"]).to_numpy()
+        hit = _ge(d, PARAMETERS["niosh_db"]) & has_base.to_numpy()
+        nxt = _nxt(hit, sn, False).astype(bool)
+        s15.append(hit)
+        conf.append(hit & nxt & same_next)
+    ag["niosh_15"] = np.any(np.stack(s15, axis=1), axis=1)
+    ag["niosh_shift"] = np.any(np.stack(conf, axis=1), axis=1)
+    ag["niosh_freqs"] = _freq_list(np.stack(conf, axis=1), NIOSH_FREQS)
+    return ag
+
+
+def _freq_list(mask: np.ndarray, freqs: tuple[int, ...]) -> np.ndarray:
+    """Return, per row, the frequencies where *mask* is True as text like '4000, 6000'."""
+    out = np.full(mask.shape[0], "", dtype=object)
+    for j, f in enumerate(freqs):
+        add = mask[:, j]
+        out = np.where(add & (out == ""), str(f), np.where(add, out + f", {f}", out))
+    return out
+
+
+def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
+    """Add determination, retest_status, retest_date and the determination row index."""
+    sp = ag["_same_prev"].to_numpy(bool)
+    sn = ag["_same_next"].to_numpy(bool)
+    sts = ag["sts_computed"].fillna(False).to_numpy(bool)
+    sts_known = ag["sts_computed"].notna().to_numpy()
+    nat = np.datetime64("NaT")
+    d = ag["date"].to_numpy("datetime64[ns]")
+    bd = ag["baseline_date"].to_numpy("datetime64[ns]")
+    prev_date = pd.Series(_prv(d, sp, nat), index=ag.index)
+    next_date = pd.Series(_nxt(d, sn, nat), index=ag.index)
+    prev_sts = _prv(sts, sp, False).astype(bool)
+    next_sts = _nxt(sts, sn, False).astype(bool)
+    next_known = _nxt(sts_known, sn, False).astype(bool)
+    prev_base = pd.Series(_prv(bd, sp, nat), index=ag.index)
+    next_base = pd.Series(_nxt(bd, sn, nat), index=ag.index)
+    window = pd.Timedelta(days=int(retest_days))
+    is_retest = (prev_sts & ((ag["date"] - prev_date) <= window).to_numpy()
+                 & (prev_base == ag["baseline_date"]).to_numpy())
+    determination = sts & ~is_retest
+    has_retest = (((next_date - ag["date"]) <= window) & (next_base == ag["baseline_date"])).to_numpy()
+    status = np.where(~determination, "",
+                      np.where(~has_retest | ~next_known, "no retest",
+                               np.where(next_sts, "confirmed", "cancelled")))
+    ag["is_retest_of_shift"] = is_retest
+    ag["determination"] = determination
+    ag["retest_status"] = status
+    ag["retest_date"] = next_date.where(determination & has_retest)
+    ag["next_date"] = next_date
+    idx = np.arange(len(ag))
+    ag["det_idx"] = np.where(is_retest, idx - 1, idx)
+    return ag
+
+
+def _apply_reviews(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
+    """Add review_decision (as named), shift_decision and not_work_related (on determination rows)."""
+    ag["review_decision"] = ""
+    ag["shift_decision"] = ""
+    ag["not_work_related"] = False
+    if decisions.empty:
+        return ag
+    shown = decisions.groupby("idx", sort=True)["decision"].agg(lambda s: "; ".join(s))
+    ag.loc[shown.index, "review_decision"] = shown.to_numpy()
+    d = decisions.copy()
+    d["det"] = ag["det_idx"].to_numpy()[d["idx"].to_numpy()]
+    sd = d[d["decision"].isin(["confirm_shift", "cancel_shift"])].drop_duplicates("det", keep="last")
+    ag.loc[sd["det"].to_numpy(), "shift_decision"] = sd["decision"].to_numpy()
+    nwr = d.loc[d["decision"].eq("not_work_related"), "det"].unique()
+    ag.loc[nwr, "not_work_related"] = True
+    return ag
+
+
+def _status_and_cases(ag: pd.DataFrame) -> pd.DataFrame:
+    """Add sts (in force), shift_status, recordable_criteria and recordable."""
+    det = ag["determination"].to_numpy(bool)
+    dec = ag["shift_decision"].to_numpy(object)
+    retest = ag["retest_status"].to_numpy(object)
+    confirmed_by_reviewer = dec == "confirm_shift"
+    cancelled_by_reviewer = dec == "cancel_shift"
+    active = ((det & (retest != "cancelled")) | confirmed_by_reviewer) & ~cancelled_by_reviewer
+    ag["sts"] = active
+    nwr = ag["not_work_related"].to_numpy(bool)
+    nr_pending = ag["nr_234"].to_numpy(bool) & ag["baseline_date"].notna().to_numpy() & ~active
+    status = np.select(
+        [cancelled_by_reviewer, confirmed_by_reviewer & nwr, confirmed_by_reviewer, active & nwr,
+         det & (retest == "cancelled"), active & (retest == "confirmed"), active, nr_pending],
+        ["cancelled by reviewer", "not work-related", "confirmed by reviewer", "not work-related",
+         "cancelled by retest", "confirmed by retest", "shift", "not computed (NR)"],
+        default="")
+    ag["shift_status"] = status
+    crit = active & ~nwr & _ge(ag["avg_234"], PARAMETERS["recordable_db"])
+    ag["recordable_criteria"] = crit
+    first = pd.Series(crit).groupby([ag["person_id"], ag["ear"], ag["baseline_date"]], sort=False,
+                                    dropna=False).cumsum()
+    ag["recordable"] = crit & (first.to_numpy() == 1)
+    # determination date: the retest when it confirmed, else the audiogram
+    ag["determined_on"] = ag["retest_date"].where(ag["retest_status"].eq("confirmed"), ag["date"])
+    return ag
+
+
+# ---------------------------------------------------------------------------------------
+# audiometer checks
+
+
+def _audiometer_status(programme: Programme) -> pd.DataFrame:
+    """Return [audiometer_id, date, valid, reason] per test day (empty without audiometers.csv)."""
+    cols = ["audiometer_id", "date", "valid", "reason"]
+    if not programme.has("audiometers"):
+        return pd.DataFrame(columns=cols)
+    try:
+        from .compliance import audiometer_checks
+        from .rules import load_rule_set
+        status, _, _ = audiometer_checks(programme, load_rule_set(programme.config.rules, programme.config))
+    except Exception:  # the compliance stage is optional for this view  # noqa: BLE001
+        log.warning("audiometer checks could not be computed", exc_info=True)
+        return pd.DataFrame(columns=cols)
+    out = pd.DataFrame({"audiometer_id": status["audiometer_id"].astype(str), "date": _dates(status["date"]),
+                        "valid": status["ok"].astype(bool), "reason": status["reason"].astype(str)})
+    return out.reset_index(drop=True)
+
+
+# ---------------------------------------------------------------------------------------
+# baselines, follow-ups, actions
+
+
+def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float) -> pd.DataFrame:
+    """Return the baseline in force per person and ear with revision candidates."""
+    cols = ["person_id", "ear", "group", "baseline_date", "source", "decided", "n_baselines", "quiet_hours",
+            "quiet_ok", "valid_check", "candidate", "candidate_date", "candidate_detail"]
+    if events.empty:
+        return pd.DataFrame(columns=cols)
+    cur = events.drop_duplicates(["person_id", "ear"], keep="last").copy()
+    cur["n_baselines"] = events.groupby(["person_id", "ear"], sort=False)["baseline_date"].transform("size") \
+        .loc[cur.index].to_numpy()
+    info = ag[["person_id", "ear", "date", "group", "quiet_hours", "valid_check"]].rename(
+        columns={"date": "baseline_date"})
+    cur = cur.merge(info, on=["person_id", "ear", "baseline_date"], how="left")
+    q = cur["quiet_hours"]
+    cur["quiet_ok"] = _nbool(_ge(q, min_quiet), q.notna())
+    # candidates among rows compared with the baseline now in force
+    rows = ag.merge(cur[["person_id", "ear", "baseline_date"]], on=["person_id", "ear", "baseline_date"])
+    def keys(df: pd.DataFrame) -> pd.Series:
+        return df["person_id"].astype(str) + "\x1f" + df["ear"].astype(str)
+
+    shift_rows = rows[rows["sts"]]
+    n_det = shift_rows.groupby(keys(shift_rows), sort=True).size()
+    confirmed = shift_rows[shift_rows["retest_status"].eq("confirmed")]
+    computed = rows[rows["sts_computed"].fillna(False).astype(bool)]
+    latest_shift = computed.groupby(keys(computed), sort=True)["date"].max()
+    persistent = set(n_det.index[n_det >= 2]) | set(keys(confirmed))
+    better = (rows["shift_234"] <= -PARAMETERS["improvement_db"]).astype(bool)
+    prev_better = better.groupby([rows["person_id"], rows["ear"]], sort=False).shift(1, fill_value=False)
+    imp_rows = rows[better & prev_better.astype(bool)]
+    impr = imp_rows.groupby(keys(imp_rows), sort=True)["date"].max()
+    key = keys(cur)
+    is_pers = key.isin(persistent).to_numpy()
+    is_impr = key.isin(set(impr.index)).to_numpy()
+    cur["candidate"] = np.where(is_pers, "persistent shift", np.where(is_impr, "improvement", ""))
+    def at(dates: pd.Series) -> pd.Series:
+        if dates.empty:
+            return pd.Series(pd.NaT, index=key.index, dtype="datetime64[ns]")
+        return _dates(key.map(_dates(dates)))
+
+    pers_date = at(latest_shift)
+    impr_date = at(impr)
+    cur["candidate_date"] = pers_date.where(is_pers, impr_date.where(is_impr))
+    cur["candidate_detail"] = np.where(
+        is_pers, "shift in force on more than one test against this baseline: the reviewer may revise the "
+                 "baseline (1910.95(g)(9)(i))",
+        np.where(is_impr, f"2000/3000/4000 Hz average {PARAMETERS['improvement_db']:g} dB or more better than "
+                          "baseline on two tests in a row: the reviewer may revise the baseline (1910.95(g)(9)(ii))",
+                 ""))
+    return cur[cols].sort_values(["person_id", "ear"], kind="mergesort").reset_index(drop=True)
+
+
+def _classify(due: pd.Series, done: pd.Series, as_of: pd.Timestamp) -> np.ndarray:
+    """Return 'on time', 'late', 'missing' or 'not yet due' per follow-up."""
+    return np.select([done.notna() & (done <= due), done.notna(), due < as_of],
+                     ["on time", "late", "missing"], default="not yet due")
+
+
+def _first_on_or_after(left: pd.DataFrame, events: pd.DataFrame, left_on: str) -> pd.Series:
+    """Return, per row of *left*, the first event date on or after left[left_on] for the same person."""
+    if events.empty or left.empty:
+        return pd.Series(pd.NaT, index=left.index, dtype="datetime64[ns]")
+    l2 = left[["person_id", left_on]].copy()
+    l2["_i"] = np.arange(len(l2))
+    l2 = l2.sort_values(left_on, kind="mergesort")
+    ev = events[["person_id", "date"]].rename(columns={"date": "_done"}).sort_values("_done", kind="mergesort")
+    ev["_key"] = ev["_done"]
+    m = pd.merge_asof(l2, ev, left_on=left_on, right_on="_key", by="person_id", direction="forward")
+    m = m.sort_values("_i", kind="mergesort")
+    return pd.Series(_dates(m["_done"]).to_numpy(), index=left.index)
+
+
+def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
+               as_of: pd.Timestamp) -> pd.DataFrame:
+    """Return notices, retests, refits and referrals with their timeliness."""
+    cfg = programme.config.audiometry
+    cl = PARAMETERS["clauses"]
+    notices = programme.table("notices")
+    notices = pd.DataFrame({"person_id": _col(notices, "person_id", "").astype(str),
+                            "date": _dates(_col(notices, "date", pd.NaT)),
+                            "about": _col(notices, "about", "").fillna("").astype(str)}).dropna(subset=["date"])
+    fits = programme.table("protector_fits")
+    fits = pd.DataFrame({"person_id": _col(fits, "person_id", "").astype(str),
+                         "date": _dates(_col(fits, "date", pd.NaT))}).dropna(subset=["date"])
+    parts = []
+    det = ag[ag["determination"]]
+    if not det.empty:
+        due = det["date"] + pd.Timedelta(days=int(cfg.retest_days))
+        done = det["next_date"]
+        parts.append(pd.DataFrame({"person_id": det["person_id"], "ear": det["ear"], "kind": "retest",
+                                   "trigger_date": det["date"], "due_date": due, "done_date": done,
+                                   "clause": cl["retest"]}))
+    act = ag[ag["sts"]]
+    if not act.empty:
+        trig = act["determined_on"]
+        due = trig + pd.Timedelta(days=int(cfg.notice_days))
+        done = _first_on_or_after(act, notices, "date")
+        parts.append(pd.DataFrame({"person_id": act["person_id"], "ear": act["ear"], "kind": "notice",
+                                   "trigger_date": trig, "due_date": due, "done_date": done,
+                                   "clause": cl["notice"]}))
+        wr = act[~act["not_work_related"]]
+        if not wr.empty:
+            trig = wr["determined_on"]
+            due = trig + pd.Timedelta(days=int(PARAMETERS["refit_days"]))
+            done = _first_on_or_after(wr, fits, "date")
+            parts.append(pd.DataFrame({"person_id": wr["person_id"], "ear": wr["ear"], "kind": "refit",
+                                       "trigger_date": trig, "due_date": due, "done_date": done,
+                                       "clause": cl["refit"]}))
+    ref = decisions[decisions["decision"].eq("refer")] if not decisions.empty else decisions
+    if not ref.empty:
+        rows = ag.loc[ref["idx"].to_numpy()]
+        rr = pd.DataFrame({"person_id": rows["person_id"].to_numpy(), "ear": rows["ear"].to_numpy(),
+                           "trigger_date": _dates(ref["review_date"]).to_numpy()})
+        due = rr["trigger_date"] + pd.Timedelta(days=int(PARAMETERS["referral_days"]))
+        told = notices[notices["about"].str.contains("refer", case=False, regex=False)]
+        done = _first_on_or_after(rr, told, "trigger_date")
+        parts.append(pd.DataFrame({"person_id": rr["person_id"], "ear": rr["ear"], "kind": "referral",
+                                   "trigger_date": rr["trigger_date"], "due_date": due, "done_date": done,
+                                   "clause": cl["referral"]}))
+    if not parts:
+        return pd.DataFrame(columns=FOLLOWUP_COLUMNS)
+    fu = pd.concat(parts, ignore_index=True)
+    for c in ("trigger_date", "due_date", "done_date"):
+        fu[c] = _dates(fu[c])
+    fu["status"] = _classify(fu["due_date"], fu["done_date"], as_of)
+    fu = fu[FOLLOWUP_COLUMNS].sort_values(["trigger_date", "person_id", "ear", "kind"], kind="mergesort")
+    return fu.reset_index(drop=True)
+
+
+def _fmt_date(s: pd.Series) -> pd.Series:
+    """Return dates as YYYY-MM-DD text ('' for missing)."""
+    return _dates(s).dt.strftime("%Y-%m-%d").fillna("")
+
+
+def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start: pd.Timestamp,
+             as_of: pd.Timestamp) -> pd.DataFrame:
+    """Return the hearing action list (refits are listed by the compliance stage)."""
+    cl = PARAMETERS["clauses"]
+    parts = []
+    if not fu.empty:
+        f = fu[fu["kind"].isin(["notice", "retest", "referral"]) & fu["status"].isin(["late", "missing", "not yet due"])
+               & (fu["due_date"] >= start)]
+        f = f[~(f["kind"].eq("retest") & f["status"].eq("late"))]
+        words = {"notice": "written notice of a shift", "retest": "retest within the retest window",
+                 "referral": "referral asked for by the reviewer"}
+        what = f["kind"].map(words)
+        ear = f["ear"].map(EAR_NAMES).fillna(f["ear"])
+        detail = np.select(
+            [f["status"].eq("late"), f["status"].eq("missing")],
+            [what + " (" + ear + ", shift of " + _fmt_date(f["trigger_date"]) + ") given late on "
+             + _fmt_date(f["done_date"]),
+             what + " (" + ear + ", " + _fmt_date(f["trigger_date"]) + ") not on record"],
+            default=what + " (" + ear + ", " + _fmt_date(f["trigger_date"]) + ") due")
+        parts.append(pd.DataFrame({"subject": f["person_id"], "subject_type": "person",
+                                   "kind": f["kind"] + " " + f["status"].replace({"not yet due": "due"}),
+                                   "detail": detail, "due_date": f["due_date"], "clause": f["clause"]}))
+    if not baselines.empty:
+        b = baselines[baselines["candidate"].ne("")]
+        if not b.empty:
+            parts.append(pd.DataFrame({
+                "subject": b["person_id"], "subject_type": "person", "kind": "baseline review",
+                "detail": b["ear"].map(EAR_NAMES) + ": " + b["candidate"] + " (latest "
+                + _fmt_date(b["candidate_date"]) + "); " + b["candidate_detail"],
+                "due_date": pd.NaT, "clause": cl["baseline"]}))
+    nr = ag[ag["shift_status"].eq("not computed (NR)") & (ag["date"] >= start) & (ag["date"] <= as_of)]
+    if not nr.empty:
+        parts.append(pd.DataFrame({
+            "subject": nr["person_id"], "subject_type": "person", "kind": "shift review (NR)",
+            "detail": nr["ear"].map(EAR_NAMES) + " " + _fmt_date(nr["date"])
+            + ": no response at 2000-4000 Hz; the shift is at least as large as the audiometer's limit allows "
+              "and is not computed — for the reviewer",
+            "due_date": pd.NaT, "clause": cl["review"]}))
+    if not parts:
+        return pd.DataFrame(columns=ACTION_COLUMNS)
+    out = pd.concat(parts, ignore_index=True)
+    out["due_date"] = _dates(out["due_date"])
+    out = out[ACTION_COLUMNS].sort_values(["due_date", "subject", "kind", "detail"], kind="mergesort",
+                                          na_position="last")
+    return out.reset_index(drop=True)
+
+
+# ---------------------------------------------------------------------------------------
+# population views
+
+
+def _per_person_year(ag: pd.DataFrame) -> pd.DataFrame:
+    """Return one row per person and year: group, tested, sts, recordable, mean 2/3/4 kHz average."""
+    main = ag[~ag["is_retest_of_shift"]]
+    last = main.sort_values(["person_id", "year", "ear", "date"], kind="mergesort").drop_duplicates(
+        ["person_id", "year", "ear"], keep="last")
+    avg = last.groupby(["person_id", "year"], sort=True).agg(avg_234=("avg_234", "mean"),
+                                                             n_nr=("nr_234", "sum"))
+    flags = ag.groupby(["person_id", "year"], sort=True).agg(group=("group", "first"), sts=("sts", "any"),
+                                                             recordable=("recordable", "any"))
+    py = flags.join(avg).reset_index()
+    py["prev_avg"] = py.groupby("person_id", sort=False)["avg_234"].shift(1)
+    py["prev_year"] = py.groupby("person_id", sort=False)["year"].shift(1)
+    py["within_change"] = (py["avg_234"] - py["prev_avg"]).where(py["prev_year"] == py["year"] - 1)
+    return py
+
+
+def _with_all(df: pd.DataFrame) -> pd.DataFrame:
+    """Return *df* plus a copy labelled group 'all'."""
+    return pd.concat([df, df.assign(group="all")], ignore_index=True)
+
+
+def _population(py: pd.DataFrame) -> pd.DataFrame:
+    """Return per group and year: counts, rates with exact 95 % CIs, mean average and change."""
+    cols = ["group", "year", "n_tested", "n_sts", "n_recordable", "sts_rate", "sts_ci_low", "sts_ci_high",
+            "recordable_rate", "recordable_ci_low", "recordable_ci_high", "mean_avg_234", "n_avg",
+            "n_nr_excluded", "change_mean_avg", "mean_within_change", "n_within"]
+    if py.empty:
+        return pd.DataFrame(columns=cols)
+    d = _with_all(py)
+    p = d.groupby(["group", "year"], sort=True).agg(
+        n_tested=("person_id", "size"), n_sts=("sts", "sum"), n_recordable=("recordable", "sum"),
+        mean_avg_234=("avg_234", "mean"), n_avg=("avg_234", "count"), n_nr_excluded=("n_nr", "sum"),
+        mean_within_change=("within_change", "mean"), n_within=("within_change", "count")).reset_index()
+    for c in ("n_tested", "n_sts", "n_recordable", "n_avg", "n_nr_excluded", "n_within"):
+        p[c] = p[c].astype(int)
+    level = PARAMETERS["ci_level"]
+    p["sts_rate"] = p["n_sts"] / p["n_tested"]
+    p["sts_ci_low"], p["sts_ci_high"] = clopper_pearson(p["n_sts"], p["n_tested"], level)
+    p["recordable_rate"] = p["n_recordable"] / p["n_tested"]
+    p["recordable_ci_low"], p["recordable_ci_high"] = clopper_pearson(p["n_recordable"], p["n_tested"], level)
+    prev = p.groupby("group", sort=False)["mean_avg_234"].shift(1)
+    prev_year = p.groupby("group", sort=False)["year"].shift(1)
+    p["change_mean_avg"] = (p["mean_avg_234"] - prev).where(prev_year == p["year"] - 1)
+    return p[cols]
+
+
+def _indicators(ag: pd.DataFrame) -> pd.DataFrame:
+    """Return %Worse-sequential and %Better-or-Worse-sequential per group and year."""
+    cols = ["group", "year", "n_pairs", "n_worse", "pct_worse", "n_better_or_worse", "pct_better_or_worse",
+            "n_incomplete"]
+    main = ag[~ag["is_retest_of_shift"]]
+    last = main.sort_values(["person_id", "year", "ear", "date"], kind="mergesort").drop_duplicates(
+        ["person_id", "year", "ear"], keep="last")
+    hl = [f"hl_{f}" for f in NIOSH_FREQS]
+    wide = last.pivot_table(index=["person_id", "year"], columns="ear", values=hl, aggfunc="first", dropna=False)
+    wide = wide.reindex(columns=pd.MultiIndex.from_product([hl, ["L", "R"]]))
+    if wide.empty:
+        return pd.DataFrame(columns=cols)
+    wide = wide.sort_index()
+    vals = wide.to_numpy(dtype=float)
+    persons = wide.index.get_level_values(0).to_numpy()
+    years = wide.index.get_level_values(1).to_numpy()
+    same = np.r_[False, persons[1:] == persons[:-1]]
+    prev = np.vstack([np.full((1, vals.shape[1]), np.nan), vals[:-1]])
+    diff = vals - prev
+    complete = np.isfinite(diff).all(axis=1)
+    lim = PARAMETERS["indicator_db"]
+    worse = (np.round(diff, 6) >= lim).any(axis=1)
+    bw = (np.round(np.abs(diff), 6) >= lim).any(axis=1)
+    groups = ag.drop_duplicates("person_id").set_index("person_id")["group"]
+    pairs = pd.DataFrame({"person_id": persons, "year": years, "pair": same, "complete": same & complete,
+                          "worse": same & complete & worse, "bw": same & complete & bw})
+    pairs = pairs[pairs["pair"]]
+    if pairs.empty:
+        return pd.DataFrame(columns=cols)
+    pairs["group"] = pairs["person_id"].map(groups).fillna("")
+    pairs = _with_all(pairs)
+    out = pairs.groupby(["group", "year"], sort=True).agg(n_pairs=("complete", "sum"), n_worse=("worse", "sum"),
+                                                          n_better_or_worse=("bw", "sum"),
+                                                          n_all=("pair", "size")).reset_index()
+    for c in ("n_pairs", "n_worse", "n_better_or_worse", "n_all"):
+        out[c] = out[c].astype(int)
+    out["n_incomplete"] = out["n_all"] - out["n_pairs"]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out["pct_worse"] = np.where(out["n_pairs"] > 0, 100.0 * out["n_worse"] / out["n_pairs"].clip(lower=1),
+                                    np.nan)
+        out["pct_better_or_worse"] = np.where(out["n_pairs"] > 0,
+                                              100.0 * out["n_better_or_worse"] / out["n_pairs"].clip(lower=1),
+                                              np.nan)
+    return out[cols]
+
+
+def _latest_per_ear(ag: pd.DataFrame, as_of: pd.Timestamp) -> pd.DataFrame:
+    """Return the latest audiogram per person and ear on or before *as_of*."""
+    a = ag[(ag["date"] <= as_of)]
+    return a.drop_duplicates(["person_id", "ear"], keep="last")
+
+
+def _age_norms(ag: pd.DataFrame, as_of: pd.Timestamp) -> pd.DataFrame:
+    """Return observed hearing levels by age band, sex and frequency vs ISO 7029:2017."""
+    cols = ["age_band", "sex", "freq", "n_ears", "n_nr", "mean_age", "observed_median", "observed_p90",
+            "iso_median", "iso_p90", "share_worse_than_iso_p90"]
+    lat = _latest_per_ear(ag, as_of)
+    lat = lat[lat["sex"].isin(["M", "F"]) & lat["age"].notna() & (lat["age"] >= 18)]
+    if lat.empty:
+        return pd.DataFrame(columns=cols)
+    edges = list(PARAMETERS["age_bands"])
+    labels = [f"{lo}-{hi - 1}" if hi < 200 else f"{lo}+" for lo, hi in zip(edges[:-1], edges[1:])]
+    band = pd.cut(lat["age"], bins=edges, right=False, labels=labels)
+    frames = []
+    for f in AUDIO_FREQS:
+        v = lat[f"hl_{f}"].to_numpy(float)
+        nr = lat[f"nr_{f}"].to_numpy(bool)
+        obs = np.where(nr, np.inf, v)  # NR ranks above every number
+        p90 = norms.iso7029_percentile(lat["age"].to_numpy(float), f, lat["sex"].to_numpy(object), 0.10)
+        md = norms.iso7029_median(lat["age"].to_numpy(float), f, lat["sex"].to_numpy(object))
+        frames.append(pd.DataFrame({"age_band": band.astype(str).to_numpy(), "sex": lat["sex"].to_numpy(),
+                                    "freq": f, "obs": obs, "nr": nr, "age": lat["age"].to_numpy(float),
+                                    "iso_md": md, "iso_p90": p90,
+                                    "worse": np.where(np.isfinite(obs) | nr, obs > p90, np.nan)}))
+    d = pd.concat(frames, ignore_index=True)
+    d = d[np.isfinite(d["obs"]) | d["nr"]]
+    if d.empty:
+        return pd.DataFrame(columns=cols)
+    g = d.groupby(["age_band", "sex", "freq"], sort=True, observed=True)
+    out = g.agg(n_ears=("obs", "size"), n_nr=("nr", "sum"), mean_age=("age", "mean"), iso_median=("iso_md", "mean"),
+                iso_p90=("iso_p90", "mean"), share_worse_than_iso_p90=("worse", "mean")).reset_index()
+    out["observed_median"] = g["obs"].quantile(0.5, interpolation="midpoint").to_numpy()
+    out["observed_p90"] = g["obs"].quantile(0.9, interpolation="higher").to_numpy()
+    out["n_nr"] = out["n_nr"].astype(int)
+    return out[cols]
+
+
+def _noise_expected(ag: pd.DataFrame, results: dict, as_of: pd.Timestamp) -> tuple[pd.DataFrame, list[str]]:
+    """Return per group and frequency the ISO 1999:2013 expected change vs the observed change."""
+    cols = ["group", "freq", "lex_8h", "n_ears", "n_nr_excluded", "mean_years", "nipts_at_mean_years",
+            "expected_noise_change", "expected_age_change", "expected_change", "observed_change"]
+    notes: list[str] = []
+    ex = results.get("exposure") if results else None
+    people = getattr(ex, "people", None)
+    groups = getattr(ex, "groups", None)
+    if people is None or groups is None or not isinstance(people, pd.DataFrame):
+        notes.append("No exposure results: the expected noise-induced shift (ISO 1999:2013) is not shown.")
+        return pd.DataFrame(columns=cols), notes
+    lat = _latest_per_ear(ag, as_of)
+    lat = lat[lat["baseline_date"].notna() & (lat["date"] > lat["baseline_date"])]
+    if lat.empty:
+        return pd.DataFrame(columns=cols), notes
+    pcols = [c for c in ("person_id", "lex_8h", "first_exposed_date") if c in people.columns]
+    pl = people[pcols].drop_duplicates("person_id").rename(columns={"lex_8h": "p_lex"})
+    pl["person_id"] = pl["person_id"].astype(str)
+    gl = groups[["group", "lex_8h"]].drop_duplicates("group").rename(columns={"lex_8h": "g_lex"})
+    gl["group"] = gl["group"].astype(str)
+    lat = lat.merge(pl, on="person_id", how="left").merge(gl, on="group", how="left")
+    lex = pd.to_numeric(_col(lat, "p_lex"), errors="coerce").fillna(pd.to_numeric(lat["g_lex"], errors="coerce"))
+    start = _dates(_col(lat, "first_exposed_date", pd.NaT)).fillna(lat["hire_date"])
+    yrs_now = years_between(start, lat["date"]).clip(lower=0)
+    yrs_base = years_between(start, lat["baseline_date"]).clip(lower=0)
+    frames = []
+    for f in NOISE_FREQS:
+        n_now = norms.iso1999_nipts(f, lex.to_numpy(float), yrs_now.to_numpy(float))
+        n_base = norms.iso1999_nipts(f, lex.to_numpy(float), yrs_base.to_numpy(float))
+        sex = lat["sex"].to_numpy(object)
+        a_now = norms.iso7029_median(lat["age"].to_numpy(float), f, sex)
+        a_base = norms.iso7029_median(lat["base_age"].to_numpy(float), f, sex)
+        obs = (lat[f"hl_{f}"] - lat[f"base_hl_{f}"]).to_numpy(float)
+        frames.append(pd.DataFrame({"group": lat["group"].to_numpy(), "freq": f, "lex": lex.to_numpy(float),
+                                    "years": yrs_now.to_numpy(float), "noise": n_now - n_base,
+                                    "age": a_now - a_base, "obs": obs, "nr": lat[f"nr_{f}"].to_numpy(bool)}))
+    d = pd.concat(frames, ignore_index=True)
+    d = d[np.isfinite(d["lex"]) & np.isfinite(d["years"])]
+    if d.empty:
+        notes.append("No LEX,8h for the tested people: the expected noise-induced shift is not shown.")
+        return pd.DataFrame(columns=cols), notes
+    out = d.groupby(["group", "freq"], sort=True).agg(
+        lex_8h=("lex", "mean"), n_ears=("obs", "count"), n_nr_excluded=("nr", "sum"), mean_years=("years", "mean"),
+        expected_noise_change=("noise", "mean"), expected_age_change=("age", "mean"),
+        observed_change=("obs", "mean")).reset_index()
+    out["n_nr_excluded"] = out["n_nr_excluded"].astype(int)
+    out["nipts_at_mean_years"] = norms.iso1999_nipts(out["freq"].to_numpy(float), out["lex_8h"].to_numpy(float),
+                                                     out["mean_years"].to_numpy(float))
+    out["expected_change"] = out["expected_noise_change"] + out["expected_age_change"]
+    return out[cols], notes
+
+
+def _incidence(cases: pd.DataFrame, years: list[int], hours: float | None, start: pd.Timestamp,
+               end: pd.Timestamp) -> tuple[pd.DataFrame, int, float | None]:
+    """Return cases per year, rates per 200,000 h where hours_worked is given, and the period figures."""
+    counts = cases.groupby("year").size() if not cases.empty else pd.Series(dtype=int)
+    inc = pd.DataFrame({"year": sorted(set(years) | set(counts.index.tolist()))})
+    inc["n_cases"] = inc["year"].map(counts).fillna(0).astype(int)
+    single = start.year == end.year
+    inc["hours_worked"] = np.where(single & (inc["year"] == end.year) & (hours is not None),
+                                   float(hours or 0.0), np.nan)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        inc["rate_per_200k"] = np.where(inc["hours_worked"] > 0, inc["n_cases"] * 200000.0 / inc["hours_worked"],
+                                        np.nan)
+    in_period = int(((cases["date"] >= start) & (cases["date"] <= end)).sum()) if not cases.empty else 0
+    rate = (in_period * 200000.0 / hours) if hours else None
+    return inc, in_period, rate
+
+
+# ---------------------------------------------------------------------------------------
+# findings
+
+
+def _findings(programme: Programme, ag: pd.DataFrame, baselines: pd.DataFrame, min_quiet: float) -> list[Finding]:
+    """Return warnings about the audiogram data (NR, missing frequencies, quiet period, checks, sex)."""
+    out: list[Finding] = []
+    path = _path(programme, "audiograms")
+
+    def add(mask: pd.Series | np.ndarray, column: str, message: str | pd.Series, key: str) -> None:
+        rows = ag.loc[np.asarray(mask, dtype=bool)]
+        msgs = message.loc[rows.index] if isinstance(message, pd.Series) else [message] * len(rows)
+        for r, m in zip(rows["_row"].to_numpy(), msgs):
+            out.append(Finding(path, None if pd.isna(r) else int(r), column, WARNING, str(m), key=key))
+
+    for f in AUDIO_FREQS:
+        add(ag[f"nr_{f}"], f"hl_{f}", f"no response (NR) at {f} Hz: kept as a censored value at or beyond the "
+            "audiometer's limit; averages and shifts that need it are not computed and are flagged for review",
+            key=f"nr-{f}")
+    for f in STS_FREQS:
+        add(ag[f"hl_{f}"].isna() & ~ag[f"nr_{f}"], f"hl_{f}",
+            f"{f} Hz not tested: the 2000/3000/4000 Hz average and the STS cannot be computed", key=f"blank-{f}")
+    if not baselines.empty:
+        b = ag.merge(baselines[["person_id", "ear", "baseline_date"]], left_on=["person_id", "ear", "date"],
+                     right_on=["person_id", "ear", "baseline_date"], how="left", indicator=True)["_merge"].eq("both")
+        b = b.to_numpy()
+        q = ag["quiet_hours"]
+        add(b & q.notna().to_numpy() & ~_ge(q, min_quiet), "quiet_hours",
+            "baseline audiogram after " + q.round(1).astype(str) + f" h without workplace noise (the programme asks "
+            f"for at least {min_quiet:g} h, 29 CFR 1910.95(g)(5)(iii)); the reviewer may want a new baseline",
+            key="baseline-quiet")
+        add(b & q.isna().to_numpy(), "quiet_hours", "baseline audiogram: the quiet period before the test is not "
+            "recorded", key="baseline-quiet-missing")
+    vc = ag["valid_check"]
+    bad = vc.notna() & ~vc.fillna(True).astype(bool)
+    add(bad, "audiometer_id", "audiogram on a day without a valid audiometer check: "
+        + ag["check_reason"].fillna("").astype(str), key="audiometer-check")
+    no_sex = ag["sex"].eq("") & ag["baseline_date"].notna()
+    if no_sex.any():
+        ppath = _path(programme, "people")
+        people = programme.table("people")
+        pid = set(ag.loc[no_sex, "person_id"])
+        rows = people.loc[people["person_id"].astype(str).isin(pid), "_row"] if "_row" in people.columns \
+            else pd.Series([None] * len(pid))
+        for r in sorted(rows.dropna().astype(int).tolist()):
+            out.append(Finding(ppath, r, "sex", WARNING, "sex not given: no App. F age correction for this "
+                               "person's audiograms; the uncorrected STS is used", key="no-sex"))
+    return out
+
+
+# ---------------------------------------------------------------------------------------
+# the stage
+
+
+def compute(programme: Programme, results: dict) -> HearingResult:
+    """Compute baselines, shifts, recordable cases, follow-ups and population views."""
+    cfg = programme.config
+    start = pd.Timestamp(cfg.period.start)
+    as_of = pd.Timestamp(cfg.period.end)
+    findings: list[Finding] = []
+    notes: list[str] = []
+    ag = _prepare(programme)
+    decisions = _reviews(programme, ag, findings)
+    events = _baseline_events(ag, decisions)
+    ag = _attach_baseline(ag, events)
+    ag = _shifts(ag, cfg.audiometry.age_correction)
+    ag = _retests(ag, cfg.audiometry.retest_days)
+    ag = _apply_reviews(ag, decisions)
+    ag = _status_and_cases(ag)
+
+    meters = _audiometer_status(programme)
+    if meters.empty:
+        ag["valid_check"] = pd.Series(pd.NA, index=ag.index, dtype="boolean")
+        ag["check_reason"] = ""
+        if not programme.has("audiometers") and not ag.empty:
+            notes.append("No audiometer records (data/audiometers.csv): audiograms are not checked against "
+                         "the audiometer's daily check, calibrations and booth levels.")
+    else:
+        m = ag[["audiometer_id", "date"]].merge(meters, on=["audiometer_id", "date"], how="left")
+        known = ag["audiometer_id"].ne("").to_numpy() & m["valid"].notna().to_numpy()
+        ag["valid_check"] = _nbool(m["valid"].fillna(False).to_numpy(bool), known)
+        ag["check_reason"] = m["reason"].fillna("").to_numpy()
+
+    baselines = _baselines(ag, events, cfg.audiometry.min_quiet_hours)
+    cases = ag.loc[ag["recordable"], ["person_id", "ear", "date", "avg_234", "shift_driving", "year", "group"]] \
+        .rename(columns={"shift_driving": "shift"}).reset_index(drop=True)
+    incidence, period_cases, period_rate = _incidence(cases, sorted(ag["year"].unique().tolist()),
+                                                      cfg.hours_worked, start, as_of)
+    followups = _followups(programme, ag, decisions, as_of)
+    actions = _actions(ag, followups, baselines, start, as_of)
+    py = _per_person_year(ag)
+    population = _population(py)
+    indicators = _indicators(ag)
+    age_norms = _age_norms(ag, as_of)
+    noise_expected, n_notes = _noise_expected(ag, results, as_of)
+    notes.extend(n_notes)
+    findings.extend(_findings(programme, ag, baselines, cfg.audiometry.min_quiet_hours))
+    if ag.empty:
+        notes.append("No audiograms (data/audiograms.csv): there are no shifts or recordable cases to show.")
+
+    inper = (ag["date"] >= start) & (ag["date"] <= as_of)
+    fu_p = followups[(followups["due_date"] >= start) & (followups["due_date"] <= as_of)] \
+        if not followups.empty else followups
+    summary = {
+        "people_tested": int(ag.loc[inper, "person_id"].nunique()),
+        "audiograms": int(ag.loc[inper, ["person_id", "date"]].drop_duplicates().shape[0]),
+        "people_with_sts": int(ag.loc[inper & ag["sts"], "person_id"].nunique()),
+        "recordable_cases": int(period_cases),
+        "recordable_rate_per_200k": None if period_rate is None else round(float(period_rate), 3),
+        "niosh_shifts": int(ag.loc[inper & ag["niosh_shift"], "person_id"].nunique()),
+        "followups_due": int(len(fu_p)),
+        "followups_on_time": int((fu_p["status"] == "on time").sum()) if len(fu_p) else 0,
+        "followups_late_or_missing": int(fu_p["status"].isin(["late", "missing"]).sum()) if len(fu_p) else 0,
+        "baseline_candidates": int((baselines["candidate"] != "").sum()) if not baselines.empty else 0,
+        "age_correction": bool(cfg.audiometry.age_correction),
+    }
+    summary = dict(sorted(summary.items()))
+    ag = ag.drop(columns=["birth_date"])
+    log.info("hearing: %d audiogram rows, %d recordable cases", len(ag), len(cases))
+    return HearingResult(audiograms=ag, baselines=baselines, baseline_history=events, cases=cases,
+                         incidence=incidence, followups=followups, population=population, indicators=indicators,
+                         age_norms=age_norms, noise_expected=noise_expected, actions=actions, audiometer_ok=meters,
+                         summary=summary, findings=findings, notes=notes)

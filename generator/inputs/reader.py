@@ -1,0 +1,1187 @@
+"""Read a programme folder into a validated :class:`~generator.model.Programme`.
+
+Every cell is read as text first and converted per the declared kind of its column
+(:mod:`generator.inputs.spec`), column by column with vectorised pandas/numpy operations.
+Nothing here raises for a user mistake: each problem becomes a finding
+(``path:row:column: level: message``) in ``programme.findings`` and the caller decides
+whether to stop (``findings.failed(strict)``). Inputs are opened read-only; files that
+resolve outside the programme folder are reported and not read.
+"""
+from __future__ import annotations
+
+import csv
+import datetime as dt
+import hashlib
+import io
+import logging
+import os
+import re
+import time
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable
+
+import numpy as np
+import pandas as pd
+import yaml
+
+from ..config import CONFIG_FILE, Config, load_config
+from ..findings import ERROR, WARNING, Findings
+from ..model import NarrativePage, Programme
+from .spec import FILES, GROUPS, NOISE_LOG, Column, FileSpec
+
+log = logging.getLogger(__name__)
+
+DATA_DIR = "data"
+LOG_DIR = "data/noise_logs"
+PAGES_DIR = "pages"
+TEMPLATES_DIR = "templates"
+
+#: Slugs of the site's own pages; a narrative page that would take one gets a ``page-`` prefix.
+RESERVED_SLUGS = frozenset({"index", "methods", "quality", "exposure", "protection", "hearing",
+                            "programme", "actions", "trends", "review"})
+#: Front-matter keys of narrative pages.
+PAGE_KEYS = ("title", "order")
+#: Order of a narrative page without an ``order`` key.
+DEFAULT_PAGE_ORDER = 100
+#: Dates outside these years are rejected (they are typing mistakes, and they keep every
+#: date inside the datetime64[ns] range).
+YEAR_MIN, YEAR_MAX = 1900, 2200
+#: A logged interval further than this from the log's median interval is warned about (s).
+LOG_INTERVAL_TOLERANCE_S = 1.0
+#: Age at hire outside this range is warned about (years).
+HIRE_AGE_MIN, HIRE_AGE_MAX = 14.0, 90.0
+#: Longest cell text quoted back in a message.
+SHOWN_CHARS = 40
+
+_FORMULA = r"^[=+\-@][A-Za-z]"
+_TZ_SUFFIX = r"\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?\s*(?:Z|[+-]\d{2}:?\d{2})$"
+_YEAR_ONLY = r"^\d{4}$"
+_SLUG_BAD = re.compile(r"[^a-z0-9-]+")
+_NUMERIC_KINDS = ("float", "int", "level", "hours")
+_TEXT_KINDS = ("id", "text")
+
+
+def build_date() -> dt.date:
+    """Return the build date: SOURCE_DATE_EPOCH (UTC) when set, else the system date."""
+    epoch = os.environ.get("SOURCE_DATE_EPOCH", "").strip()
+    if epoch:
+        try:
+            return dt.datetime.fromtimestamp(int(epoch), tz=dt.timezone.utc).date()
+        except (ValueError, OverflowError, OSError):
+            log.warning("SOURCE_DATE_EPOCH=%r is not a whole number of seconds; using the system date",
+                        epoch)
+    return dt.date.today()
+
+
+# ---------------------------------------------------------------------------------------
+# small helpers
+
+
+class _Sink:
+    """Emit findings for masked rows of one table whose rows may come from several files."""
+
+    def __init__(self, findings: Findings, path: str | np.ndarray, rows: np.ndarray) -> None:
+        self.findings = findings
+        self.path = path
+        self.rows = np.asarray(rows, dtype=np.int64)
+
+    def add(self, mask: Any, column: str | None, level: str, message: str | Any, key: str) -> None:
+        """Record one finding per True entry of *mask* (message: text or per-row texts)."""
+        idx = np.flatnonzero(np.asarray(mask, dtype=bool))
+        if not idx.size:
+            return
+        if isinstance(message, str):
+            msgs: Any = message
+        elif callable(message):
+            msgs = np.asarray(message(idx), dtype=object)
+        else:
+            msgs = np.asarray(message, dtype=object)[idx]
+        if isinstance(self.path, str):
+            self.findings.add_rows(self.path, self.rows[idx].tolist(), column, level,
+                                   msgs if isinstance(msgs, str) else msgs.tolist(), key=key)
+            return
+        paths = self.path[idx]
+        for p in sorted(set(paths.tolist())):
+            sel = paths == p
+            self.findings.add_rows(p, self.rows[idx[sel]].tolist(), column, level,
+                                   msgs if isinstance(msgs, str) else msgs[sel].tolist(), key=key)
+
+
+def _short(v: Any) -> str:
+    """Return a cell text shortened for a message."""
+    t = str(v)
+    return t if len(t) <= SHOWN_CHARS else t[:SHOWN_CHARS] + "…"
+
+
+def _each(template: str, **values: Any) -> Callable[[np.ndarray], list[str]]:
+    """Return a message builder formatting *template* with the values of the flagged rows only."""
+    arrays = {k: np.asarray(v, dtype=object) for k, v in values.items()}
+
+    def build(idx: np.ndarray) -> list[str]:
+        picked = {k: a[idx] for k, a in arrays.items()}
+        return [template.format(**{k: _short(v) if isinstance(v, str) else v
+                                   for k, v in ((k, picked[k][i]) for k in picked)})
+                for i in range(len(idx))]
+
+    return build
+
+
+def _byte_hints(arr: np.ndarray) -> tuple[bool, bool]:
+    """Return (some cell may need stripping, some cell may look like a formula) for quote-free CSV bytes."""
+    if not arr.size:
+        return False, False
+    last = arr.size - 1
+    ws = np.flatnonzero((arr == 32) | (arr == 9))
+    spaces = False
+    if ws.size:
+        prev = np.where(ws > 0, arr[np.maximum(ws - 1, 0)], 10)
+        nxt = np.where(ws < last, arr[np.minimum(ws + 1, last)], 10)
+        spaces = bool(((prev == 44) | (prev == 10)).any() or ((nxt == 44) | (nxt == 10) | (nxt == 13)).any())
+    lead = np.flatnonzero((arr == 61) | (arr == 43) | (arr == 45) | (arr == 64))  # = + - @
+    lead = lead[lead < last]
+    if lead.size:
+        before = arr[np.maximum(lead - 1, 0)]
+        at_start = (lead == 0) | (before == 44) | (before == 10)
+        follower = arr[lead + 1] | 32  # ASCII letters fold to lower case
+        formula = bool((at_start & (follower >= 97) & (follower <= 122)).any())
+    else:
+        formula = False
+    return spaces, formula
+
+
+def _fmt(x: float) -> str:
+    return f"{x:g}"
+
+
+def _range_text(c: Column) -> str:
+    if c.lo is not None and c.hi is not None:
+        if c.lo_open:
+            return f"above {_fmt(c.lo)} up to {_fmt(c.hi)}"
+        return f"{_fmt(c.lo)} to {_fmt(c.hi)}"
+    if c.lo is not None:
+        return f"more than {_fmt(c.lo)}" if c.lo_open else f"at least {_fmt(c.lo)}"
+    return f"at most {_fmt(c.hi)}" if c.hi is not None else "any"
+
+
+def _inside(root: Path, path: Path) -> Path | None:
+    """Return the resolved *path* when it lies inside *root* (already resolved), else None."""
+    try:
+        real = path.resolve(strict=False)
+    except (OSError, RuntimeError):
+        return None
+    try:
+        real.relative_to(root)
+    except ValueError:
+        return None
+    return real
+
+
+def _rel(root: Path, path: Path) -> str:
+    """Return *path* relative to *root* in POSIX form (without resolving links)."""
+    try:
+        return path.relative_to(root).as_posix()
+    except ValueError:
+        return path.as_posix()
+
+
+class _Inputs:
+    """Read input files read-only, confined to the programme folder, recording their bytes."""
+
+    def __init__(self, root: Path, findings: Findings) -> None:
+        self.root = root
+        self.findings = findings
+        self.read: dict[str, bytes] = {}
+
+    def get(self, path: Path) -> bytes | None:
+        """Return the bytes of *path*, or None (with an error) when it may not or cannot be read."""
+        rel = _rel(self.root, path)
+        if _inside(self.root, path) is None:
+            self.findings.error(rel, None, None, "resolves outside the programme folder (symbolic link?); "
+                                "not read")
+            return None
+        try:
+            with open(path, "rb") as fh:
+                data = fh.read()
+        except OSError as exc:
+            self.findings.error(rel, None, None, f"cannot be read: {exc.strerror or exc}")
+            return None
+        self.read[rel] = data
+        return data
+
+    def digest(self) -> str:
+        """Return sha256 over the sorted (relative path, bytes) of every file read."""
+        h = hashlib.sha256()
+        for rel in sorted(self.read):
+            data = self.read[rel]
+            name = rel.encode("utf-8")
+            h.update(len(name).to_bytes(8, "big") + name)
+            h.update(len(data).to_bytes(8, "big") + data)
+        return h.hexdigest()
+
+
+def _decode(raw: bytes, rel: str, findings: Findings) -> str | None:
+    """Return UTF-8 text (BOM removed) or None with one error naming the first bad byte."""
+    if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
+        findings.error(rel, 1, None, "looks like UTF-16 text (byte-order mark); save the file as UTF-8")
+        return None
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        line = raw[:exc.start].count(b"\n") + 1
+        findings.error(rel, line, None, f"not UTF-8 text: byte 0x{raw[exc.start]:02x} on line {line} "
+                       "cannot be decoded; save the file as UTF-8")
+        return None
+    if "\x00" in text:
+        line = text[:text.index("\x00")].count("\n") + 1
+        findings.error(rel, line, None, "contains NUL bytes: not a text file; save it as UTF-8 CSV")
+        return None
+    return text
+
+
+# ---------------------------------------------------------------------------------------
+# parsing CSV text and xlsx sheets into (header, cells, line numbers)
+
+
+@dataclass
+class _Grid:
+    """Cells of one sheet as text: header labels, body cells by position, line of each record."""
+
+    header: list[str]
+    cells: pd.DataFrame  # columns 0..n-1, str, "" for blank
+    rows: np.ndarray  # line number of each body record
+    path: str | np.ndarray
+    #: (cells may carry surrounding spaces, cells may look like formulas); True when unknown
+    hints: tuple[bool, bool] = (True, True)
+
+
+def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings) -> _Grid | None:
+    """Parse quote-free CSV with pandas' C reader; None when a consistency check fails."""
+    arr = np.frombuffer(raw, dtype=np.uint8)
+    nl = np.flatnonzero(arr == 10)
+    if not raw.endswith(b"\n"):
+        nl = np.append(nl, arr.size)
+    n_lines = nl.size
+    commas = np.flatnonzero(arr == 44)
+    fields = np.bincount(np.searchsorted(nl, commas), minlength=n_lines)[:n_lines] + 1
+    starts = np.concatenate(([0], nl[:-1] + 1))
+    length = nl - starts
+    cr = (length > 0) & (arr[np.minimum(nl - 1, arr.size - 1)] == 13)
+    blank = (length - cr) == 0
+    ncols = int(fields[0])
+    bad = (fields != ncols) & ~blank
+    bad[0] = False
+    line_no = np.arange(1, n_lines + 1)
+    if bad.any():
+        _ragged(findings, rel, line_no[bad], fields[bad], ncols)
+    keep = fields <= ncols
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        df = pd.read_csv(io.StringIO(text), header=None, names=list(range(ncols)), dtype=str,
+                         keep_default_na=False, na_filter=False, skip_blank_lines=False,
+                         on_bad_lines="skip", engine="c", quoting=csv.QUOTE_NONE)
+    if len(df) != int(keep.sum()):
+        return None
+    rows = line_no[keep]
+    drop = blank[keep]
+    header = [str(x) for x in df.iloc[0].tolist()] if len(df) else []
+    body = df.iloc[1:]
+    rows = rows[1:]
+    drop = drop[1:]
+    if drop.any():
+        body = body.loc[~drop]
+        rows = rows[~drop]
+    return _Grid(header, body.reset_index(drop=True), rows, rel, _byte_hints(arr))
+
+
+def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
+    """Parse CSV that may hold quoted fields (with commas or line breaks) with the csv module."""
+    reader = csv.reader(io.StringIO(text, newline=""))
+    try:
+        records = list(reader)
+    except csv.Error as exc:
+        findings.error(rel, reader.line_num or None, None, f"cannot be read as CSV: {exc} "
+                       "(unbalanced quotes?)")
+        return None
+    if not records:
+        return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
+    lens = np.fromiter(map(len, records), dtype=np.int64, count=len(records))
+    frame = pd.DataFrame(records, dtype=object)
+    breaks = np.zeros(len(records), dtype=np.int64)
+    for c in frame.columns:
+        col = frame[c]
+        breaks += col.str.count("\n").fillna(0).to_numpy(dtype=np.int64)
+    span = 1 + breaks
+    start_line = np.concatenate(([1], 1 + np.cumsum(span)[:-1]))
+    ncols = int(lens[0])
+    header = [str(x) for x in records[0]]
+    blank = (lens == 0) | ((lens == 1) & frame[0].fillna("").eq("").to_numpy())
+    bad = (lens != ncols) & ~blank
+    bad[0] = False
+    if bad.any():
+        _ragged(findings, rel, start_line[bad], lens[bad], ncols)
+    keep = ~blank & (lens <= ncols)
+    keep[0] = False
+    body = frame.loc[keep, list(range(min(ncols, frame.shape[1])))].fillna("")
+    body = body.astype(str).reset_index(drop=True)
+    return _Grid(header, body, start_line[keep], rel)
+
+
+def _ragged(findings: Findings, rel: str, lines: np.ndarray, fields: np.ndarray, ncols: int) -> None:
+    msgs = [f"has {n} field{'s' if n != 1 else ''} but the header has {ncols}"
+            + (" (row not read)" if n > ncols else " (missing cells read as blank)")
+            for n in fields.tolist()]
+    findings.add_rows(rel, lines.tolist(), None, ERROR, msgs, key="ragged row")
+
+
+def _parse_csv(raw: bytes, rel: str, findings: Findings) -> _Grid | None:
+    """Return the cells of CSV bytes, or None after recording why they cannot be read."""
+    text = _decode(raw, rel, findings)
+    if text is None:
+        return None
+    if not text.strip():
+        return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
+    body_raw = raw[3:] if raw.startswith(b"\xef\xbb\xbf") else raw
+    if '"' not in text:
+        try:
+            grid = _csv_fast(text, body_raw, rel, findings)
+        except (pd.errors.ParserError, ValueError) as exc:
+            log.debug("fast CSV path failed for %s: %s", rel, exc)
+            grid = None
+        if grid is not None:
+            return grid
+        # the consistency check failed: start again on the slow path without the fast path's findings
+    return _csv_quoted(text, rel, findings)
+
+
+def _xlsx_cell_text(v: Any, date_only: bool = False) -> str:
+    if v is None or (isinstance(v, float) and np.isnan(v)) or v is pd.NaT:
+        return ""
+    if isinstance(v, (pd.Timestamp, dt.datetime)):
+        if date_only or (v.hour, v.minute, v.second, v.microsecond) == (0, 0, 0, 0):
+            return v.strftime("%Y-%m-%d")
+        return v.isoformat()
+    if isinstance(v, dt.date):
+        return v.isoformat()
+    if isinstance(v, dt.time):
+        return v.isoformat()
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, float) and v.is_integer() and abs(v) < 1e15:
+        return str(int(v))
+    return str(v)
+
+
+def _parse_xlsx(raw: bytes, rel: str, findings: Findings, spec: FileSpec) -> _Grid | None:
+    """Return the cells of the first sheet of an xlsx workbook, or None with an error."""
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            frame = pd.read_excel(io.BytesIO(raw), sheet_name=0, header=None, dtype=object,
+                                  engine="openpyxl", keep_default_na=False, na_filter=False)
+    except Exception as exc:  # openpyxl raises many kinds for a damaged workbook
+        findings.error(rel, None, None, f"cannot be read as an Excel workbook (.xlsx): "
+                       f"{type(exc).__name__}: {str(exc)[:120]}")
+        return None
+    if frame.empty:
+        return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
+    dates = {c.name for c in spec.columns if c.kind in ("date", "date_or_year")}
+    labels = [str(v).replace("\ufeff", "").strip().lower() for v in frame.iloc[0].tolist()]
+    cells = pd.DataFrame({i: frame.iloc[:, i].map(lambda v, d=labels[i] in dates: _xlsx_cell_text(v, d))
+                          for i in range(frame.shape[1])})
+    rows = np.arange(1, len(cells) + 1, dtype=np.int64)
+    header = cells.iloc[0].tolist()
+    body = cells.iloc[1:]
+    rows = rows[1:]
+    blank = body.eq("").all(axis=1).to_numpy() if body.shape[1] else np.zeros(len(body), dtype=bool)
+    body = body.loc[~blank].reset_index(drop=True)
+    return _Grid(header, body, rows[~blank], rel)
+
+
+# ---------------------------------------------------------------------------------------
+# columns and values
+
+
+def _generated(spec: FileSpec) -> set[str]:
+    out = {"_row"}
+    for c in spec.columns:
+        if c.kind == "hl":
+            out.add("nr_" + c.name[3:])
+        if c.kind == "date_or_year":
+            out.add(c.name.replace("_date", "_year"))
+    return out
+
+
+def _named(grid: _Grid, spec: FileSpec, findings: Findings) -> tuple[pd.DataFrame, list[str], set[str]]:
+    """Name the cells by their (normalised) header; return (frame, unknown columns, missing)."""
+    path = grid.path if isinstance(grid.path, str) else str(grid.path[0])
+    declared = {c.name for c in spec.columns}
+    generated = _generated(spec)
+    names: dict[int, str] = {}
+    seen: dict[str, int] = {}
+    unknown: list[str] = []
+    for i, label in enumerate(grid.header):
+        name = str(label).replace("\ufeff", "").strip().lower()
+        if not name:
+            if i not in grid.cells.columns or not grid.cells[i].str.strip().ne("").any():
+                continue
+            name = f"column_{i + 1}"
+        if name in seen:
+            findings.error(path, 1, name, f"column '{name}' appears more than once (columns {seen[name] + 1} "
+                           f"and {i + 1}); the later one is ignored", key="duplicate column")
+            continue
+        if name in generated:
+            findings.warning(path, 1, name, f"column '{name}' is made by the reader; the file's column is "
+                             "ignored", key="generated column")
+            continue
+        seen[name] = i
+        names[i] = name
+        if name not in declared:
+            unknown.append(name)
+    n = len(grid.cells)
+    frame = pd.DataFrame({name: grid.cells[i] if i in grid.cells.columns else
+                          pd.Series([""] * n, dtype=str) for i, name in names.items()},
+                         index=pd.RangeIndex(n))
+    if unknown:
+        findings.warning(path, 1, None, f"unknown column{'s' if len(unknown) > 1 else ''} "
+                         f"{', '.join(repr(u) for u in unknown)} kept but not used (known: "
+                         f"{', '.join(c.name for c in spec.columns)})", key="unknown columns")
+    missing = {c.name for c in spec.columns if c.required and c.name not in seen}
+    for name in [c.name for c in spec.columns if c.name in missing]:
+        findings.error(path, 1, name, f"required column '{name}' is missing", key="missing column")
+    return frame, unknown, missing
+
+
+def _as_text(s: pd.Series, strip: bool = True) -> pd.Series:
+    s = s.astype(str)
+    return s.str.strip() if strip else s
+
+
+def _to_float(s: pd.Series, blank: np.ndarray) -> np.ndarray:
+    """Convert stripped text to float64 (NaN where blank or not a number)."""
+    arr = s.to_numpy(dtype=object).copy()
+    arr[blank] = "nan"
+    try:
+        return arr.astype("float64")
+    except (ValueError, TypeError, OverflowError):
+        arr[blank] = ""
+        return pd.to_numeric(pd.Series(arr, dtype=object), errors="coerce").to_numpy(dtype="float64")
+
+
+def _to_date(s: pd.Series) -> pd.Series:
+    out = pd.to_datetime(s, format="%Y-%m-%d", errors="coerce")
+    return out
+
+
+def _in_year_range(values: pd.Series) -> np.ndarray:
+    years = values.dt.year
+    return ((years >= YEAR_MIN) & (years <= YEAR_MAX)).fillna(False).to_numpy(dtype=bool)
+
+
+def _as_ns(values: pd.Series, ok: np.ndarray) -> pd.Series:
+    return values.where(pd.Series(ok, index=values.index)).astype("datetime64[ns]")
+
+
+class _Converter:
+    """Convert the text cells of one table to the declared kinds, recording problems."""
+
+    def __init__(self, spec: FileSpec, sink: _Sink, today: dt.date,
+                 hints: tuple[bool, bool] = (True, True)) -> None:
+        self.spec = spec
+        self.sink = sink
+        self.today = pd.Timestamp(today)
+        self.strip, self.formulas = hints
+
+    def column(self, c: Column, raw: pd.Series | None) -> dict[str, pd.Series]:
+        """Return the converted column(s) for declared column *c* (None: column absent)."""
+        n = len(self.sink.rows)
+        present = raw is not None
+        s = _as_text(raw, self.strip) if present else pd.Series([""] * n, dtype=str)
+        if present and c.kind in ("id", "text", "choice") and c.default is not None:
+            s = s.where(s.to_numpy(dtype=object) != "", str(c.default))
+        bl = s.to_numpy(dtype=object) == ""
+        if present and c.required:
+            self.sink.add(bl, c.name, ERROR, "required value is blank", key=f"{c.name}: blank")
+        kind = c.kind
+        if kind in _TEXT_KINDS:
+            if present:
+                self._formula(c.name, s)
+            return {c.name: s}
+        if kind == "choice":
+            return {c.name: self._choice(c, s, bl)}
+        if kind in ("date", "date_or_year"):
+            return self._date(c, s, bl)
+        if kind == "datetime":
+            return {c.name: self._datetime(c, s, bl)}
+        if kind in _NUMERIC_KINDS:
+            return {c.name: self._number(c, s, bl)}
+        if kind == "hl":
+            return self._hl(c, s, bl)
+        raise ValueError(f"column {c.name}: unknown kind {kind!r} in spec")
+
+    def _formula(self, name: str, s: pd.Series) -> None:
+        if not self.formulas:
+            return
+        hit = s.str.match(_FORMULA).fillna(False).to_numpy(dtype=bool)
+        self.sink.add(hit, name, WARNING, _each("'{v}' looks like a spreadsheet formula; kept as text", v=s),
+                      key=f"{name}: formula")
+
+    def _choice(self, c: Column, s: pd.Series, bl: np.ndarray) -> pd.Series:
+        canon = {ch.lower(): ch for ch in c.choices}
+        codes, uniques = pd.factorize(s)
+        mapped = np.asarray([canon.get(str(u).lower()) for u in uniques] + [None], dtype=object)
+        values = mapped[codes]
+        ok = np.asarray([v is not None for v in mapped], dtype=bool)[codes] | bl
+        self.sink.add(~ok, c.name, ERROR,
+                      _each("'{v}' is not one of: " + ", ".join(ch for ch in c.choices if ch), v=s),
+                      key=f"{c.name}: choice")
+        values[~ok | bl] = ""
+        return pd.Series(values, index=s.index, dtype=str)
+
+    def _past(self, c: Column, values: pd.Series, s: pd.Series, limit: pd.Timestamp) -> None:
+        if not c.past_only:
+            return
+        future = (values > limit).fillna(False).to_numpy(dtype=bool)
+        self.sink.add(future, c.name, ERROR,
+                      _each("date {v} is in the future (after " + self.today.date().isoformat() + ")", v=s),
+                      key=f"{c.name}: future")
+
+    def _date(self, c: Column, s: pd.Series, bl: np.ndarray) -> dict[str, pd.Series]:
+        out: dict[str, pd.Series] = {}
+        if c.kind == "date_or_year":
+            year_only = s.str.match(_YEAR_ONLY).fillna(False)
+            s_date = s.where(~year_only, s + "-07-01")
+        else:
+            year_only = None
+            s_date = s
+        values = _to_date(s_date)
+        parsed = values.notna().to_numpy()
+        in_range = _in_year_range(values)
+        bad_format = ~bl & ~parsed
+        wanted = "a date (YYYY-MM-DD) or a year" if c.kind == "date_or_year" else "a date (YYYY-MM-DD)"
+        self.sink.add(bad_format, c.name, ERROR, _each("'{v}' is not " + wanted, v=s),
+                      key=f"{c.name}: not a date")
+        self.sink.add(parsed & ~in_range, c.name, ERROR,
+                      _each(f"'{{v}}' is outside the years {YEAR_MIN} to {YEAR_MAX}", v=s),
+                      key=f"{c.name}: year range")
+        values = _as_ns(values, in_range)
+        self._past(c, values, s, self.today)
+        out[c.name] = values
+        if c.kind == "date_or_year":
+            out[c.name.replace("_date", "_year")] = values.dt.year.astype("float64")
+        return out
+
+    def _datetime(self, c: Column, s: pd.Series, bl: np.ndarray) -> pd.Series:
+        try:
+            values = pd.to_datetime(s, format="ISO8601", errors="coerce")
+            aware = getattr(values.dt, "tz", None) is not None
+        except (ValueError, TypeError):
+            aware = True
+        if aware:
+            tz = s.str.contains(_TZ_SUFFIX, regex=True).fillna(False)
+            self.sink.add(tz.to_numpy(dtype=bool), c.name, WARNING,
+                          "time-zone offset ignored; the clock time is kept as written",
+                          key=f"{c.name}: time zone")
+            s = s.where(~tz, s.str.replace(r"\s*(?:Z|[+-]\d{2}:?\d{2})$", "", regex=True))
+            try:
+                values = pd.to_datetime(s, format="ISO8601", errors="coerce")
+                if getattr(values.dt, "tz", None) is not None:
+                    values = values.dt.tz_localize(None)
+            except (ValueError, TypeError):
+                values = pd.Series(pd.NaT, index=s.index, dtype="datetime64[ns]")
+        parsed = values.notna().to_numpy()
+        self.sink.add(~bl & ~parsed, c.name, ERROR,
+                      _each("'{v}' is not a date-time (ISO 8601, e.g. 2025-03-04T08:00:00)", v=s),
+                      key=f"{c.name}: not a date-time")
+        in_range = _in_year_range(values)
+        self.sink.add(parsed & ~in_range, c.name, ERROR,
+                      _each(f"'{{v}}' is outside the years {YEAR_MIN} to {YEAR_MAX}", v=s),
+                      key=f"{c.name}: year range")
+        values = _as_ns(values, in_range)
+        self._past(c, values, s, self.today + pd.Timedelta(days=1))
+        return values
+
+    def _number(self, c: Column, s: pd.Series, bl: np.ndarray) -> pd.Series:
+        values = _to_float(s, bl)
+        finite = np.isfinite(values)
+        bad = ~bl & ~finite
+        if bad.any():
+            # 'inf', '1e999' and 'nan' are numbers to the parser but not measurements
+            nan_text = s.isin(["nan", "NaN", "NAN", "Nan", "-nan", "+nan", "-NaN", "+NaN"]).to_numpy()
+            special = ~np.isnan(values) | nan_text
+            self.sink.add(bad & ~special, c.name, ERROR, _each("'{v}' is not a number", v=s),
+                          key=f"{c.name}: not a number")
+            self.sink.add(bad & special, c.name, ERROR, _each("'{v}' is not a finite number", v=s),
+                          key=f"{c.name}: not finite")
+        values = np.where(finite, values, np.nan)
+        if c.kind == "int":
+            frac = finite & (np.mod(np.where(finite, values, 0.0), 1.0) != 0)
+            self.sink.add(frac, c.name, ERROR, _each("'{v}' is not a whole number", v=s),
+                          key=f"{c.name}: not whole")
+            values = np.where(frac, np.nan, values)
+        values = self._bounded(c, values, s)
+        if c.default is not None and isinstance(c.default, (int, float)):
+            values = np.where(bl, float(c.default), values)
+        return pd.Series(values, index=s.index, dtype="float64")
+
+    def _bounded(self, c: Column, values: np.ndarray, s: pd.Series) -> np.ndarray:
+        finite = np.isfinite(values)
+        out = np.zeros(values.shape, dtype=bool)
+        if c.lo is not None:
+            out |= finite & ((values <= c.lo) if c.lo_open else (values < c.lo))
+        if c.hi is not None:
+            out |= finite & (values > c.hi)
+        self.sink.add(out, c.name, ERROR, _each("{v} is outside the allowed range (" + _range_text(c) + ")", v=s),
+                      key=f"{c.name}: range")
+        return np.where(out, np.nan, values)
+
+    def _hl(self, c: Column, s: pd.Series, bl: np.ndarray) -> dict[str, pd.Series]:
+        nr = s.isin(["NR", "nr", "Nr", "nR"]).to_numpy()
+        values = _to_float(s, bl | nr)
+        finite = np.isfinite(values)
+        self.sink.add(~bl & ~nr & ~finite, c.name, ERROR,
+                      _each("'{v}' is not a hearing level (a number of dB HL, or NR for no response)", v=s),
+                      key=f"{c.name}: not a level")
+        values = self._bounded(c, np.where(finite, values, np.nan), s)
+        return {c.name: pd.Series(values, index=s.index, dtype="float64"),
+                "nr_" + c.name[3:]: pd.Series(nr, index=s.index, dtype=bool)}
+
+
+def _typed(spec: FileSpec, frame: pd.DataFrame, unknown: list[str], rows: np.ndarray, sink: _Sink,
+           today: dt.date, hints: tuple[bool, bool] = (True, True)) -> pd.DataFrame:
+    """Return the table with every declared column converted, unknown ones kept as text."""
+    conv = _Converter(spec, sink, today, hints)
+    out: dict[str, pd.Series] = {}
+    for c in spec.columns:
+        out.update(conv.column(c, frame[c.name] if c.name in frame.columns else None))
+    for name in unknown:
+        s = _as_text(frame[name], conv.strip)
+        conv._formula(name, s)
+        out[name] = s
+    result = pd.DataFrame(out, index=pd.RangeIndex(len(rows)))
+    result["_row"] = np.asarray(rows, dtype=np.int64)
+    return result
+
+
+def empty_table(spec: FileSpec) -> pd.DataFrame:
+    """Return an empty DataFrame with the declared (and generated) columns of *spec*."""
+    cols: dict[str, pd.Series] = {}
+    for c in spec.columns:
+        if c.kind in ("id", "text", "choice"):
+            cols[c.name] = pd.Series([], dtype=str)
+        elif c.kind in ("date", "datetime", "date_or_year"):
+            cols[c.name] = pd.Series([], dtype="datetime64[ns]")
+            if c.kind == "date_or_year":
+                cols[c.name.replace("_date", "_year")] = pd.Series([], dtype="float64")
+        elif c.kind == "hl":
+            cols[c.name] = pd.Series([], dtype="float64")
+            cols["nr_" + c.name[3:]] = pd.Series([], dtype=bool)
+        else:
+            cols[c.name] = pd.Series([], dtype="float64")
+    cols["_row"] = pd.Series([], dtype=np.int64)
+    return pd.DataFrame(cols)
+
+
+# ---------------------------------------------------------------------------------------
+# whole-table checks
+
+
+def _check_key(df: pd.DataFrame, spec: FileSpec, sink: _Sink) -> None:
+    key = [k for k in spec.key if k in df.columns]
+    if not key or len(key) != len(spec.key) or df.empty:
+        return
+    parts = [df[k] for k in key]
+    filled = np.ones(len(df), dtype=bool)
+    for p in parts:
+        filled &= (p.ne("") if p.dtype != "datetime64[ns]" and p.dtype != "float64" else p.notna()).to_numpy()
+    sub = df.loc[filled, key + ["_row"]]
+    if sub.empty:
+        return
+    dup = sub.duplicated(key, keep="first")
+    if not dup.any():
+        return
+    first = sub.groupby(key, sort=False, dropna=False)["_row"].transform("first")
+    mask = np.zeros(len(df), dtype=bool)
+    mask[np.flatnonzero(filled)[dup.to_numpy()]] = True
+    firsts = np.zeros(len(df), dtype=np.int64)
+    firsts[np.flatnonzero(filled)] = first.to_numpy()
+
+    def build(idx: np.ndarray) -> list[str]:
+        parts = []
+        for k in key:
+            v = df[k].iloc[idx]
+            txt = v.dt.strftime("%Y-%m-%d") if v.dtype == "datetime64[ns]" else v.astype(str)
+            parts.append([f"{k} {_short(t)}" for t in txt.tolist()])
+        return [f"duplicate {', '.join(p)} (first on line {n})" for p, n in zip(zip(*parts), firsts[idx].tolist())]
+
+    sink.add(mask, "+".join(key), ERROR, build, key="duplicate key")
+
+
+def _check_refs(df: pd.DataFrame, spec: FileSpec, sink: _Sink, tables: dict[str, pd.DataFrame],
+                present: dict[str, str], derived_groups: bool) -> None:
+    for c in spec.columns:
+        if c.ref is None or c.name not in df.columns:
+            continue
+        target, tcol = c.ref
+        if target not in tables or (target not in present and not (target == "groups" and derived_groups)):
+            continue  # the referenced file is absent: nothing to check against
+        known = tables[target][tcol]
+        s = df[c.name]
+        unknown = (s.ne("") & ~s.isin(known)).to_numpy(dtype=bool)
+        if not unknown.any():
+            continue
+        where = (f"(not in {present[target]})" if target in present else
+                 "(no person in data/people.csv is in this group, and data/groups.csv is absent)")
+        sink.add(unknown, c.name, ERROR, _each(f"unknown {tcol} '{{v}}' {where}", v=s),
+                 key=f"{c.name}: unknown reference")
+
+
+def _person_map(people: pd.DataFrame, column: str) -> pd.Series:
+    p = people.loc[people["person_id"].ne(""), ["person_id", column]].drop_duplicates("person_id")
+    return p.set_index("person_id")[column]
+
+
+def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], findings: Findings) -> None:
+    """Warn about records that contradict each other (and fill noise groups from people)."""
+    people = tables["people"]
+    if "people" in present and not people.empty:
+        p_sink = _Sink(findings, present["people"], people["_row"].to_numpy())
+        age = (people["hire_date"] - people["birth_date"]).dt.days / 365.25
+        odd = ((age < HIRE_AGE_MIN) | (age > HIRE_AGE_MAX)).fillna(False).to_numpy(dtype=bool)
+        p_sink.add(odd, "birth_date", WARNING,
+                   _each("age at hire would be {v} years (outside " f"{HIRE_AGE_MIN:g} to {HIRE_AGE_MAX:g}); "
+                         "check birth_date and hire_date", v=age.round(1)),
+                   key="birth_date: age at hire")
+        back = (people["leave_date"] < people["hire_date"]).fillna(False).to_numpy(dtype=bool)
+        p_sink.add(back, "leave_date", WARNING, "leave_date is before hire_date", key="leave_date: before hire")
+    noise = tables["noise"]
+    if "noise" in present and not noise.empty:
+        n_sink = _Sink(findings, present["noise"], noise["_row"].to_numpy())
+        lonely = (noise["kind"].eq("personal") & noise["person_id"].eq("")).to_numpy(dtype=bool)
+        n_sink.add(lonely, "person_id", WARNING, "personal measurement without person_id",
+                   key="person_id: personal without person")
+        blank_group = noise["group"].eq("")
+        if blank_group.any():
+            filled = noise["person_id"].map(_person_map(people, "group")).fillna("").astype(str)
+            noise["group"] = noise["group"].where(~blank_group, filled)
+    aud = tables["audiograms"]
+    if "audiograms" in present and not aud.empty:
+        a_sink = _Sink(findings, present["audiograms"], aud["_row"].to_numpy())
+        birth = aud["person_id"].map(_person_map(people, "birth_date"))
+        leave = aud["person_id"].map(_person_map(people, "leave_date"))
+        before = (aud["date"] < birth).fillna(False).to_numpy(dtype=bool)
+        a_sink.add(before, "date", WARNING, "audiogram dated before the person's birth_date",
+                   key="date: before birth")
+        after = (aud["date"] > leave + pd.Timedelta(days=1)).fillna(False).to_numpy(dtype=bool)
+        a_sink.add(after, "date", WARNING, "audiogram dated more than 1 day after the person's leave_date",
+                   key="date: after leave")
+
+
+def _derive_groups(people: pd.DataFrame, spec: FileSpec) -> pd.DataFrame:
+    """Return a groups table made of the distinct groups of people.csv (defaults filled)."""
+    names = sorted(set(people["group"].tolist()) - {""})
+    out = empty_table(spec).iloc[:0]
+    data: dict[str, Any] = {}
+    for c in spec.columns:
+        if c.name == "group":
+            data[c.name] = pd.Series(names, dtype=str)
+        elif c.kind in ("id", "text", "choice"):
+            data[c.name] = pd.Series([""] * len(names), dtype=str)
+        else:
+            default = float(c.default) if isinstance(c.default, (int, float)) else np.nan
+            data[c.name] = pd.Series([default] * len(names), dtype="float64")
+    data["_row"] = pd.Series([0] * len(names), dtype=np.int64)
+    return pd.DataFrame(data, columns=out.columns)
+
+
+# ---------------------------------------------------------------------------------------
+# data files
+
+
+def _source(root: Path, spec: FileSpec, findings: Findings) -> tuple[Path | None, str]:
+    """Return the file to read for *spec* (csv or xlsx) and its kind, reporting both present."""
+    csv_path = root / spec.path
+    xlsx_path = csv_path.with_suffix(".xlsx")
+    has_csv = os.path.lexists(csv_path)
+    has_xlsx = os.path.lexists(xlsx_path)
+    if has_csv and has_xlsx:
+        findings.error(spec.path, None, None, f"both {spec.path} and {_rel(root, xlsx_path)} are present; "
+                       "keep one (the CSV is read)", key="both csv and xlsx")
+    if has_csv:
+        return csv_path, "csv"
+    if has_xlsx:
+        return xlsx_path, "xlsx"
+    return None, ""
+
+
+def _read_table(spec: FileSpec, root: Path, inputs: _Inputs, findings: Findings,
+                today: dt.date) -> tuple[pd.DataFrame, str | None]:
+    """Read one data file; return (typed table, relative path read or None)."""
+    path, kind = _source(root, spec, findings)
+    if path is None:
+        if spec.required:
+            findings.error(spec.path, None, None, f"{spec.path} is missing; this file is required",
+                           key="required file missing")
+        return empty_table(spec), None
+    rel = _rel(root, path)
+    if path.is_dir():
+        findings.error(rel, None, None, "is a folder, not a file")
+        return empty_table(spec), None
+    raw = inputs.get(path)
+    if raw is None:
+        return empty_table(spec), None
+    grid = _parse_xlsx(raw, rel, findings, spec) if kind == "xlsx" else _parse_csv(raw, rel, findings)
+    if grid is None:
+        return empty_table(spec), rel
+    if not grid.header:
+        _no_rows(spec, rel, findings, "the file is empty")
+        return empty_table(spec), rel
+    frame, unknown, _missing = _named(grid, spec, findings)
+    if frame.empty:
+        _no_rows(spec, rel, findings, "no rows (header only)")
+    sink = _Sink(findings, rel, grid.rows)
+    table = _typed(spec, frame, unknown, grid.rows, sink, today, grid.hints)
+    return table, rel
+
+
+def _no_rows(spec: FileSpec, rel: str, findings: Findings, what: str) -> None:
+    if spec.required:
+        findings.error(rel, None, None, f"{what}; this file is required and needs at least one row",
+                       key="no rows")
+    else:
+        findings.warning(rel, None, None, f"{what}; its pages are left out", key="no rows")
+
+
+def _unknown_data_files(root: Path, findings: Findings) -> None:
+    data = root / DATA_DIR
+    if not data.is_dir():
+        return
+    known = {Path(f.path).stem for f in FILES}
+    for p in sorted(data.iterdir()):
+        if p.suffix.lower() in (".csv", ".xlsx") and p.stem not in known:
+            findings.warning(_rel(root, p), None, None, f"not a known data file; ignored (known: "
+                             f"{', '.join(sorted(known))})", key="unknown data file")
+
+
+# ---------------------------------------------------------------------------------------
+# noise logs
+
+
+def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFrame,
+               today: dt.date) -> tuple[dict[str, pd.DataFrame], dict[str, float]]:
+    """Read data/noise_logs/ID.csv for every logged measurement (one batch parse where possible)."""
+    folder = root / LOG_DIR
+    if not folder.is_dir():
+        return {}, {}
+    if _inside(root, folder) is None:
+        findings.error(LOG_DIR, None, None, "resolves outside the programme folder; not read")
+        return {}, {}
+    ids = set(noise["measurement_id"].tolist()) - {""}
+    batch: dict[tuple[str, ...], list[tuple[int, str, str]]] = {}
+    frames: list[pd.DataFrame] = []
+    names: list[str] = []
+    paths: list[str] = []
+    for p in sorted(folder.iterdir()):
+        rel = _rel(root, p)
+        if p.suffix.lower() != ".csv" or p.is_dir():
+            findings.warning(rel, None, None, "not a .csv log file; ignored", key="log: not csv")
+            continue
+        if p.stem not in ids:
+            findings.warning(rel, None, None, f"no measurement_id '{p.stem}' in data/noise.csv; log ignored",
+                             key="log: unknown measurement")
+            continue
+        raw = inputs.get(p)
+        if raw is None:
+            continue
+        text = _decode(raw, rel, findings)
+        if text is None:
+            continue
+        idx = len(names)
+        names.append(p.stem)
+        paths.append(rel)
+        head, _, body = text.partition("\n")
+        cols = tuple(h.strip().lower() for h in head.rstrip("\r").split(","))
+        if '"' not in text and sorted(cols) == ["laeq", "start"] and body.strip():
+            batch.setdefault(cols, []).append((idx, rel, body if body.endswith("\n") else body + "\n"))
+            continue
+        frames.append(_log_single(raw, rel, idx, findings, today))
+    for cols, members in batch.items():
+        frames.extend(_log_batch(cols, members, findings, today))
+    frames = [f for f in frames if f is not None and len(f)]
+    if not frames:
+        return {}, {}
+    allf = pd.concat(frames, ignore_index=True)
+    return _log_tidy(allf, names, np.asarray(paths, dtype=object), findings)
+
+
+def _log_single(raw: bytes, rel: str, idx: int, findings: Findings, today: dt.date) -> pd.DataFrame | None:
+    grid = _parse_csv(raw, rel, findings)
+    if grid is None:
+        return None
+    if not grid.header:
+        findings.warning(rel, None, None, "the log is empty; ignored", key="log: empty")
+        return None
+    frame, unknown, missing = _named(grid, NOISE_LOG, findings)
+    if missing:
+        return None
+    if frame.empty:
+        findings.warning(rel, None, None, "no rows (header only); log ignored", key="log: empty")
+        return None
+    table = _typed(NOISE_LOG, frame, [], grid.rows, _Sink(findings, rel, grid.rows), today, grid.hints)
+    table["_file"] = idx
+    return table[["start", "laeq", "_row", "_file"]]
+
+
+def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, str]], findings: Findings,
+               today: dt.date) -> list[pd.DataFrame | None]:
+    """Parse many quote-free logs with the same header in one pass of the C reader."""
+    bodies = [m[2] for m in members]
+    counts = np.fromiter((b.count("\n") for b in bodies), dtype=np.int64, count=len(bodies))
+    text = "".join(bodies)
+    raw = text.encode("utf-8")
+    arr = np.frombuffer(raw, dtype=np.uint8)
+    nl = np.flatnonzero(arr == 10)
+    commas = np.flatnonzero(arr == 44)
+    fields = np.bincount(np.searchsorted(nl, commas), minlength=nl.size)[:nl.size] + 1
+    starts = np.concatenate(([0], nl[:-1] + 1))
+    length = nl - starts
+    cr = (length > 0) & (arr[np.maximum(nl - 1, 0)] == 13)
+    blank = (length - cr) == 0
+    if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
+        # something unusual: read these logs one by one to report exact lines
+        return [_log_single((",".join(cols) + "\n" + m[2]).encode("utf-8"), m[1], m[0], findings, today)
+                for m in members]
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        df = pd.read_csv(io.StringIO(text), header=None, names=list(cols), dtype=str, keep_default_na=False,
+                         na_filter=False, engine="c", quoting=csv.QUOTE_NONE)
+    if len(df) != nl.size:
+        return [_log_single((",".join(cols) + "\n" + m[2]).encode("utf-8"), m[1], m[0], findings, today)
+                for m in members]
+    file_idx = np.repeat(np.arange(len(members)), counts)
+    first = np.concatenate(([0], np.cumsum(counts)[:-1]))
+    rows = np.arange(nl.size) - np.repeat(first, counts) + 2
+    paths = np.repeat(np.asarray([m[1] for m in members], dtype=object), counts)
+    table = _typed(NOISE_LOG, df, [], rows, _Sink(findings, paths, rows), today, _byte_hints(arr))
+    table["_file"] = np.asarray([m[0] for m in members], dtype=np.int64)[file_idx]
+    return [table[["start", "laeq", "_row", "_file"]]]
+
+
+def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
+              findings: Findings) -> tuple[dict[str, pd.DataFrame], dict[str, float]]:
+    """Check order and interval of every log, sort by start and split per measurement."""
+    allf = allf.sort_values(["_file", "_row"], kind="stable").reset_index(drop=True)
+    f = allf["_file"].to_numpy()
+    sink = _Sink(findings, paths[f], allf["_row"].to_numpy())
+    start = allf["start"]
+    t = start.to_numpy(dtype="datetime64[ns]").astype(np.int64).astype("float64")
+    t[start.isna().to_numpy()] = np.nan
+    same = np.concatenate(([False], f[1:] == f[:-1]))
+    prev = np.concatenate(([np.nan], t[:-1]))
+    back = same & np.isfinite(t) & np.isfinite(prev) & (t <= prev)
+    sink.add(back, "start", ERROR, "start is not later than the row before (timestamps must increase)",
+             key="start: not increasing")
+    allf = allf.loc[start.notna()].sort_values(["_file", "start", "_row"], kind="stable").reset_index(drop=True)
+    f = allf["_file"].to_numpy()
+    t = allf["start"].to_numpy(dtype="datetime64[ns]").astype(np.int64) / 1e9
+    same = np.concatenate(([False], f[1:] == f[:-1]))
+    diff = np.where(same, t - np.concatenate(([np.nan], t[:-1])), np.nan)
+    dser = pd.Series(diff)
+    med = dser.groupby(f).median()
+    med_row = med.reindex(f).to_numpy()
+    off = same & np.isfinite(diff) & np.isfinite(med_row) & (np.abs(diff - med_row) > LOG_INTERVAL_TOLERANCE_S) \
+        & (diff > 0)
+    sink2 = _Sink(findings, paths[f], allf["_row"].to_numpy())
+    sink2.add(off, "start", WARNING, _each("interval of {d:g} s differs from the log's usual {m:g} s",
+                                           d=np.round(diff, 1), m=np.round(med_row, 1)),
+              key="start: irregular interval")
+    logs: dict[str, pd.DataFrame] = {}
+    intervals: dict[str, float] = {}
+    bounds = np.flatnonzero(np.concatenate(([True], f[1:] != f[:-1], [True])))
+    allf = allf[["start", "laeq", "_row"]]
+    med_of = dict(zip(med.index.tolist(), med.to_numpy().tolist()))
+    for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
+        k = int(f[a])
+        part = allf.iloc[a:b]
+        part.index = pd.RangeIndex(b - a)
+        logs[names[k]] = part
+        m = med_of.get(k, np.nan)
+        if np.isfinite(m) and m > 0:
+            intervals[names[k]] = float(m)
+        else:
+            findings.warning(str(paths[k]), None, "start", "fewer than two increasing timestamps: the "
+                             "interval is unknown", key="log: no interval")
+    return dict(sorted(logs.items())), dict(sorted(intervals.items()))
+
+
+# ---------------------------------------------------------------------------------------
+# narrative pages and templates
+
+
+def page_slug(stem: str) -> str:
+    """Return the page slug for a markdown file name (lower-case, [a-z0-9-], not a site page)."""
+    slug = _SLUG_BAD.sub("-", stem.lower()).strip("-")
+    slug = re.sub(r"-{2,}", "-", slug) or "page"
+    return f"page-{slug}" if slug in RESERVED_SLUGS else slug
+
+
+def _front_matter(text: str, rel: str, findings: Findings) -> tuple[dict[str, Any], str]:
+    """Split '---' front matter from markdown; return (metadata, markdown)."""
+    lines = text.splitlines(keepends=True)
+    if not lines or lines[0].strip() != "---":
+        return {}, text
+    end = next((i for i in range(1, len(lines)) if lines[i].strip() in ("---", "...")), None)
+    if end is None:
+        findings.error(rel, 1, None, "front matter starts with '---' but has no closing '---' line")
+        return {}, text
+    block = "".join(lines[1:end])
+    body = "".join(lines[end + 1:])
+    try:
+        meta = yaml.safe_load(block)
+    except yaml.MarkedYAMLError as exc:
+        mark = exc.problem_mark or exc.context_mark
+        line = mark.line + 2 if mark else 1
+        col = str(mark.column + 1) if mark else None
+        findings.error(rel, line, col, f"front matter YAML syntax: {exc.problem or exc.context}")
+        return {}, body
+    except yaml.YAMLError as exc:
+        findings.error(rel, 1, None, f"front matter YAML syntax: {exc}")
+        return {}, body
+    if meta is None:
+        return {}, body
+    if not isinstance(meta, dict):
+        findings.error(rel, 2, None, "front matter must be a mapping such as 'title: About the programme'")
+        return {}, body
+    return meta, body
+
+
+def _load_pages(root: Path, inputs: _Inputs, findings: Findings) -> list[NarrativePage]:
+    folder = root / PAGES_DIR
+    if not folder.is_dir():
+        return []
+    if _inside(root, folder) is None:
+        findings.error(PAGES_DIR, None, None, "resolves outside the programme folder; not read")
+        return []
+    pages: list[NarrativePage] = []
+    taken: dict[str, str] = {}
+    for p in sorted(folder.glob("*.md")):
+        rel = _rel(root, p)
+        raw = inputs.get(p)
+        if raw is None:
+            continue
+        text = _decode(raw, rel, findings)
+        if text is None:
+            continue
+        meta, body = _front_matter(text, rel, findings)
+        for k in sorted(set(map(str, meta)) - set(PAGE_KEYS)):
+            findings.warning(rel, None, k, f"unknown front-matter key '{k}' is ignored (known: "
+                             f"{', '.join(PAGE_KEYS)})", key="page: unknown key")
+        title = meta.get("title")
+        if title is None:
+            heading = next((ln[2:].strip() for ln in body.splitlines() if ln.startswith("# ")), "")
+            title = heading or p.stem.replace("-", " ").replace("_", " ").strip().capitalize() or "Page"
+        elif not isinstance(title, (str, int, float)) or isinstance(title, bool):
+            findings.error(rel, None, "title", "title must be text")
+            title = p.stem
+        order = meta.get("order", DEFAULT_PAGE_ORDER)
+        if isinstance(order, bool) or not isinstance(order, int):
+            findings.error(rel, None, "order", f"order must be a whole number, not '{order}'")
+            order = DEFAULT_PAGE_ORDER
+        slug = page_slug(p.stem)
+        if slug in taken:
+            findings.error(rel, None, None, f"page slug '{slug}' is also the slug of {taken[slug]}; "
+                           "rename one of the files")
+            continue
+        taken[slug] = rel
+        pages.append(NarrativePage(slug=slug, title=str(title), order=int(order), markdown=body, source=rel))
+    return sorted(pages, key=lambda pg: (pg.order, pg.slug))
+
+
+def _template_dir(root: Path, inputs: _Inputs, findings: Findings) -> Path | None:
+    folder = root / TEMPLATES_DIR
+    if not folder.is_dir():
+        return None
+    real = _inside(root, folder)
+    if real is None:
+        findings.error(TEMPLATES_DIR, None, None, "resolves outside the programme folder; not used")
+        return None
+    ok = True
+    for p in sorted(folder.rglob("*")):
+        if p.is_dir() and not p.is_symlink():
+            continue
+        if _inside(root, p) is None:
+            findings.error(_rel(root, p), None, None, "resolves outside the programme folder; not used")
+            ok = False
+            continue
+        if p.is_file():
+            inputs.get(p)
+    return real if ok else None
+
+
+# ---------------------------------------------------------------------------------------
+# the whole folder
+
+
+def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
+    """Read and validate a programme folder; every problem goes into ``programme.findings``."""
+    t0 = time.perf_counter()
+    root = Path(root).resolve()
+    findings = Findings()
+    inputs = _Inputs(root, findings)
+    today = today or build_date()
+    cfg_path = root / CONFIG_FILE
+    if os.path.lexists(cfg_path) and _inside(root, cfg_path) is None:
+        findings.error(CONFIG_FILE, None, None, "resolves outside the programme folder (symbolic link?); "
+                       "not read")
+        config = Config()
+    else:
+        if cfg_path.is_file():
+            inputs.get(cfg_path)
+        config = load_config(root, findings)
+    if not (root / DATA_DIR).is_dir():
+        findings.error(DATA_DIR, None, None, "the data/ folder is missing (run 'hcpsite new DIR' for a starter)")
+    elif _inside(root, root / DATA_DIR) is None:
+        findings.error(DATA_DIR, None, None, "resolves outside the programme folder; not read")
+    tables: dict[str, pd.DataFrame] = {}
+    present: dict[str, str] = {}
+    for spec in FILES:
+        try:
+            table, rel = _read_table(spec, root, inputs, findings, today)
+        except Exception as exc:  # a last line of defence: report, never crash on a user's file
+            log.exception("unexpected failure reading %s", spec.path)
+            findings.error(spec.path, None, None, f"could not be read ({type(exc).__name__}: {exc})")
+            table, rel = empty_table(spec), None
+        tables[spec.name] = table
+        if rel is not None:
+            present[spec.name] = rel
+    derived = "groups" not in present
+    if derived:
+        tables["groups"] = _derive_groups(tables["people"], GROUPS)
+    _cross_checks(tables, present, findings)
+    for spec in FILES:
+        df = tables[spec.name]
+        if spec.name not in present or df.empty:
+            continue
+        sink = _Sink(findings, present[spec.name], df["_row"].to_numpy())
+        _check_key(df, spec, sink)
+        _check_refs(df, spec, sink, tables, present, derived)
+    _unknown_data_files(root, findings)
+    try:
+        logs, intervals = _load_logs(root, inputs, findings, tables["noise"], today)
+    except Exception as exc:
+        log.exception("unexpected failure reading noise logs")
+        findings.error(LOG_DIR, None, None, f"could not be read ({type(exc).__name__}: {exc})")
+        logs, intervals = {}, {}
+    pages = _load_pages(root, inputs, findings)
+    template_dir = _template_dir(root, inputs, findings)
+    prog = Programme(root=root, config=config, tables=tables, present=present, noise_logs=logs,
+                     log_interval_s=intervals, pages=pages, findings=findings, digest=inputs.digest(),
+                     template_dir=template_dir)
+    prog.extra["groups_derived"] = derived
+    prog.extra["today"] = today
+    log.info("loaded %s in %.2f s (%s)", root, time.perf_counter() - t0, findings.summary())
+    return prog
+
+
+__all__ = ["load_programme", "build_date", "empty_table", "page_slug", "RESERVED_SLUGS"]

@@ -1,0 +1,37 @@
+"""Page-model builders, one module per section; SECTIONS is the navigation order.
+
+Each section module exposes ``build(ctx: SiteContext) -> list[Page]``. The programme's
+own markdown pages (pages/*.md) are built by :mod:`generator.pages.narrative` and placed
+in the navigation right after the overview.
+"""
+from __future__ import annotations
+
+#: (section id, navigation title), in navigation order.
+SECTIONS: tuple[tuple[str, str], ...] = (
+    ("index", "Overview"),
+    ("exposure", "Exposure"),
+    ("protection", "Protection"),
+    ("hearing", "Hearing"),
+    ("programme", "Programme"),
+    ("actions", "Actions"),
+    ("trends", "Trends"),
+    ("review", "Printable review"),
+    ("methods", "Methods"),
+    ("quality", "Data quality"),
+)
+
+#: section id -> module under generator.pages (when the name differs from the id).
+MODULES: dict[str, str] = {"index": "overview"}
+
+#: section id given to the programme's narrative pages.
+NARRATIVE = "narrative"
+
+
+def module_name(section: str) -> str:
+    """Return the dotted module name of the builder of *section*."""
+    return f"generator.pages.{MODULES.get(section, section)}"
+
+
+def section_title(section: str) -> str:
+    """Return the navigation title of *section* (the id itself when unknown)."""
+    return dict(SECTIONS).get(section, section)

@@ -1,0 +1,112 @@
+"""The methods page: formulas, parameters and rule-set values from the definitions the code uses."""
+from __future__ import annotations
+
+import dataclasses
+import importlib
+import importlib.util
+import logging
+from typing import Any
+
+from ..resources import content_dir
+from ..rules import RuleSet
+from .base import Page, SiteContext, Table
+
+log = logging.getLogger(__name__)
+
+#: modules whose PARAMETERS are listed besides the compute stages (shared arithmetic).
+SHARED_MODULES = (("levels", "generator.levels"), ("norms", "generator.norms"))
+#: RuleSet fields that are not values (shown elsewhere or not at all).
+_NOT_VALUES = {"id", "name", "short", "caution", "clauses", "notes"}
+_UNITS = {
+    "criterion_level": "dB(A)", "criterion_hours": "h", "exchange_rate": "dB", "threshold": "dB(A)",
+    "upper_limit": "dB(A)", "lower_action_value": "dB(A)", "upper_action_value": "dB(A)",
+    "limit_value": "dB(A)", "peak_lower_action": "dB(C)", "peak_upper_action": "dB(C)",
+    "peak_limit": "dB(C)", "baseline_months": "months", "audiogram_interval_months": "months",
+    "training_interval_months": "months", "protected_target": "dB(A)",
+    "protected_target_after_sts": "dB(A)", "limit_dose_threshold": "dB(A)",
+}
+
+
+def _cell(v: Any) -> str:
+    if v is None:
+        return "not set"
+    if isinstance(v, bool):
+        return "yes" if v else "no"
+    if isinstance(v, float):
+        return f"{v:g}"
+    return str(v)
+
+
+def rule_value_fields(rules: dict[str, RuleSet]) -> list[str]:
+    """Return the value fields of the rule sets in declaration order."""
+    first = next(iter(rules.values()))
+    return [f.name for f in dataclasses.fields(first) if f.name not in _NOT_VALUES]
+
+
+def rules_table(rules: dict[str, RuleSet]) -> Table:
+    """Return the rule sets side by side: one row per value, one column per rule set."""
+    names = rule_value_fields(rules)
+    rows = [[n.replace("_", " "), _UNITS.get(n, "")] + [_cell(getattr(r, n)) for r in rules.values()]
+            for n in names]
+    return Table(columns=["value", "unit"] + [r.name for r in rules.values()], rows=rows,
+                 caption="Values of the rule sets used in this review", classes=["", ""] + ["num"] * len(rules))
+
+
+def clauses_table(rule: RuleSet) -> Table:
+    """Return one rule set's values with the clause each comes from."""
+    rows = []
+    for n in rule_value_fields({rule.id: rule}):
+        rows.append([n.replace("_", " "), _cell(getattr(rule, n)), _UNITS.get(n, ""), rule.clauses.get(n, "")])
+    for k in sorted(set(rule.clauses) - set(rule_value_fields({rule.id: rule}))):
+        rows.append([k.replace("_", " "), "", "", rule.clauses[k]])
+    return Table(columns=["value", "setting", "unit", "clause"], rows=rows, caption=rule.name,
+                 classes=["", "num", "", ""])
+
+
+def _module_parameters(module: str) -> list[tuple] | None:
+    if importlib.util.find_spec(module) is None:
+        return None
+    mod = importlib.import_module(module)
+    params = getattr(mod, "PARAMETERS", None)
+    return list(params) if params else None
+
+
+def parameter_tables() -> list[dict[str, Any]]:
+    """Return one table per module that declares PARAMETERS (name, value, unit, source)."""
+    from ..build import STAGES
+    out = []
+    for name, module in tuple(STAGES) + SHARED_MODULES:
+        params = _module_parameters(module)
+        if not params:
+            continue
+        rows = [[str(p[0]), _cell(p[1]), str(p[2]) if len(p) > 2 else "", str(p[3]) if len(p) > 3 else ""]
+                for p in params]
+        out.append({"name": name, "module": module,
+                    "table": Table(columns=["parameter", "value", "unit", "source"], rows=rows,
+                                   caption=f"Parameters of {module}", classes=["", "num", "", ""])})
+    return out
+
+
+def method_texts() -> list[dict[str, str]]:
+    """Return the markdown texts of content/methods/, in file-name order."""
+    folder = content_dir() / "methods"
+    if not folder.is_dir():
+        return []
+    return [{"name": p.stem, "markdown": p.read_text(encoding="utf-8")}
+            for p in sorted(folder.glob("*.md"))]
+
+
+def build(ctx: SiteContext) -> list[Page]:
+    """Return the methods page."""
+    rules = ctx.rules
+    return [Page(
+        slug="methods", title="Methods and sources", template="methods.html", section="methods",
+        in_nav=True,
+        context={
+            "rules_table": rules_table(rules),
+            "rule_sets": [{"id": r.id, "name": r.name, "table": clauses_table(r), "notes": list(r.notes)}
+                          for r in rules.values()],
+            "parameters": parameter_tables(),
+            "texts": method_texts(),
+        },
+    )]

@@ -1,0 +1,214 @@
+"""The programme page: enrolment, due audiograms, training, protector coverage, audiometer checks."""
+from __future__ import annotations
+
+import logging
+from typing import Any
+
+import pandas as pd
+
+from .. import charts
+from ..compliance import BOOTH_LIMITS
+from .base import Chart, Page, SiteContext, Table
+
+log = logging.getLogger(__name__)
+
+SUPPRESSED = "suppressed"
+
+KIND_LABELS = {"baseline": "baseline audiogram", "periodic": "annual audiogram", "exit": "exit audiogram",
+               "training": "training"}
+STATUS_LABELS = {"overdue": "overdue", "due_soon": "due soon", "open": "open", "late": "late",
+                 "on_time": "on time", "done": "done", "current": "current", "scheduled": "scheduled",
+                 "not_required": "not required"}
+MISMATCH_LABELS = {"exposed_no_records": "exposed, no audiometry or training records",
+                   "records_not_exposed": "records, but not judged exposed (information only)"}
+
+
+def pct(value: Any) -> str:
+    """Return a share 0..1 as a whole percentage ('88 %'), a dash when unknown."""
+    if value is None or (isinstance(value, float) and pd.isna(value)):
+        return charts.BLANK
+    return f"{round(float(value) * 100):.0f} %"
+
+
+def group_label(group: Any, suppressed: frozenset[str]) -> str:
+    """Return the group code, or 'suppressed' for a small group."""
+    return SUPPRESSED if str(group) in suppressed else str(group)
+
+
+def coded(df: pd.DataFrame, ctx: SiteContext, column: str = "person_id") -> pd.Series:
+    """Return the pseudonymous codes of a person-id column."""
+    return df[column].astype(str).map(ctx.code) if len(df) else pd.Series(dtype=object)
+
+
+def person_table(df: pd.DataFrame, ctx: SiteContext, columns: dict[str, str],
+                 formats: dict[str, Any] | None = None, caption: str = "") -> Table:
+    """Return a table of person rows with codes instead of ids and small groups suppressed."""
+    d = df.copy()
+    d["code"] = coded(d, ctx)
+    if "group" in d.columns:
+        d["group"] = [group_label(g, ctx.suppressed_groups) for g in d["group"]]
+    for c in ("status", "baseline_status"):
+        if c in d.columns:
+            d[c] = d[c].map(STATUS_LABELS).fillna(d[c])
+    return charts.table_from_frame(d, {"code": "Person", **columns}, formats, caption=caption)
+
+
+def _tiles(summary: dict[str, Any]) -> list[dict[str, str]]:
+    def n(key: str) -> str:
+        v = summary.get(key)
+        return charts.BLANK if v is None else f"{int(v):,}"
+    return [
+        {"label": "Must be in the programme", "value": n("must_be_enrolled"),
+         "note": "at or above the action value, without protectors"},
+        {"label": "Enrolled", "value": n("enrolled"), "note": "records, or in an exposed group"},
+        {"label": "Exposed without records", "value": n("not_enrolled"), "note": ""},
+        {"label": "Current audiogram", "value": pct(summary.get("current_audiogram_share")),
+         "note": "of those who must be in the programme"},
+        {"label": "Trained within 12 months", "value": pct(summary.get("trained_share")), "note": ""},
+        {"label": "Protector on record", "value": pct(summary.get("protector_share")), "note": ""},
+        {"label": "Fit-tested (PAR)", "value": pct(summary.get("fit_test_share")), "note": ""},
+        {"label": "Audiograms overdue", "value": n("overdue_audiograms"), "note": "baseline, annual or exit"},
+        {"label": "Audiograms due soon", "value": n("due_soon_audiograms"), "note": "within 60 days"},
+        {"label": "Training overdue", "value": n("overdue_training"), "note": ""},
+    ]
+
+
+def training_chart(tg: pd.DataFrame, suppressed: frozenset[str], slug: str = "programme") -> Chart:
+    """Return the bar chart of training completion per group (small groups suppressed)."""
+    shown = tg[~tg["group"].astype(str).isin(sorted(suppressed))]
+    fig = charts.bar(shown["group"], (shown["completion"] * 100).round(1), xaxis_title="similar exposure group",
+                     yaxis_title="trained within 12 months, %", text=[pct(v) for v in shown["completion"]])
+    fig.update_yaxes(range=[0, 105])
+    rows = [[group_label(g["group"], suppressed),
+             SUPPRESSED if str(g["group"]) in suppressed else f"{int(g['n_required'])}",
+             SUPPRESSED if str(g["group"]) in suppressed else f"{int(g['n_trained'])}",
+             SUPPRESSED if str(g["group"]) in suppressed else pct(g["completion"])]
+            for g in tg.to_dict("records")]
+    table = Table(["Group", "Must be trained", "Trained within 12 months", "Completion"], rows,
+                  classes=["", "num", "num", "num"])
+    if len(shown):
+        low = shown.sort_values(["completion", "group"], kind="mergesort").iloc[0]
+        total = _share_text(shown["n_trained"].sum(), shown["n_required"].sum())
+        summary = (f"Across {len(shown)} groups {total} of the people in the programme were trained within "
+                   f"the last 12 months; the lowest completion is {pct(low['completion'])} in group "
+                   f"{low['group']}.")
+    else:
+        summary = "No group with people in the programme can be shown."
+    return Chart(f"{slug}-1", fig, summary, table, title="Training completion per group")
+
+
+def _share_text(num: float, den: float) -> str:
+    return pct(num / den) if den else charts.BLANK
+
+
+def protector_chart(pg: pd.DataFrame, suppressed: frozenset[str], slug: str = "programme") -> Chart:
+    """Return the grouped bar of protector and fit-test coverage per group."""
+    shown = pg[~pg["group"].astype(str).isin(sorted(suppressed))]
+    fig = charts.grouped_bar(shown["group"], {
+        "protector issued or fitted": (shown["protector_share"] * 100).round(1),
+        "fit-tested (PAR on record)": (shown["fit_test_share"] * 100).round(1)},
+        xaxis_title="similar exposure group", yaxis_title="share of people in the programme, %")
+    fig.update_yaxes(range=[0, 105])
+    rows = []
+    for g in pg.to_dict("records"):
+        hidden = str(g["group"]) in suppressed
+        rows.append([group_label(g["group"], suppressed)] + ([SUPPRESSED] * 5 if hidden else [
+            f"{int(g['n_required'])}", f"{int(g['n_with_protector'])}", pct(g["protector_share"]),
+            f"{int(g['n_fit_tested'])}", pct(g["fit_test_share"])]))
+    table = Table(["Group", "In the programme", "With protector", "Share", "Fit-tested", "Share"], rows,
+                  classes=["", "num", "num", "num", "num", "num"])
+    if len(shown):
+        summary = (f"{_share_text(shown['n_with_protector'].sum(), shown['n_required'].sum())} of the people in "
+                   f"the programme have a protector on record and "
+                   f"{_share_text(shown['n_fit_tested'].sum(), shown['n_required'].sum())} have a fit test.")
+    else:
+        summary = "No group with people in the programme can be shown."
+    return Chart(f"{slug}-2", fig, summary, table, title="Protector and fit-test coverage per group")
+
+
+def audiometer_chart(status: pd.DataFrame, slug: str = "programme") -> Chart | None:
+    """Return the stacked bar of test days per audiometer with and without valid checks."""
+    if status is None or status.empty:
+        return None
+    s = status.assign(audiometer_id=status["audiometer_id"].replace("", "not recorded"))
+    g = s.groupby("audiometer_id", sort=True)["ok"].agg(["sum", "size"]).reset_index()
+    g["not_ok"] = g["size"] - g["sum"]
+    fig = charts.stacked_bar(g["audiometer_id"], {"all checks valid": g["sum"], "a check missing or failed":
+                                                  g["not_ok"]}, xaxis_title="audiometer", yaxis_title="test days",
+                             colours={"all checks valid": charts.PALETTE[2],
+                                      "a check missing or failed": charts.PALETTE[4]})
+    table = charts.table_from_frame(g.rename(columns={"sum": "ok_days", "size": "days"}),
+                                    {"audiometer_id": "Audiometer", "days": "Test days",
+                                     "ok_days": "All checks valid", "not_ok": "Check missing or failed"},
+                                    {"days": "d", "ok_days": "d", "not_ok": "d"})
+    summary = (f"{int(g['sum'].sum())} of {int(g['size'].sum())} test days on {len(g)} audiometers had a "
+               f"functional check that day, calibrations in date and a booth within App. D Table D-1.")
+    return Chart(f"{slug}-3", fig, summary, table, title="Test days with valid audiometer checks")
+
+
+def build(ctx: SiteContext) -> list[Page]:
+    """Return the programme page."""
+    comp = ctx.results.get("compliance")
+    if comp is None:
+        return [Page(slug="programme", title="Programme", template="programme.html", section="programme",
+                     in_nav=True, context={"available": False})]
+    sup = ctx.suppressed_groups
+    s = comp.people
+    late = s[s["baseline_status"].eq("late")]
+    due = comp.due.copy()
+    due["kind"] = due["kind"].map(KIND_LABELS).fillna(due["kind"])
+    enrol = comp.enrolment.copy()
+    enrol["mismatch"] = enrol["mismatch"].map(MISMATCH_LABELS).fillna(enrol["mismatch"])
+    meters = comp.audiometers.copy()
+    if len(meters):
+        meters["booth"] = [("within Table D-1" if ok else str(d)) for ok, d in zip(meters["booth_ok"],
+                                                                                   meters["booth_detail"])]
+    flagged = comp.audiograms_flagged.copy()
+    refits = comp.refits.copy()
+    page_charts = [training_chart(comp.training_groups, sup), protector_chart(comp.protector_groups, sup)]
+    ac = audiometer_chart(comp.audiometer_status)
+    if ac is not None:
+        page_charts.append(ac)
+    overdue = due[due["status"].eq("overdue")]
+    soon = due[due["status"].eq("due_soon")]
+    context = {
+        "available": True,
+        "as_of": comp.as_of.strftime("%Y-%m-%d"),
+        "rules_name": ctx.headline.name,
+        "tiles": _tiles(comp.summary),
+        "notes": list(comp.notes),
+        "n_overdue": int(len(overdue)),
+        "n_soon": int(len(soon)),
+        "enrolment_table": person_table(enrol, ctx, {"group": "Group", "mismatch": "Mismatch"},
+                                        caption="People whose records and exposure do not agree"),
+        "overdue_table": person_table(overdue, ctx, {"group": "Group", "kind": "Due", "due_date": "Due date",
+                                                     "clause": "Clause"},
+                                      caption=f"Overdue at {comp.as_of:%Y-%m-%d}"),
+        "soon_table": person_table(soon, ctx, {"group": "Group", "kind": "Due", "due_date": "Due date",
+                                               "clause": "Clause"},
+                                   caption="Due within the next 60 days"),
+        "late_table": person_table(late, ctx, {"group": "Group", "first_exposed_date": "First exposure",
+                                               "baseline_due": "Baseline due by",
+                                               "first_audiogram": "First audiogram"},
+                                   caption="Baselines taken after the time limit (information)"),
+        "refit_table": person_table(refits, ctx, {"ear": "Ear", "trigger_date": "Shift found",
+                                                  "due_date": "Due", "done_date": "Done", "status": "Status",
+                                                  "clause": "Clause"},
+                                    caption="Protector refits after a standard threshold shift"),
+        "audiometer_table": charts.table_from_frame(meters, {
+            "audiometer_id": "Audiometer", "last_used": "Last used", "last_functional": "Last functional check",
+            "last_acoustic": "Last acoustic calibration", "acoustic_due": "Acoustic due",
+            "last_exhaustive": "Last exhaustive calibration", "exhaustive_due": "Exhaustive due",
+            "last_booth": "Last booth measurement", "booth": "Booth"},
+            caption="Audiometers: latest checks and next calibrations") if len(meters) else None,
+        "flagged_table": person_table(flagged, ctx, {"date": "Test date", "ear": "Ear",
+                                                     "audiometer_id": "Audiometer", "reason": "Why flagged"},
+                                      caption="Audiograms taken without valid checks or in a booth over the "
+                                              "limits"),
+        "n_flagged": int(len(flagged)),
+        "booth_limits": [{"band": f, "limit": v} for f, v in sorted(BOOTH_LIMITS.items())],
+    }
+    return [Page(slug="programme", title="Programme", template="programme.html", section="programme",
+                 in_nav=True, context=context, charts=page_charts)]
+
+

@@ -1,0 +1,48 @@
+"""The data-quality page: every finding, grouped as the command line prints them."""
+from __future__ import annotations
+
+import logging
+
+from ..findings import ERROR, WARNING
+from ..privacy import redactor
+from .base import Page, SiteContext, Table
+
+log = logging.getLogger(__name__)
+
+#: rows of one group listed by number before the rest are counted.
+ROWS_SHOWN = 20
+
+
+def _rows_text(rows: list[int]) -> str:
+    if not rows:
+        return ""
+    shown = ", ".join(str(r) for r in rows[:ROWS_SHOWN])
+    rest = len(rows) - ROWS_SHOWN
+    return shown + (f" and {rest} more" if rest > 0 else "")
+
+
+def build(ctx: SiteContext) -> list[Page]:
+    """Return the data-quality page."""
+    findings = ctx.programme.findings
+    clean = (lambda t: t) if ctx.restricted else redactor(ctx.programme.table("people"), ctx.code)
+    groups = sorted(findings.groups(), key=lambda g: (g.level != ERROR, g.path, g.column or "",
+                                                      g.items[0].row or 0))
+    table = Table(
+        columns=["level", "file", "column", "problem", "rows", "count"],
+        rows=[[g.level, g.path, g.column or "", clean(g.items[0].message)
+               + (" (and similar)" if len({f.message for f in g.items}) > 1 else ""),
+               _rows_text(g.rows), g.count] for g in groups],
+        caption="Findings, repeats of one problem in one file and column grouped",
+        classes=["", "", "", "", "", "num"],
+    )
+    by_file: dict[str, dict[str, int]] = {}
+    for f in findings:
+        by_file.setdefault(f.path, {ERROR: 0, WARNING: 0})[f.level] += 1
+    counts = Table(columns=["file", "errors", "warnings"],
+                   rows=[[path, c[ERROR], c[WARNING]] for path, c in sorted(by_file.items())],
+                   caption="Findings by file and level", classes=["", "num", "num"])
+    return [Page(
+        slug="quality", title="Data quality", template="quality.html", section="quality", in_nav=True,
+        context={"findings_table": table, "counts_table": counts,
+                 "n_errors": len(findings.errors), "n_warnings": len(findings.warnings)},
+    )]

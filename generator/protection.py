@@ -1,0 +1,673 @@
+"""Hearing-protector adequacy: estimated levels under the protector and their judgement.
+
+Methods (every one the data allow is computed, one governs):
+
+* ``par``: a fitted personal attenuation rating, ``L − PAR`` (common practice);
+* ``octave``: ISO 4869-2:2018 octave-band method, Formula (2), APV = m − α·s (Formula (1));
+* ``hml``: ISO 4869-2:2018 HML method, Formulas (16)–(18);
+* ``snr``: ISO 4869-2:2018 SNR method, Formulas (23)/(24);
+* ``nrr-c`` / ``nrr-a``: 29 CFR 1910.95 App. B, ``LC − NRR`` and ``TWA − (NRR − 7)``;
+* ``nrr-50``: OSHA's 50 % derating used when weighing engineering controls,
+  ``TWA − (NRR − 7)/2`` (``LC − NRR/2``);
+* ``nrr-niosh``: NIOSH 98-126 derating by type (earmuffs 25 %, formable plugs 50 %,
+  other plugs 70 % of the NRR), then the App. B correction (7 dB on A-weighted data; from memory).
+
+Two protectors worn together (issued the same day) use the dual-protection rule for the NRR
+methods: the higher NRR, its corrections, plus 5 dB. The governing method is the first
+available of ``PAR > octave > HML > SNR > NRR`` (NRR: NIOSH-derated under the NIOSH rule set,
+otherwise C-weighted where a C level is known, else A-weighted).
+
+The figures are estimates that support, and do not replace, the judgement of a competent
+noise assessor and the fitting of protectors to the person.
+"""
+from __future__ import annotations
+
+import logging
+from dataclasses import dataclass, field
+from typing import Any, Iterable
+
+import numpy as np
+import pandas as pd
+
+from .findings import Finding, WARNING
+from .inputs.spec import OCTAVE_BANDS
+from .model import Programme
+from .rules import RuleSet, load_rule_set
+
+log = logging.getLogger(__name__)
+
+# ---------------------------------------------------------------------------------------
+# constants (each with its source; PARAMETERS lists them for the methods page)
+
+#: 29 CFR 1910.95 App. B: NRR applied to A-weighted data is reduced by 7 dB.
+NRR_A_CORRECTION = 7.0
+#: OSHA field practice (OSHA Technical Manual): NRR derated by one half for engineering-control decisions.
+OSHA_DERATING = 0.5
+#: Dual protection: add this to the higher-rated protector's attenuation (OSHA Technical Manual).
+DUAL_ADD = 5.0
+#: NIOSH 98-126: share of the NRR subtracted, by protector type.
+NIOSH_DERATING: dict[str, float] = {
+    "earmuff": 0.25,
+    "foam_plug": 0.50,  # formable earplugs
+    "premolded_plug": 0.70,
+    "canal_cap": 0.70,
+    "custom_plug": 0.70,
+    "other": 0.70,  # unknown construction: the largest derating (our choice)
+}
+#: ISO 4869-2:2018 Table 1: α for protection performance 84 % (the usual choice).
+ALPHA_84 = 1.0
+#: IEC 61672-1:2013 Table 3, A weighting at the octave centres 63 Hz … 8 kHz (dB).
+A_OCTAVE = np.array([-26.2, -16.1, -8.6, -3.2, 0.0, 1.2, 1.0, -1.1])
+#: IEC 61672-1:2013 Table 3, C weighting at the octave centres 63 Hz … 8 kHz (dB).
+C_OCTAVE = np.array([-0.8, -0.2, 0.0, 0.0, 0.0, -0.2, -0.8, -3.0])
+#: EN 458 assessment relative to the action level (from memory, unverified): L'A above the
+#: action level is insufficient, more than 15 dB below it is over-protection.
+EN458_ACTION_LEVEL = 80.0
+#: Below this level under the protector a person is flagged over-protected (EN 458 with an
+#: 80 dB(A) action level; from memory, unverified).
+OVERPROTECTION_BELOW = 65.0
+
+METHODS = ("par", "octave", "hml", "snr", "nrr-niosh", "nrr-c", "nrr-a", "nrr-50")
+METHOD_LABELS = {
+    "par": "fitted PAR",
+    "octave": "octave band (ISO 4869-2)",
+    "hml": "HML (ISO 4869-2)",
+    "snr": "SNR (ISO 4869-2)",
+    "nrr-niosh": "NRR, NIOSH derating",
+    "nrr-c": "NRR on C-weighted level (App. B)",
+    "nrr-a": "NRR on A-weighted level (App. B)",
+    "nrr-50": "NRR derated 50 % (OSHA, engineering controls)",
+}
+ADEQUACY = ("adequate", "insufficient", "over-protected", "no protector", "not exposed", "unknown")
+
+PARAMETERS: list[tuple[str, Any, str, str]] = [
+    ("A-weighted NRR correction", NRR_A_CORRECTION, "dB", "29 CFR 1910.95 App. B"),
+    ("OSHA derating for engineering-control decisions", OSHA_DERATING * 100, "% of (NRR − 7)",
+     "OSHA Technical Manual, Sec. III Ch. 5 (field practice, not App. B)"),
+    ("dual protection: added to the higher NRR", DUAL_ADD, "dB", "OSHA Technical Manual; WAC 296-307-63215"),
+    ("NIOSH derating, earmuffs", NIOSH_DERATING["earmuff"] * 100, "% of NRR", "NIOSH 98-126 (1998)"),
+    ("NIOSH derating, formable (foam) plugs", NIOSH_DERATING["foam_plug"] * 100, "% of NRR",
+     "NIOSH 98-126 (1998)"),
+    ("NIOSH derating, all other plugs", NIOSH_DERATING["premolded_plug"] * 100, "% of NRR",
+     "NIOSH 98-126 (1998); type 'other' treated alike (our choice)"),
+    ("α for the assumed protection value (84 %)", ALPHA_84, "", "ISO 4869-2:2018 Table 1"),
+    ("HML branch point LC − LA", 2.0, "dB", "ISO 4869-2:2018 Formulas (16)/(17)"),
+    ("target under the protector (no STS)", "rule set", "dB(A)", "29 CFR 1910.95(j)(2)"),
+    ("target under the protector after an STS", "rule set", "dB(A)", "29 CFR 1910.95(j)(3), App. B"),
+    ("EN 458 reference action level", EN458_ACTION_LEVEL, "dB(A)", "EN 458:2016 (from memory, unverified)"),
+    ("over-protection below", OVERPROTECTION_BELOW, "dB(A)", "EN 458:2016 (from memory, unverified)"),
+]
+
+PEOPLE_COLUMNS = ["person_id", "group", "protector_id", "protector_type", "exposure_level",
+                  "protected_level", "method", "adequacy", "fit_date", "par"]
+ACTION_COLUMNS = ["subject", "subject_type", "kind", "detail", "due_date", "clause"]
+
+_DEFAULT_CLAUSES = {"osha-1910.95": "29 CFR 1910.95(j)", "niosh-rel": "NIOSH 98-126 Ch. 6",
+                    "eu-2003-10": "Directive 2003/10/EC Art. 6", "custom": ""}
+
+# ---------------------------------------------------------------------------------------
+# pure methods (array in, array out)
+
+
+def _arr(x: Any) -> np.ndarray:
+    return np.asarray(x, dtype=float)
+
+
+def iso_round(x: Any) -> np.ndarray:
+    """Round to the nearest whole decibel, halves upwards (ISO 4869-2 results)."""
+    return np.floor(_arr(x) + 0.5)
+
+
+def nrr_protected(level: Any, nrr: Any, weighting: str = "A") -> np.ndarray:
+    """Return the App. B level under the protector from an A- or C-weighted level and the NRR."""
+    corr = NRR_A_CORRECTION if weighting.upper() == "A" else 0.0
+    return _arr(level) - (_arr(nrr) - corr)
+
+
+def osha_derated_protected(level: Any, nrr: Any, weighting: str = "A") -> np.ndarray:
+    """Return the level under the protector with OSHA's 50 % derating of the (corrected) NRR."""
+    corr = NRR_A_CORRECTION if weighting.upper() == "A" else 0.0
+    return _arr(level) - (_arr(nrr) - corr) * OSHA_DERATING
+
+
+def niosh_derating_factor(ptype: Any) -> np.ndarray:
+    """Return the NIOSH share of the NRR to subtract for each protector type (NaN if unknown)."""
+    s = pd.Series(np.atleast_1d(np.asarray(ptype, dtype=object)))
+    return s.map(NIOSH_DERATING).astype(float).to_numpy()
+
+
+def niosh_derated_nrr(nrr: Any, ptype: Any) -> np.ndarray:
+    """Return the NRR derated by type per NIOSH 98-126."""
+    return _arr(nrr) * (1.0 - niosh_derating_factor(ptype))
+
+
+def niosh_protected(level: Any, nrr: Any, ptype: Any, weighting: str = "A") -> np.ndarray:
+    """Return the level under the protector with the NIOSH-derated NRR (App. B correction on A data)."""
+    return nrr_protected(level, niosh_derated_nrr(nrr, ptype), weighting)
+
+
+def dual_nrr_protected(level: Any, nrr_1: Any, nrr_2: Any, weighting: str = "A",
+                       derate: float = 1.0) -> np.ndarray:
+    """Return the level under plug plus muff: the higher NRR (corrected, derated) plus 5 dB."""
+    corr = NRR_A_CORRECTION if weighting.upper() == "A" else 0.0
+    top = np.fmax(_arr(nrr_1), _arr(nrr_2))
+    return _arr(level) - ((top - corr) * derate + DUAL_ADD)
+
+
+def snr_protected(lc: Any, snr: Any) -> np.ndarray:
+    """Return the ISO 4869-2 SNR level under the protector, L'A = LC − SNR."""
+    return _arr(lc) - _arr(snr)
+
+
+def hml_pnr(la: Any, lc: Any, h: Any, m: Any, l: Any) -> np.ndarray:
+    """Return the ISO 4869-2 predicted noise level reduction PNR from LA, LC and H, M, L."""
+    d = _arr(lc) - _arr(la)
+    h, m, l = _arr(h), _arr(m), _arr(l)
+    return np.where(d <= 2.0, m - (h - m) / 4.0 * (d - 2.0), m - (m - l) / 8.0 * (d - 2.0))
+
+
+def hml_protected(la: Any, lc: Any, h: Any, m: Any, l: Any) -> np.ndarray:
+    """Return the ISO 4869-2 HML level under the protector, L'A = LA − PNR."""
+    return _arr(la) - hml_pnr(la, lc, h, m, l)
+
+
+def apv(mean: Any, sd: Any, alpha: float = ALPHA_84) -> np.ndarray:
+    """Return the assumed protection value APV = m − α·s per band (ISO 4869-2 Formula (1))."""
+    return _arr(mean) - alpha * _arr(sd)
+
+
+def _band_sum(bands: np.ndarray, weights: np.ndarray) -> np.ndarray:
+    """Energy-sum rows of band levels plus weights; NaN at 63 Hz is skipped, elsewhere it propagates."""
+    b = np.atleast_2d(bands) + weights
+    e = np.power(10.0, 0.1 * b)
+    e63 = np.nan_to_num(e[:, 0], nan=0.0)
+    rest = e[:, 1:].sum(axis=1)  # NaN if any 125 Hz … 8 kHz band is missing
+    return 10.0 * np.log10(e63 + rest)
+
+
+def weighted_level(bands: Any, weighting: str = "A") -> np.ndarray:
+    """Return the A- or C-weighted total of rows of octave-band levels 63 Hz … 8 kHz."""
+    w = A_OCTAVE if weighting.upper() == "A" else C_OCTAVE
+    return _band_sum(_arr(bands), w)
+
+
+def octave_protected(bands: Any, apv_bands: Any) -> np.ndarray:
+    """Return the ISO 4869-2 octave-band L'A (Formula (2)); 63 Hz is left out where either lacks it."""
+    b = np.atleast_2d(_arr(bands))
+    a = np.atleast_2d(_arr(apv_bands))
+    b, a = np.broadcast_arrays(b, a)
+    b = b.copy()
+    b[:, 0] = np.where(np.isnan(a[:, 0]), np.nan, b[:, 0])
+    a0 = np.nan_to_num(a[:, :1], nan=0.0)
+    return _band_sum(b - np.concatenate([a0, a[:, 1:]], axis=1), A_OCTAVE)
+
+
+def en458_band(protected: Any, action_level: float = EN458_ACTION_LEVEL) -> np.ndarray:
+    """Return the EN 458 assessment of levels under the protector (bands from memory, unverified)."""
+    p = _arr(protected)
+    conds = [np.isnan(p), p > action_level, p > action_level - 5, p > action_level - 10,
+             p > action_level - 15]
+    labels = ["", "insufficient", "acceptable", "good", "acceptable"]
+    return np.select(conds, labels, default="too high").astype(object)
+
+
+# ---------------------------------------------------------------------------------------
+# tables
+
+
+def _energy_mean(df: pd.DataFrame, by: str, cols: list[str], weight: str) -> pd.DataFrame:
+    """Return duration-weighted energy means of *cols* per *by* (NaN where any row lacks a value)."""
+    e = np.power(10.0, 0.1 * df[cols].to_numpy(dtype=float)) * df[[weight]].to_numpy(dtype=float)
+    tmp = pd.DataFrame(e, columns=cols, index=df.index)
+    tmp[by] = df[by].to_numpy()
+    tmp["_w"] = df[weight].to_numpy(dtype=float)
+    g = tmp.groupby(by, sort=True)
+    s = g[cols].sum(min_count=1)
+    missing = tmp[cols].isna().groupby(tmp[by]).any()
+    w = g["_w"].sum()
+    out = 10.0 * np.log10(s.div(w, axis=0))
+    return out.mask(missing.reindex(out.index))
+
+
+def spectra(noise: pd.DataFrame, people: pd.DataFrame, end: pd.Timestamp | None = None) -> pd.DataFrame:
+    """Return per person the octave spectrum and LC − LA to use (own personal runs, else the group's).
+
+    Runs dated after *end* are left out.
+
+    Columns: person_id, spectrum_source ('personal' | 'group' | ''), oct_63 … oct_8000,
+    la_spec, lc_minus_la.
+    """
+    oct_cols = [f"oct_{f}" for f in OCTAVE_BANDS]
+    base = people[["person_id", "group"]].copy()
+    empty = base.assign(spectrum_source="", **{c: np.nan for c in oct_cols}, la_spec=np.nan,
+                        lc_minus_la=np.nan)[["person_id", "spectrum_source"] + oct_cols
+                                            + ["la_spec", "lc_minus_la"]]
+    if noise.empty:
+        return empty
+    n = noise.copy() if end is None or "date" not in noise.columns else \
+        noise[noise["date"].isna() | (noise["date"] <= end)].copy()
+    if n.empty:
+        return empty
+    for c in oct_cols + ["lceq", "laeq", "duration_h"]:
+        if c not in n.columns:
+            n[c] = np.nan
+    bands = n[oct_cols].to_numpy(dtype=float)
+    has_bands = ~np.isnan(bands[:, 1:]).any(axis=1)
+    la_b = weighted_level(bands, "A")
+    lc_b = weighted_level(bands, "C")
+    n["_la"] = np.where(has_bands, la_b, n["laeq"].to_numpy(dtype=float))
+    n["_lc"] = np.where(has_bands, lc_b, n["lceq"].to_numpy(dtype=float))
+    n.loc[n["_lc"].isna(), "_la"] = np.nan
+    n["_has_bands"] = has_bands
+    person_group = people.set_index("person_id")["group"]
+    pid = n["person_id"] if "person_id" in n.columns else pd.Series("", index=n.index)
+    grp = n["group"] if "group" in n.columns else pd.Series("", index=n.index)
+    n["_group"] = grp.where(grp != "", pid.map(person_group)).fillna("")
+    n["_pid"] = pid.fillna("")
+
+    def agg(sub: pd.DataFrame, by: str) -> pd.DataFrame:
+        sub = sub[sub[by] != ""]
+        lev = sub[sub["_lc"].notna()]
+        cl = _energy_mean(lev, by, ["_la", "_lc"], "duration_h")
+        sp = sub[sub["_has_bands"]]
+        ob = _energy_mean(sp, by, oct_cols, "duration_h")
+        res = ob.join(cl, how="outer")
+        res["la_spec"] = res["_la"]
+        res["lc_minus_la"] = res["_lc"] - res["_la"]
+        for c in oct_cols:
+            if c not in res.columns:
+                res[c] = np.nan
+        return res[oct_cols + ["la_spec", "lc_minus_la"]]
+
+    pers = n[(n["kind"] == "personal") & (n["_pid"] != "")] if "kind" in n.columns else n.iloc[:0]
+    by_person = agg(pers, "_pid")
+    by_group = agg(n, "_group")
+    own = base.join(by_person, on="person_id")
+    grp_vals = base.join(by_group, on="group")
+    use_own = own[["oct_125", "lc_minus_la"]].notna().any(axis=1).to_numpy()
+    cols = oct_cols + ["la_spec", "lc_minus_la"]
+    vals = np.where(use_own[:, None], own[cols].to_numpy(dtype=float), grp_vals[cols].to_numpy(dtype=float))
+    out = pd.DataFrame(vals, columns=cols, index=base.index)
+    have_grp = grp_vals[["oct_125", "lc_minus_la"]].notna().any(axis=1).to_numpy()
+    out.insert(0, "spectrum_source", np.where(use_own, "personal", np.where(have_grp, "group", "")))
+    out.insert(0, "person_id", base["person_id"].to_numpy())
+    return out.reset_index(drop=True)
+
+
+def catalogue(protectors: pd.DataFrame) -> pd.DataFrame:
+    """Return the protector catalogue with derated values by method and the octave APVs."""
+    p = protectors.copy()
+    for c in ["nrr", "snr", "h", "m", "l"] + [f"{k}_{f}" for k in ("att", "sd") for f in OCTAVE_BANDS]:
+        if c not in p.columns:
+            p[c] = np.nan
+    if "name" not in p.columns:
+        p["name"] = ""
+    out = p[["protector_id", "type", "name", "nrr", "snr", "h", "m", "l"]].copy()
+    nrr = p["nrr"].to_numpy(dtype=float)
+    out["nrr_a"] = nrr - NRR_A_CORRECTION
+    out["nrr_osha_50"] = (nrr - NRR_A_CORRECTION) * OSHA_DERATING
+    out["niosh_factor"] = niosh_derating_factor(p["type"].to_numpy()) if len(p) else np.array([])
+    out["nrr_niosh"] = niosh_derated_nrr(nrr, p["type"].to_numpy()) if len(p) else np.array([])
+    for f in OCTAVE_BANDS:
+        out[f"apv_{f}"] = apv(p[f"att_{f}"], p[f"sd_{f}"])  # both mean and SD are needed
+    apv_cols = [f"apv_{f}" for f in OCTAVE_BANDS]
+    out["has_octave"] = out[apv_cols[1:]].notna().all(axis=1)
+    return out.sort_values("protector_id", kind="stable").reset_index(drop=True)
+
+
+def current_protectors(fits: pd.DataFrame, cat: pd.DataFrame, period_end: pd.Timestamp) -> pd.DataFrame:
+    """Return per person the protector(s) of the latest issue up to *period_end* and the PAR to use.
+
+    Columns: person_id, protector_id ('A+B' when two are worn together), protector_type
+    ('dual' then), n_protectors, issue_date, par, fit_date, and the ratings of a single
+    protector (nrr, snr, h, m, l, apv_*), with nrr_2 the second NRR of a dual pair.
+    """
+    cols = ["person_id", "protector_id", "protector_type", "n_protectors", "issue_date", "par", "fit_date"]
+    if fits.empty:
+        return pd.DataFrame(columns=cols)
+    f = fits[(fits["date"].isna()) | (fits["date"] <= period_end)].copy()
+    if f.empty:
+        return pd.DataFrame(columns=cols)
+    f["_d"] = f["date"].astype("datetime64[ns]").fillna(pd.Timestamp("1900-01-01"))
+    latest = f.groupby("person_id")["_d"].transform("max")
+    cur = f[f["_d"] == latest].drop_duplicates(["person_id", "protector_id"])
+    cur = cur.merge(cat, on="protector_id", how="left")
+    if "_row" not in cur.columns:
+        cur["_row"] = np.arange(len(cur))
+    # an earmuff and a plug issued together are worn together (dual); otherwise the last row counts
+    cur["_muff"] = cur["type"].eq("earmuff")
+    kinds = cur.groupby("person_id")["_muff"].agg(["any", "all"])
+    dual_ids = kinds.index[kinds["any"] & ~kinds["all"]]
+    is_dual = cur["person_id"].isin(dual_ids)
+    single_rows = cur[~is_dual].sort_values(["person_id", "_row"], kind="stable").drop_duplicates(
+        "person_id", keep="last")
+    dual_rows = cur[is_dual].sort_values(["person_id", "_muff", "nrr"], ascending=[True, True, False],
+                                         kind="stable", na_position="last").drop_duplicates(
+        ["person_id", "_muff"], keep="first")
+    cur = pd.concat([single_rows, dual_rows])
+    cur = cur.sort_values(["person_id", "nrr", "protector_id"], ascending=[True, False, True], kind="stable",
+                          na_position="last")
+    g = cur.groupby("person_id", sort=True)
+    first = cur.drop_duplicates("person_id", keep="first").set_index("person_id").sort_index()
+    out = pd.DataFrame(index=first.index)
+    out["n_protectors"] = g.size()
+    out["protector_id"] = first["protector_id"]
+    multi = cur[cur["person_id"].isin(out.index[out["n_protectors"] > 1])]
+    if not multi.empty:  # rare: two protectors worn together
+        joined = multi.sort_values(["person_id", "protector_id"]).groupby("person_id")["protector_id"].agg("+".join)
+        out.loc[joined.index, "protector_id"] = joined
+    out["protector_type"] = np.where(out["n_protectors"] > 1, "dual", first["type"].fillna(""))
+    out["issue_date"] = first["date"]
+    rating_cols = ["nrr", "snr", "h", "m", "l"] + [f"apv_{b}" for b in OCTAVE_BANDS] + ["type"]
+    single = out["n_protectors"] == 1
+    for c in rating_cols:
+        out[c] = first[c].where(single) if c != "nrr" else first[c]
+    second = cur[g.cumcount() == 1].set_index("person_id")["nrr"]
+    out["nrr_2"] = second.reindex(out.index)
+    out["dual_type"] = first["type"]
+    # PAR: the latest fit test with a PAR of a protector currently worn
+    pairs = cur[["person_id", "protector_id"]]
+    withpar = f[f["par"].notna()].merge(pairs, on=["person_id", "protector_id"], how="inner")
+    withpar = withpar.sort_values(["person_id", "_d", "_row"] if "_row" in withpar.columns
+                                  else ["person_id", "_d"], kind="stable")
+    lastpar = withpar.drop_duplicates("person_id", keep="last").set_index("person_id")
+    out["par"] = lastpar["par"].reindex(out.index)
+    out["fit_date"] = lastpar["date"].reindex(out.index)
+    return out.reset_index()
+
+
+def protected_levels(df: pd.DataFrame) -> pd.DataFrame:
+    """Return a wide frame (one column per method) of levels under the protector.
+
+    *df* has exposure_level (A-weighted TWA or LEX,8h), lc_minus_la, la_spec, oct_*, and the
+    protector columns of :func:`current_protectors`.
+    """
+    L = df["exposure_level"].to_numpy(dtype=float)
+    d = df["lc_minus_la"].to_numpy(dtype=float)
+    lc = L + d
+    nrr = df["nrr"].to_numpy(dtype=float)
+    nrr2 = df["nrr_2"].to_numpy(dtype=float) if "nrr_2" in df.columns else np.full(len(df), np.nan)
+    dual = df["n_protectors"].to_numpy(dtype=float) > 1
+    ptype = df["type"].fillna("").to_numpy(dtype=object)
+    out = pd.DataFrame(index=df.index)
+    out["par"] = L - df["par"].to_numpy(dtype=float)
+    oct_cols = [f"oct_{f}" for f in OCTAVE_BANDS]
+    apv_cols = [f"apv_{f}" for f in OCTAVE_BANDS]
+    under = octave_protected(df[oct_cols].to_numpy(dtype=float), df[apv_cols].to_numpy(dtype=float))
+    la_b = weighted_level(df[oct_cols].to_numpy(dtype=float), "A")
+    out["octave"] = iso_round(L + under - la_b)
+    out["hml"] = iso_round(hml_protected(L, lc, df["h"], df["m"], df["l"]))
+    out["snr"] = iso_round(snr_protected(lc, df["snr"]))
+    dual_type = df["dual_type"].fillna("").to_numpy(dtype=object) if "dual_type" in df.columns else ptype
+    niosh_single = niosh_protected(L, nrr, ptype, "A")
+    niosh_nrr_1 = niosh_derated_nrr(nrr, dual_type)
+    niosh_c = np.where(np.isnan(lc), np.nan, nrr_protected(lc, niosh_derated_nrr(nrr, ptype), "C"))
+    niosh_single = np.where(np.isnan(niosh_c), niosh_single, niosh_c)
+    niosh_dual = np.where(np.isnan(lc), dual_nrr_protected(L, niosh_nrr_1, np.nan, "A"),
+                          dual_nrr_protected(lc, niosh_nrr_1, np.nan, "C"))
+    out["nrr-niosh"] = np.where(dual, niosh_dual, niosh_single)
+    out["nrr-c"] = np.where(dual, dual_nrr_protected(lc, nrr, nrr2, "C"), nrr_protected(lc, nrr, "C"))
+    out["nrr-a"] = np.where(dual, dual_nrr_protected(L, nrr, nrr2, "A"), nrr_protected(L, nrr, "A"))
+    out["nrr-50"] = np.where(dual, dual_nrr_protected(L, nrr, nrr2, "A", OSHA_DERATING),
+                             osha_derated_protected(L, nrr, "A"))
+    return out
+
+
+def governing(levels: pd.DataFrame, niosh: bool = False) -> pd.DataFrame:
+    """Return (method, protected_level) of the first available method in order of precedence."""
+    order = ["par", "octave", "hml", "snr"] + (["nrr-niosh"] if niosh else []) + ["nrr-c", "nrr-a"]
+    vals = levels[order].to_numpy(dtype=float)
+    ok = ~np.isnan(vals)
+    idx = np.where(ok.any(axis=1), ok.argmax(axis=1), -1)
+    level = np.where(idx >= 0, vals[np.arange(len(vals)), np.clip(idx, 0, None)], np.nan)
+    method = np.where(idx >= 0, np.array(order, dtype=object)[np.clip(idx, 0, None)], "")
+    return pd.DataFrame({"method": method, "protected_level": level}, index=levels.index)
+
+
+def targets(person_ids: Iterable[str], rules: RuleSet, sts_people: set[str] | None = None) -> np.ndarray:
+    """Return the target level under the protector for each person (lower after an STS)."""
+    base = rules.protected_target
+    if base is None:
+        base = rules.limit_value if rules.limit_value is not None else np.nan
+    after = rules.protected_target_after_sts if rules.protected_target_after_sts is not None else base
+    ids = pd.Series(list(person_ids), dtype=object)
+    sts = ids.isin(sorted(sts_people or ()))
+    return np.where(sts.to_numpy(), float(after), float(base))
+
+
+def judge(people: pd.DataFrame, rules: RuleSet, sts_people: set[str] | None = None,
+          over_below: float = OVERPROTECTION_BELOW) -> pd.DataFrame:
+    """Return *people* with target, after_sts and adequacy (re)judged; the hearing stage may re-apply it.
+
+    *people* needs person_id, exposed, protector_id and protected_level.
+    """
+    out = people.copy()
+    out["after_sts"] = out["person_id"].isin(sorted(sts_people or ()))
+    out["target"] = targets(out["person_id"], rules, sts_people)
+    p = out["protected_level"].to_numpy(dtype=float)
+    t = out["target"].to_numpy(dtype=float)
+    exposed = out["exposed"].fillna(False).astype(bool).to_numpy()
+    has_prot = (out["protector_id"].fillna("") != "").to_numpy()
+    conds = [~exposed, ~has_prot, np.isnan(p) | np.isnan(t), p > t, p < over_below]
+    labels = ["not exposed", "no protector", "unknown", "insufficient", "over-protected"]
+    out["adequacy"] = np.select(conds, labels, default="adequate").astype(object)
+    out["en458"] = en458_band(p)
+    return out
+
+
+# ---------------------------------------------------------------------------------------
+# stage
+
+
+@dataclass
+class ProtectionResult:
+    """Protector adequacy per person and group, the catalogue and the protector actions."""
+
+    people: pd.DataFrame
+    groups: pd.DataFrame
+    methods: pd.DataFrame
+    protectors: pd.DataFrame
+    actions: pd.DataFrame
+    findings: list[Finding] = field(default_factory=list)
+    #: the rule set the judgement used (id) and the people judged with the post-STS target
+    rules_id: str = ""
+    over_below: float = OVERPROTECTION_BELOW
+    period_end: pd.Timestamp | None = None
+
+
+def _exposure_people(programme: Programme, results: dict) -> pd.DataFrame:
+    """Return person_id, group, lex_8h, twa, exposed from the exposure stage (or blanks)."""
+    people = programme.table("people")
+    start = pd.Timestamp(programme.config.period.start)
+    if "leave_date" in people.columns:
+        people = people[people["leave_date"].isna() | (people["leave_date"] >= start)]
+    base = people[["person_id", "group"]].copy()
+    exp = results.get("exposure")
+    ep = getattr(exp, "people", None)
+    if ep is None or ep.empty:
+        return base.assign(lex_8h=np.nan, twa=np.nan, exposed=False)
+    cols = [c for c in ("person_id", "lex_8h", "twa", "exposed") if c in ep.columns]
+    merged = base.merge(ep[cols].drop_duplicates("person_id"), on="person_id", how="left")
+    for c in ("lex_8h", "twa"):
+        if c not in merged.columns:
+            merged[c] = np.nan
+    merged["exposed"] = merged.get("exposed", pd.Series(False, index=merged.index)).fillna(False).astype(bool)
+    return merged
+
+
+def sts_people_from(results: dict, end: pd.Timestamp | None = None) -> set[str]:
+    """Return the people with a standard threshold shift (up to *end*) from the hearing stage, if it ran.
+
+    Reads ``results["hearing"].sts_people`` when present, else the rows of
+    ``results["hearing"].audiograms`` whose ``sts`` (shift in force) is true.
+    """
+    h = results.get("hearing")
+    if h is None:
+        return set()
+    s = getattr(h, "sts_people", None)
+    if s is not None:
+        return set(s)
+    ag = getattr(h, "audiograms", None)
+    if isinstance(ag, pd.DataFrame) and {"person_id", "sts"} <= set(ag.columns):
+        sel = ag["sts"].fillna(False).astype(bool)
+        if end is not None and "date" in ag.columns:
+            sel &= ag["date"].isna() | (ag["date"] <= end)
+        return set(ag.loc[sel, "person_id"])
+    return set()
+
+
+def apply_sts(results: dict, rules: RuleSet) -> ProtectionResult | None:
+    """Return the protection result judged again with the hearing stage's STS list (None if absent).
+
+    For a stage that runs after ``hearing`` (e.g. compliance): 29 CFR 1910.95(j)(3) lowers the
+    target to 85 dB for people with a standard threshold shift.
+    """
+    res = results.get("protection")
+    if res is None:
+        return None
+    return rejudge(res, rules, sts_people_from(results, res.period_end))
+
+
+def _groups(people: pd.DataFrame) -> pd.DataFrame:
+    """Return per group the counts per adequacy and the share of wearers fitted with a PAR."""
+    if people.empty:
+        return pd.DataFrame(columns=["group", "n_people", "n_exposed", "n_wearing", "n_par", "share_par",
+                                     *ADEQUACY, "median_protected"])
+    counts = pd.crosstab(people["group"], people["adequacy"]).reindex(columns=list(ADEQUACY), fill_value=0)
+    g = people.groupby("group", sort=True)
+    out = pd.DataFrame({
+        "n_people": g.size(),
+        "n_exposed": g["exposed"].sum().astype(int),
+        "n_wearing": people["protector_id"].ne("").groupby(people["group"], sort=True).sum().astype(int),
+        "n_par": people["par"].notna().groupby(people["group"], sort=True).sum().astype(int),
+        "median_protected": g["protected_level"].median(),
+    })
+    out = out.join(counts).fillna({a: 0 for a in ADEQUACY})
+    out[list(ADEQUACY)] = out[list(ADEQUACY)].astype(int)
+    out["share_par"] = np.where(out["n_wearing"] > 0, out["n_par"] / out["n_wearing"].where(out["n_wearing"] > 0), np.nan)
+    out = out.reset_index().rename(columns={"index": "group"})
+    return out[["group", "n_people", "n_exposed", "n_wearing", "n_par", "share_par", *ADEQUACY,
+                "median_protected"]]
+
+
+def _actions(people: pd.DataFrame, rules: RuleSet) -> pd.DataFrame:
+    """Return one action per person with too little or too much protection."""
+    base_clause = rules.clauses.get("protected_target") or _DEFAULT_CLAUSES.get(rules.id, "")
+    sts_clause = rules.clauses.get("protected_target_after_sts") or base_clause
+    p = people
+    clause = pd.Series(np.where(p["after_sts"].to_numpy(dtype=bool), sts_clause, base_clause), index=p.index)
+    lvl = p["protected_level"].round(1).astype(str)
+    tgt = p["target"].map(lambda v: f"{v:g}")
+    meth = p["method"].map(METHOD_LABELS).fillna("")
+    kinds = {
+        "insufficient": ("protector-insufficient",
+                         "estimated " + lvl + " dB(A) under " + p["protector_id"] + " (" + meth
+                         + ") is above the target of " + tgt + " dB(A); review the protector and its fit",
+                         clause),
+        "over-protected": ("protector-overprotection",
+                           "estimated " + lvl + " dB(A) under " + p["protector_id"] + " (" + meth
+                           + ") is below " + f"{OVERPROTECTION_BELOW:g}"
+                           + " dB(A): consider a protector with less attenuation (EN 458 band, "
+                             "from memory, unverified)",
+                           ""),
+    }  # people with no protector on record: the compliance stage lists them (coverage)
+    frames = []
+    for adequacy, (kind, detail, cl) in kinds.items():
+        m = p["adequacy"] == adequacy
+        if m.any():
+            frames.append(pd.DataFrame({"subject": p.loc[m, "person_id"], "subject_type": "person",
+                                        "kind": kind, "detail": detail[m], "due_date": pd.NaT,
+                                        "clause": cl[m] if isinstance(cl, pd.Series) else cl}))
+    if not frames:
+        return pd.DataFrame({c: pd.Series(dtype="datetime64[ns]" if c == "due_date" else object)
+                             for c in ACTION_COLUMNS})
+    out = pd.concat(frames, ignore_index=True)
+    out["due_date"] = pd.to_datetime(out["due_date"])
+    return out.sort_values(["kind", "subject"], kind="stable").reset_index(drop=True)[ACTION_COLUMNS]
+
+
+def _findings(programme: Programme, cat: pd.DataFrame, cur: pd.DataFrame) -> list[Finding]:
+    """Return warnings about protectors that cannot be assessed."""
+    out: list[Finding] = []
+    prot = programme.table("protectors")
+    path = programme.present.get("protectors", "data/protectors.csv")
+    if not prot.empty:
+        rated = cat[["nrr", "snr", "h"]].notna().any(axis=1) | cat["has_octave"]
+        worn = set(cur["protector_id"].str.split("+").explode()) if not cur.empty else set()
+        bad = cat.loc[~rated & cat["protector_id"].isin(sorted(worn)), "protector_id"]
+        rows = prot.set_index("protector_id")["_row"] if "_row" in prot.columns else pd.Series(dtype=float)
+        for pid in bad:
+            r = rows.get(pid)
+            out.append(Finding(path, None if r is None or pd.isna(r) else int(r), "nrr", WARNING,
+                               f"protector '{pid}' is worn but has no rating (nrr, snr, hml or octave "
+                               "attenuation): its adequacy cannot be estimated",
+                               key="protector without rating"))
+        att = [f"att_{f}" for f in OCTAVE_BANDS[1:]]
+        partial = prot[att].notna().any(axis=1) & ~prot[att].notna().all(axis=1) if set(att) <= set(prot.columns) \
+            else pd.Series(False, index=prot.index)
+        for _, r in prot[partial].iterrows():
+            out.append(Finding(path, int(r["_row"]) if "_row" in prot.columns else None, "att_125", WARNING,
+                               "octave attenuation is incomplete (125 Hz … 8 kHz needed): the octave-band "
+                               "method is not used for this protector", key="incomplete octave attenuation"))
+    return out
+
+
+def compute(programme: Programme, results: dict, rules: RuleSet | None = None) -> ProtectionResult:
+    """Estimate levels under each person's protector by every method and judge their adequacy."""
+    if rules is None:
+        rules = load_rule_set(programme.config.rules, programme.config)
+    end = pd.Timestamp(programme.config.period.end)
+    people = _exposure_people(programme, results)
+    people = people.sort_values("person_id", kind="stable").reset_index(drop=True)
+    cat = catalogue(programme.table("protectors"))
+    cur = current_protectors(programme.table("protector_fits"), cat, end)
+    spec = spectra(programme.table("noise"), people, end)
+    metric_col = "twa" if rules.metric == "twa" else "lex_8h"
+    other_col = "lex_8h" if metric_col == "twa" else "twa"
+    df = people.merge(cur, on="person_id", how="left").merge(spec.drop(columns=[]), on="person_id", how="left")
+    df["exposure_level"] = df[metric_col].fillna(df[other_col])
+    for c in ["nrr", "nrr_2", "snr", "h", "m", "l", "par", "n_protectors"] + [f"apv_{b}" for b in OCTAVE_BANDS]:
+        if c not in df.columns:
+            df[c] = np.nan
+    for c in ["type", "dual_type", "protector_id", "protector_type"]:
+        if c not in df.columns:
+            df[c] = ""
+        df[c] = df[c].fillna("").astype(object)
+    for c in ["fit_date", "issue_date"]:
+        if c not in df.columns:
+            df[c] = pd.NaT
+        df[c] = pd.to_datetime(df[c])
+    lv = protected_levels(df)
+    lv.loc[df["protector_id"] == "", :] = np.nan
+    gov = governing(lv, niosh=rules.id == "niosh-rel")
+    df["method"] = gov["method"].where(df["protector_id"] != "", "")
+    df["protected_level"] = gov["protected_level"]
+    df["osha_50_level"] = lv["nrr-50"]
+    judged = judge(df, rules, sts_people_from(results, end))
+    out_people = judged[PEOPLE_COLUMNS + ["issue_date", "n_protectors", "osha_50_level", "target", "after_sts",
+                                          "en458", "exposed", "spectrum_source"]].copy()
+    out_people["n_protectors"] = out_people["n_protectors"].fillna(0).astype(int)
+    methods = lv.assign(person_id=df["person_id"]).melt(id_vars="person_id", var_name="method",
+                                                        value_name="protected_level")
+    methods = methods[methods["protected_level"].notna()]
+    methods["governs"] = methods.set_index(["person_id", "method"]).index.isin(
+        pd.MultiIndex.from_frame(out_people[["person_id", "method"]]))
+    methods = methods.sort_values(["person_id", "method"], kind="stable").reset_index(drop=True)
+    worn = cur["protector_id"].str.split("+").explode().value_counts() if not cur.empty else pd.Series(dtype=int)
+    cat["n_wearers"] = cat["protector_id"].map(worn).fillna(0).astype(int)
+    findings = _findings(programme, cat, cur)
+    log.info("protection: %d people judged, %d insufficient", len(out_people),
+             int((out_people["adequacy"] == "insufficient").sum()))
+    return ProtectionResult(people=out_people, groups=_groups(out_people), methods=methods, protectors=cat,
+                            actions=_actions(judged, rules), findings=findings, rules_id=rules.id,
+                            period_end=end)
+
+
+def rejudge(result: ProtectionResult, rules: RuleSet, sts_people: set[str]) -> ProtectionResult:
+    """Return *result* judged again with the post-STS target for *sts_people* (for the hearing stage)."""
+    judged = judge(result.people, rules, sts_people, result.over_below)
+    return ProtectionResult(people=judged[result.people.columns.tolist()], groups=_groups(judged),
+                            methods=result.methods, protectors=result.protectors,
+                            actions=_actions(judged, rules), findings=list(result.findings),
+                            rules_id=result.rules_id, over_below=result.over_below,
+                            period_end=result.period_end)

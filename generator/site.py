@@ -1,0 +1,316 @@
+"""Render page models to HTML: jinja2 environment, sanitised markdown, charts, cautions.
+
+:func:`render_site` turns the pages of a :class:`~generator.pages.base.SiteContext` into a
+mapping ``relative path -> bytes`` (pages, ``assets/plotly.min.js``, ``assets/style.css``);
+:mod:`generator.build` writes that mapping. Everything links relatively, so the site
+works from ``file://``; no template loads anything from another host.
+"""
+from __future__ import annotations
+
+import datetime as dt
+import logging
+import math
+import os
+import re
+from dataclasses import dataclass
+from functools import lru_cache
+from pathlib import Path
+from typing import Any, Iterable
+from urllib.parse import urlsplit
+
+import jinja2
+import markdown as md
+import nh3
+import plotly.io as pio
+from markupsafe import Markup
+
+from . import __version__
+from .pages import NARRATIVE, SECTIONS, section_title
+from .pages.base import Chart, Page, SiteContext
+from .resources import content_dir, templates_dir
+
+log = logging.getLogger(__name__)
+
+pio.json.config.default_engine = "json"
+
+PLOTLY_JS = "assets/plotly.min.js"
+STYLE_CSS = "assets/style.css"
+CHART_CONFIG = {"displaylogo": False, "responsive": True}
+#: Names every page template gets; a page's own context may not reuse them.
+RESERVED = frozenset({"site", "nav", "root", "page", "charts", "chart_map", "cautions"})
+_CHART_ID = re.compile(r"^[a-z][a-z0-9_-]*$")
+
+#: HTML the markdown renderer may keep (everything else is removed by nh3).
+ALLOWED_TAGS = frozenset({
+    "a", "abbr", "b", "blockquote", "br", "caption", "code", "dd", "del", "details", "div",
+    "dl", "dt", "em", "h1", "h2", "h3", "h4", "h5", "h6", "hr", "i", "img", "ins", "kbd", "li",
+    "ol", "p", "pre", "s", "small", "span", "strong", "sub", "summary", "sup", "table", "tbody",
+    "td", "tfoot", "th", "thead", "tr", "ul",
+})
+ALLOWED_ATTRIBUTES = {
+    "a": {"href", "title"},
+    "abbr": {"title"},
+    "img": {"src", "alt", "title", "width", "height"},
+    "td": {"colspan", "rowspan"},
+    "th": {"colspan", "rowspan", "scope"},
+    "ol": {"start"},
+    **{f"h{i}": {"id"} for i in range(1, 7)},
+}
+LINK_SCHEMES = frozenset({"http", "https", "mailto"})
+
+
+def _attribute_filter(tag: str, attr: str, value: str) -> str | None:
+    """Keep relative links and images; drop protocol-relative URLs and remote images."""
+    if attr in ("href", "src"):
+        v = value.strip()
+        if v.startswith("//") or v.startswith("\\"):
+            return None
+        scheme = urlsplit(v).scheme.lower()
+        if attr == "src" and scheme:
+            return None  # an image must come with the site, never from another host
+        if scheme and scheme not in LINK_SCHEMES:
+            return None
+    return value
+
+
+def sanitise_html(html: str) -> str:
+    """Return *html* with every tag, attribute and link scheme outside the allow-list removed."""
+    return nh3.clean(html, tags=set(ALLOWED_TAGS), attributes={k: set(v) for k, v in ALLOWED_ATTRIBUTES.items()},
+                     url_schemes=set(LINK_SCHEMES), attribute_filter=_attribute_filter,
+                     strip_comments=True, link_rel="noopener noreferrer")
+
+
+def render_markdown(text: str) -> str:
+    """Return sanitised HTML for markdown *text* (tables, fenced code, heading ids)."""
+    conv = md.Markdown(extensions=["tables", "fenced_code", "toc"], output_format="html")
+    return sanitise_html(conv.convert(text or ""))
+
+
+def _markdown_filter(text: str) -> Markup:
+    """Jinja filter: sanitised markdown as markup."""
+    return Markup(render_markdown(str(text)))  # made and sanitised by the program
+
+
+def _num(value: Any, digits: int = 1, unit: str = "") -> str:
+    """Jinja filter: a number with *digits* decimals (and a unit), a dash when missing."""
+    if value is None:
+        return "–"
+    try:
+        f = float(value)
+    except (TypeError, ValueError):
+        return str(value)
+    if math.isnan(f):
+        return "–"
+    text = f"{f:,.{digits}f}"
+    return f"{text} {unit}".rstrip() if unit else text
+
+
+def _date(value: Any) -> str:
+    """Jinja filter: a date as YYYY-MM-DD, a dash when missing."""
+    if value is None:
+        return "–"
+    try:
+        import pandas as pd
+        if pd.isna(value):
+            return "–"
+        return pd.Timestamp(value).strftime("%Y-%m-%d")
+    except (TypeError, ValueError):
+        return str(value)
+
+
+def make_environment(template_dir: Path | None = None) -> jinja2.Environment:
+    """Return the jinja2 environment: programme templates first, then the stock ones."""
+    loaders: list[jinja2.BaseLoader] = []
+    if template_dir is not None and Path(template_dir).is_dir():
+        loaders.append(jinja2.FileSystemLoader(str(template_dir)))
+    loaders.append(jinja2.FileSystemLoader(str(templates_dir())))
+    env = jinja2.Environment(
+        loader=jinja2.ChoiceLoader(loaders),
+        autoescape=jinja2.select_autoescape(default=True, default_for_string=True),
+        undefined=jinja2.StrictUndefined,
+        keep_trailing_newline=True,
+        trim_blocks=True,
+        lstrip_blocks=True,
+    )
+    env.filters["markdown"] = _markdown_filter
+    env.filters["num"] = _num
+    env.filters["date"] = _date
+    return env
+
+
+def build_date() -> str:
+    """Return the UTC build date from SOURCE_DATE_EPOCH, or 'not stamped'."""
+    day = source_date()
+    return day.isoformat() if day else "not stamped"
+
+
+def source_date() -> dt.date | None:
+    """Return the UTC date of SOURCE_DATE_EPOCH, or None when unset or unreadable."""
+    raw = os.environ.get("SOURCE_DATE_EPOCH", "").strip()
+    if not raw:
+        return None
+    try:
+        return dt.datetime.fromtimestamp(int(raw), tz=dt.timezone.utc).date()
+    except (ValueError, OverflowError, OSError):
+        log.warning("SOURCE_DATE_EPOCH=%r is not a whole number of seconds; ignored", raw)
+        return None
+
+
+def chart_html(chart: Chart) -> str:
+    """Return the plot div and its script for *chart* (plotly.js is loaded by the page)."""
+    return pio.to_html(chart.figure, include_plotlyjs=False, full_html=False, div_id=chart.id,
+                       default_height=chart.height, config=CHART_CONFIG)
+
+
+@dataclass
+class Caution:
+    """One block of the cautions shown on every page."""
+
+    id: str
+    title: str
+    html: Markup
+
+
+def _split_title(text: str) -> tuple[str, str]:
+    """Return (first '# ' heading, rest) of a markdown text."""
+    lines = text.strip().splitlines()
+    if lines and lines[0].startswith("# "):
+        return lines[0][2:].strip(), "\n".join(lines[1:]).strip()
+    return "", text.strip()
+
+
+@lru_cache(maxsize=None)
+def _caution_text(name: str) -> str:
+    path = content_dir() / "cautions" / f"{name}.md"
+    return path.read_text(encoding="utf-8")
+
+
+def cautions_for(rules: dict[str, Any]) -> list[Caution]:
+    """Return the cautions: the general text, the headline rule set's, then short notes of the others."""
+    out = []
+    title, body = _split_title(_caution_text("general"))
+    out.append(Caution("general", title or "Before you use these figures", Markup(render_markdown(body))))
+    for i, rule in enumerate(rules.values()):
+        title, body = _split_title(_caution_text(rule.caution))
+        if i == 0:
+            out.append(Caution(rule.id, title or rule.name, Markup(render_markdown(body))))
+        else:
+            first = body.split("\n\n", 1)[0] if body else ""
+            out.append(Caution(rule.id, f"Compared with: {title or rule.name}",
+                               Markup(render_markdown(first))))
+    return out
+
+
+def page_path(slug: str) -> str:
+    """Return the output file of a page slug ('exposure/g1' -> 'exposure/g1.html')."""
+    return f"{slug}.html"
+
+
+def root_prefix(slug: str) -> str:
+    """Return the relative prefix from a page back to the site root."""
+    return "../" * slug.count("/")
+
+
+def _nav_order(page: Page) -> tuple:
+    order = {s: i for i, (s, _) in enumerate(SECTIONS)}
+    if page.section == NARRATIVE:
+        return (order["index"], 1, page.context.get("order", 0), page.slug)
+    return (order.get(page.section, len(order)), 0, page.slug != page.section, page.slug)
+
+
+def navigation(pages: Iterable[Page]) -> list[Page]:
+    """Return the pages shown in the navigation: one per section in SECTIONS order, narrative after the overview."""
+    out: list[Page] = []
+    seen: set[str] = set()
+    for p in sorted((p for p in pages if p.in_nav), key=_nav_order):
+        if p.section != NARRATIVE:
+            if p.section in seen:
+                continue
+            seen.add(p.section)
+        out.append(p)
+    return out
+
+
+def check_pages(pages: list[Page]) -> None:
+    """Raise ValueError on duplicate slugs, unsafe slugs or bad chart ids."""
+    seen: set[str] = set()
+    for p in pages:
+        parts = p.slug.split("/")
+        if not p.slug or any(not part or part in (".", "..") or part.startswith(".") for part in parts) \
+                or p.slug.startswith("assets/") or "\\" in p.slug:
+            raise ValueError(f"page slug {p.slug!r} is not a safe relative name")
+        if p.slug in seen:
+            raise ValueError(f"two pages have the slug {p.slug!r}")
+        seen.add(p.slug)
+        ids: set[str] = set()
+        for c in p.charts:
+            if not _CHART_ID.match(c.id):
+                raise ValueError(f"chart id {c.id!r} on page {p.slug!r} must be lower-case letters, digits, - or _")
+            if c.id in ids:
+                raise ValueError(f"two charts on page {p.slug!r} have the id {c.id!r}")
+            if not (c.summary or "").strip():
+                raise ValueError(f"chart {c.id!r} on page {p.slug!r} has no summary sentence")
+            ids.add(c.id)
+        clash = RESERVED & set(p.context)
+        if clash:
+            raise ValueError(f"page {p.slug!r} context uses reserved names {sorted(clash)}")
+
+
+def site_info(ctx: SiteContext) -> dict[str, Any]:
+    """Return the values every page shows (title, organisation, period, footer)."""
+    cfg = ctx.programme.config
+    return {
+        "title": cfg.title,
+        "organisation": cfg.organisation,
+        "period_start": cfg.period.start.isoformat(),
+        "period_end": cfg.period.end.isoformat(),
+        "version": __version__,
+        "rules_name": ctx.headline.name if ctx.rules else "",
+        "digest": (ctx.programme.digest or "")[:12],
+        "build_date": build_date(),
+        "note": cfg.site_url_note,
+        "restricted": ctx.restricted,
+    }
+
+
+def render_page(env: jinja2.Environment, page: Page, common: dict[str, Any], nav: list[Page]) -> str:
+    """Render one page to HTML text."""
+    root = root_prefix(page.slug)
+    charts = [{"id": c.id, "title": c.title, "summary": c.summary, "table": c.table,
+               "html": Markup(chart_html(c))} for c in page.charts]  # program-made plot div
+    entries = [{"title": p.title if p.section == NARRATIVE else section_title(p.section),
+                "href": root + page_path(p.slug), "section": p.section,
+                "current": (p.slug == page.slug) or (p.section == page.section and p.section != NARRATIVE)}
+               for p in nav]
+    context = dict(page.context)
+    context.update(common, root=root, page=page, nav=entries, charts=charts,
+                   chart_map={c["id"]: c for c in charts})
+    return env.get_template(page.template).render(**context)
+
+
+def render_site(ctx: SiteContext, pages: list[Page] | None = None) -> dict[str, bytes]:
+    """Return every output file of the site as relative path -> bytes."""
+    pages = list(ctx.pages if pages is None else pages)
+    if not ctx.restricted:
+        dropped = [p.slug for p in pages if p.restricted]
+        if dropped:
+            log.info("public build: %d restricted pages left out", len(dropped))
+        pages = [p for p in pages if not p.restricted]
+    check_pages(pages)
+    env = make_environment(ctx.programme.template_dir)
+    nav = navigation(pages)
+    common = {"site": site_info(ctx), "cautions": cautions_for(ctx.rules)}
+    files: dict[str, bytes] = {}
+    for page in sorted(pages, key=lambda p: p.slug):
+        files[page_path(page.slug)] = render_page(env, page, common, nav).encode("utf-8")
+    files[PLOTLY_JS] = plotly_js()
+    style, _, _ = env.loader.get_source(env, "style.css")  # type: ignore[union-attr]
+    files[STYLE_CSS] = style.encode("utf-8")
+    return files
+
+
+@lru_cache(maxsize=1)
+def plotly_js() -> bytes:
+    """Return the bundled plotly.js library."""
+    from plotly.offline import get_plotlyjs
+    return get_plotlyjs().encode("utf-8")

@@ -1,0 +1,464 @@
+"""Programme compliance rules at their boundaries, on small hand-made programmes.
+
+Each check names the clause it follows. Date rules: "within N months" is N calendar
+months (pandas DateOffset) and the due date itself is still on time.
+"""
+from __future__ import annotations
+
+import datetime as dt
+import json
+from pathlib import Path
+from types import SimpleNamespace
+
+import pandas as pd
+import pytest
+
+from generator import compliance
+from generator.config import Config, Period
+from generator.findings import Findings
+from generator.model import Programme
+from generator.rules import load_rule_set
+
+D = pd.Timestamp
+
+
+def _frame(rows: list[dict], dates: tuple[str, ...] = ("date",)) -> pd.DataFrame:
+    df = pd.DataFrame(rows)
+    for c in dates:
+        if c in df.columns:
+            df[c] = pd.to_datetime(df[c])
+    return df
+
+
+def make(people: list[dict], *, audiograms: list[dict] | None = None, training: list[dict] | None = None,
+         fits: list[dict] | None = None, audiometers: list[dict] | None = None,
+         end: str = "2025-12-31", start: str = "2025-01-01", rules: str = "osha-1910.95",
+         mobile_van: bool = False) -> Programme:
+    """Return a Programme built directly from row dicts (spec conventions)."""
+    cfg = Config()
+    cfg.period = Period(start=dt.date.fromisoformat(start), end=dt.date.fromisoformat(end))
+    cfg.rules = rules
+    cfg.audiometry.mobile_van = mobile_van
+    p = _frame(people, ("hire_date", "leave_date"))
+    for c in ("hire_date", "leave_date"):
+        if c not in p.columns:
+            p[c] = pd.NaT
+    tables = {"people": p}
+    present = {"people": "data/people.csv"}
+    for name, rows in (("audiograms", audiograms), ("training", training), ("protector_fits", fits),
+                       ("audiometers", audiometers)):
+        if rows is not None:
+            tables[name] = _frame(rows)
+            present[name] = f"data/{name}.csv"
+    return Programme(root=Path("."), config=cfg, tables=tables, present=present, noise_logs={},
+                     log_interval_s={}, pages=[], findings=Findings(), digest="")
+
+
+def exposure(rows: list[dict], groups: list[dict] | None = None, measurements: list[dict] | None = None,
+             actions: pd.DataFrame | None = None) -> SimpleNamespace:
+    """Return a stand-in for the exposure stage's result with its declared columns."""
+    people = _frame(rows, ("first_exposed_date",))
+    return SimpleNamespace(people=people, groups=pd.DataFrame(groups or [{"group": "G1", "exposed": False}]),
+                           measurements=_frame(measurements) if measurements else None,
+                           actions=actions if actions is not None else pd.DataFrame())
+
+
+ONE = [{"person_id": "E1", "group": "G1", "hire_date": "2020-01-01"}]
+
+
+def exposed(first: str) -> SimpleNamespace:
+    return exposure([{"person_id": "E1", "group": "G1", "exposed": True, "first_exposed_date": first}])
+
+
+def aud(date: str, kind: str = "periodic", meter: str = "") -> list[dict]:
+    return [{"person_id": "E1", "date": date, "ear": e, "kind": kind, "audiometer_id": meter} for e in "LR"]
+
+
+def person(res: compliance.ComplianceResult, pid: str = "E1") -> pd.Series:
+    return res.people.set_index("person_id").loc[pid]
+
+
+# ---------------------------------------------------------------------------------------
+# baseline: 29 CFR 1910.95(g)(5)(i) "within 6 months of an employee's first exposure at or
+# above the action level"; (g)(5)(ii) one year with a mobile test van
+
+
+@pytest.mark.parametrize("days,expected", [(182, "on_time"), (183, "on_time"), (184, "late")])
+def test_baseline_day_182_vs_184(days: int, expected: str) -> None:
+    # first exposure 2025-04-01; six calendar months later is 2025-10-01 = day 183
+    first = D("2025-04-01")
+    prog = make(ONE, audiograms=aud((first + pd.Timedelta(days=days)).strftime("%Y-%m-%d"), "baseline"))
+    res = compliance.compute(prog, {"exposure": exposed("2025-04-01")})
+    assert person(res)["baseline_due"] == D("2025-10-01")  # 29 CFR 1910.95(g)(5)(i)
+    assert person(res)["baseline_status"] == expected  # 29 CFR 1910.95(g)(5)(i)
+
+
+def test_baseline_missing_is_overdue_or_due_soon() -> None:
+    # 29 CFR 1910.95(g)(5)(i): due 6 months after first exposure; as of 2025-12-31
+    res = compliance.compute(make(ONE, training=[{"person_id": "E1", "date": "2025-06-01"}]),
+                             {"exposure": exposed("2025-06-29")})
+    assert person(res)["baseline_status"] == "overdue"  # due 2025-12-29 < 2025-12-31
+    res = compliance.compute(make(ONE, training=[{"person_id": "E1", "date": "2025-07-01"}]),
+                             {"exposure": exposed("2025-07-15")})
+    assert person(res)["baseline_status"] == "due_soon"  # due 2026-01-15, within 60 days
+    kinds = set(res.actions["kind"])
+    assert "baseline audiogram" in kinds
+    assert res.actions.loc[res.actions["kind"].eq("baseline audiogram"), "due_date"].iloc[0] == D("2026-01-15")
+
+
+def test_baseline_mobile_van_one_year() -> None:
+    # 29 CFR 1910.95(g)(5)(ii): one year with a mobile test van; day 300 is then on time
+    prog = make(ONE, audiograms=aud("2025-01-27", "baseline"), mobile_van=True)
+    res = compliance.compute(prog, {"exposure": exposed("2024-04-02")})
+    assert person(res)["baseline_due"] == D("2025-04-02")
+    assert person(res)["baseline_status"] == "on_time"
+    prog = make(ONE, audiograms=aud("2025-01-27", "baseline"), mobile_van=False)
+    res = compliance.compute(prog, {"exposure": exposed("2024-04-02")})
+    assert person(res)["baseline_status"] == "late"  # six months without the van
+
+
+# ---------------------------------------------------------------------------------------
+# periodic audiogram: 29 CFR 1910.95(g)(6) "at least annually after obtaining the baseline"
+
+
+@pytest.mark.parametrize("days,expected", [(364, "due_soon"), (365, "due_soon"), (366, "overdue")])
+def test_annual_audiogram_364_vs_366(days: int, expected: str) -> None:
+    last = (D("2025-12-31") - pd.Timedelta(days=days)).strftime("%Y-%m-%d")
+    prog = make(ONE, audiograms=aud("2020-06-01", "baseline") + aud(last))
+    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    assert person(res)["audiogram_status"] == expected  # 29 CFR 1910.95(g)(6)
+    assert bool(person(res)["current_audiogram"]) is (days <= 365)
+
+
+def test_annual_audiogram_not_due_for_unexposed_person() -> None:
+    # 29 CFR 1910.95(g)(6) applies to employees at or above the action level only
+    prog = make(ONE, audiograms=aud("2020-06-01", "baseline"))
+    res = compliance.compute(prog, {"exposure": exposure([{"person_id": "E1", "group": "G1", "exposed": False}])})
+    assert person(res)["audiogram_status"] == "not_required"
+    assert res.enrolment["mismatch"].tolist() == ["records_not_exposed"]  # information only
+    assert "annual audiogram" not in set(res.actions["kind"])
+
+
+def test_exit_audiogram_for_leaver() -> None:
+    # common practice: an exit audiogram when employment ends
+    people = [{"person_id": "E1", "group": "G1", "hire_date": "2020-01-01", "leave_date": "2025-09-30"}]
+    prog = make(people, audiograms=aud("2020-02-01", "baseline") + aud("2025-03-01"))
+    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    assert person(res)["exit_status"] == "overdue"
+    assert person(res)["audiogram_status"] == "not_required"  # left before the next annual one
+    prog = make(people, audiograms=aud("2020-02-01", "baseline") + aud("2025-03-01") + aud("2025-09-20", "exit"))
+    assert person(compliance.compute(prog, {"exposure": exposed("2020-01-01")}))["exit_status"] == "done"
+
+
+def test_leaver_before_period_out_of_scope() -> None:
+    people = ONE + [{"person_id": "E2", "group": "G1", "hire_date": "2010-01-01", "leave_date": "2024-12-31"}]
+    res = compliance.compute(make(people), {"exposure": exposure([
+        {"person_id": "E1", "group": "G1", "exposed": True, "first_exposed_date": "2020-01-01"},
+        {"person_id": "E2", "group": "G1", "exposed": True, "first_exposed_date": "2010-01-01"}])})
+    assert res.people["person_id"].tolist() == ["E1"]
+
+
+# ---------------------------------------------------------------------------------------
+# training: 29 CFR 1910.95(k)(2) "repeated annually for each employee included in the programme"
+
+
+@pytest.mark.parametrize("days,expected", [(364, "due_soon"), (366, "overdue")])
+def test_training_364_vs_366(days: int, expected: str) -> None:
+    last = (D("2025-12-31") - pd.Timedelta(days=days)).strftime("%Y-%m-%d")
+    prog = make(ONE, audiograms=aud("2020-06-01", "baseline") + aud("2025-06-01"),
+                training=[{"person_id": "E1", "date": last}])
+    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    assert person(res)["training_status"] == expected  # 29 CFR 1910.95(k)(2)
+    tg = res.training_groups.set_index("group").loc["G1"]
+    assert tg["n_required"] == 1
+    assert tg["completion"] == (1.0 if days <= 365 else 0.0)  # 29 CFR 1910.95(k)(2)
+
+
+def test_training_completion_per_group() -> None:
+    people = [{"person_id": f"E{i}", "group": "G1" if i < 4 else "G2", "hire_date": "2020-01-01"}
+              for i in range(1, 6)]
+    ex = exposure([{"person_id": f"E{i}", "group": "G1" if i < 4 else "G2", "exposed": True,
+                    "first_exposed_date": "2020-01-01"} for i in range(1, 6)])
+    training = [{"person_id": "E1", "date": "2025-05-01"}, {"person_id": "E2", "date": "2024-05-01"},
+                {"person_id": "E4", "date": "2025-02-01"}]
+    res = compliance.compute(make(people, training=training), {"exposure": ex})
+    tg = res.training_groups.set_index("group")
+    # 1910.95(k)(2): trained within 12 months: G1 1 of 3, G2 1 of 2
+    assert tg.loc["G1", "n_trained"] == 1 and tg.loc["G1", "n_required"] == 3
+    assert tg.loc["G2", "completion"] == 0.5
+    assert res.summary["trained_share"] == 0.4
+
+
+# ---------------------------------------------------------------------------------------
+# enrolment: 29 CFR 1910.95(c)(1) programme at or above the action level
+
+
+def test_enrolment_mismatches_both_ways() -> None:
+    people = [{"person_id": "E1", "group": "G1"}, {"person_id": "E2", "group": "G2"},
+              {"person_id": "E3", "group": "G2"}, {"person_id": "E4", "group": "G3"}]
+    ex = exposure([{"person_id": "E1", "group": "G1", "exposed": True, "first_exposed_date": "2024-01-01"},
+                   {"person_id": "E2", "group": "G2", "exposed": False},
+                   {"person_id": "E3", "group": "G2", "exposed": False},
+                   {"person_id": "E4", "group": "G3", "exposed": True, "first_exposed_date": "2024-01-01"}],
+                  groups=[{"group": "G1", "exposed": False}, {"group": "G2", "exposed": False},
+                          {"group": "G3", "exposed": True}])
+    prog = make(people, training=[{"person_id": "E2", "date": "2025-03-01"}])
+    res = compliance.compute(prog, {"exposure": ex})
+    mm = dict(zip(res.enrolment["person_id"], res.enrolment["mismatch"]))
+    assert mm == {"E1": "exposed_no_records", "E4": "exposed_no_records", "E2": "records_not_exposed"}
+    st = res.people.set_index("person_id")
+    assert bool(st.loc["E4", "enrolled"]) and not bool(st.loc["E1", "enrolled"])  # exposed group enrols
+    assert res.summary["must_be_enrolled"] == 2
+    assert res.summary["enrolled"] == 2  # E2 (records) and E4 (exposed group)
+    assert res.summary["not_enrolled"] == 2
+    assert set(res.actions.loc[res.actions["kind"].eq("enrolment"), "subject"]) == {"E1", "E4"}
+
+
+def test_person_without_exposure_row_uses_group() -> None:
+    people = [{"person_id": "E1", "group": "G3"}]
+    ex = exposure([], groups=[{"group": "G3", "exposed": True}])
+    res = compliance.compute(make(people), {"exposure": ex})
+    assert bool(person(res)["must_enrol"])
+
+
+# ---------------------------------------------------------------------------------------
+# protectors: 29 CFR 1910.95(i)(1) made available to everyone at or above the action level
+
+
+def test_protector_coverage_and_fit_tests() -> None:
+    people = [{"person_id": f"E{i}", "group": "G1", "hire_date": "2020-01-01"} for i in range(1, 5)]
+    ex = exposure([{"person_id": f"E{i}", "group": "G1", "exposed": True, "first_exposed_date": "2021-01-01"}
+                   for i in range(1, 5)])
+    fits = [{"person_id": "E1", "protector_id": "P1", "date": "2024-01-01", "par": 18.0},
+            {"person_id": "E2", "protector_id": "P1", "date": "2025-01-01", "par": None},
+            {"person_id": "E3", "protector_id": "P2", "date": "2026-02-01", "par": 20.0}]  # after the period
+    res = compliance.compute(make(people, fits=fits), {"exposure": ex})
+    pg = res.protector_groups.set_index("group").loc["G1"]
+    assert pg["n_with_protector"] == 2 and pg["n_fit_tested"] == 1
+    assert res.summary["protector_share"] == 0.5 and res.summary["fit_test_share"] == 0.25
+    assert sorted(res.actions.loc[res.actions["kind"].eq("protector"), "subject"]) == ["E3", "E4"]
+
+
+def test_refits_from_hearing_followups() -> None:
+    # 29 CFR 1910.95(g)(8)(ii)(A): refit and retrain after a standard threshold shift
+    fu = pd.DataFrame([
+        {"person_id": "E1", "ear": "L", "kind": "refit", "trigger_date": D("2025-03-01"),
+         "due_date": D("2025-03-22"), "done_date": pd.NaT, "status": "overdue", "clause": ""},
+        {"person_id": "E1", "ear": "L", "kind": "notice", "trigger_date": D("2025-03-01"),
+         "due_date": D("2025-03-22"), "done_date": pd.NaT, "status": "overdue", "clause": "x"}])
+    res = compliance.compute(make(ONE), {"exposure": exposed("2020-01-01"),
+                                         "hearing": SimpleNamespace(audiograms=pd.DataFrame(), followups=fu,
+                                                                    actions=pd.DataFrame(), cases=pd.DataFrame())})
+    assert len(res.refits) == 1
+    assert res.refits["clause"].iloc[0].startswith("29 CFR 1910.95(g)(8)")
+    refit = res.actions[res.actions["kind"].eq("refit")]
+    assert len(refit) == 1 and refit["status"].iloc[0] == "overdue"
+
+
+# ---------------------------------------------------------------------------------------
+# audiometer and booth: 29 CFR 1910.95(h)(5) (i) functional check before each day's use,
+# (ii) acoustic calibration at least annually, (iii) exhaustive calibration at least every
+# two years (procedures in App. E; from memory); booth: App. D Table D-1
+
+
+def _booth(levels: dict[int, float], date: str = "2025-01-02", result: str = "pass") -> dict:
+    return {"audiometer_id": "A1", "date": date, "check": "booth", "result": result,
+            **{f"ob_{f}": v for f, v in levels.items()}}
+
+
+LIMITS = {500: 40.0, 1000: 40.0, 2000: 47.0, 4000: 57.0, 8000: 62.0}  # 29 CFR 1910.95 App. D Table D-1
+
+
+def test_table_d1_values() -> None:
+    assert compliance.BOOTH_LIMITS == LIMITS  # 29 CFR 1910.95 App. D Table D-1
+
+
+@pytest.mark.parametrize("band", [500, 1000, 2000, 4000, 8000])
+def test_booth_limits_at_boundary(band: int) -> None:
+    at = compliance.booth_judgement(pd.DataFrame([_booth(LIMITS)]))
+    assert bool(at["booth_pass"].iloc[0])  # at the limit passes (App. D Table D-1 are maxima)
+    over = dict(LIMITS)
+    over[band] = LIMITS[band] + 0.1
+    j = compliance.booth_judgement(pd.DataFrame([_booth(over)]))
+    assert not bool(j["booth_pass"].iloc[0])  # 0.1 dB over fails (App. D Table D-1)
+    assert j["booth_detail"].iloc[0] == f"{band} Hz {LIMITS[band] + 0.1:g} dB > {LIMITS[band]:g} dB"
+
+
+def _checks(test_day: str, acoustic: str, exhaustive: str, functional: bool = True) -> list[dict]:
+    rows = [{"audiometer_id": "A1", "date": acoustic, "check": "acoustic", "result": "pass"},
+            {"audiometer_id": "A1", "date": exhaustive, "check": "exhaustive", "result": "pass"},
+            _booth({500: 30.0, 1000: 30.0, 2000: 35.0, 4000: 40.0, 8000: 45.0}, "2020-01-01")]
+    if functional:
+        rows.append({"audiometer_id": "A1", "date": test_day, "check": "functional", "result": "pass"})
+    return rows
+
+
+def _status(test_day: str, **kw: object) -> pd.Series:
+    prog = make(ONE, audiograms=aud(test_day, meter="A1"), audiometers=_checks(test_day, **kw))
+    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    assert len(res.audiometer_status) == 1
+    return res.audiometer_status.iloc[0], res
+
+
+def test_audiometer_all_checks_valid() -> None:
+    st, res = _status("2025-06-10", acoustic="2024-06-10", exhaustive="2023-06-10")
+    # acoustic exactly 12 months and exhaustive exactly 24 months before: still valid
+    assert bool(st["ok"]) and res.audiograms_flagged.empty
+
+
+def test_acoustic_calibration_older_than_a_year() -> None:
+    st, res = _status("2025-06-10", acoustic="2024-06-09", exhaustive="2024-01-10")
+    assert not bool(st["acoustic_ok"]) and bool(st["exhaustive_ok"])  # 1910.95(h)(5)(ii)
+    assert not bool(st["ok"])
+    assert len(res.audiograms_flagged) == 2  # both ears of the test
+    assert "acoustic" in res.audiograms_flagged["reason"].iloc[0]
+    assert "audiogram conditions" in set(res.actions["kind"])
+
+
+def test_exhaustive_calibration_older_than_two_years() -> None:
+    st, _ = _status("2025-06-10", acoustic="2025-01-10", exhaustive="2023-06-09")
+    assert bool(st["acoustic_ok"]) and not bool(st["exhaustive_ok"])  # 1910.95(h)(5)(iii)
+
+
+def test_functional_check_needed_on_the_test_day() -> None:
+    st, _ = _status("2025-06-10", acoustic="2025-01-10", exhaustive="2025-01-10", functional=False)
+    assert not bool(st["functional_ok"]) and not bool(st["ok"])  # 1910.95(h)(5)(i)
+
+
+def test_failed_check_does_not_count_and_booth_over_limit_flags() -> None:
+    day = "2025-06-10"
+    checks = [{"audiometer_id": "A1", "date": day, "check": "functional", "result": "fail"},
+              {"audiometer_id": "A1", "date": "2025-01-10", "check": "acoustic", "result": "pass"},
+              {"audiometer_id": "A1", "date": "2025-01-10", "check": "exhaustive", "result": "pass"},
+              _booth({500: 41.0, 1000: 30.0, 2000: 30.0, 4000: 30.0, 8000: 30.0}, "2025-01-10")]
+    prog = make(ONE, audiograms=aud(day, meter="A1"), audiometers=checks)
+    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    st = res.audiometer_status.iloc[0]
+    assert not bool(st["functional_ok"])
+    assert not bool(st["booth_ok"])  # 41 dB at 500 Hz > 40 dB, App. D Table D-1
+    assert "500 Hz" in st["reason"]
+    assert "booth" in set(res.actions["kind"])
+
+
+def test_calibration_due_actions() -> None:
+    # 1910.95(h)(5)(ii): acoustic calibration due 12 months after the last one
+    st, res = _status("2025-06-10", acoustic="2024-12-15", exhaustive="2024-01-10")
+    due = res.actions.set_index("kind")
+    assert due.loc["acoustic calibration", "due_date"] == D("2025-12-15")
+    assert due.loc["acoustic calibration", "status"] == "overdue"
+    assert due.loc["exhaustive calibration", "due_date"] == D("2026-01-10")
+    assert due.loc["exhaustive calibration", "status"] == "due_soon"
+
+
+# ---------------------------------------------------------------------------------------
+# the action list
+
+
+def test_action_list_merges_stages_and_sorts() -> None:
+    people = [{"person_id": "E2", "group": "G1"}, {"person_id": "E1", "group": "G1"}]
+    ex_actions = pd.DataFrame([{"subject": "G1", "subject_type": "group", "kind": "stale_group",
+                                "detail": "no measurement for 3 years", "due_date": D("2025-02-01"),
+                                "clause": "29 CFR 1910.95(d)(3)"}])
+    hear_actions = pd.DataFrame([{"person_id": "E2", "kind": "late_notice", "detail": "notice late",
+                                  "due_date": D("2025-02-01"), "clause": "29 CFR 1910.95(g)(8)(i)"}])
+    prot_actions = pd.DataFrame([{"person_id": "E1", "kind": "insufficient_protection",
+                                  "detail": "protected level above target", "due_date": pd.NaT,
+                                  "clause": "29 CFR 1910.95(j)"}])
+    ex = exposure([{"person_id": "E1", "group": "G1", "exposed": True, "first_exposed_date": "2025-01-10"},
+                   {"person_id": "E2", "group": "G1", "exposed": True, "first_exposed_date": "2025-01-05"}],
+                  actions=ex_actions)
+    res = compliance.compute(make(people, fits=[{"person_id": p, "protector_id": "P1", "date": "2025-01-01"}
+                                                for p in ("E1", "E2")]),
+                             {"exposure": ex, "protection": SimpleNamespace(actions=prot_actions),
+                              "hearing": SimpleNamespace(actions=hear_actions)})
+    a = res.actions
+    assert list(a.columns[:7]) == ["subject", "subject_type", "kind", "detail", "due_date", "clause", "source"]
+    due = a["due_date"]
+    assert due.dropna().is_monotonic_increasing  # sorted by due date
+    assert due.isna().sum() == 1 and pd.isna(due.iloc[-1])  # undated last
+    # ties on the due date are ordered by subject
+    same = a[a["due_date"].eq(D("2025-02-01"))]
+    assert same["subject"].tolist() == sorted(same["subject"])
+    assert {"exposure", "protection", "hearing", "compliance"} <= set(a["source"])
+    assert a.loc[a["kind"].eq("late_notice"), "subject_type"].iloc[0] == "person"
+    # enrolment items are due at first exposure: E2 (01-05) before E1 (01-10)
+    enr = a[a["kind"].eq("enrolment")]
+    assert enr["subject"].tolist() == ["E2", "E1"]
+
+
+def test_sort_actions_drops_repeats() -> None:
+    a = pd.DataFrame([
+        {"subject": "B", "subject_type": "person", "kind": "x", "detail": "", "due_date": D("2025-01-02"),
+         "clause": "", "source": "s", "status": "open"},
+        {"subject": "A", "subject_type": "person", "kind": "x", "detail": "", "due_date": D("2025-01-02"),
+         "clause": "", "source": "s", "status": "open"},
+        {"subject": "A", "subject_type": "person", "kind": "x", "detail": "", "due_date": D("2025-01-02"),
+         "clause": "", "source": "t", "status": "open"},
+        {"subject": "C", "subject_type": "person", "kind": "x", "detail": "", "due_date": D("2024-01-02"),
+         "clause": "", "source": "s", "status": "open"}])
+    out = compliance.sort_actions(a)
+    assert out["subject"].tolist() == ["C", "A", "B"]  # common practice: one line per task
+
+
+# ---------------------------------------------------------------------------------------
+# trends and summary
+
+
+def test_trends_per_year_and_changes() -> None:
+    people = [{"person_id": "E1", "group": "G1", "hire_date": "2018-01-01"},
+              {"person_id": "E2", "group": "G1", "hire_date": "2018-01-01"}]
+    ex = exposure([{"person_id": p, "group": "G1", "exposed": True, "first_exposed_date": "2018-01-01"}
+                   for p in ("E1", "E2")],
+                  measurements=[{"person_id": "E1", "group": "G1", "date": "2023-03-01",
+                                 "band_osha-1910.95": "85–90"},
+                                {"person_id": "E1", "group": "G1", "date": "2025-03-01",
+                                 "band_osha-1910.95": "at or above 90"}])
+    audios = [{"person_id": p, "date": d, "ear": "L", "kind": "periodic"}
+              for p, d in (("E1", "2023-05-01"), ("E1", "2024-05-01"), ("E2", "2023-05-01"),
+                           ("E1", "2025-05-01"), ("E2", "2025-06-01"))]
+    hearing = SimpleNamespace(audiograms=pd.DataFrame([
+        {"person_id": "E2", "ear": "L", "date": D("2025-06-01"), "sts": True, "recordable": False},
+        {"person_id": "E1", "ear": "L", "date": D("2024-05-01"), "sts": False, "recordable": False}]),
+        followups=pd.DataFrame(), actions=pd.DataFrame())
+    res = compliance.compute(make(people, audiograms=audios), {"exposure": ex, "hearing": hearing})
+    t = res.trends.set_index("year")
+    assert t.index.tolist() == [2023, 2024, 2025]
+    # 29 CFR 1910.95(g)(6): current = within 12 months of 31 Dec
+    assert t.loc[2023, "current_audiogram_share"] == 1.0
+    assert t.loc[2024, "current_audiogram_share"] == 0.5
+    assert t.loc[2025, "current_audiogram_share"] == 1.0
+    assert t.loc[2025, "sts"] == 1 and t.loc[2024, "sts"] == 0
+    # bands from the measurements up to each year end: E2 takes the group's latest
+    assert t.loc[2024, "band: 85–90"] == 2
+    assert t.loc[2025, "band: at or above 90"] == 2
+    assert "Share with a current audiogram rose from 50 % in 2024 to 100 % in 2025." in res.changes
+    assert res.summary["sts_this_period"] == 1
+    assert res.summary["current_audiogram_share"] == t.loc[2025, "current_audiogram_share"]
+
+
+def test_summary_is_json_with_sorted_keys() -> None:
+    res = compliance.compute(make(ONE, training=[{"person_id": "E1", "date": "2025-01-01"}]),
+                             {"exposure": exposed("2020-01-01")})
+    text = json.dumps(res.summary, sort_keys=False)
+    assert list(res.summary) == sorted(res.summary)
+    back = json.loads(text)
+    for key in ("enrolled", "must_be_enrolled", "not_enrolled", "current_audiogram_share", "trained_share",
+                "sts_this_period", "recordables_this_period", "open_actions", "overdue_audiograms"):
+        assert key in back
+    assert back["open_actions"]["baseline audiogram"] == 1
+
+
+def test_missing_stages_do_not_break() -> None:
+    res = compliance.compute(make(ONE), {})
+    assert res.people["must_enrol"].sum() == 0
+    assert res.notes  # says why nobody is judged exposed
+
+
+def test_eu_rule_set_without_intervals() -> None:
+    # Directive 2003/10/EC fixes no audiogram or training interval (Art. 8, Art. 10)
+    rule = load_rule_set("eu-2003-10")
+    assert rule.audiogram_interval_months is None
+    prog = make(ONE, audiograms=aud("2020-06-01", "baseline"), rules="eu-2003-10")
+    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    assert person(res)["audiogram_status"] == "not_required"
+    assert any("interval" in n for n in res.notes)
