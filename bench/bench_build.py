@@ -8,8 +8,10 @@ then runs, each in its own subprocess so that time and peak memory are its own:
   build    hcpsite build DIR --out OUT
   build2x  hcpsite build DIR2X --out OUT2X
 
-and checks the targets: build <= 2 x floor, time(2x) / time(1x) <= 2.1, peak RSS <= 2 GB,
-every page <= 500 KB (assets/plotly.min.js excluded). Exit status 1 when a target is missed.
+and checks the targets: build <= 2 x floor, time(2x) / time(1x) <= 2.1 (both on CPU time,
+which other load on a shared machine does not inflate; wall times are printed too), peak
+RSS <= 2 GB, every page <= 500 KB (assets/plotly.min.js excluded). Exit status 1 when a
+target is missed.
 
     python bench/bench_build.py --people 20000 --years 15
     python bench/bench_build.py --people 2000 --years 6 --profile /tmp/build.prof
@@ -54,7 +56,8 @@ class Step:
     """One timed subprocess."""
 
     name: str
-    seconds: float
+    seconds: float  # wall time
+    cpu_seconds: float  # user + system time of the process (fair on a shared machine)
     peak_rss_bytes: int
     exit_code: int
 
@@ -67,8 +70,10 @@ def run_step(name: str, cmd: list[str], env: dict[str, str], log_path: Path) -> 
         _, status, usage = os.wait4(proc.pid, 0)
         seconds = time.perf_counter() - t0
     proc.returncode = os.waitstatus_to_exitcode(status)
-    step = Step(name, seconds, int(usage.ru_maxrss) * 1024, proc.returncode)  # ru_maxrss is KiB on Linux
-    log.info("%-8s %8.2f s  %7.0f MiB  exit %d", name, seconds, step.peak_rss_bytes / 2 ** 20, step.exit_code)
+    step = Step(name, seconds, usage.ru_utime + usage.ru_stime, int(usage.ru_maxrss) * 1024,  # KiB on Linux
+                proc.returncode)
+    log.info("%-8s %8.2f s wall %8.2f s CPU %7.0f MiB  exit %d", name, seconds, step.cpu_seconds,
+             step.peak_rss_bytes / 2 ** 20, step.exit_code)
     return step
 
 
@@ -169,13 +174,19 @@ def main(argv: list[str] | None = None) -> int:
         targets = {}
         targets["steps exit 0 (check may exit 1 on warnings)"] = all(
             s.exit_code == 0 or (s.name == "check" and s.exit_code == 1) for s in steps)
-        over_floor = by["build"].seconds / max(by["floor"].seconds, 1e-9)
-        result["build_over_floor"] = over_floor
-        targets[f"build <= {MAX_BUILD_OVER_FLOOR:g} x floor ({over_floor:.2f})"] = over_floor <= MAX_BUILD_OVER_FLOOR
+        # ratios are judged on CPU time, which other load on a shared machine does not inflate;
+        # the wall-time ratios are printed beside them
+        over_floor = by["build"].cpu_seconds / max(by["floor"].cpu_seconds, 1e-9)
+        wall_over_floor = by["build"].seconds / max(by["floor"].seconds, 1e-9)
+        result["build_over_floor"] = {"cpu": over_floor, "wall": wall_over_floor}
+        targets[f"build <= {MAX_BUILD_OVER_FLOOR:g} x floor (CPU {over_floor:.2f}, wall {wall_over_floor:.2f})"] = \
+            over_floor <= MAX_BUILD_OVER_FLOOR
         if "build2x" in by:
-            scaling = by["build2x"].seconds / max(by["build"].seconds, 1e-9)
-            result["scaling_2x"] = scaling
-            targets[f"time(2x)/time(1x) <= {MAX_SCALING_2X:g} ({scaling:.2f})"] = scaling <= MAX_SCALING_2X
+            scaling = by["build2x"].cpu_seconds / max(by["build"].cpu_seconds, 1e-9)
+            wall_scaling = by["build2x"].seconds / max(by["build"].seconds, 1e-9)
+            result["scaling_2x"] = {"cpu": scaling, "wall": wall_scaling}
+            targets[f"time(2x)/time(1x) <= {MAX_SCALING_2X:g} (CPU {scaling:.2f}, wall {wall_scaling:.2f})"] = \
+                scaling <= MAX_SCALING_2X
         peak = max(s.peak_rss_bytes for s in steps)
         targets[f"peak RSS <= 2 GB ({peak / 2 ** 20:.0f} MiB)"] = peak <= MAX_RSS_BYTES
         targets[f"every page <= 500 KB ({len(oversized)} over)"] = not oversized
@@ -184,9 +195,10 @@ def main(argv: list[str] | None = None) -> int:
         print(f"\nhcpsite benchmark: {args.people} people, {args.years} years, seed {args.seed}, "
               f"{result['cpus']} CPUs; inputs {result['inputs_1x']['files']} files, "
               f"{result['inputs_1x']['bytes'] / 2 ** 20:.1f} MiB")
-        print("\n| step | seconds | peak RSS (MiB) | exit |\n| --- | ---: | ---: | ---: |")
+        print("\n| step | wall s | CPU s | peak RSS (MiB) | exit |\n| --- | ---: | ---: | ---: | ---: |")
         for s in steps:
-            print(f"| {s.name} | {s.seconds:.2f} | {s.peak_rss_bytes / 2 ** 20:.0f} | {s.exit_code} |")
+            print(f"| {s.name} | {s.seconds:.2f} | {s.cpu_seconds:.2f} | {s.peak_rss_bytes / 2 ** 20:.0f} "
+                  f"| {s.exit_code} |")
         print(f"\nsite: {result['site_pages']} pages, {result['site_bytes'] / 2 ** 20:.1f} MiB; largest files "
               f"(plotly.min.js excluded): " + ", ".join(f"{n} {b / 1024:.0f} KB" for n, b in result["largest"]))
         if oversized:

@@ -41,6 +41,18 @@ EXHAUSTIVE_MONTHS = 24
 #: Baseline limit with a mobile test van, months (29 CFR 1910.95(g)(5)(ii)).
 MOBILE_VAN_MONTHS = 12
 
+#: Constants of this stage for the methods page: (name, value, unit, source).
+PARAMETERS: list[tuple[str, Any, str, str]] = [
+    ("due soon: days ahead of the as-of date", DUE_SOON_DAYS, "days", "our choice"),
+    ("exit audiogram window before the leave date", EXIT_WINDOW_DAYS, "days", "common practice"),
+    ("baseline limit with a mobile test van", MOBILE_VAN_MONTHS, "months", "29 CFR 1910.95(g)(5)(ii)"),
+    ("acoustic calibration interval", ACOUSTIC_MONTHS, "months", "29 CFR 1910.95(h)(5)(ii), App. E"),
+    ("exhaustive calibration interval", EXHAUSTIVE_MONTHS, "months", "29 CFR 1910.95(h)(5)(iii), App. E"),
+    *[(f"booth maximum at {f} Hz", v, "dB", "29 CFR 1910.95 App. D, Table D-1") for f, v in BOOTH_LIMITS.items()],
+    ("baseline, annual audiogram and training intervals", "rule set", "months",
+     "baseline_months, audiogram_interval_months, training_interval_months of the rule set"),
+]
+
 ACTION_COLUMNS = ["subject", "subject_type", "kind", "detail", "due_date", "clause", "source", "status"]
 STATUS_COLUMNS = ["audiometer_id", "date", "functional_ok", "acoustic_ok", "exhaustive_ok", "booth_ok",
                   "ok", "reason"]
@@ -103,6 +115,9 @@ class ComplianceResult:
     people: pd.DataFrame
     #: [person_id, group, mismatch, detail]; mismatch "exposed_no_records" or "records_not_exposed"
     enrolment: pd.DataFrame
+    #: per group: [group, n_in_scope, n_must_enrol, n_enrolled, n_exposed_no_records,
+    #: n_records_not_exposed]
+    enrolment_groups: pd.DataFrame
     #: overdue and due-soon items: [person_id, group, kind, due_date, status, clause]
     due: pd.DataFrame
     #: [group, n_required, n_trained, completion]
@@ -328,7 +343,9 @@ def person_status(inp: _Inputs, as_of: pd.Timestamp, start: pd.Timestamp) -> pd.
     has_tr = s["last_training"].notna()
     s["has_records"] = has_aud | has_tr
     s["enrolled"] = s["has_records"] | s["group_exposed"]
-    s["in_programme"] = s["must_enrol"] | s["enrolled"]
+    # training and protectors are owed to everyone the programme covers: people judged exposed
+    # and the members of exposed groups; records alone (information only) create no duties
+    s["in_programme"] = s["must_enrol"] | s["group_exposed"]
 
     # baseline: within baseline_months of first exposure (29 CFR 1910.95(g)(5))
     s["baseline_due"] = add_months(s["first_exposed_date"], inp.baseline_months) \
@@ -826,6 +843,12 @@ def compute(programme: Programme, results: dict) -> ComplianceResult:
             detail="has audiometry or training records but is not judged exposed (information only)"),
     ], ignore_index=True).sort_values(["mismatch", "person_id"], kind="mergesort").reset_index(drop=True)
 
+    eg = s.assign(_nr=s["must_enrol"] & ~s["has_records"], _rn=s["has_records"] & ~s["must_enrol"]).groupby(
+        "group", sort=True).agg(n_in_scope=("person_id", "size"), n_must_enrol=("must_enrol", "sum"),
+                                n_enrolled=("enrolled", "sum"), n_exposed_no_records=("_nr", "sum"),
+                                n_records_not_exposed=("_rn", "sum")).reset_index()
+    eg[eg.columns[1:]] = eg[eg.columns[1:]].astype(int)
+
     due_parts = []
     for kind, status_col, due_col, ckey in (
             ("baseline", "baseline_status", "baseline_due", "baseline"),
@@ -863,11 +886,22 @@ def compute(programme: Programme, results: dict) -> ComplianceResult:
     else:
         refits = _empty(ref_cols)
     open_refits = refits[refits["done_date"].isna()] if not refits.empty else refits
+    if not open_refits.empty:  # one item per person and shift, both ears together
+        open_refits = open_refits.assign(
+            ear=open_refits["ear"].astype(str).map({"L": "left ear", "R": "right ear"}).fillna("ear"),
+            trigger_date=_as_dates(open_refits["trigger_date"]), due_date=_as_dates(open_refits["due_date"]))
+        open_refits = open_refits.groupby(["person_id", "trigger_date", "due_date"], as_index=False, sort=True,
+                                          dropna=False).agg(ear=("ear", lambda e: " and ".join(sorted(set(e)))),
+                                                            clause=("clause", "first"))
     refit_actions = pd.DataFrame({
         "subject": open_refits["person_id"], "subject_type": "person", "kind": "refit",
-        "detail": "refit and retrain protector use after a shift (ear " + open_refits["ear"].astype(str) + ")",
+        "detail": "refit the protector and retrain its use after the shift of "
+                  + _as_dates(open_refits["trigger_date"]).dt.strftime("%Y-%m-%d").fillna("unknown date")
+                  + " (" + open_refits["ear"] + "); no protector fitting on record since",
         "due_date": open_refits["due_date"], "clause": open_refits["clause"], "source": "hearing",
-        "status": np.where(pd.to_datetime(open_refits["due_date"], errors="coerce") < as_of, "overdue", "open"),
+        "status": _classify(_as_dates(open_refits["due_date"]), as_of,
+                            pd.Series(True, index=open_refits.index), pd.Series(False, index=open_refits.index))
+        .replace("scheduled", "open").to_numpy(),
     }).reindex(columns=ACTION_COLUMNS) if not open_refits.empty else _empty(ACTION_COLUMNS)
 
     status, flagged, meters = audiometer_checks(programme, rule)
@@ -907,6 +941,6 @@ def compute(programme: Programme, results: dict) -> ComplianceResult:
     summary = dict(sorted(summary.items()))
     log.info("compliance: %d people in scope, %d actions", len(s), len(actions))
     return ComplianceResult(
-        as_of=as_of, rules=rule.id, people=s, enrolment=enrol, due=due, training_groups=tg,
+        as_of=as_of, rules=rule.id, people=s, enrolment=enrol, enrolment_groups=eg, due=due, training_groups=tg,
         protector_groups=pg, refits=refits, audiometer_status=status, audiograms_flagged=flagged,
         audiometers=meters, actions=actions, trends=trends, changes=changes, summary=summary, notes=notes)

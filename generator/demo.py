@@ -17,6 +17,7 @@ workplace and say nothing about anyone's hearing.
 """
 from __future__ import annotations
 
+import functools
 import json
 import logging
 import shutil
@@ -220,36 +221,145 @@ def _twa_from_dose(dose: np.ndarray) -> np.ndarray:
         return np.where(d > 0, 16.61 * np.log10(d / 100.0) + 90.0, np.nan)
 
 
-def _write_csv(df: pd.DataFrame, path: Path) -> None:
-    """Write one CSV with LF line ends and the stable float formatting of rounded values."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    df.to_csv(path, index=False, lineterminator="\n")
+_SD = np.dtypes.StringDType()
+#: Columns holding codes, dates and choices only (never quoted).
+_CODE_COLUMNS = frozenset({"person_id", "date", "ear", "kind", "measurement_id", "start", "group",
+                           "audiometer_id", "check", "result", "protector_id", "decision", "about",
+                           "hire_date", "birth_date", "leave_date", "audiogram_date", "sex",
+                           "instrument_class"})
+#: Decimals written for numeric columns (default 1: levels are kept to 0.1 dB).
+_DECIMALS = {"duration_h": 2, "task_hours": 2, "sample_minutes": 0, "par": 0}
 
 
-def _int_str(values: np.ndarray) -> np.ndarray:
-    """Return whole numbers as text, blank where missing."""
+def _num_text(values: Any, decimals: int = 1) -> np.ndarray:
+    """Return numbers as fixed-decimal text (blank where missing), vectorised."""
     v = np.asarray(values, dtype=float)
-    out = np.full(v.shape, "", dtype=object)
     ok = np.isfinite(v)
-    out[ok] = v[ok].astype(np.int64).astype(str)
-    return out
+    scale = 10 ** decimals
+    t = np.round(np.where(ok, v, 0.0) * scale).astype(np.int64)
+    if not len(t):
+        return np.zeros(0, dtype=_SD)
+    lo, hi = int(t.min()), int(t.max())
+    if hi - lo <= 200_000:
+        # small range (levels, hours, hearing levels): format each distinct value once
+        table = np.array([_fmt_scaled(i, decimals) for i in range(lo, hi + 1)], dtype=_SD)
+        txt = table[t - lo]
+    else:
+        a = np.abs(t)
+        txt = np.strings.add(np.where(t < 0, "-", "").astype(_SD), (a // scale).astype(_SD))
+        if decimals:
+            frac = np.strings.zfill((a % scale).astype(_SD), decimals)
+            txt = np.strings.add(np.strings.add(txt, "."), frac)
+    return np.where(ok, txt, np.array("", dtype=_SD))
+
+
+def _fmt_scaled(i: int, decimals: int) -> str:
+    """Return the integer *i* / 10**decimals as fixed-decimal text."""
+    if not decimals:
+        return str(i)
+    sign = "-" if i < 0 else ""
+    a = abs(i)
+    return f"{sign}{a // 10 ** decimals}.{a % 10 ** decimals:0{decimals}d}"
+
+
+def _int_str(values: Any) -> np.ndarray:
+    """Return whole numbers as text, blank where missing."""
+    return _num_text(values, 0)
+
+
+def _text_column(values: Any, name: str) -> np.ndarray:
+    """Return one column as CSV field text (numbers formatted, text quoted where needed)."""
+    arr = np.asarray(values)
+    if arr.dtype.kind in "fiub":
+        return _num_text(arr.astype(float), _DECIMALS.get(name, 1))
+    txt = arr.astype(_SD)
+    if name in _CODE_COLUMNS or name.startswith("hl_"):
+        return txt
+    need = ((np.strings.find(txt, ",") >= 0) | (np.strings.find(txt, '"') >= 0)
+            | (np.strings.find(txt, "\n") >= 0))
+    if need.any():
+        quoted = np.strings.add(np.strings.add('"', np.strings.replace(txt[need], '"', '""')), '"')
+        txt = txt.copy()
+        txt[need] = quoted
+    return txt
+
+
+def _write_csv(df: pd.DataFrame, path: Path) -> None:
+    """Write one CSV: header, LF line ends, fixed decimals per column (vectorised text join)."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    cols = list(df.columns)
+    body = ""
+    if len(df):
+        line = _text_column(df[cols[0]].to_numpy(), cols[0])
+        for c in cols[1:]:
+            line = np.strings.add(np.strings.add(line, ","), _text_column(df[c].to_numpy(), c))
+        body = "\n".join(line.tolist()) + "\n"
+    with open(path, "w", encoding="utf-8", newline="\n") as fh:
+        fh.write(",".join(cols) + "\n" + body)
+
+
+def _write_logs(logs: pd.DataFrame, folder: Path) -> None:
+    """Write one time-history CSV per measurement (rows grouped by measurement_id, in time order)."""
+    folder.mkdir(parents=True, exist_ok=True)
+    if not len(logs):
+        return
+    mids = logs["measurement_id"].to_numpy()
+    lines = np.strings.add(np.strings.add(_text_column(logs["start"].to_numpy(), "start"), ","),
+                           _text_column(logs["laeq"].to_numpy(), "laeq")).tolist()
+    cut = np.flatnonzero(np.concatenate([[True], mids[1:] != mids[:-1], [True]]))
+    for a, b in zip(cut[:-1], cut[1:]):  # one file per logged measurement
+        with open(folder / f"{mids[a]}.csv", "w", encoding="utf-8", newline="\n") as fh:
+            fh.write("start,laeq\n" + "\n".join(lines[a:b]) + "\n")
 
 
 # ---------------------------------------------------------------------------------------
 # the hearing model (pure, vectorised; tested on its own)
 
 
-def age_effect(age: np.ndarray, freq: np.ndarray, sex: np.ndarray, z: np.ndarray) -> np.ndarray:
+#: Age grid (years) of the precomputed ISO 7029 tables; linear interpolation between points.
+_AGE_STEP = 0.1
+_AGE_GRID = np.round(np.arange(18.0, 80.0 + _AGE_STEP / 2, _AGE_STEP), 6)
+
+
+@functools.lru_cache(maxsize=None)
+def _iso7029_tables() -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Return (freqs, median, upper spread growth, lower spread growth); tables [sex M/F, age, freq]."""
+    freqs = np.array(norms.ISO7029_FREQS, dtype=float)
+    md = np.empty((2, len(_AGE_GRID), len(freqs)))
+    su = np.empty_like(md)
+    sl = np.empty_like(md)
+    for i, sx in enumerate(("M", "F")):  # two sexes
+        a = _AGE_GRID[:, None]
+        md[i] = norms.iso7029_median(a, freqs[None, :], sx)
+        # spread growth from age 18: the young-adult spread is the separate baseline term
+        su[i] = norms.iso7029_spread(a, freqs[None, :], sx, "u") - norms.iso7029_spread(18.0, freqs, sx, "u")
+        sl[i] = norms.iso7029_spread(a, freqs[None, :], sx, "l") - norms.iso7029_spread(18.0, freqs, sx, "l")
+    return freqs, md, su, sl
+
+
+def age_effect(age: Any, freq: Any, sex: Any, z: Any) -> np.ndarray:
     """Return the ISO 7029:2017 age part (dB) re age 18 at person fractile *z* (z > 0 = worse).
 
-    The median is ISO 7029's; a person at fractile z sits z spreads from it, counted from
-    the spread at age 18 (the young-adult spread is the separate baseline term), never
-    below 0 dB.
+    The median is ISO 7029's; a person at fractile z sits z spreads from it, counting only
+    the growth of the spread since age 18 (the young-adult spread is the separate baseline
+    term), never below 0 dB. Blank or unknown sex uses the male model. Values come from
+    tables of :mod:`generator.norms` on a 0.1-year grid, interpolated linearly.
     """
-    md = norms.iso7029_median(age, freq, sex)
-    su = norms.iso7029_spread(age, freq, sex, "u") - norms.iso7029_spread(18.0, freq, sex, "u")
-    sl = norms.iso7029_spread(age, freq, sex, "l") - norms.iso7029_spread(18.0, freq, sex, "l")
-    return np.maximum(md + np.where(z >= 0, z * su, z * sl), 0.0)
+    freqs, md_t, su_t, sl_t = _iso7029_tables()
+    age_a, freq_a, sex_a, z_a = np.broadcast_arrays(np.asarray(age, dtype=float), np.asarray(freq, dtype=float),
+                                                    np.asarray(sex, dtype=object), np.asarray(z, dtype=float))
+    fi = np.searchsorted(freqs, freq_a)
+    x = (np.clip(age_a, 18.0, 80.0) - 18.0) / _AGE_STEP
+    i0 = np.clip(np.floor(x).astype(np.int64), 0, len(_AGE_GRID) - 2)
+    w = x - i0
+    si = (sex_a == "F").astype(np.int64)
+
+    def look(t: np.ndarray) -> np.ndarray:
+        return t[si, i0, fi] * (1.0 - w) + t[si, i0 + 1, fi] * w
+
+    md = look(md_t)
+    grow = np.where(z_a >= 0, z_a * look(su_t), z_a * look(sl_t))
+    return np.maximum(md + grow, 0.0)
 
 
 def noise_shift(freq: np.ndarray, lex_8h: np.ndarray, years: np.ndarray, q: np.ndarray) -> np.ndarray:
@@ -625,7 +735,7 @@ def _audiogram_frame(rng: np.random.Generator, ppl: pd.DataFrame, ev: pd.DataFra
     """Return audiograms.csv rows (one per test and ear) with NR and a few untested cells."""
     n = len(ev)
     flat = hl.reshape(n * 2, len(AUDIO_FREQS)).copy()  # rows: test0 L, test0 R, test1 L, ...
-    text = np.empty(flat.shape, dtype=object)
+    text = np.empty(flat.shape, dtype=_SD)
     for j in range(len(AUDIO_FREQS)):  # seven columns
         text[:, j] = _int_str(flat[:, j])
     # no response at 8000 Hz for the highest thresholds (oldest and most exposed)
@@ -689,8 +799,8 @@ def _zone_of(x: np.ndarray, y: np.ndarray) -> np.ndarray:
 
 
 def _noise(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, headcount: int
-           ) -> tuple[pd.DataFrame, dict[str, pd.DataFrame]]:
-    """Return noise.csv rows and the logged time histories (measurement_id -> DataFrame)."""
+           ) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Return noise.csv rows and the logged time histories (measurement_id, start, laeq)."""
     years = np.arange(int(_year_of(np.array([start]))[0]), int(_year_of(np.array([end]))[0]) + 1)
     mid_year = int(years[len(years) // 2])
     hire = ppl["hire"].to_numpy()
@@ -783,7 +893,7 @@ def _noise(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, he
                                & np.array([gm.enrolled for gm in GROUPS])[noise["gi"].to_numpy()]
                                & (noise["duration_h"].to_numpy() >= 4.0))
     n_logs = min(len(pers_rows), max(20, int(round(0.05 * n))))
-    logs: dict[str, pd.DataFrame] = {}
+    logs = pd.DataFrame({"measurement_id": [], "start": [], "laeq": []})
     if n_logs:
         keys = rng.random(len(pers_rows))
         lrows = np.sort(pers_rows[np.argsort(keys, kind="stable")[:n_logs]])
@@ -815,11 +925,7 @@ def _noise(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, he
         t0 = (noise["date"].to_numpy()[lrows].astype(np.int64) * 86400 + (start_h * 3600).astype(np.int64))
         stamps = np.datetime_as_string((np.repeat(t0, n_min) + offs * 60).astype("datetime64[s]"), unit="s")
         mids = noise["measurement_id"].to_numpy()[lrows]
-        bounds = np.concatenate([[0], np.cumsum(n_min)])
-        for i in range(n_logs):  # one file per logged measurement
-            sl = slice(bounds[i], bounds[i + 1])
-            k = keep[sl]
-            logs[mids[i]] = pd.DataFrame({"start": stamps[sl][k], "laeq": lv[sl][k]})
+        logs = pd.DataFrame({"measurement_id": mids[lid][keep], "start": stamps[keep], "laeq": lv[keep]})
 
     # --- dosimeter-reported OSHA dose/TWA on some other personal runs
     rep = ((noise["kind"].to_numpy() == "personal") & noise["osha_dose_pct"].isna().to_numpy()
@@ -1192,8 +1298,7 @@ def write_demo(folder: Path | str, people: int = 250, years: int = 6, seed: int 
     _write_csv(checks, data / "audiometers.csv")
     log_dir = data / "noise_logs"
     log_dir.mkdir(parents=True, exist_ok=True)
-    for mid in sorted(logs):  # one file per logged measurement
-        _write_csv(logs[mid], log_dir / f"{mid}.csv")
+    _write_logs(logs, log_dir)
 
     # hours worked in the review period: each person's days employed in it
     hire = ppl["hire"].to_numpy()
@@ -1205,8 +1310,8 @@ def write_demo(folder: Path | str, people: int = 250, years: int = 6, seed: int 
     _pages(folder, end_year)
 
     counts = {
-        "people": len(people_df), "groups": len(groups_df), "noise": len(noise), "noise_logs": len(logs),
-        "noise_log_rows": int(sum(len(v) for v in logs.values())), "tasks": len(tasks),
+        "people": len(people_df), "groups": len(groups_df), "noise": len(noise), "noise_logs": int(logs["measurement_id"].nunique()),
+        "noise_log_rows": len(logs), "tasks": len(tasks),
         "audiograms": len(audiograms), "reviews": len(reviews_df), "notices": len(notices_df),
         "training": len(training), "protectors": len(protectors_df), "protector_fits": len(fits),
         "audiometers": len(checks), "hours_worked": hours,

@@ -22,7 +22,8 @@ Choices (also listed in :data:`PARAMETERS` for the methods page):
   longer than the shift counts its real length. ``shift_twa_<id>`` projects the dose the
   same way (D·Te/T); people and groups are judged on these shift figures.
 * a group's figures use its personal measurements dated within ``stale_after_years`` of its
-  latest one (the current survey) and not after the end of the review period.
+  latest one (the current survey) and not after the end of the review period; a person's
+  own figure likewise uses their measurements within that interval of their latest one.
 """
 from __future__ import annotations
 
@@ -276,12 +277,20 @@ def band_names(rule: RuleSet) -> list[str]:
     return out
 
 
-def band_of(values: Any, rule: RuleSet) -> np.ndarray:
-    """Return the band label of each level for *rule* ("" where the level is unknown)."""
+def band_of(values: Any, rule: RuleSet, limit_values: Any = None) -> np.ndarray:
+    """Return the band label of each level for *rule* ("" where the level is unknown).
+
+    With *limit_values* (the level of the limit dose, e.g. OSHA's PEL dose counting only
+    levels >= 90 dB(A)), the top band needs that level to reach the limit value too.
+    """
     v = np.asarray(values, dtype=float)
     edges = np.asarray(band_edges(rule), dtype=float)
     names = np.asarray(band_names(rule), dtype=object)
     idx = np.searchsorted(edges, np.where(np.isnan(v), 0.0, v), side="right")
+    if limit_values is not None and rule.limit_value is not None and len(edges):
+        lim = np.nan_to_num(np.asarray(limit_values, dtype=float), nan=-np.inf)
+        top = len(edges)
+        idx = np.where((idx == top) & (lim < rule.limit_value), top - 1, idx)
     return np.where(np.isnan(v), "", names[idx]).astype(object)
 
 
@@ -344,6 +353,12 @@ def _spec(rule: RuleSet, which: str | None = None) -> _DoseSpec:
         thr = rule.limit_dose_threshold
     return _DoseSpec(rule.criterion_level, rule.criterion_hours, rule.exchange_rate,
                      thr if thr and thr > 0 else None, rule.upper_limit)
+
+
+def _lookup(keys: pd.Series, values: pd.Series) -> pd.Series:
+    """Return values[key] for each key (NaN/NaT where missing), keeping the values' dtype."""
+    values = values[~values.index.duplicated()]
+    return pd.Series(values.reindex(keys.to_numpy()).to_numpy(), index=keys.index)
 
 
 def _period_end(programme: Programme) -> pd.Timestamp:
@@ -546,7 +561,14 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
         judged = m["lex_8h"].to_numpy() if rule.metric == "lex" else \
             np.where(sd > 0, m[f"shift_twa_{rid}"].to_numpy(), -np.inf)
         m[f"level_{rid}"] = judged
-        m[f"band_{rid}"] = band_of(np.where(np.isnan(laeq), np.nan, judged), rule)
+        limit_level = None
+        if rule.limit_dose_threshold is not None and rule.metric == "twa":
+            spec_l = _spec(rule, "limit")
+            dl = dose(spec_l, reported=False)
+            m[f"limit_dose_{rid}"] = dl
+            limit_level = np.where(dl > 0, twa(dl * proj, spec_l), -np.inf)
+            m[f"limit_twa_{rid}"] = np.where(dl > 0, limit_level, np.nan)
+        m[f"band_{rid}"] = band_of(np.where(np.isnan(laeq), np.nan, judged), rule, limit_level)
         m[f"peak_flag_{rid}"] = peak_flag(m["lcpeak"].to_numpy(float), rule)
     for ul, ids in sorted(upper_seen.items()):
         for mid in sorted(ids):
@@ -558,7 +580,7 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
                                    "duration_reported_h", "laeq_octaves", "lceq_octaves", "instrument_class",
                                    "_row"]
     rest = [c for c in m.columns if c not in front and (c.startswith(("dose_", "twa_", "shift_twa_", "band_",
-                                                                      "peak_flag_", "level_")))]
+                                                                      "peak_flag_", "level_", "limit_")))]
     out = m[front + rest].copy()
     out["date"] = pd.to_datetime(out["date"])
     return out.sort_values(["date", "measurement_id"], kind="stable").reset_index(drop=True), logs
@@ -642,7 +664,8 @@ def compute(programme: Programme, results: dict | None = None) -> ExposureResult
         d = lv.steady_dose_pct(cur["laeq"].to_numpy(float), cur["duration_h"].to_numpy(float),
                                spec.criterion_level, spec.criterion_hours, spec.exchange_rate,
                                None if spec.exchange_rate == 3.0 else spec.threshold)
-        src = f"dose_{rule.id}" if which is None and f"dose_{rule.id}" in cur else None
+        src = f"dose_{rule.id}" if which is None else f"limit_dose_{rule.id}"
+        src = src if src in cur else None
         if src is not None:
             d = cur[src].to_numpy(float)
         jd = _group_dose(cur.assign(**{col: d}), "group", col).reindex(g.index).to_numpy(float)
@@ -668,10 +691,14 @@ def compute(programme: Programme, results: dict | None = None) -> ExposureResult
     U = g["u_expanded"].to_numpy(float)
     for rid, rule in rules.items():
         val = g["lex_8h"].to_numpy(float) if rule.metric == "lex" else group_twa(rule)
+        lim = None
+        if rule.limit_dose_threshold is not None and rule.metric == "twa":
+            lim = group_twa(rule, "limit")
+            g[f"limit_twa_{rid}"] = np.where(np.isneginf(lim), np.nan, lim)
         g[f"level_{rid}"] = val
         g[f"level_upper_{rid}"] = val + U
-        g[f"band_{rid}"] = band_of(val, rule)
-        g[f"band_upper_{rid}"] = band_of(val + U, rule)
+        g[f"band_{rid}"] = band_of(val, rule, lim)
+        g[f"band_upper_{rid}"] = band_of(val + U, rule, None if lim is None else lim + U)
     for c in ("osha_twa", "niosh_twa"):
         g[c] = np.where(np.isneginf(g[c]), np.nan, g[c])
     g["band"] = g[f"band_upper_{head_id}"] if head.judge_with_uncertainty else g[f"band_{head_id}"]
@@ -680,7 +707,7 @@ def compute(programme: Programme, results: dict | None = None) -> ExposureResult
     hv = g[f"level_{head_id}"].to_numpy(float)
     judged = np.where(head.judge_with_uncertainty & ~np.isnan(U), hv + np.nan_to_num(U), hv)
     g["exposed"] = judged >= action_value(head)
-    g["max_lcpeak"] = m[m["group"] != ""].groupby("group")["lcpeak"].max().reindex(g.index)
+    g["max_lcpeak"] = m[(m["group"] != "") & (m["date"] <= end)].groupby("group")["lcpeak"].max().reindex(g.index)
     dates = [personal[["group", "date"]]]
     if len(tasks_in) and "date" in tasks_in:
         dates.append(tasks_in[["group", "date"]])
@@ -691,13 +718,13 @@ def compute(programme: Programme, results: dict | None = None) -> ExposureResult
     for c in [c for c in g.columns if c.startswith("level_")]:
         g[c] = np.where(np.isneginf(g[c].to_numpy(float)), np.nan, g[c])
     g = g.reset_index()
-    extra = [c for c in g.columns if c.startswith(("band_", "level_"))]
+    extra = [c for c in g.columns if c.startswith(("band_", "level_", "limit_"))]
     g = g[GROUP_COLUMNS + ["shift_hours", "days_per_week"] + extra]
 
     _sampling_findings(g, per_task, noise_path, tasks_path, findings)
 
     # ---- people
-    pp = _people(people, m, g, head, end)
+    pp = _people(people, m, g, head, end, cfg.exposure.stale_after_years)
     weekly = _weekly(m, groups, end)
     actions = _actions(g, head, cfg, end, m)
     nmap = _noise_map(m, cfg.exposure.map_grid, end)
@@ -750,11 +777,14 @@ def _sampling_findings(g: pd.DataFrame, per_task: pd.DataFrame, noise_path: str,
 
 
 def _people(people: pd.DataFrame, m: pd.DataFrame, g: pd.DataFrame, head: RuleSet,
-            end: pd.Timestamp) -> pd.DataFrame:
+            end: pd.Timestamp, years: float) -> pd.DataFrame:
     """Return one row per person: personal (or group) exposure, exposed, first exposure date."""
     hid = head.id
     act = action_value(head)
-    pm = m[(m["kind"] == "personal") & (m["person_id"] != "") & (m["date"] <= end) & m["laeq"].notna()].copy()
+    every = m[(m["kind"] == "personal") & (m["person_id"] != "") & (m["date"] <= end) & m["laeq"].notna()]
+    # a person's own figure uses their measurements within the survey interval of their latest one
+    last = every.groupby("person_id")["date"].transform("max")
+    pm = every[every["date"] >= last - pd.to_timedelta(years * 365.25, unit="D")].copy()
     pm["_e"] = lv.energy(pm["lex_8h"].to_numpy(float))
     pm["_sd"] = pm[f"dose_{hid}"] * pm["te_h"] / pm["duration_h"]
     agg = pm.groupby("person_id").agg(_e=("_e", "mean"), _sd=("_sd", "mean"))
@@ -772,9 +802,9 @@ def _people(people: pd.DataFrame, m: pd.DataFrame, g: pd.DataFrame, head: RuleSe
         own = np.where(sd > 0, lv.twa_from_dose(sd, head.criterion_level, head.exchange_rate),
                        np.where(sd == 0, -np.inf, np.nan))
     gi = g.set_index("group")
-    glex = p["group"].map(gi["lex_8h"]).to_numpy(float)
-    glev = p["group"].map(gi[f"level_{hid}"]).to_numpy(float)
-    gU = p["group"].map(gi["u_expanded"]).to_numpy(float)
+    glex = _lookup(p["group"], gi["lex_8h"]).to_numpy(float)
+    glev = _lookup(p["group"], gi[f"level_{hid}"]).to_numpy(float)
+    gU = _lookup(p["group"], gi["u_expanded"]).to_numpy(float)
     has_own = ~np.isnan(own_lex)
     has_grp = ~np.isnan(glev)
     p["lex_8h"] = np.where(has_own, own_lex, glex)
@@ -784,12 +814,12 @@ def _people(people: pd.DataFrame, m: pd.DataFrame, g: pd.DataFrame, head: RuleSe
     judged = np.where(head.judge_with_uncertainty & ~np.isnan(gU), val + np.nan_to_num(gU), val)
     p["exposed"] = np.where(np.isnan(judged), False, judged >= act)
     # first exposure: first personal measurement at/above, else first group measurement at/above
-    over = pm[pm[f"level_{hid}"] >= act]
+    over = every[every[f"level_{hid}"] >= act]
     first_own = over.groupby("person_id")["date"].min()
     gm = m[(m["kind"] == "personal") & (m["group"] != "") & (m[f"level_{hid}"] >= act) & (m["date"] <= end)]
     first_grp = gm.groupby("group")["date"].min()
-    fo = pd.to_datetime(p["person_id"].map(first_own))
-    fg = pd.to_datetime(p["group"].map(first_grp))
+    fo = pd.to_datetime(_lookup(p["person_id"], first_own.astype("datetime64[ns]")))
+    fg = pd.to_datetime(_lookup(p["group"], first_grp.astype("datetime64[ns]")))
     first = fo.where(fo.notna(), fg)
     first = first.where(~(first.notna() & p["_hire"].notna() & (first < p["_hire"])), p["_hire"])
     p["first_exposed_date"] = pd.to_datetime(first)

@@ -20,7 +20,7 @@ LEVELS = (ERROR, WARNING)
 GROUP_SHOWN = 3
 
 
-@dataclass(frozen=True, order=True)
+@dataclass(frozen=True)
 class Finding:
     """One problem in one place of the input."""
 
@@ -31,6 +31,9 @@ class Finding:
     message: str
     #: Problems with the same key are grouped; defaults to the message itself.
     key: str | None = field(default=None, compare=False)
+
+    def __lt__(self, other: "Finding") -> bool:
+        return _sort_key(self) < _sort_key(other)
 
     def format(self) -> str:
         """Return the one-line ``path:row:column: level: message`` form."""

@@ -112,6 +112,10 @@ class HearingResult:
     followups: pd.DataFrame
     #: per group ("all" too) and year: counts, rates, exact CIs, mean 2/3/4 kHz average
     population: pd.DataFrame
+    #: per group ("all" too) over the whole review period (distinct people): [group, n_tested,
+    #: n_sts, n_recordable, sts_rate, sts_ci_low, sts_ci_high, recordable_rate, recordable_ci_low,
+    #: recordable_ci_high]
+    period_groups: pd.DataFrame
     #: per group ("all" too) and year: %Worse-sequential, %Better-or-Worse-sequential
     indicators: pd.DataFrame
     #: observed hearing levels by age band, sex and frequency vs ISO 7029:2017
@@ -125,6 +129,9 @@ class HearingResult:
     #: headline figures (JSON-serialisable, sorted keys)
     summary: dict[str, Any]
     findings: list[Finding] = field(default_factory=list)
+    #: people with a standard threshold shift in force on or before the end of the period
+    #: (29 CFR 1910.95(j)(3) target for the protection stage)
+    sts_people: frozenset[str] = field(default_factory=frozenset)
     #: plain sentences on what could not be judged
     notes: list[str] = field(default_factory=list)
 
@@ -209,33 +216,35 @@ def _lgamma(x: np.ndarray) -> np.ndarray:
     return np.frompyfunc(math.lgamma, 1, 1)(x).astype(float)
 
 
-def _betacf(a: np.ndarray, b: np.ndarray, x: np.ndarray, iters: int = 400) -> np.ndarray:
+def _betacf(a: np.ndarray, b: np.ndarray, x: np.ndarray, iters: int = 2000) -> np.ndarray:
     """Return the continued fraction of the incomplete beta function (modified Lentz)."""
     tiny = 1e-300
+
+    def fix(v: np.ndarray) -> np.ndarray:
+        return np.where(np.abs(v) < tiny, tiny, v)
+
     qab, qap, qam = a + b, a + 1.0, a - 1.0
     c = np.ones_like(x)
-    d = 1.0 - qab * x / qap
-    d = np.where(np.abs(d) < tiny, tiny, d)
-    d = 1.0 / d
+    d = 1.0 / fix(1.0 - qab * x / qap)
     h = d.copy()
+    act = np.arange(len(x))  # elements still iterating
     for m in range(1, iters + 1):
+        aa_, bb_, xx, qb, qp, qm = a[act], b[act], x[act], qab[act], qap[act], qam[act]
+        cc, dd = c[act], d[act]
         m2 = 2.0 * m
-        aa = m * (b - m) * x / ((qam + m2) * (a + m2))
-        d = 1.0 + aa * d
-        d = np.where(np.abs(d) < tiny, tiny, d)
-        c = 1.0 + aa / c
-        c = np.where(np.abs(c) < tiny, tiny, c)
-        d = 1.0 / d
-        h = h * d * c
-        aa = -(a + m) * (qab + m) * x / ((a + m2) * (qap + m2))
-        d = 1.0 + aa * d
-        d = np.where(np.abs(d) < tiny, tiny, d)
-        c = 1.0 + aa / c
-        c = np.where(np.abs(c) < tiny, tiny, c)
-        d = 1.0 / d
-        delta = d * c
-        h = h * delta
-        if np.all(np.abs(delta - 1.0) < 1e-15):
+        num = m * (bb_ - m) * xx / ((qm + m2) * (aa_ + m2))
+        dd = 1.0 / fix(1.0 + num * dd)
+        cc = fix(1.0 + num / cc)
+        hh = h[act] * dd * cc
+        num = -(aa_ + m) * (qb + m) * xx / ((aa_ + m2) * (qp + m2))
+        dd = 1.0 / fix(1.0 + num * dd)
+        cc = fix(1.0 + num / cc)
+        delta = dd * cc
+        h[act] = hh * delta
+        c[act] = cc
+        d[act] = dd
+        act = act[np.abs(delta - 1.0) >= 1e-14]
+        if act.size == 0:
             break
     return h
 
@@ -257,31 +266,33 @@ def betainc_reg(a: Any, b: Any, x: Any) -> np.ndarray:
 
 
 def beta_ppf(q: Any, a: Any, b: Any) -> np.ndarray:
-    """Return the q-quantile of the beta(a, b) distribution (bracketed Newton), vectorised."""
+    """Return the q-quantile of the beta(a, b) distribution (safeguarded Newton), vectorised."""
     q, a, b = (np.asarray(v, dtype=float) for v in np.broadcast_arrays(q, a, b))
+    q0 = q
     lo = np.zeros_like(q)
     hi = np.ones_like(q)
-    for _ in range(8):  # bisection first: a bracket of 1/256
-        mid = 0.5 * (lo + hi)
-        below = betainc_reg(a, b, mid) < q
-        lo = np.where(below, mid, lo)
-        hi = np.where(below, hi, mid)
-    x = 0.5 * (lo + hi)
+    # start from the normal approximation of the beta distribution
+    mean = a / (a + b)
+    sd = np.sqrt(a * b / ((a + b) ** 2 * (a + b + 1.0)))
+    x = np.clip(mean + norms.normal_quantile(np.clip(q, 1e-12, 1 - 1e-12)) * sd, 1e-9, 1 - 1e-9)
     lbeta = _lgamma(a) + _lgamma(b) - _lgamma(a + b)
-    for _ in range(60):
-        err = betainc_reg(a, b, x) - q
-        lo = np.where(err < 0, x, lo)
-        hi = np.where(err < 0, hi, x)
+    act = np.arange(x.size)  # elements still iterating
+    x, lo, hi, q, a, b, lbeta = (v.ravel().copy() for v in (x, lo, hi, q, a, b, lbeta))
+    for _ in range(200):
+        xa, qa, aa, bb = x[act], q[act], a[act], b[act]
+        err = betainc_reg(aa, bb, xa) - qa
+        la = np.where(err < 0, xa, lo[act])
+        ha = np.where(err < 0, hi[act], xa)
         with np.errstate(all="ignore"):
-            pdf = np.exp((a - 1.0) * np.log(x) + (b - 1.0) * np.log1p(-x) - lbeta)
-            step = x - err / pdf
-        bad = ~np.isfinite(step) | (step <= lo) | (step >= hi)
-        new = np.where(bad, 0.5 * (lo + hi), step)
-        if np.all(np.abs(new - x) <= 1e-15 * np.maximum(1.0, np.abs(x))) or np.all(hi - lo < 1e-16):
-            x = new
+            pdf = np.exp((aa - 1.0) * np.log(xa) + (bb - 1.0) * np.log1p(-xa) - lbeta[act])
+            step = xa - err / pdf
+        bad = ~np.isfinite(step) | (step <= la) | (step >= ha)
+        new = np.where(bad, 0.5 * (la + ha), step)
+        x[act], lo[act], hi[act] = new, la, ha
+        act = act[~((np.abs(new - xa) <= 1e-14) | (ha - la < 1e-15))]
+        if act.size == 0:
             break
-        x = new
-    return x
+    return x.reshape(np.shape(q0))
 
 
 def clopper_pearson(k: Any, n: Any, level: float = 0.95) -> tuple[np.ndarray, np.ndarray]:
@@ -543,8 +554,12 @@ def _apply_reviews(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
     ag["not_work_related"] = False
     if decisions.empty:
         return ag
-    shown = decisions.groupby("idx", sort=True)["decision"].agg(lambda s: "; ".join(s))
-    ag.loc[shown.index, "review_decision"] = shown.to_numpy()
+    first = decisions.drop_duplicates("idx")
+    ag.loc[first["idx"].to_numpy(), "review_decision"] = first["decision"].to_numpy()
+    multi = decisions[decisions.duplicated("idx", keep=False)]
+    if not multi.empty:  # several decisions on one audiogram: all shown, in date order
+        joined = multi.groupby("idx", sort=True)["decision"].agg("; ".join)
+        ag.loc[joined.index.to_numpy(), "review_decision"] = joined.to_numpy()
     d = decisions.copy()
     d["det"] = ag["det_idx"].to_numpy()[d["idx"].to_numpy()]
     sd = d[d["decision"].isin(["confirm_shift", "cancel_shift"])].drop_duplicates("det", keep="last")
@@ -836,6 +851,27 @@ def _population(py: pd.DataFrame) -> pd.DataFrame:
     return p[cols]
 
 
+def _period_groups(py: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:
+    """Return per group the distinct people tested, with an STS and with a case in the period."""
+    cols = ["group", "n_tested", "n_sts", "n_recordable", "sts_rate", "sts_ci_low", "sts_ci_high",
+            "recordable_rate", "recordable_ci_low", "recordable_ci_high"]
+    d = py[(py["year"] >= start.year) & (py["year"] <= end.year)]
+    if d.empty:
+        return pd.DataFrame(columns=cols)
+    per = d.groupby("person_id", sort=True).agg(group=("group", "last"), sts=("sts", "any"),
+                                                recordable=("recordable", "any")).reset_index()
+    p = _with_all(per).groupby("group", sort=True).agg(n_tested=("person_id", "size"), n_sts=("sts", "sum"),
+                                                        n_recordable=("recordable", "sum")).reset_index()
+    for c in ("n_tested", "n_sts", "n_recordable"):
+        p[c] = p[c].astype(int)
+    level = PARAMETERS["ci_level"]
+    p["sts_rate"] = p["n_sts"] / p["n_tested"]
+    p["sts_ci_low"], p["sts_ci_high"] = clopper_pearson(p["n_sts"], p["n_tested"], level)
+    p["recordable_rate"] = p["n_recordable"] / p["n_tested"]
+    p["recordable_ci_low"], p["recordable_ci_high"] = clopper_pearson(p["n_recordable"], p["n_tested"], level)
+    return p[cols]
+
+
 def _indicators(ag: pd.DataFrame) -> pd.DataFrame:
     """Return %Worse-sequential and %Better-or-Worse-sequential per group and year."""
     cols = ["group", "year", "n_pairs", "n_worse", "pct_worse", "n_better_or_worse", "pct_better_or_worse",
@@ -844,14 +880,16 @@ def _indicators(ag: pd.DataFrame) -> pd.DataFrame:
     last = main.sort_values(["person_id", "year", "ear", "date"], kind="mergesort").drop_duplicates(
         ["person_id", "year", "ear"], keep="last")
     hl = [f"hl_{f}" for f in NIOSH_FREQS]
-    wide = last.pivot_table(index=["person_id", "year"], columns="ear", values=hl, aggfunc="first", dropna=False)
-    wide = wide.reindex(columns=pd.MultiIndex.from_product([hl, ["L", "R"]]))
-    if wide.empty:
+    if last.empty:
         return pd.DataFrame(columns=cols)
-    wide = wide.sort_index()
-    vals = wide.to_numpy(dtype=float)
-    persons = wide.index.get_level_values(0).to_numpy()
-    years = wide.index.get_level_values(1).to_numpy()
+    keys = last[["person_id", "year"]].drop_duplicates().sort_values(["person_id", "year"], kind="mergesort")
+    parts = [keys.reset_index(drop=True)]
+    for ear in ("L", "R"):
+        e = last.loc[last["ear"] == ear, ["person_id", "year"] + hl]
+        parts.append(keys.merge(e, on=["person_id", "year"], how="left")[hl].reset_index(drop=True))
+    vals = np.hstack([parts[1].to_numpy(float), parts[2].to_numpy(float)])
+    persons = parts[0]["person_id"].to_numpy(object)
+    years = parts[0]["year"].to_numpy()
     same = np.r_[False, persons[1:] == persons[:-1]]
     prev = np.vstack([np.full((1, vals.shape[1]), np.nan), vals[:-1]])
     diff = vals - prev
@@ -1084,6 +1122,7 @@ def compute(programme: Programme, results: dict) -> HearingResult:
     actions = _actions(ag, followups, baselines, start, as_of)
     py = _per_person_year(ag)
     population = _population(py)
+    period_groups = _period_groups(py, start, as_of)
     indicators = _indicators(ag)
     age_norms = _age_norms(ag, as_of)
     noise_expected, n_notes = _noise_expected(ag, results, as_of)
@@ -1112,6 +1151,8 @@ def compute(programme: Programme, results: dict) -> HearingResult:
     ag = ag.drop(columns=["birth_date"])
     log.info("hearing: %d audiogram rows, %d recordable cases", len(ag), len(cases))
     return HearingResult(audiograms=ag, baselines=baselines, baseline_history=events, cases=cases,
-                         incidence=incidence, followups=followups, population=population, indicators=indicators,
+                         incidence=incidence, followups=followups, population=population, period_groups=period_groups,
+                         indicators=indicators,
                          age_norms=age_norms, noise_expected=noise_expected, actions=actions, audiometer_ok=meters,
-                         summary=summary, findings=findings, notes=notes)
+                         summary=summary, findings=findings, notes=notes,
+                         sts_people=frozenset(ag.loc[ag["sts"] & (ag["date"] <= as_of), "person_id"].astype(str)))

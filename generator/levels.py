@@ -231,6 +231,21 @@ _F1, _F2, _F3, _F4 = weighting_poles()
 A1000 = -2.000
 C1000 = -0.062
 
+#: (name, value, unit, source) of the constants used here, for the methods page.
+PARAMETERS: list[tuple[str, object, str, str]] = [
+    ("reference sound pressure p0", P0, "Pa", "ISO/TR 25417:2007"),
+    ("reference sound intensity I0 and power W0", I0, "W/m², W", "ISO/TR 25417:2007"),
+    ("reference duration T0 of LEX,8h", T0_HOURS, "h", "ISO 1999:2013 3.6; ISO 9612:2009 Eq. (12)"),
+    ("nominal week of LEX,w", f"{NOMINAL_WEEK_DAYS:g} days of 8 h", "", "ISO 1999:1990 3.6 note 2"),
+    ("weighting poles f1, f2, f3, f4", f"{_F1:.4f}, {_F2:.4f}, {_F3:.4f}, {_F4:.3f}", "Hz",
+     "IEC 61672-1:2013 Annex E (exact derivation)"),
+    ("normalisation A1000, C1000", f"{A1000:.3f}, {C1000:.3f}", "dB", "IEC 61672-1:2013 Annex E.4.2"),
+    ("octave band weightings", "formula at the exact base-10 mid-band frequency, rounded to 0.1 dB", "dB",
+     "IEC 61672-1:2013 Table 3"),
+    ("reference duration", "T = Tc / 2^((L − Lc)/q)", "h", "29 CFR 1910.95 App. A, Table G-16a (q = 5)"),
+    ("dose", "D = 100 Σ C_i / T_i (levels below the threshold count 0)", "%", "29 CFR 1910.95 App. A"),
+]
+
 
 def c_weighting(freq: ArrayLike) -> np.ndarray:
     """Return the C-weighting (dB) at frequencies *freq* (Hz), IEC 61672-1 Eq. E.1."""

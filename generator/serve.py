@@ -8,6 +8,7 @@ import sys
 import threading
 import time
 from pathlib import Path
+from typing import Callable
 
 from .findings import HcpsiteError
 
@@ -47,6 +48,10 @@ def _rebuild(root: Path, out: Path | None, restricted: bool) -> Path | None:
                 print(line)
         print(f"error: {exc}; the previous site is still served", file=sys.stderr)
         return None
+    except Exception as exc:  # noqa: BLE001 - keep serving the previous site
+        from .cli import REPORT_HINT
+        print(f"internal error: {type(exc).__name__}: {exc} -- {REPORT_HINT}", file=sys.stderr)
+        return None
     for line in report.findings.lines():
         print(line)
     print(f"built {len(report.pages)} pages into {report.out}; {report.findings.summary()}", file=sys.stderr)
@@ -68,8 +73,9 @@ def make_server(site: Path, port: int) -> http.server.ThreadingHTTPServer:
 
 
 def serve(root: Path, port: int = 8000, out: Path | None = None, restricted: bool = False,
-          max_polls: int | None = None) -> int:
-    """Build and serve *root* until Ctrl-C; rebuild when an input changes. Return the exit code."""
+          max_polls: int | None = None, on_ready: Callable[[int], None] | None = None,
+          stop: threading.Event | None = None) -> int:
+    """Build and serve *root* until Ctrl-C (or *stop*); rebuild when an input changes. Return the exit code."""
     from .build import DEFAULT_OUT, check_output
     root = Path(root)
     site = Path(out) if out is not None else root / DEFAULT_OUT
@@ -82,9 +88,11 @@ def serve(root: Path, port: int = 8000, out: Path | None = None, restricted: boo
     thread.start()
     print(f"serving {site} at http://{HOST}:{server.server_address[1]}/index.html (Ctrl-C to stop)",
           file=sys.stderr)
+    if on_ready is not None:
+        on_ready(int(server.server_address[1]))
     polls = 0
     try:
-        while max_polls is None or polls < max_polls:
+        while (max_polls is None or polls < max_polls) and not (stop is not None and stop.is_set()):
             time.sleep(POLL_SECONDS)
             polls += 1
             now = input_state(root)

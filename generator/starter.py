@@ -147,7 +147,10 @@ def programme_yaml() -> str:
     """Return programme.yaml with every option, its documentation as a comment and its default."""
     lines = ["# programme.yaml: settings of one hearing-conservation programme review.",
              "# Every option is listed with its documentation and its default value;",
-             "# change what differs for your programme. Run 'hcpsite check .' after editing.", ""]
+             "# change what differs for your programme. Run 'hcpsite check .' after editing.",
+             "# Data files are in data/ (see each file's header). A logged time history of a",
+             f"# measurement goes in {NOISE_LOG.path} (ID = its measurement_id) with the columns",
+             f"# {', '.join(c.name for c in NOISE_LOG.columns)}, fixed intervals, covering the whole run.", ""]
     for name, kind, default, doc in iter_options(Config):
         depth = name.count(".")
         indent = "  " * depth
@@ -176,19 +179,7 @@ def starter_files() -> dict[str, str]:
     files = {CONFIG_FILE: programme_yaml(), "pages/about.md": INTRODUCTION}
     for spec in FILES:
         files[spec.path] = csv_text(spec)
-    files[NOISE_LOG.path.replace("ID", "M0001")] = _noise_log_text()
     return files
-
-
-def _noise_log_text() -> str:
-    """Return a short logged time history for measurement M0001 (one-minute intervals)."""
-    start = dt.datetime(2025, 3, 4, 7, 0)
-    buf = io.StringIO()
-    buf.write("start,laeq\n")
-    levels = (86.2, 88.9)
-    for i, level in enumerate(levels):
-        buf.write(f"{(start + dt.timedelta(minutes=i)).isoformat(timespec='seconds')},{level}\n")
-    return buf.getvalue()
 
 
 def write_starter(folder: Path) -> list[Path]:

@@ -56,6 +56,8 @@ def _site_from_fixture(request: pytest.FixtureRequest) -> Path | None:
         value = request.getfixturevalue("built_example")
     except pytest.FixtureLookupError:
         return None
+    except pytest.skip.Exception as exc:  # the browser checks run whenever chromium is there
+        pytest.fail(f"the shared built_example fixture skipped: {exc}")
     for cand in (value, getattr(value, "out", None), getattr(value, "site", None)):
         if isinstance(cand, (str, os.PathLike)) and (Path(cand) / "index.html").is_file():
             return Path(cand)
@@ -112,23 +114,17 @@ def _target(site: Path, page_rel: str, href: str) -> Path:
     return (site / page_rel).parent.joinpath(path).resolve() if path else (site / page_rel).resolve()
 
 
-def _visit(browser, site: Path, rel: str) -> Visit:
-    """Open one page and record what it did."""
-    visit = Visit(rel)
-    context = browser.new_context(viewport=DESKTOP)
-    page = context.new_page()
-    page.on("console", lambda m: visit.console_errors.append(m.text) if m.type == "error" else None)
-    page.on("pageerror", lambda e: visit.console_errors.append(f"uncaught: {e}"))
-    page.on("requestfailed", lambda r: visit.console_errors.append(f"failed request: {r.url}"))
-    page.on("request", lambda r: None if r.url.startswith(LOCAL_SCHEMES) else visit.outside_requests.append(r.url))
+def _visit(page, site: Path, rel: str, current: dict) -> Visit:
+    """Open one page in the shared tab and record what it did."""
+    visit = current["visit"] = Visit(rel)
     try:
-        page.goto((site / rel).resolve().as_uri(), wait_until="load", timeout=30000)
+        page.goto((site / rel).resolve().as_uri(), wait_until="load", timeout=60000)
         visit.plots = page.locator(PLOT_SELECTOR).count()
         if visit.plots:
             try:
                 page.wait_for_function(
                     "sel => [...document.querySelectorAll(sel)].every(d => d.querySelector('.main-svg'))",
-                    arg=PLOT_SELECTOR, timeout=15000)
+                    arg=PLOT_SELECTOR, timeout=20000)
             except Exception:  # recorded below as undrawn plots
                 pass
         visit.plots_drawn = page.evaluate(
@@ -137,17 +133,35 @@ def _visit(browser, site: Path, rel: str) -> Visit:
         visit.links = page.evaluate("() => [...document.querySelectorAll('a[href]')].map(a => a.getAttribute('href'))")
     except Exception as exc:  # a page that cannot load is a failure of every check
         visit.load_error = str(exc)
-    finally:
-        context.close()
     return visit
 
 
 @pytest.fixture(scope="module")
-def visits(browser, site: Path) -> dict[str, Visit]:
-    """Open every page of the site once."""
+def context(browser):
+    """Return one browser context for the module (its cache serves plotly.min.js once)."""
+    ctx = browser.new_context(viewport=DESKTOP, device_scale_factor=1)
+    try:
+        yield ctx
+    finally:
+        ctx.close()
+
+
+@pytest.fixture(scope="module")
+def visits(context, site: Path) -> dict[str, Visit]:
+    """Open every page of the site once, one after the other in one tab."""
     pages = _html_files(site)
     assert "index.html" in pages, "the site has no index.html"
-    return {rel: _visit(browser, site, rel) for rel in pages}
+    current: dict = {"visit": Visit("")}
+    page = context.new_page()
+    page.on("console", lambda m: current["visit"].console_errors.append(m.text) if m.type == "error" else None)
+    page.on("pageerror", lambda e: current["visit"].console_errors.append(f"uncaught: {e}"))
+    page.on("requestfailed", lambda r: current["visit"].console_errors.append(f"failed request: {r.url}"))
+    page.on("request", lambda r: None if r.url.startswith(LOCAL_SCHEMES)
+            else current["visit"].outside_requests.append(r.url))
+    try:
+        return {rel: _visit(page, site, rel, current) for rel in pages}
+    finally:
+        page.close()
 
 
 def test_every_page_loads_without_console_errors(visits: dict[str, Visit]) -> None:
@@ -200,17 +214,16 @@ def _pdf_pages(pdf: bytes) -> int:
     return len(re.findall(rb"/Type\s*/Page(?![a-zA-Z])", pdf))
 
 
-def test_review_prints_to_a_multi_page_pdf(browser, site: Path) -> None:
+def test_review_prints_to_a_multi_page_pdf(context, site: Path) -> None:
     review = site / "review.html"
     assert review.is_file(), "the site has no printable review.html"
-    context = browser.new_context(viewport=DESKTOP)
     page = context.new_page()
     try:
         page.goto(review.resolve().as_uri(), wait_until="load")
         page.emulate_media(media="print")
         pdf = page.pdf(format="A4", print_background=True)
     finally:
-        context.close()
+        page.close()
     assert pdf.startswith(b"%PDF-")
     ARTIFACTS.mkdir(exist_ok=True)
     (ARTIFACTS / "review.pdf").write_bytes(pdf)
@@ -218,9 +231,9 @@ def test_review_prints_to_a_multi_page_pdf(browser, site: Path) -> None:
 
 
 @pytest.mark.parametrize("name,viewport", [("desktop", DESKTOP), ("phone", PHONE)])
-def test_index_screenshots(browser, site: Path, name: str, viewport: dict) -> None:
-    context = browser.new_context(viewport=viewport, device_scale_factor=1)
+def test_index_screenshots(context, site: Path, name: str, viewport: dict) -> None:
     page = context.new_page()
+    page.set_viewport_size(viewport)
     try:
         page.goto((site / "index.html").resolve().as_uri(), wait_until="load")
         page.wait_for_timeout(300)
@@ -229,7 +242,7 @@ def test_index_screenshots(browser, site: Path, name: str, viewport: dict) -> No
         page.screenshot(path=str(ARTIFACTS / f"index-{name}-full.png"), full_page=True)
         overflow = page.evaluate("() => document.documentElement.scrollWidth - window.innerWidth")
     finally:
-        context.close()
+        page.close()
     assert shot[:8] == b"\x89PNG\r\n\x1a\n"
     assert overflow <= 1, f"index.html scrolls sideways by {overflow}px at {viewport['width']}px wide"
 

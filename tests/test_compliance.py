@@ -117,6 +117,12 @@ def test_baseline_mobile_van_one_year() -> None:
     assert person(res)["baseline_status"] == "late"  # six months without the van
 
 
+def test_calendar_months_end_of_month() -> None:
+    # "within 6 months" read as calendar months (our reading of 1910.95(g)(5)(i)): 31 Aug + 6 = 28 Feb
+    got = compliance.add_months(pd.Series([D("2025-08-31"), D("2023-08-31"), pd.NaT]), 6)
+    assert got.iloc[0] == D("2026-02-28") and got.iloc[1] == D("2024-02-29") and pd.isna(got.iloc[2])
+
+
 # ---------------------------------------------------------------------------------------
 # periodic audiogram: 29 CFR 1910.95(g)(6) "at least annually after obtaining the baseline"
 
@@ -130,11 +136,23 @@ def test_annual_audiogram_364_vs_366(days: int, expected: str) -> None:
     assert bool(person(res)["current_audiogram"]) is (days <= 365)
 
 
+def test_annual_audiogram_across_29_february() -> None:
+    # 29 CFR 1910.95(g)(6) "at least annually" = 12 calendar months: 366 days on time across 29 Feb
+    prog = make(ONE, audiograms=aud("2020-06-01", "baseline") + aud("2023-03-01"), end="2024-03-01",
+                start="2023-03-02")
+    assert person(compliance.compute(prog, {"exposure": exposed("2020-01-01")}))["audiogram_status"] == "due_soon"
+    prog = make(ONE, audiograms=aud("2020-06-01", "baseline") + aud("2023-03-01"), end="2024-03-02",
+                start="2023-03-03")
+    assert person(compliance.compute(prog, {"exposure": exposed("2020-01-01")}))["audiogram_status"] == "overdue"
+
+
 def test_annual_audiogram_not_due_for_unexposed_person() -> None:
     # 29 CFR 1910.95(g)(6) applies to employees at or above the action level only
     prog = make(ONE, audiograms=aud("2020-06-01", "baseline"))
     res = compliance.compute(prog, {"exposure": exposure([{"person_id": "E1", "group": "G1", "exposed": False}])})
     assert person(res)["audiogram_status"] == "not_required"
+    assert person(res)["training_status"] == "not_required"  # 29 CFR 1910.95(k)(1): exposed employees
+    assert not bool(person(res)["protector_required"])  # 29 CFR 1910.95(i)(1)
     assert res.enrolment["mismatch"].tolist() == ["records_not_exposed"]  # information only
     assert "annual audiogram" not in set(res.actions["kind"])
 
@@ -244,15 +262,22 @@ def test_refits_from_hearing_followups() -> None:
     fu = pd.DataFrame([
         {"person_id": "E1", "ear": "L", "kind": "refit", "trigger_date": D("2025-03-01"),
          "due_date": D("2025-03-22"), "done_date": pd.NaT, "status": "overdue", "clause": ""},
+        {"person_id": "E1", "ear": "R", "kind": "refit", "trigger_date": D("2025-03-01"),
+         "due_date": D("2025-03-22"), "done_date": pd.NaT, "status": "missing", "clause": ""},
+        {"person_id": "E1", "ear": "L", "kind": "refit", "trigger_date": D("2024-03-01"),
+         "due_date": D("2024-03-22"), "done_date": D("2024-03-10"), "status": "on time", "clause": ""},
         {"person_id": "E1", "ear": "L", "kind": "notice", "trigger_date": D("2025-03-01"),
          "due_date": D("2025-03-22"), "done_date": pd.NaT, "status": "overdue", "clause": "x"}])
     res = compliance.compute(make(ONE), {"exposure": exposed("2020-01-01"),
                                          "hearing": SimpleNamespace(audiograms=pd.DataFrame(), followups=fu,
                                                                     actions=pd.DataFrame(), cases=pd.DataFrame())})
-    assert len(res.refits) == 1
-    assert res.refits["clause"].iloc[0].startswith("29 CFR 1910.95(g)(8)")
+    assert len(res.refits) == 3
+    assert res.refits["clause"].str.startswith("29 CFR 1910.95(g)(8)").all()
     refit = res.actions[res.actions["kind"].eq("refit")]
+    # one open item for the 2025 shift (both ears); the 2024 refit was done
     assert len(refit) == 1 and refit["status"].iloc[0] == "overdue"
+    assert "2025-03-01 (left ear and right ear)" in refit["detail"].iloc[0]
+    assert res.summary["refits_open"] == 1
 
 
 # ---------------------------------------------------------------------------------------
@@ -462,3 +487,33 @@ def test_eu_rule_set_without_intervals() -> None:
     res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
     assert person(res)["audiogram_status"] == "not_required"
     assert any("interval" in n for n in res.notes)
+
+
+# ---------------------------------------------------------------------------------------
+# end to end: a programme folder read by the reader, through the real exposure stage
+
+
+def test_programme_folder_baseline_boundary(tmp_path: Path) -> None:
+    from generator.build import compute as run_stages
+    from generator.inputs.reader import load_programme
+    from tests.progkit import make_programme
+
+    hl = {f"hl_{f}": 10 for f in (500, 1000, 2000, 3000, 4000, 6000, 8000)}
+    root = make_programme(tmp_path / "p", files={
+        "groups.csv": [{"group": "G1", "name": "Press shop"}],
+        "noise.csv": [{"measurement_id": f"M{i}", "date": "2025-04-01", "kind": "personal", "person_id": p,
+                       "duration_h": 8, "laeq": 95} for i, p in enumerate(("E001", "E002"))],
+        # first exposure 2025-04-01: E001 tested on day 184, E002 on day 182
+        "audiograms.csv": [{"person_id": "E001", "date": "2025-10-02", "ear": e, "kind": "baseline", **hl}
+                           for e in "LR"]
+        + [{"person_id": "E002", "date": "2025-09-30", "ear": e, "kind": "baseline", **hl} for e in "LR"],
+    })
+    prog = load_programme(root, today=dt.date(2026, 1, 1))
+    assert not prog.findings.has_errors()
+    results, _ = run_stages(prog)
+    st = results["compliance"].people.set_index("person_id")
+    assert st.loc["E001", "baseline_status"] == "late"  # 29 CFR 1910.95(g)(5)(i)
+    assert st.loc["E002", "baseline_status"] == "on_time"  # 29 CFR 1910.95(g)(5)(i)
+    assert st.loc["E001", "training_status"] == "overdue"  # 29 CFR 1910.95(k): never trained
+    acts = results["compliance"].actions
+    assert set(acts.loc[acts["subject"].eq("E001"), "kind"]) >= {"training", "protector"}

@@ -75,6 +75,10 @@ def test_readme_documents_every_cli_subcommand(readme: str) -> None:
             for flag in action.option_strings:
                 if flag.startswith("--") and flag != "--help" and f"`{flag}" not in readme:
                     undocumented.append(f"{n} {flag}")
+    for action in parser._actions:
+        for flag in action.option_strings:
+            if flag.startswith("--") and flag != "--help" and f"`{flag}" not in readme:
+                undocumented.append(flag)
     assert not undocumented, f"README lacks CLI options: {undocumented}"
 
 

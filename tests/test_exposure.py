@@ -361,17 +361,57 @@ def test_noise_map_idw(tmp_path: Path) -> None:
     gx, gy, z = ex.idw_grid([0, 10], [0, 0], [80, 90], 3)
     # inverse-distance weighting (common practice): exact at the points, the mean half-way
     assert z[1, 0] < z[1, 1] < z[1, 2]
-    gx, gy, z = ex.idw_grid([0.0, 1.0, 2.0], [0.0, 0.0, 1.0], [80.0, 90.0, 70.0], 2)
-    assert z[0, 0] == pytest.approx(80.0 + (90 - 80) * 0, abs=20)
+    # half-way between two points the weights are equal: the arithmetic mean of the dB values
+    assert z[1, 1] == pytest.approx(85.0)
 
 
-def test_idw_exact_at_points() -> None:
-    # inverse-distance weighting (common practice) reproduces the measured value at a measured point
+def test_idw_weights() -> None:
+    # inverse-distance weighting (common practice): weights 1/d^2 of the distances to the points
     gx, gy, z = ex.idw_grid([0.0, 10.0, 5.0], [0.0, 0.0, 10.0], [80.0, 90.0, 70.0], 2)
-    # the grid is padded by 5 %, so no cell sits on a point: check one padded at distance 0 instead
+    # the grid spans the points padded by 5 % on each side
     x = np.array([0.0, 10.0, 5.0])
     gx2 = np.linspace(x.min() - 0.5, x.max() + 0.5, 2)
     assert gx == pytest.approx(gx2)
     d = np.hypot(gx[0] - x, gy[0] - np.array([0.0, 0.0, 10.0]))
     w = 1 / d ** 2
     assert z[0, 0] == pytest.approx((w * [80, 90, 70]).sum() / w.sum())
+
+
+# ---------------------------------------------------------------------------------------
+# pages
+
+
+def test_pages_build_with_codes_and_suppression(tmp_path: Path) -> None:
+    from generator import build, site
+    from generator.pages import exposure as pages
+
+    people = [{"person_id": f"EMP{i:03d}", "group": "BIG", "name": f"Quill Person {i}"} for i in range(6)]
+    people.append({"person_id": "EMP900", "group": "TINY", "name": "Quill Loner"})
+    noise = [{"measurement_id": f"M{i}", "date": f"2025-04-0{i + 1}", "kind": "personal", "person_id": f"EMP{i:03d}",
+              "duration_h": 8, "laeq": 84.0 + i, "lcpeak": 120.0} for i in range(6)]
+    noise.append({"measurement_id": "T1", "date": "2025-04-02", "kind": "personal", "person_id": "EMP900",
+                  "duration_h": 8, "laeq": 97.3})
+    noise += [{"measurement_id": f"A{i}", "date": "2025-04-01", "kind": "area", "group": "BIG", "duration_h": 1,
+               "laeq": 80.0 + 3 * i, "x_m": 5.0 * i, "y_m": 2.0 * (i % 2)} for i in range(3)]
+    p = _load(tmp_path, {"people.csv": people, "noise.csv": noise, "groups.csv": [{"group": "BIG"}, {"group": "TINY"}],
+                         "noise_logs/M0.csv": _log_csv([84.0] * 480)},
+              config={"privacy": {"min_group_size": 3}})
+    results = {"exposure": ex.compute(p, {})}
+    ctx = build.make_context(p, results)
+    assert "TINY" in ctx.suppressed_groups
+    built = pages.build(ctx)
+    slugs = [pg.slug for pg in built]
+    assert slugs == ["exposure", "exposure/big", "exposure/tiny", "noise-map"]
+    ids = [c.id for pg in built for c in pg.charts]
+    assert len(ids) == len(set(ids)) and "exposure-1" in ids and "exposure-big-1" in ids and "noise-map-1" in ids
+    env = site.make_environment(None)
+    common = {"site": site.site_info(ctx), "cautions": site.cautions_for(ctx.rules)}
+    html = {pg.slug: site.render_page(env, pg, common, built) for pg in built}
+    for text in html.values():
+        assert "EMP0" not in text and "EMP900" not in text and "Quill" not in text
+    assert "suppressed" in html["exposure/tiny"] and "97.3" not in html["exposure/tiny"]
+    assert "97.3" not in html["exposure"]
+    assert ctx.code("EMP001") in html["exposure/big"]
+    assert "for orientation only" in html["noise-map"]
+    # every chart has its data table and a summary sentence
+    assert all(c.summary and c.table.columns for pg in built for c in pg.charts)

@@ -397,3 +397,55 @@ def test_population_rates_and_age_norms(tmp_path):
     assert an["n_ears"] == 4
     assert an["iso_median"] == pytest.approx(3.40e-3 * 32 ** 2.325, abs=1e-6)
     assert an["observed_median"] == pytest.approx(15.0)
+
+
+# ---------------------------------------------------------------------------------------
+# pages
+
+
+def _site_programme(tmp_path: Path) -> Path:
+    people = [person(f"RAWID{i}", "M", "1980-01-01", "G1") for i in range(3)] + [
+        person("RAWLONE", "F", "1985-01-01", "G2")]
+    auds = []
+    for p in ("RAWID0", "RAWID1", "RAWID2", "RAWLONE"):
+        for e in ("L", "R"):
+            auds.append(ag(p, "2024-02-01", e, (10, 10, 10), kind="baseline"))
+            auds.append(ag(p, "2025-02-01", e, (30, 30, 35) if p in ("RAWID0", "RAWLONE") else (10, 15, 10)))
+    return make_programme(tmp_path / "site", {"people.csv": people, "audiograms.csv": auds},
+                          config={"privacy": {"min_group_size": 2}})
+
+
+def test_pages_public_and_restricted(tmp_path):
+    from generator.build import build_site
+
+    root = _site_programme(tmp_path)
+    pub = build_site(root, tmp_path / "pub")
+    assert "hearing" in pub.pages and "hearing/g1" in pub.pages and "hearing/g2" in pub.pages
+    assert not any(s.startswith("people/") for s in pub.pages)
+    assert not (tmp_path / "pub" / "people").exists()
+    for f in sorted((tmp_path / "pub").rglob("*.html")):
+        text = f.read_text(encoding="utf-8")
+        assert "RAWID" not in text and "RAWLONE" not in text and "1980-01-01" not in text, f
+    html = (tmp_path / "pub" / "hearing.html").read_text(encoding="utf-8")
+    assert pub.context.code("RAWID0") in html  # the shift is listed by pseudonymous code
+    g2 = (tmp_path / "pub" / "hearing" / "g2.html").read_text(encoding="utf-8")
+    assert "suppressed" in g2 and pub.context.code("RAWLONE") not in g2
+    assert 'id="hearing-1-figure"' in html and "%Worse-sequential" in html
+
+    res = build_site(root, tmp_path / "res", restricted=True)
+    people_pages = sorted(s for s in res.pages if s.startswith("people/"))
+    assert people_pages == sorted(f"people/{res.context.code(p)}" for p in ("RAWID0", "RAWID1", "RAWID2", "RAWLONE"))
+    page = (tmp_path / "res" / f"{people_pages[0]}.html").read_text(encoding="utf-8").replace(" ", "")
+    assert '"type":"log"' in page and '"autorange":"reversed"' in page
+
+
+def test_no_audiograms(tmp_path):
+    root = make_programme(tmp_path / "empty", {})
+    prog = load_programme(root)
+    res = hearing.compute(prog, {})
+    assert res.audiograms.empty and res.cases.empty and res.followups.empty
+    assert list(res.hearing_results().columns)[:3] == ["person_id", "ear", "date"]
+    assert any("No audiograms" in n for n in res.notes)
+    from generator.build import build_site
+    rep = build_site(root, tmp_path / "out")
+    assert "hearing" in rep.pages

@@ -13,6 +13,7 @@ import csv
 import datetime as dt
 import hashlib
 import io
+import itertools
 import logging
 import os
 import re
@@ -297,7 +298,7 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings) -> _Grid | No
 
 def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
     """Parse CSV that may hold quoted fields (with commas or line breaks) with the csv module."""
-    reader = csv.reader(io.StringIO(text, newline=""))
+    reader = csv.reader(io.StringIO(text, newline=""), strict=True)
     try:
         records = list(reader)
     except csv.Error as exc:
@@ -307,16 +308,19 @@ def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
     if not records:
         return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
     lens = np.fromiter(map(len, records), dtype=np.int64, count=len(records))
-    frame = pd.DataFrame(records, dtype=object)
+    columns = list(itertools.zip_longest(*records, fillvalue=None))
+    frame = pd.DataFrame({i: pd.Series(c, dtype=object) for i, c in enumerate(columns)},
+                         index=pd.RangeIndex(len(records)))
     breaks = np.zeros(len(records), dtype=np.int64)
     for c in frame.columns:
-        col = frame[c]
-        breaks += col.str.count("\n").fillna(0).to_numpy(dtype=np.int64)
+        breaks += frame[c].fillna("").astype(str).str.count("\n").to_numpy(dtype=np.int64)
     span = 1 + breaks
     start_line = np.concatenate(([1], 1 + np.cumsum(span)[:-1]))
     ncols = int(lens[0])
     header = [str(x) for x in records[0]]
-    blank = (lens == 0) | ((lens == 1) & frame[0].fillna("").eq("").to_numpy())
+    first_cell = frame[0].fillna("").to_numpy(dtype=object) if 0 in frame.columns \
+        else np.full(len(records), "", dtype=object)
+    blank = (lens == 0) | ((lens == 1) & (first_cell == ""))
     bad = (lens != ncols) & ~blank
     bad[0] = False
     if bad.any():
@@ -737,9 +741,12 @@ def _check_refs(df: pd.DataFrame, spec: FileSpec, sink: _Sink, tables: dict[str,
                  key=f"{c.name}: unknown reference")
 
 
-def _person_map(people: pd.DataFrame, column: str) -> pd.Series:
+def _per_person(keys: pd.Series, people: pd.DataFrame, column: str) -> pd.Series:
+    """Return people[column] for every person id in *keys* (NaN/NaT where the id is unknown)."""
     p = people.loc[people["person_id"].ne(""), ["person_id", column]].drop_duplicates("person_id")
-    return p.set_index("person_id")[column]
+    lookup = pd.Series(p[column].to_numpy(), index=pd.Index(p["person_id"].to_numpy(dtype=object), dtype=object),
+                       dtype=people[column].dtype)
+    return pd.Series(lookup.reindex(keys.to_numpy(dtype=object)).to_numpy(), index=keys.index)
 
 
 def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], findings: Findings) -> None:
@@ -763,13 +770,15 @@ def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], find
                    key="person_id: personal without person")
         blank_group = noise["group"].eq("")
         if blank_group.any():
-            filled = noise["person_id"].map(_person_map(people, "group")).fillna("").astype(str)
+            looked = _per_person(noise["person_id"], people, "group")
+            filled = pd.Series(np.where(looked.isna().to_numpy(), "", looked.to_numpy(dtype=object)),
+                               index=noise.index, dtype=str)
             noise["group"] = noise["group"].where(~blank_group, filled)
     aud = tables["audiograms"]
     if "audiograms" in present and not aud.empty:
         a_sink = _Sink(findings, present["audiograms"], aud["_row"].to_numpy())
-        birth = aud["person_id"].map(_person_map(people, "birth_date"))
-        leave = aud["person_id"].map(_person_map(people, "leave_date"))
+        birth = _per_person(aud["person_id"], people, "birth_date")
+        leave = _per_person(aud["person_id"], people, "leave_date")
         before = (aud["date"] < birth).fillna(False).to_numpy(dtype=bool)
         a_sink.add(before, "date", WARNING, "audiogram dated before the person's birth_date",
                    key="date: before birth")

@@ -32,7 +32,7 @@ def public_actions(actions: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
 def action_table(a: pd.DataFrame, caption: str = "") -> Table:
     """Return the table of (already public) actions."""
     return charts.table_from_frame(a, {"due_date": "Due", "status": "Status", "subject_shown": "Subject",
-                                       "subject_type": "Subject is", "kind_label": "Kind", "detail": "Detail",
+                                       "kind_label": "Kind", "detail": "Detail",
                                        "clause": "Clause", "source": "Section"}, caption=caption)
 
 

@@ -59,7 +59,7 @@ def clauses_table(rule: RuleSet) -> Table:
         rows.append([n.replace("_", " "), _cell(getattr(rule, n)), _UNITS.get(n, ""), rule.clauses.get(n, "")])
     for k in sorted(set(rule.clauses) - set(rule_value_fields({rule.id: rule}))):
         rows.append([k.replace("_", " "), "", "", rule.clauses[k]])
-    return Table(columns=["value", "setting", "unit", "clause"], rows=rows, caption=rule.name,
+    return Table(columns=["value", "setting", "unit", "clause"], rows=rows, caption="",
                  classes=["", "num", "", ""])
 
 

@@ -53,6 +53,19 @@ def person_table(df: pd.DataFrame, ctx: SiteContext, columns: dict[str, str],
     return charts.table_from_frame(d, {"code": "Person", **columns}, formats, caption=caption)
 
 
+def enrolment_group_table(eg: pd.DataFrame, suppressed: frozenset[str]) -> Table:
+    """Return enrolment counts per group (small groups suppressed)."""
+    cols = ["n_in_scope", "n_must_enrol", "n_enrolled", "n_exposed_no_records", "n_records_not_exposed"]
+    rows = []
+    for g in eg.to_dict("records"):
+        hidden = str(g["group"]) in suppressed
+        rows.append([group_label(g["group"], suppressed)] + [SUPPRESSED if hidden else f"{int(g[c]):,}"
+                                                             for c in cols])
+    return Table(["Group", "People in scope", "Must be in the programme", "Enrolled", "Exposed without records",
+                  "Records, not judged exposed"], rows, caption="Enrolment per similar exposure group",
+                 classes=["", "num", "num", "num", "num", "num"])
+
+
 def _tiles(summary: dict[str, Any]) -> list[dict[str, str]]:
     def n(key: str) -> str:
         v = summary.get(key)
@@ -141,8 +154,9 @@ def audiometer_chart(status: pd.DataFrame, slug: str = "programme") -> Chart | N
                                     {"audiometer_id": "Audiometer", "days": "Test days",
                                      "ok_days": "All checks valid", "not_ok": "Check missing or failed"},
                                     {"days": "d", "ok_days": "d", "not_ok": "d"})
-    summary = (f"{int(g['sum'].sum())} of {int(g['size'].sum())} test days on {len(g)} audiometers had a "
-               f"functional check that day, calibrations in date and a booth within App. D Table D-1.")
+    summary = (f"In the review period, {int(g['sum'].sum())} of {int(g['size'].sum())} test days on {len(g)} "
+               f"audiometers had a functional check that day, calibrations in date and a booth within "
+               f"App. D Table D-1.")
     return Chart(f"{slug}-3", fig, summary, table, title="Test days with valid audiometer checks")
 
 
@@ -163,10 +177,13 @@ def build(ctx: SiteContext) -> list[Page]:
     if len(meters):
         meters["booth"] = [("within Table D-1" if ok else str(d)) for ok, d in zip(meters["booth_ok"],
                                                                                    meters["booth_detail"])]
-    flagged = comp.audiograms_flagged.copy()
+    start = pd.Timestamp(ctx.programme.config.period.start)
+    all_flagged = comp.audiograms_flagged
+    flagged = all_flagged[pd.to_datetime(all_flagged["date"]) >= start].copy()
     refits = comp.refits.copy()
     page_charts = [training_chart(comp.training_groups, sup), protector_chart(comp.protector_groups, sup)]
-    ac = audiometer_chart(comp.audiometer_status)
+    st = comp.audiometer_status
+    ac = audiometer_chart(st[pd.to_datetime(st["date"]) >= start] if len(st) else st)
     if ac is not None:
         page_charts.append(ac)
     overdue = due[due["status"].eq("overdue")]
@@ -179,8 +196,14 @@ def build(ctx: SiteContext) -> list[Page]:
         "notes": list(comp.notes),
         "n_overdue": int(len(overdue)),
         "n_soon": int(len(soon)),
-        "enrolment_table": person_table(enrol, ctx, {"group": "Group", "mismatch": "Mismatch"},
-                                        caption="People whose records and exposure do not agree"),
+        "enrolment_groups_table": enrolment_group_table(comp.enrolment_groups, sup),
+        "enrolment_table": person_table(enrol[comp.enrolment["mismatch"].eq("exposed_no_records")], ctx,
+                                        {"group": "Group"},
+                                        caption="Exposed at or above the action value, without audiometry or "
+                                                "training records"),
+        "info_table": person_table(enrol[comp.enrolment["mismatch"].eq("records_not_exposed")], ctx,
+                                   {"group": "Group"},
+                                   caption="With records, but not judged exposed (information only)"),
         "overdue_table": person_table(overdue, ctx, {"group": "Group", "kind": "Due", "due_date": "Due date",
                                                      "clause": "Clause"},
                                       caption=f"Overdue at {comp.as_of:%Y-%m-%d}"),
@@ -203,9 +226,11 @@ def build(ctx: SiteContext) -> list[Page]:
             caption="Audiometers: latest checks and next calibrations") if len(meters) else None,
         "flagged_table": person_table(flagged, ctx, {"date": "Test date", "ear": "Ear",
                                                      "audiometer_id": "Audiometer", "reason": "Why flagged"},
-                                      caption="Audiograms taken without valid checks or in a booth over the "
-                                              "limits"),
+                                      caption="Audiograms of the review period taken without valid checks or "
+                                              "in a booth over the limits"),
         "n_flagged": int(len(flagged)),
+        "n_flagged_before": int(len(all_flagged) - len(flagged)),
+        "period_start": start.strftime("%Y-%m-%d"),
         "booth_limits": [{"band": f, "limit": v} for f, v in sorted(BOOTH_LIMITS.items())],
     }
     return [Page(slug="programme", title="Programme", template="programme.html", section="programme",

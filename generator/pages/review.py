@@ -28,6 +28,8 @@ PRINT_ORDER: tuple[tuple[str, str], ...] = (
 )
 #: context keys holding lists of plain sentences worth printing.
 SENTENCE_KEYS = ("changes", "notes")
+#: context keys starting with this are left out of the printout (long lists for the screen only).
+SKIP_PREFIX = "info_"
 
 
 def _is_tiles(value: Any) -> bool:
@@ -42,6 +44,8 @@ def collect(page: Page) -> dict[str, Any]:
     texts: list[str] = []
     tables: list[Table] = []
     for key, value in page.context.items():
+        if key.startswith(SKIP_PREFIX):
+            continue
         if isinstance(value, Table):
             tables.append(value)
         elif _is_tiles(value):

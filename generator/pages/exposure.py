@@ -1,0 +1,475 @@
+"""The exposure pages: overview, one page per similar exposure group, and the noise map."""
+from __future__ import annotations
+
+import logging
+import re
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+
+from .. import charts
+from ..exposure import PARAMETERS, ExposureResult, action_value, band_names
+from .base import Chart, Page, SiteContext, Table
+
+log = logging.getLogger(__name__)
+
+SUPPRESSED = "suppressed"
+SECTION = "exposure"
+BASIS_TEXT = {
+    "log": "logged time history (exact dose for every rule set)",
+    "dosimeter": "dose/TWA reported by the dosimeter (other 5-dB figures assume the steady level that gives it)",
+    "steady_level": "LAeq and run time only (3-dB figures exact; 5-dB figures assume a steady level)",
+}
+MAP_NOTE = "interpolated, for orientation only"
+
+
+def group_slug(group: str) -> str:
+    """Return the page slug part of a group code (lower case, safe characters)."""
+    s = re.sub(r"[^a-z0-9]+", "-", str(group).lower()).strip("-")
+    return s or "group"
+
+
+def group_slugs(groups: list[str]) -> dict[str, str]:
+    """Return a unique slug per group code, in sorted order of the codes."""
+    out: dict[str, str] = {}
+    used: set[str] = set()
+    for g in sorted(groups):
+        base = group_slug(g)
+        s, k = base, 2
+        while s in used:
+            s, k = f"{base}-{k}", k + 1
+        used.add(s)
+        out[g] = s
+    return out
+
+
+def _num(v: Any, digits: int = 1) -> str:
+    if v is None or v is pd.NaT or (isinstance(v, (float, np.floating)) and np.isnan(v)):
+        return charts.BLANK
+    return f"{float(v):.{digits}f}"
+
+
+def _chart_id(slug: str, n: int) -> str:
+    return f"{slug.replace('/', '-')}-{n}"
+
+
+def _reference_values(rule: Any) -> dict[str, float | None]:
+    vals: dict[str, float | None] = {}
+    if rule.lower_action_value is not None:
+        vals[f"lower action {rule.lower_action_value:g}"] = rule.lower_action_value
+    if rule.upper_action_value is not None and rule.upper_action_value != rule.limit_value:
+        vals[f"action {rule.upper_action_value:g}"] = rule.upper_action_value
+    if rule.limit_value is not None:
+        vals[f"limit {rule.limit_value:g}"] = rule.limit_value
+    return vals
+
+
+def _hlines(fig: go.Figure, values: dict[str, float | None]) -> go.Figure:
+    """Add labelled dashed horizontal lines at *values* in one layout update (cheaper than add_hline)."""
+    shapes, notes = [], []
+    for label, y in sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0.0, kv[0])):
+        if y is None:
+            continue
+        shapes.append(dict(type="line", xref="paper", x0=0, x1=1, yref="y", y0=float(y), y1=float(y),
+                           line=dict(color=charts.REFERENCE_COLOUR, dash="dash", width=1)))
+        notes.append(dict(xref="paper", x=0, xanchor="left", yref="y", y=float(y), yanchor="bottom",
+                          text=label, showarrow=False, font=dict(color=charts.REFERENCE_COLOUR, size=11)))
+    fig.update_layout(shapes=shapes, annotations=notes)
+    return fig
+
+
+def _judged_band_col(rule: Any) -> str:
+    return f"band_upper_{rule.id}" if rule.judge_with_uncertainty else f"band_{rule.id}"
+
+
+# ---------------------------------------------------------------------------------------
+# overview
+
+
+def distribution_chart(res: ExposureResult, ctx: SiteContext) -> Chart:
+    """Return per group the spread of measured LEX,8h (quartiles) with the group LEX,8h and U."""
+    head = ctx.headline
+    g = res.groups[~res.groups["group"].isin(sorted(ctx.suppressed_groups))]
+    g = g[g["lex_8h"].notna()]
+    m = res.measurements
+    m = m[(m["kind"] == "personal") & m["group"].isin(g["group"]) & m["lex_8h"].notna()]
+    stats = m.groupby("group")["lex_8h"].describe()
+    fig = go.Figure()
+    if len(stats):
+        st = stats.reindex(g["group"]).dropna(subset=["count"])
+        fig.add_trace(go.Box(x=list(st.index), q1=st["25%"].tolist(), median=st["50%"].tolist(),
+                             q3=st["75%"].tolist(), lowerfence=st["min"].tolist(), upperfence=st["max"].tolist(),
+                             name="measurements (LEX,8h)", boxpoints=False, marker=dict(color=charts.PALETTE[5])))
+    fig.add_trace(go.Scatter(
+        x=g["group"].tolist(), y=charts._values(g["lex_8h"]), mode="markers", name="group LEX,8h with + U",
+        marker=dict(size=10, color=charts.PALETTE[0]),
+        error_y=dict(type="data", symmetric=False, array=charts._values(g["u_expanded"]),
+                     arrayminus=[0.0] * len(g), color=charts.PALETTE[0])))
+    charts.base_layout(fig, None, 440, "similar exposure group", "LEX,8h, dB(A)")
+    _hlines(fig, _reference_values(head))
+    rows = []
+    for r in res.groups.itertuples(index=False):
+        if r.group in ctx.suppressed_groups:
+            rows.append([r.group, SUPPRESSED, SUPPRESSED, SUPPRESSED, SUPPRESSED, SUPPRESSED])
+            continue
+        rows.append([r.group, str(int(r.n_samples)), _num(r.lex_8h), _num(r.u_expanded), _num(r.lex_8h_upper),
+                     r.band or charts.BLANK])
+    table = Table(columns=["Group", "Samples", "LEX,8h, dB(A)", "U, dB", "LEX,8h + U, dB(A)",
+                           f"Band ({head.short})"], rows=rows,
+                  caption="Group LEX,8h with its expanded uncertainty (ISO 9612, k = 1.65)",
+                  classes=["", "num", "num", "num", "num", ""])
+    n_exp = int(g["exposed"].sum())
+    summary = (f"{len(g)} group{'s' if len(g) != 1 else ''} with figures: {n_exp} at or above the "
+               f"{head.short} action value of {action_value(head):g} dB(A)"
+               f"{' judged on LEX,8h + U' if head.judge_with_uncertainty else ''}; boxes show the spread "
+               "of the measured LEX,8h, points the group value with its uncertainty bar.")
+    return Chart(id="exposure-1", figure=fig, summary=summary, table=table, title="Exposure by group")
+
+
+def band_counts(res: ExposureResult, ctx: SiteContext) -> tuple[Chart, Table]:
+    """Return the chart and table of groups and people per band for every rule set, side by side."""
+    g = res.groups[~res.groups["group"].isin(sorted(ctx.suppressed_groups))]
+    xr, xb, ys, rows = [], [], [], []
+    fig = go.Figure()
+    for i, (rid, rule) in enumerate(ctx.rules.items()):
+        col = _judged_band_col(rule)
+        names = band_names(rule)
+        people = [int(g.loc[g[col] == b, "n_people"].sum()) for b in names]
+        groups = [int((g[col] == b).sum()) for b in names]
+        plain = [int((g[f"band_{rid}"] == b).sum()) for b in names]
+        fig.add_trace(go.Bar(x=[[rule.short] * len(names), names], y=people, name=rule.short,
+                             marker=dict(color=charts.PALETTE[i % len(charts.PALETTE)])))
+        how = "LEX,8h + U" if rule.judge_with_uncertainty else ("LEX,8h" if rule.metric == "lex" else "TWA")
+        for b, n_g, n_p, n_plain in zip(names, groups, people, plain):
+            rows.append([rule.short, how, b, str(n_g), str(n_p), str(n_plain)])
+        xr.extend([rule.short] * len(names))
+        xb.extend(names)
+        ys.extend(people)
+    charts.base_layout(fig, None, 420, "rule set and band, dB(A)", "people in the groups")
+    table = Table(columns=["Rule set", "Judged on", "Band, dB(A)", "Groups", "People in them",
+                           "Groups judged on the level alone"], rows=rows,
+                  caption="Groups and their people per band, for every rule set (suppressed groups left out)",
+                  classes=["", "", "", "num", "num", "num"])
+    head = ctx.headline
+    hc = _judged_band_col(head)
+    top = band_names(head)[-1]
+    n_top = int(g.loc[g[hc] == top, "n_people"].sum())
+    summary = (f"Under {head.short}, {n_top} people work in groups in the band '{top}' dB(A); the same "
+               f"groups are shown under {', '.join(r.short for r in list(ctx.rules.values())[1:]) or 'no other rule set'}"
+               " for comparison.")
+    return Chart(id="exposure-2", figure=fig, summary=summary, table=table, title="Bands for every rule set"), table
+
+
+def groups_table(res: ExposureResult, ctx: SiteContext, slugs: dict[str, str]) -> Table:
+    """Return the groups with their figures under every rule set (links to group pages by slug)."""
+    cols = ["Group", "Name", "People", "Strategy", "Samples", "LEX,8h", "U", "OSHA TWA", "NIOSH TWA",
+            "Max LCpeak"]
+    for rule in ctx.rules.values():
+        cols.append(f"{rule.short} band")
+        cols.append(f"{rule.short} band with U")
+    rows = []
+    for _, r in res.groups.iterrows():
+        if r["group"] in ctx.suppressed_groups:
+            rows.append([r["group"], r["name"]] + [SUPPRESSED] * (len(cols) - 2))
+            continue
+        row = [r["group"], r["name"], str(int(r["n_people"])), r["strategy"], str(int(r["n_samples"])),
+               _num(r["lex_8h"]), _num(r["u_expanded"]), _num(r["osha_twa"]), _num(r["niosh_twa"]),
+               _num(r["max_lcpeak"])]
+        for rid in ctx.rules:
+            row.append(r[f"band_{rid}"] or charts.BLANK)
+            row.append(r[f"band_upper_{rid}"] or charts.BLANK)
+        rows.append(row)
+    return Table(columns=cols, rows=rows, caption="Group figures (levels in dB(A), peaks in dB(C))",
+                 classes=["", "", "num", "", "num", "num", "num", "num", "num", "num"] + [""] * (2 * len(ctx.rules)))
+
+
+def coverage_table(res: ExposureResult) -> Table:
+    """Return the groups with no measurement or only old ones."""
+    g = res.groups[res.groups["stale"]]
+    rows = [[r.group, r.name, r.last_measured.strftime("%Y-%m-%d") if not pd.isna(r.last_measured) else "never",
+             r.strategy] for r in g.itertuples(index=False)]
+    return Table(columns=["Group", "Name", "Latest measurement", "Strategy"], rows=rows,
+                 caption="Groups with no measurement, or none recent enough", classes=["", "", "", ""])
+
+
+def basis_table(res: ExposureResult) -> Table:
+    """Return how many measurements rest on each basis."""
+    counts = res.measurements["basis"].value_counts()
+    rows = [[b, BASIS_TEXT[b], str(int(counts.get(b, 0)))] for b in ("log", "dosimeter", "steady_level")]
+    return Table(columns=["Basis", "Meaning", "Measurements"], rows=rows,
+                 caption="What each measurement's dose rests on", classes=["", "", "num"])
+
+
+def weekly_table(res: ExposureResult, ctx: SiteContext) -> Table:
+    """Return weekly LEX,w by pseudonymous code (suppressed groups hidden)."""
+    rows = []
+    for r in res.weekly.itertuples(index=False):
+        if r.group in ctx.suppressed_groups:
+            continue
+        rows.append([ctx.code(r.person_id), r.group, r.week_start.strftime("%Y-%m-%d"), str(int(r.n_days)),
+                     _num(r.max_daily_lex), _num(r.lex_w), "yes" if r.complete else "no"])
+    return Table(columns=["Person", "Group", "Week from", "Days measured", "Highest daily LEX,8h", "LEX,w",
+                          "All working days measured"], rows=rows,
+                 caption="Weekly noise exposure level LEX,w (days not measured count as no exposure)",
+                 classes=["", "", "", "num", "num", "num", ""])
+
+
+def actions_table(res: ExposureResult, ctx: SiteContext) -> Table:
+    """Return the exposure actions (group subjects; person subjects by code)."""
+    rows = []
+    for r in res.actions.itertuples(index=False):
+        subj = ctx.code(r.subject) if r.subject_type == "person" else str(r.subject)
+        due = r.due_date.strftime("%Y-%m-%d") if not pd.isna(r.due_date) else charts.BLANK
+        rows.append([subj, r.kind, r.detail, due, r.clause])
+    return Table(columns=["Subject", "Action", "Detail", "Due", "Clause"], rows=rows,
+                 caption="Exposure actions", classes=["", "", "", "", ""])
+
+
+def findings_table(res: ExposureResult, suppressed: frozenset[str] = frozenset()) -> Table:
+    """Return the sampling and data warnings of the exposure stage (none about suppressed groups)."""
+    hidden = tuple(f"group {g}{sep}" for g in sorted(suppressed) for sep in (":", ","))
+    rows = [[f.path, "" if f.row is None else str(f.row), f.message] for f in res.findings
+            if not f.message.startswith(hidden)]
+    return Table(columns=["File", "Row", "Warning"], rows=rows, caption="Warnings about the exposure data",
+                 classes=["", "num", ""])
+
+
+# ---------------------------------------------------------------------------------------
+# group pages
+
+
+def measurement_table(m: pd.DataFrame, ctx: SiteContext) -> Table:
+    """Return one group's measurements with person codes (never raw ids)."""
+    hid = ctx.headline.id
+    rows = []
+    cols = ["date", "measurement_id", "person_id", "kind", "location", "duration_h", "laeq", "lex_8h",
+            "osha_dose_pct", "osha_twa", "niosh_dose_pct", "niosh_twa", "lcpeak", "basis", f"band_{hid}"]
+    for (date, mid, pid, kind, loc, dur, laeq, lex, od, ot, nd, nt, pk, basis, band) in \
+            m[cols].itertuples(index=False, name=None):
+        who = ctx.code(pid) if pid else "area"
+        rows.append([date.strftime("%Y-%m-%d"), mid, who, kind, loc or charts.BLANK, _num(dur, 2), _num(laeq),
+                     _num(lex), _num(od, 0), _num(ot), _num(nd, 0), _num(nt), _num(pk), basis,
+                     band or charts.BLANK])
+    return Table(columns=["Date", "Measurement", "Person", "Kind", "Location", "Run, h", "LAeq", "LEX,8h",
+                          "OSHA dose, %", "OSHA TWA", "NIOSH dose, %", "NIOSH TWA", "LCpeak", "Basis",
+                          f"Band ({ctx.headline.short})"], rows=rows,
+                 caption="Measurements of this group (levels in dB(A), peaks in dB(C); the dose counts the run "
+                         "time, LEX,8h the shift)",
+                 classes=["", "", "", "", "", "num", "num", "num", "num", "num", "num", "num", "num", "", ""])
+
+
+def task_table(t: pd.DataFrame) -> Table:
+    """Return the task breakdown with each task's share of the daily dose."""
+    df = t.assign(share_pct=t["share_of_dose"] * 100)
+    cols = {"task": "Task", "n_samples": "Samples", "lp_aeq": "Lp,A,eqT,m, dB(A)", "t_mean_h": "Mean duration, h",
+            "lex_8h_m": "LEX,8h,m, dB(A)", "share_pct": "Share of daily dose, %", "u1a": "u1a, dB",
+            "c1a": "c1a", "c1b": "c1b, dB/h", "u1b": "u1b, h", "spread_db": "Sample spread, dB"}
+    return charts.table_from_frame(df, cols, {"n_samples": "d", "t_mean_h": ".2f", "share_pct": ".0f",
+                                              "c1a": ".3f", "c1b": ".3f", "u1b": ".2f"},
+                                   caption="Task-based breakdown (ISO 9612:2009 Clause 9)")
+
+
+def task_chart(t: pd.DataFrame, slug: str) -> Chart:
+    """Return the share of the daily dose per task."""
+    df = t.sort_values("share_of_dose", ascending=False)
+    fig = charts.bar(df["task"], (df["share_of_dose"] * 100).round(1), xaxis_title="task",
+                     yaxis_title="share of the daily dose, %")
+    fig.update_yaxes(range=[0, 100])
+    table = Table(columns=["Task", "Share of daily dose, %", "LEX,8h,m, dB(A)"],
+                  rows=[[r.task, _num(r.share_of_dose * 100, 0), _num(r.lex_8h_m)] for r in df.itertuples()],
+                  caption="Share of the daily dose per task", classes=["", "num", "num"])
+    top = df.iloc[0]
+    summary = f"The task '{top['task']}' gives {top['share_of_dose'] * 100:.0f} % of the daily dose."
+    return Chart(id=_chart_id(slug, 1), figure=fig, summary=summary, table=table, title="Share of the daily dose")
+
+
+def history_chart(mid: str, h: pd.DataFrame, ctx: SiteContext, slug: str, n: int) -> Chart:
+    """Return a downsampled time history with the threshold and criterion lines of the headline rule."""
+    head = ctx.headline
+    x = h["start"].dt.strftime("%Y-%m-%dT%H:%M:%S").to_numpy(dtype=object)
+    fig = go.Figure(go.Scatter(x=x, y=h["laeq"].round(1).to_numpy(), mode="lines",
+                               name="LAeq per interval (energy mean)", line=dict(color=charts.PALETTE[0])))
+    fig.add_trace(go.Scatter(x=x, y=h["lmax"].round(1).to_numpy(), mode="lines",
+                             name="highest interval level", line=dict(color=charts.PALETTE[5], width=1)))
+    charts.base_layout(fig, None, 360, "time", "dB(A)")
+    ref = {f"criterion {head.criterion_level:g}": head.criterion_level}
+    if head.threshold:
+        ref[f"threshold {head.threshold:g}"] = head.threshold
+    _hlines(fig, ref)
+    step = h["n"].max() if len(h) else 0
+    rows = [[t, f"{a:.1f}", f"{b:.1f}", str(c)] for t, a, b, c in
+            zip(h["start"].dt.strftime("%Y-%m-%d %H:%M:%S"), h["laeq"].to_numpy(), h["lmax"].to_numpy(),
+                h["n"].to_numpy())]
+    table = Table(columns=["From", "LAeq, dB(A)", "Highest interval, dB(A)", "Intervals"], rows=rows,
+                  caption=f"Time history of {mid}, up to {int(step)} logged intervals per point",
+                  classes=["", "num", "num", "num"])
+    above = float((h["laeq"] >= head.criterion_level).mean() * 100) if len(h) else 0.0
+    summary = (f"Measurement {mid}: levels from {h['laeq'].min():.0f} to {h['laeq'].max():.0f} dB(A); "
+               f"{above:.0f} % of the time at or above the {head.short} criterion level of "
+               f"{head.criterion_level:g} dB(A).")
+    return Chart(id=_chart_id(slug, n), figure=fig, summary=summary, table=table, height=360,
+                 title=f"Time history {mid}")
+
+
+def budget_table(gr: pd.Series, tasks: pd.DataFrame) -> Table:
+    """Return the ISO 9612 uncertainty budget of one group."""
+    rows: list[list[str]] = []
+    if gr["strategy"] == "job":
+        rows = [["samples N", str(int(gr["n_samples"])), "", "ISO 9612:2009 10.3"],
+                ["u1, spread of the samples", _num(gr["u1"], 2), "dB", "ISO 9612:2009 Eq. C.12"],
+                ["c1·u1", _num(gr["c1u1"], 2), "dB", "ISO 9612:2009 Table C.4 (interpolated)"],
+                ["u2, instrument", _num(gr["u2"], 2), "dB", "ISO 9612:2009 Table C.5"],
+                ["u3, microphone position", _num(gr["u3"], 2), "dB", "ISO 9612:2009 C.6"]]
+    elif gr["strategy"] == "task":
+        for r in tasks.itertuples(index=False):
+            rows.append([f"task '{r.task}': c1a, u1a, c1b·u1b", f"{r.c1a:.3f}, {r.u1a:.2f}, {r.c1b * r.u1b:.2f}",
+                         "–, dB, dB", "ISO 9612:2009 Eq. C.3–C.7"])
+        rows.append(["u2, instrument", _num(gr["u2"], 2), "dB", "ISO 9612:2009 Table C.5"])
+        rows.append(["u3, microphone position", _num(gr["u3"], 2), "dB", "ISO 9612:2009 C.6"])
+    rows += [["combined standard uncertainty u", _num(gr["u"], 2), "dB", "ISO 9612:2009 Eq. C.1"],
+             ["expanded uncertainty U = 1.65 u", _num(gr["u_expanded"], 2), "dB", "ISO 9612:2009 Annex C"],
+             ["LEX,8h", _num(gr["lex_8h"], 1), "dB(A)", ""],
+             ["LEX,8h + U", _num(gr["lex_8h_upper"], 1), "dB(A)", ""]]
+    return Table(columns=["Term", "Value", "Unit", "Source"], rows=rows, caption="Uncertainty budget",
+                 classes=["", "num", "", ""])
+
+
+def bands_table(gr: pd.Series, ctx: SiteContext) -> Table:
+    """Return the group's band under every rule set, judged on the level and on level + U."""
+    rows = []
+    for rid, rule in ctx.rules.items():
+        rows.append([rule.name, "LEX,8h" if rule.metric == "lex" else f"TWA ({rule.exchange_rate:g}-dB rule)",
+                     _num(gr[f"level_{rid}"]), gr[f"band_{rid}"] or charts.BLANK,
+                     _num(gr[f"level_upper_{rid}"]), gr[f"band_upper_{rid}"] or charts.BLANK,
+                     "level + U" if rule.judge_with_uncertainty else "level"])
+    return Table(columns=["Rule set", "Metric", "Level, dB(A)", "Band", "Level + U, dB(A)", "Band with U",
+                          "This rule set's practice"], rows=rows, caption="Bands judged both ways",
+                 classes=["", "", "num", "", "num", "", ""])
+
+
+def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str) -> Page:
+    """Return the page of one group."""
+    code = gr["group"]
+    suppressed = code in ctx.suppressed_groups
+    context: dict[str, Any] = {"group_code": code, "group_name": gr["name"], "suppressed": suppressed,
+                               "strategy": gr["strategy"], "rules_name": ctx.headline.name}
+    page_charts: list[Chart] = []
+    if not suppressed:
+        m = res.measurements[res.measurements["group"] == code]
+        t = res.tasks[res.tasks["group"] == code] if len(res.tasks) else res.tasks
+        context.update(
+            figures={"n_people": int(gr["n_people"]), "n_samples": int(gr["n_samples"]), "lex_8h": gr["lex_8h"],
+                     "u_expanded": gr["u_expanded"], "lex_8h_upper": gr["lex_8h_upper"], "band": gr["band"],
+                     "osha_twa": gr["osha_twa"], "niosh_twa": gr["niosh_twa"], "max_lcpeak": gr["max_lcpeak"],
+                     "te_h": gr["te_h"], "stale": bool(gr["stale"]), "last_measured": gr["last_measured"]},
+            measurement_table=measurement_table(m, ctx),
+            task_table=task_table(t) if len(t) else None,
+            budget_table=budget_table(gr, t),
+            bands_table=bands_table(gr, ctx),
+            steady=bool((m["basis"] == "steady_level").any()),
+            findings=[f.message for f in res.findings if f"group {code}:" in f.message or f"group {code}," in f.message],
+        )
+        n = 1
+        if len(t):
+            page_charts.append(task_chart(t, slug))
+            n += 1
+        for mid in sorted(set(m["measurement_id"]) & set(res.logs)):
+            page_charts.append(history_chart(mid, res.logs[mid], ctx, slug, n))
+            n += 1
+    return Page(slug=slug, title=f"Exposure: {gr['name']}", template="exposure_group.html", section=SECTION,
+                context=context, charts=page_charts)
+
+
+# ---------------------------------------------------------------------------------------
+# noise map
+
+
+def noise_map_chart(res: ExposureResult, ctx: SiteContext) -> Chart | None:
+    """Return the map of area measurements with the interpolated contour, or None without positions."""
+    nm = res.noise_map
+    pts = nm.points
+    if pts.empty:
+        return None
+    fig = go.Figure()
+    if nm.z.size:
+        fig.add_trace(go.Contour(x=nm.x.round(2).tolist(), y=nm.y.round(2).tolist(), z=np.round(nm.z, 1).tolist(),
+                                 colorscale="YlOrRd", opacity=0.75, name=MAP_NOTE,
+                                 contours=dict(showlabels=True, start=float(np.floor(nm.z.min())),
+                                               end=float(np.ceil(nm.z.max())), size=1.0 if np.ptp(nm.z) < 10 else 2.0),
+                                 colorbar=dict(title=dict(text="dB(A), " + MAP_NOTE, side="right")),
+                                 hovertemplate="%{x} m, %{y} m: %{z} dB(A) (" + MAP_NOTE + ")<extra></extra>"))
+    fig.add_trace(go.Scatter(x=pts["x_m"].tolist(), y=pts["y_m"].tolist(), mode="markers+text",
+                             text=[f"{v:.0f}" for v in pts["laeq"]], textposition="top center",
+                             name="measured points", marker=dict(size=9, color="#1d2730", symbol="x"),
+                             customdata=pts["location"].tolist(),
+                             hovertemplate="%{customdata}: %{text} dB(A) measured<extra></extra>"))
+    charts.base_layout(fig, None, 560, "east, m", "north, m")
+    fig.update_yaxes(scaleanchor="x", scaleratio=1)
+    table = charts.table_from_frame(pts, {"location": "Location", "x_m": "East, m", "y_m": "North, m",
+                                          "laeq": "LAeq, dB(A)", "n": "Measurements", "last_date": "Latest"},
+                                    {"x_m": ".1f", "y_m": ".1f", "n": "d"},
+                                    caption="Measured points (energy mean per position)")
+    summary = (f"{len(pts)} measured position{'s' if len(pts) != 1 else ''} from {pts['laeq'].min():.0f} to "
+               f"{pts['laeq'].max():.0f} dB(A)"
+               + (f"; the coloured contour between them is {MAP_NOTE}." if nm.z.size else
+                  "; too few positions for an interpolated contour."))
+    return Chart(id="noise-map-1", figure=fig, summary=summary, table=table, height=560, title="Noise map")
+
+
+# ---------------------------------------------------------------------------------------
+
+
+def build(ctx: SiteContext) -> list[Page]:
+    """Return the exposure overview, one page per group, and the noise map."""
+    res: ExposureResult | None = ctx.results.get("exposure")
+    if res is None:
+        return []
+    head = ctx.headline
+    codes = res.groups["group"].tolist()
+    slugs = group_slugs(codes)
+    m = res.measurements
+    band_chart, band_tab = band_counts(res, ctx)
+    dist = distribution_chart(res, ctx)
+    visible = res.groups[~res.groups["group"].isin(sorted(ctx.suppressed_groups))]
+    has_noise = ctx.programme.has("noise") or ctx.programme.has("tasks")
+    overview = Page(
+        slug="exposure", title="Noise exposure", template="exposure.html", section=SECTION, in_nav=True,
+        context={
+            "has_noise": has_noise,
+            "rules_name": head.name,
+            "rule_names": [r.name for r in ctx.rules.values()],
+            "head_judged_with_u": head.judge_with_uncertainty,
+            "action_value": action_value(head),
+            "tiles": [{"label": "measurements", "value": f"{len(m):,}"},
+                      {"label": "groups", "value": f"{len(res.groups):,}"},
+                      {"label": f"groups at or above {action_value(head):g} dB(A)",
+                       "value": f"{int(visible['exposed'].sum()):,}"},
+                      {"label": "groups needing a survey", "value": f"{int(res.groups['stale'].sum()):,}"}],
+            "group_links": [{"code": c, "name": n, "href": f"exposure/{slugs[c]}.html"}
+                            for c, n in zip(res.groups["group"], res.groups["name"])],
+            "groups_table": groups_table(res, ctx, slugs),
+            "coverage_table": coverage_table(res),
+            "basis_table": basis_table(res),
+            "steady": bool((m["basis"] == "steady_level").any()),
+            "weekly_table": weekly_table(res, ctx),
+            "actions_table": actions_table(res, ctx),
+            "findings_table": findings_table(res, ctx.suppressed_groups),
+            "parameters": [{"name": p[0], "value": p[1], "unit": p[2], "source": p[3]} for p in PARAMETERS],
+            "notes": [n for r in ctx.rules.values() for n in r.notes],
+            "any_suppressed": bool(set(res.groups["group"]) & set(ctx.suppressed_groups)),
+            "has_map": not res.noise_map.points.empty,
+        },
+        charts=[dist, band_chart],
+    )
+    pages = [overview]
+    for _, gr in res.groups.iterrows():
+        pages.append(group_page(gr, res, ctx, f"exposure/{slugs[gr['group']]}"))
+    chart = noise_map_chart(res, ctx)
+    pages.append(Page(slug="noise-map", title="Noise map", template="noise_map.html", section=SECTION,
+                      context={"has_points": chart is not None, "map_note": MAP_NOTE,
+                               "n_points": int(len(res.noise_map.points))},
+                      charts=[chart] if chart is not None else []))
+    log.info("exposure pages: %d", len(pages))
+    return pages

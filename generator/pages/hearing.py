@@ -1,0 +1,549 @@
+"""The hearing pages: overview, one section page per group and (restricted builds only)
+one page per person. Reads ``ctx.results["hearing"]``; computes nothing new."""
+from __future__ import annotations
+
+import logging
+import re
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import plotly.graph_objects as go
+
+from .. import charts
+from ..hearing import EAR_NAMES, HearingResult, PARAMETERS
+from ..inputs.spec import AUDIO_FREQS
+from .base import Chart, Page, SiteContext, Table
+
+log = logging.getLogger(__name__)
+
+SUPPRESSED = "suppressed"
+#: years shown in the per-year charts (the latest ones)
+YEARS_SHOWN = 10
+#: colours of the follow-up statuses
+STATUS_COLOURS = {"on time": charts.PALETTE[2], "late": charts.PALETTE[1], "missing": charts.PALETTE[4],
+                  "not yet due": charts.PALETTE[5]}
+#: audiogram symbols (common practice): right ear red circles, left ear blue crosses
+EAR_STYLE = {"R": dict(color="#c0392b", symbol="circle-open"), "L": dict(color="#1f5fa8", symbol="x")}
+#: line style per audiogram shown on a person's chart
+ROLE_DASH = {"baseline": "dot", "previous": "dash", "latest": "solid"}
+KIND_WORDS = {"notice": "written notice", "retest": "retest", "refit": "protector refit", "referral": "referral"}
+BLANK = charts.BLANK
+
+
+def group_slug(group: str) -> str:
+    """Return a file-name-safe, lower-case slug for a group code."""
+    s = re.sub(r"[^a-z0-9]+", "-", str(group).lower()).strip("-")
+    return s or "group"
+
+
+def _group_slugs(groups: list[str]) -> dict[str, str]:
+    """Return group -> unique slug (a numeric suffix where two groups slug alike)."""
+    out: dict[str, str] = {}
+    used: set[str] = set()
+    for g in sorted(groups):
+        base = group_slug(g)
+        s, i = base, 2
+        while s in used:
+            s, i = f"{base}-{i}", i + 1
+        used.add(s)
+        out[g] = s
+    return out
+
+
+def _num(v: Any, digits: int = 1) -> str:
+    if v is None or v is pd.NA or v is pd.NaT:
+        return BLANK
+    try:
+        f = float(v)
+    except (TypeError, ValueError):
+        return str(v)
+    return BLANK if np.isnan(f) else f"{f:.{digits}f}"
+
+
+def _pct(v: Any, digits: int = 1) -> str:
+    s = _num(None if v is None else (float(v) * 100 if not pd.isna(v) else np.nan), digits)
+    return s if s == BLANK else s + " %"
+
+
+def _yes(v: Any) -> str:
+    if v is None or v is pd.NA or (isinstance(v, float) and np.isnan(v)):
+        return BLANK
+    return "yes" if bool(v) else "no"
+
+
+def _date(v: Any) -> str:
+    return BLANK if v is None or pd.isna(v) else pd.Timestamp(v).strftime("%Y-%m-%d")
+
+
+def _years(ctx: SiteContext) -> list[int]:
+    """Return the calendar years of the review period."""
+    p = ctx.programme.config.period
+    return list(range(p.start.year, p.end.year + 1))
+
+
+def _period(ctx: SiteContext) -> tuple[pd.Timestamp, pd.Timestamp]:
+    p = ctx.programme.config.period
+    return pd.Timestamp(p.start), pd.Timestamp(p.end)
+
+
+def _ci_text(lo: Any, hi: Any) -> str:
+    if pd.isna(lo) or pd.isna(hi):
+        return BLANK
+    return f"{float(lo) * 100:.1f}–{float(hi) * 100:.1f} %"
+
+
+# ---------------------------------------------------------------------------------------
+# charts shared by the overview and the group pages
+
+
+def per_year_chart(pop: pd.DataFrame, group: str, cid: str, label: str) -> Chart:
+    """Return tested people, shifts and recordable cases per year for *group* ('all' = everyone)."""
+    d = pop[pop["group"] == group].sort_values("year").tail(YEARS_SHOWN)
+    years = [str(y) for y in d["year"]]
+    fig = charts.grouped_bar(years, {"people tested": d["n_tested"].tolist(),
+                                     "people with an STS": d["n_sts"].tolist(),
+                                     "people with a recordable case": d["n_recordable"].tolist()},
+                             xaxis_title="year", yaxis_title="people")
+    rows = [[str(r.year), str(r.n_tested), str(r.n_sts), _pct(r.sts_rate), _ci_text(r.sts_ci_low, r.sts_ci_high),
+             str(r.n_recordable), _pct(r.recordable_rate), _ci_text(r.recordable_ci_low, r.recordable_ci_high)]
+            for r in d.itertuples()]
+    table = Table(["Year", "Tested", "With STS", "STS rate", "95 % CI (exact)", "Recordable", "Recordable rate",
+                   "95 % CI (exact)"], rows, caption=f"People tested, with a standard threshold shift in force and "
+                  f"with a recordable case per year ({label})", classes=["", "num", "num", "num", "", "num", "num", ""])
+    if d.empty:
+        summary = f"No audiograms for {label}."
+    else:
+        last = d.iloc[-1]
+        summary = (f"In {int(last['year'])}, {int(last['n_sts'])} of {int(last['n_tested'])} people tested "
+                   f"({label}) had a standard threshold shift in force and {int(last['n_recordable'])} a "
+                   "recordable case.")
+    return Chart(cid, fig, summary, table, title="Shifts and recordable cases per year")
+
+
+def mean_average_chart(pop: pd.DataFrame, groups: list[str], cid: str) -> Chart:
+    """Return the mean 2000/3000/4000 Hz average per year for each group shown."""
+    series: dict[str, list] = {}
+    years = sorted(pop["year"].unique().tolist())[-YEARS_SHOWN:]
+    rows = []
+    for g in groups:
+        d = pop[pop["group"] == g].set_index("year").reindex(years)
+        series[g] = d["mean_avg_234"].tolist()
+        for y, r in d.iterrows():
+            if pd.isna(r["n_tested"]):
+                continue
+            rows.append([g, str(y), _num(r["mean_avg_234"]), str(int(r["n_avg"])), _num(r["change_mean_avg"]),
+                         _num(r["mean_within_change"]), str(int(r["n_within"])), str(int(r["n_nr_excluded"]))])
+    fig = charts.line([str(y) for y in years], series, xaxis_title="year",
+                      yaxis_title="mean of the 2000/3000/4000 Hz average, dB HL")
+    table = Table(["Group", "Year", "Mean average, dB HL", "People", "Change from the year before, dB",
+                   "Mean change of the same people, dB", "People in both years", "Ears left out (NR)"], rows,
+                  caption="Mean 2000/3000/4000 Hz hearing level per year (latest test of each ear in the year)",
+                  classes=["", "", "num", "num", "num", "num", "num", "num"])
+    ch = pop[pop["group"].isin(groups)].dropna(subset=["mean_within_change"])
+    if ch.empty:
+        summary = "There are not yet two consecutive years of tests to compare."
+    else:
+        last = ch.sort_values("year").groupby("group").tail(1)
+        top = last.sort_values("mean_within_change", ascending=False).iloc[0]
+        summary = (f"The largest mean change of the same people from one year to the next in the latest year is "
+                   f"{float(top['mean_within_change']):.1f} dB ({top['group']}, {int(top['year'])}).")
+    return Chart(cid, fig, summary, table, title="Mean 2000/3000/4000 Hz hearing level per year")
+
+
+def indicators_chart(ind: pd.DataFrame, group: str, cid: str, label: str) -> Chart:
+    """Return %Worse-sequential and %Better-or-Worse-sequential per year for *group*."""
+    d = ind[(ind["group"] == group) & (ind["n_pairs"] > 0)].sort_values("year").tail(YEARS_SHOWN)
+    years = [str(y) for y in d["year"]]
+    fig = charts.line(years, {"%Worse-sequential": d["pct_worse"].tolist(),
+                              "%Better-or-Worse-sequential": d["pct_better_or_worse"].tolist()},
+                      xaxis_title="year (later test of the pair)", yaxis_title="% of people")
+    rows = [[str(r.year), str(r.n_pairs), str(r.n_worse), _num(r.pct_worse), str(r.n_better_or_worse),
+             _num(r.pct_better_or_worse), str(r.n_incomplete)] for r in d.itertuples()]
+    table = Table(["Year", "Pairs", "Worse", "%Ws", "Better or worse", "%BWs", "Pairs left out (incomplete or NR)"],
+                  rows, caption=f"Sequential audiogram pairs ({label})",
+                  classes=["", "num", "num", "num", "num", "num", "num"])
+    if d.empty:
+        summary = f"No sequential pairs of complete audiograms yet ({label})."
+    else:
+        last = d.iloc[-1]
+        summary = (f"In {int(last['year'])}, {float(last['pct_worse']):.1f} % of {int(last['n_pairs'])} people "
+                   f"were 15 dB or more worse than on their previous test at some frequency, and "
+                   f"{float(last['pct_better_or_worse']):.1f} % better or worse ({label}).")
+    return Chart(cid, fig, summary, table, title="Sequential-pair indicators")
+
+
+def noise_chart(ne: pd.DataFrame, groups: list[str], cid: str, freqs: tuple[int, ...] = (4000,)) -> Chart:
+    """Return expected (ISO 1999 + ISO 7029) vs observed change since baseline per group."""
+    d = ne[ne["group"].isin(groups)].sort_values(["group", "freq"])
+    shown = d[d["freq"].isin(freqs)]
+    cats = [f"{g} {f // 1000} kHz" if len(freqs) > 1 else g for g, f in zip(shown["group"], shown["freq"])]
+    fig = charts.grouped_bar(cats, {"expected from noise (ISO 1999:2013)": shown["expected_noise_change"].tolist(),
+                                    "expected from age (ISO 7029:2017)": shown["expected_age_change"].tolist(),
+                                    "observed": shown["observed_change"].tolist()},
+                             yaxis_title="mean change since baseline, dB")
+    rows = [[r.group, str(int(r.freq)), _num(r.lex_8h), _num(r.mean_years), _num(r.nipts_at_mean_years),
+             _num(r.expected_noise_change), _num(r.expected_age_change), _num(r.expected_change),
+             _num(r.observed_change), str(int(r.n_ears)), str(int(r.n_nr_excluded))] for r in d.itertuples()]
+    table = Table(["Group", "Hz", "LEX,8h, dB(A)", "Mean years exposed", "Median NIPTS at mean years, dB",
+                   "Expected noise change, dB", "Expected age change, dB", "Expected total, dB",
+                   "Observed change, dB", "Ears", "Ears left out (NR)"], rows,
+                  caption="Expected and observed change since each ear's baseline (latest test of each ear)",
+                  classes=["", "num"] + ["num"] * 9)
+    if shown.empty:
+        summary = "No group has both an exposure level and audiograms after a baseline."
+    else:
+        diff = (shown["observed_change"] - shown["expected_change"]).to_numpy(float)
+        i = int(np.nanargmax(diff)) if np.isfinite(diff).any() else 0
+        r = shown.iloc[i]
+        where = f"{r['group']} {int(r['freq'])} Hz" if len(freqs) > 1 else str(r["group"])
+        if np.isfinite(diff[i]) and diff[i] > 0:
+            summary = (f"The observed change since baseline exceeds the change noise and age would lead one to "
+                       f"expect most in {where}: {float(r['observed_change']):.1f} dB observed against "
+                       f"{float(r['expected_change']):.1f} dB expected.")
+        else:
+            summary = ("In every group shown the observed mean change since baseline is no larger than the "
+                       "change noise and age would lead one to expect.")
+    return Chart(cid, fig, summary, table, title="Expected and observed change at 4 kHz")
+
+
+def age_chart(an: pd.DataFrame, cid: str, freq: int = 4000) -> Chart:
+    """Return observed median hearing level by age band and sex vs ISO 7029:2017 at *freq*."""
+    d = an[an["freq"] == freq].sort_values(["sex", "age_band"])
+    bands = sorted(d["age_band"].unique().tolist())
+    fig = go.Figure()
+    for sex, word, col in (("M", "men", charts.PALETTE[0]), ("F", "women", charts.PALETTE[1])):
+        s = d[d["sex"] == sex].set_index("age_band").reindex(bands)
+        if not s["n_ears"].notna().any():
+            continue
+        for label, column, dash, mode in (("observed median", "observed_median", "solid", "lines+markers"),
+                                          ("ISO 7029 median", "iso_median", "dash", "lines"),
+                                          ("ISO 7029 10 % worst", "iso_p90", "dot", "lines")):
+            ys = charts._values(s[column].replace(np.inf, np.nan))
+            fig.add_trace(go.Scatter(x=bands, y=ys, name=f"{label}, {word}", mode=mode,
+                                     line=dict(color=col, dash=dash)))
+    charts.base_layout(fig, None, 440, "age band, years", f"hearing level at {freq} Hz, dB")
+    fig.update_yaxes(autorange="reversed")
+    rows = [[r.age_band, r.sex, str(int(r.freq)), str(int(r.n_ears)), _num(r.mean_age), _obs(r.observed_median),
+             _obs(r.observed_p90), _num(r.iso_median), _num(r.iso_p90), _pct(r.share_worse_than_iso_p90),
+             str(int(r.n_nr))] for r in an.sort_values(["freq", "sex", "age_band"]).itertuples()]
+    table = Table(["Age band", "Sex", "Hz", "Ears", "Mean age", "Observed median, dB HL",
+                   "Observed 90th percentile, dB HL", "ISO 7029 median, dB", "ISO 7029 10 % worst, dB",
+                   "Share worse than the ISO 7029 10 % line (10 % expected)", "NR"], rows,
+                  caption="Latest hearing level of each ear by age band and sex against ISO 7029:2017",
+                  classes=["", "", "num", "num", "num", "num", "num", "num", "num", "num", "num"])
+    at = an[an["freq"] == freq]
+    if at.empty:
+        summary = "No audiograms with a known age and sex to compare with ISO 7029."
+    else:
+        share = float(np.average(at["share_worse_than_iso_p90"], weights=at["n_ears"]))
+        summary = (f"At {freq} Hz, {share * 100:.0f} % of ears are worse than the level ISO 7029:2017 expects "
+                   "only the worst 10 % of otologically normal people of the same age and sex to reach.")
+    return Chart(cid, fig, summary, table, title=f"Hearing level by age at {freq} Hz against ISO 7029:2017")
+
+
+def _obs(v: Any) -> str:
+    if v is not None and not pd.isna(v) and np.isinf(float(v)):
+        return "NR"
+    return _num(v)
+
+
+def followup_chart(fu: pd.DataFrame, cid: str) -> Chart:
+    """Return the follow-ups due in the period by kind and status."""
+    kinds = [k for k in ("notice", "retest", "refit", "referral") if (fu["kind"] == k).any()]
+    counts = fu.groupby(["kind", "status"]).size().unstack(fill_value=0) if not fu.empty else pd.DataFrame()
+    series = {s: [int(counts.loc[k, s]) if (k in counts.index and s in counts.columns) else 0 for k in kinds]
+              for s in STATUS_COLOURS}
+    fig = charts.stacked_bar([KIND_WORDS[k] for k in kinds], series, yaxis_title="follow-ups", colours=STATUS_COLOURS)
+    rows = [[KIND_WORDS[k]] + [str(series[s][i]) for s in STATUS_COLOURS] for i, k in enumerate(kinds)]
+    table = Table(["Follow-up"] + list(STATUS_COLOURS), rows, caption="Follow-ups due in the review period",
+                  classes=[""] + ["num"] * len(STATUS_COLOURS))
+    n = len(fu)
+    ok = int((fu["status"] == "on time").sum()) if n else 0
+    bad = int(fu["status"].isin(["late", "missing"]).sum()) if n else 0
+    summary = (f"Of {n} follow-ups due in the period, {ok} were done on time and {bad} were late or are not on "
+               "record." if n else "No follow-ups fell due in the period.")
+    return Chart(cid, fig, summary, table, title="Follow-up timeliness")
+
+
+def rate_by_group_chart(pg: pd.DataFrame, suppressed: frozenset[str], cid: str) -> Chart:
+    """Return the STS rate per group in the period with exact 95 % intervals (suppressed groups left out)."""
+    agg = pg[pg["group"] != "all"].rename(columns={"sts_rate": "rate", "sts_ci_low": "lo", "sts_ci_high": "hi"})
+    shown = agg[~agg["group"].isin(sorted(suppressed))]
+    fig = go.Figure(go.Bar(x=shown["group"].tolist(), y=(shown["rate"] * 100).round(2).tolist(),
+                           error_y=dict(type="data", symmetric=False,
+                                        array=((shown["hi"] - shown["rate"]) * 100).round(2).tolist(),
+                                        arrayminus=((shown["rate"] - shown["lo"]) * 100).round(2).tolist()),
+                           marker=dict(color=charts.PALETTE[0]), name="STS rate"))
+    charts.base_layout(fig, None, 420, "similar exposure group", "people with an STS, % of tested")
+    rows = []
+    for r in agg.itertuples():
+        if r.group in suppressed:
+            rows.append([r.group] + [SUPPRESSED] * 4)
+        else:
+            rows.append([r.group, str(int(r.n_tested)), str(int(r.n_sts)), _pct(r.rate), _ci_text(r.lo, r.hi)])
+    table = Table(["Group", "Tested", "With STS", "Rate", "95 % CI (exact)"], rows,
+                  caption="People with a standard threshold shift in the review period, per group",
+                  classes=["", "num", "num", "num", ""])
+    if shown.empty or shown["rate"].isna().all():
+        summary = "No group shown has audiograms in the period."
+    else:
+        top = shown.sort_values("rate", ascending=False).iloc[0]
+        summary = (f"The highest share with a standard threshold shift in the period is in {top['group']}: "
+                   f"{float(top['rate']) * 100:.1f} % (exact 95 % interval {_ci_text(top['lo'], top['hi'])}).")
+    return Chart(cid, fig, summary, table, title="Standard threshold shifts per group in the period")
+
+
+# ---------------------------------------------------------------------------------------
+# tables
+
+
+def shifts_table(a: pd.DataFrame, ctx: SiteContext, link: bool) -> Table:
+    """Return the audiograms with a shift, a recordable case or an NR to review (codes only)."""
+    d = a.sort_values(["date", "person_id", "ear"])
+    rows = []
+    for r in d.itertuples():
+        code = ctx.code(r.person_id)
+        rows.append([code, EAR_NAMES.get(r.ear, r.ear), _date(r.date), _num(r.avg_234), _num(r.shift_234),
+                     _num(r.shift_234_age_corrected), r.shift_status or BLANK, r.retest_status or BLANK,
+                     _yes(r.recordable), _yes(r.niosh_shift)])
+    return Table(["Person", "Ear", "Date", "2/3/4 kHz average, dB HL", "Shift, dB", "Shift age-corrected, dB",
+                  "Status", "Retest", "Recordable", "NIOSH shift"], rows,
+                 caption="Audiograms with a shift or to review in the period (pseudonymous codes)",
+                 classes=["", "", "", "num", "num", "num", "", "", "", ""])
+
+
+def followups_table(fu: pd.DataFrame, ctx: SiteContext) -> Table:
+    """Return follow-ups that were late, are missing or are due (codes only)."""
+    d = fu[fu["status"] != "on time"].sort_values(["due_date", "person_id", "ear", "kind"])
+    rows = [[ctx.code(r.person_id), EAR_NAMES.get(r.ear, r.ear), KIND_WORDS.get(r.kind, r.kind),
+             _date(r.trigger_date), _date(r.due_date), _date(r.done_date), r.status, r.clause]
+            for r in d.itertuples()]
+    return Table(["Person", "Ear", "Follow-up", "Shift or decision", "Due", "Done", "Status", "Clause"], rows,
+                 caption="Follow-ups not done on time (pseudonymous codes)")
+
+
+def group_table(pg: pd.DataFrame, pop: pd.DataFrame, years: list[int], suppressed: frozenset[str]) -> Table:
+    """Return the period figures per group (distinct people) with the latest mean 2/3/4 kHz average."""
+    d = pop[pop["year"].isin(years)]
+    mean = d.sort_values("year").groupby("group")[["mean_avg_234", "change_mean_avg"]].last()
+    rows = []
+    for r in sorted(pg.itertuples(), key=lambda x: (x.group == "all", x.group)):
+        name = "all groups" if r.group == "all" else r.group
+        if r.group in suppressed:
+            rows.append([name] + [SUPPRESSED] * 6)
+            continue
+        m = mean.loc[r.group] if r.group in mean.index else pd.Series({"mean_avg_234": np.nan, "change_mean_avg": np.nan})
+        rows.append([name, str(int(r.n_tested)), str(int(r.n_sts)), _ci_text(r.sts_ci_low, r.sts_ci_high),
+                     str(int(r.n_recordable)), _num(m["mean_avg_234"]), _num(m["change_mean_avg"])])
+    return Table(["Group", "Tested", "With STS", "STS rate 95 % CI (exact)", "Recordable",
+                  "Mean 2/3/4 kHz average, dB HL", "Change from the year before, dB"], rows,
+                 caption="Review period per group (distinct people)",
+                 classes=["", "num", "num", "", "num", "num", "num"])
+
+
+# ---------------------------------------------------------------------------------------
+# pages
+
+
+def _tiles(h: HearingResult, a: pd.DataFrame, fu: pd.DataFrame, cases: pd.DataFrame) -> list[dict[str, Any]]:
+    tested = int(a["person_id"].nunique())
+    sts = int(a.loc[a["sts"], "person_id"].nunique())
+    niosh = int(a.loc[a["niosh_shift"], "person_id"].nunique())
+    late = int(fu["status"].isin(["late", "missing"]).sum()) if not fu.empty else 0
+    tiles = [
+        {"value": str(tested), "label": "people tested", "warn": False},
+        {"value": str(sts), "label": "people with a standard threshold shift (OSHA)", "warn": False},
+        {"value": str(len(cases)), "label": "recordable cases (29 CFR 1904.10)", "warn": len(cases) > 0},
+        {"value": str(niosh), "label": "people with a confirmed NIOSH 15 dB shift", "warn": False},
+        {"value": str(late), "label": "follow-ups late or not on record", "warn": late > 0},
+    ]
+    return tiles
+
+
+def _in_period(df: pd.DataFrame, col: str, start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:
+    if df.empty:
+        return df
+    return df[(df[col] >= start) & (df[col] <= end)]
+
+
+def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page:
+    start, end = _period(ctx)
+    years = _years(ctx)
+    sup = ctx.suppressed_groups
+    a = _in_period(h.audiograms, "date", start, end)
+    fu = _in_period(h.followups, "due_date", start, end)
+    cases = _in_period(h.cases, "date", start, end)
+    shown_groups = [g for g in sorted(slugs) if g not in sup]
+    page_charts = [
+        per_year_chart(h.population, "all", "hearing-1", "all groups"),
+        rate_by_group_chart(h.period_groups, sup, "hearing-2"),
+        followup_chart(fu, "hearing-3"),
+        indicators_chart(h.indicators, "all", "hearing-4", "all groups"),
+        mean_average_chart(h.population, shown_groups, "hearing-5"),
+        age_chart(h.age_norms, "hearing-6"),
+        noise_chart(h.noise_expected, shown_groups, "hearing-7"),
+    ]
+    a_vis = a[~a["group"].isin(sorted(sup))]
+    hidden = set(h.audiograms.loc[h.audiograms["group"].isin(sorted(sup)), "person_id"])
+    fu_vis = fu[~fu["person_id"].isin(hidden)] if not fu.empty else fu
+    flagged = a_vis[(a_vis["shift_status"] != "") | a_vis["recordable"]]
+    context = {
+        "has_data": not h.audiograms.empty,
+        "tiles": _tiles(h, a, fu, cases),
+        "rate_text": (None if h.summary.get("recordable_rate_per_200k") is None
+                      else f"{h.summary['recordable_rate_per_200k']:.2f}"),
+        "age_correction": ctx.programme.config.audiometry.age_correction,
+        "retest_days": ctx.programme.config.audiometry.retest_days,
+        "notice_days": ctx.programme.config.audiometry.notice_days,
+        "group_table": group_table(h.period_groups, h.population, years, sup),
+        "group_links": [{"group": g, "href": f"hearing/{slugs[g]}.html", "suppressed": g in sup}
+                        for g in sorted(slugs)],
+        "shifts_table": shifts_table(flagged, ctx, False),
+        "followups_table": followups_table(fu_vis, ctx),
+        "notes": list(h.notes),
+        "any_suppressed": bool(set(slugs) & set(sup)),
+        "n_candidates": int(h.summary.get("baseline_candidates", 0)),
+    }
+    return Page(slug="hearing", title="Hearing", template="hearing.html", section="hearing", context=context,
+                charts=page_charts, in_nav=True)
+
+
+def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Page:
+    start, end = _period(ctx)
+    full = f"hearing/{slug}"
+    cid = "hearing-" + slug
+    if group in ctx.suppressed_groups:
+        return Page(slug=full, title=f"Hearing: {group}", template="hearing_group.html", section="hearing",
+                    context={"group": group, "suppressed": True, "tiles": [], "shifts_table": None,
+                             "followups_table": None, "group_name": group})
+    a = _in_period(h.audiograms, "date", start, end)
+    a = a[a["group"] == group]
+    fu = _in_period(h.followups, "due_date", start, end)
+    fu = fu[fu["person_id"].isin(set(h.audiograms.loc[h.audiograms["group"] == group, "person_id"]))]
+    cases = _in_period(h.cases, "date", start, end)
+    cases = cases[cases["group"] == group]
+    page_charts = [
+        per_year_chart(h.population, group, f"{cid}-1", group),
+        mean_average_chart(h.population, [group], f"{cid}-2"),
+        indicators_chart(h.indicators, group, f"{cid}-3", group),
+        noise_chart(h.noise_expected, [group], f"{cid}-4", freqs=(3000, 4000, 6000)),
+    ]
+    flagged = a[(a["shift_status"] != "") | a["recordable"]]
+    context = {"group": group, "suppressed": False, "tiles": _tiles(h, a, fu, cases),
+               "shifts_table": shifts_table(flagged, ctx, False), "followups_table": followups_table(fu, ctx),
+               "group_name": group}
+    return Page(slug=full, title=f"Hearing: {group}", template="hearing_group.html", section="hearing",
+                context=context, charts=page_charts)
+
+
+def _audiogram_chart(rows: pd.DataFrame, cid: str, code: str) -> Chart:
+    """Return one person's audiogram chart: baseline, previous and latest test of each ear."""
+    fig = go.Figure()
+    table_rows = []
+    for ear in ("R", "L"):
+        e = rows[rows["ear"] == ear].sort_values("date")
+        if e.empty:
+            continue
+        latest = e.iloc[-1]
+        picks: list[tuple[str, pd.Series]] = []
+        bdate = latest["baseline_date"]
+        base = e[e["date"] == bdate]
+        if not base.empty and bdate != latest["date"]:
+            picks.append(("baseline", base.iloc[0]))
+        prev = e[(e["date"] < latest["date"]) & (e["date"] != bdate)]
+        if not prev.empty:
+            picks.append(("previous", prev.iloc[-1]))
+        picks.append(("latest", latest))
+        style = EAR_STYLE[ear]
+        for role, r in picks:
+            ys = [None if pd.isna(r[f"hl_{f}"]) else float(r[f"hl_{f}"]) for f in AUDIO_FREQS]
+            name = f"{EAR_NAMES[ear]}, {role} {_date(r['date'])}"
+            fig.add_trace(go.Scatter(x=list(AUDIO_FREQS), y=ys, name=name, mode="lines+markers",
+                                     line=dict(color=style["color"], dash=ROLE_DASH[role], width=1.5),
+                                     marker=dict(symbol=style["symbol"], size=10, color=style["color"])))
+            nr = [f for f in AUDIO_FREQS if bool(r[f"nr_{f}"])]
+            table_rows.append([EAR_NAMES[ear], role, _date(r["date"])]
+                              + ["NR" if f in nr else _num(r[f"hl_{f}"], 0) for f in AUDIO_FREQS])
+    fig.update_xaxes(type="log", tickvals=list(AUDIO_FREQS), ticktext=[f"{f:g}" for f in AUDIO_FREQS],
+                     title_text="frequency, Hz")
+    fig.update_yaxes(autorange="reversed", title_text="hearing level, dB HL", dtick=10)
+    charts.base_layout(fig, None, 460)
+    table = Table(["Ear", "Test", "Date"] + [f"{f} Hz" for f in AUDIO_FREQS], table_rows,
+                  caption="Hearing levels shown in the chart, dB HL (NR = no response at the audiometer's limit)",
+                  classes=["", "", ""] + ["num"] * len(AUDIO_FREQS))
+    summary = (f"Audiogram of {code}: baseline, previous and latest test of each ear (right ear red circles, left "
+               "ear blue crosses; hearing level increases downwards).")
+    return Chart(cid, fig, summary, table, height=460, title="Audiograms")
+
+
+def _person_pages(ctx: SiteContext, h: HearingResult) -> list[Page]:
+    """Return one restricted page per person with audiograms."""
+    a = h.audiograms
+    if a.empty:
+        return []
+    reviews = ctx.programme.table("reviews")
+    rv = reviews.copy() if not reviews.empty else pd.DataFrame(columns=["person_id"])
+    rv["person_id"] = rv["person_id"].astype(str) if "person_id" in rv else rv.get("person_id")
+    rv_by = {k: g for k, g in rv.groupby("person_id", sort=True)} if not rv.empty else {}
+    fu_by = {k: g for k, g in h.followups.groupby("person_id", sort=True)} if not h.followups.empty else {}
+    base_by = {k: g for k, g in h.baselines.groupby("person_id", sort=True)} if not h.baselines.empty else {}
+    pages = []
+    for pid, rows in a.groupby("person_id", sort=True):
+        code = ctx.code(pid)
+        slug = f"people/{code}"
+        cid = "person-" + re.sub(r"[^a-z0-9]+", "-", code.lower()).strip("-")
+        rows = rows.sort_values(["date", "ear"])
+        hist = [[_date(r.date), EAR_NAMES.get(r.ear, r.ear), r.kind, _date(r.baseline_date), _num(r.avg_234),
+                 _num(r.shift_234), _num(r.shift_234_age_corrected), _yes(r.osha_sts), _yes(r.osha_sts_age_corrected),
+                 r.shift_status or BLANK, r.retest_status or BLANK, _yes(r.recordable), _yes(r.niosh_shift),
+                 r.review_decision or BLANK, _yes(r.valid_check), "yes" if r.nr_any else "no"]
+                for r in rows.itertuples()]
+        hist_table = Table(["Date", "Ear", "Kind", "Baseline", "2/3/4 kHz average", "Shift", "Shift age-corrected",
+                            "STS", "STS age-corrected", "Status", "Retest", "Recordable", "NIOSH", "Review",
+                            "Audiometer checked", "NR"], hist, caption="Every audiogram of this person")
+        rv_rows = []
+        if pid in rv_by:
+            for r in rv_by[pid].sort_values("date").itertuples():
+                rv_rows.append([_date(getattr(r, "date", None)), EAR_NAMES.get(getattr(r, "ear", ""), ""),
+                                getattr(r, "decision", ""), _date(getattr(r, "audiogram_date", None)),
+                                getattr(r, "reviewer_role", "") or BLANK, getattr(r, "note", "") or BLANK])
+        rv_table = Table(["Date", "Ear", "Decision", "Audiogram", "Reviewer", "Note"], rv_rows,
+                         caption="Decisions of the reviewing professional")
+        fu_rows = []
+        if pid in fu_by:
+            for r in fu_by[pid].itertuples():
+                fu_rows.append([EAR_NAMES.get(r.ear, r.ear), KIND_WORDS.get(r.kind, r.kind), _date(r.trigger_date),
+                                _date(r.due_date), _date(r.done_date), r.status, r.clause])
+        fu_table = Table(["Ear", "Follow-up", "Shift or decision", "Due", "Done", "Status", "Clause"], fu_rows,
+                         caption="Follow-ups")
+        b_rows = []
+        if pid in base_by:
+            for r in base_by[pid].itertuples():
+                b_rows.append([EAR_NAMES.get(r.ear, r.ear), _date(r.baseline_date), r.source,
+                               r.candidate or BLANK, _date(r.candidate_date), _yes(r.quiet_ok)])
+        b_table = Table(["Ear", "Baseline", "Chosen as", "Revision candidate", "Candidate test", "Quiet period met"],
+                        b_rows, caption="Baselines in force (revised only by the reviewer)")
+        group = str(rows["group"].iloc[0])
+        pages.append(Page(slug=slug, title=f"Person {code}", template="person.html", section="hearing",
+                          context={"code": code, "group": group, "history_table": hist_table,
+                                   "reviews_table": rv_table, "followups_table": fu_table, "baselines_table": b_table},
+                          charts=[_audiogram_chart(rows, f"{cid}-1", code)], restricted=True))
+    return pages
+
+
+def build(ctx: SiteContext) -> list[Page]:
+    """Return the hearing pages (person pages only in a restricted build)."""
+    h = ctx.results.get("hearing")
+    if h is None:
+        return [Page(slug="hearing", title="Hearing", template="hearing.html", section="hearing",
+                     context={"has_data": False, "notes": ["The hearing stage did not run."], "tiles": [],
+                              "group_links": [], "any_suppressed": False}, in_nav=True)]
+    groups = sorted(set(h.audiograms["group"].astype(str)) - {""}) if not h.audiograms.empty else []
+    slugs = _group_slugs(groups)
+    pages = [_overview(ctx, h, slugs)]
+    pages += [_group_page(ctx, h, g, slugs[g]) for g in groups]
+    if ctx.restricted:
+        pages += _person_pages(ctx, h)
+    log.info("hearing pages: %d", len(pages))
+    return pages

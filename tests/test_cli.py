@@ -1,0 +1,179 @@
+"""The command line: new, check, build, export, serve, demo; exit codes; export format."""
+from __future__ import annotations
+
+import csv
+import io
+import json
+import subprocess
+import sys
+import threading
+import time
+import urllib.request
+from pathlib import Path
+
+import pandas as pd
+import pytest
+
+from generator.cli import main
+from generator.export import frame_to_csv, neutralise
+from tests.conftest import REPO, TEST_KEY, env
+from tests.progkit import make_programme
+
+FINDING_LINE = r"^[^:\n]+:\d*:[^:\n]*: (error|warning): .+$"
+
+
+def test_new_then_check_passes(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    folder = tmp_path / "starter"
+    assert main(["new", str(folder)]) == 0
+    assert (folder / "programme.yaml").is_file() and (folder / "data" / "people.csv").is_file()
+    from generator.config import iter_options
+    text = (folder / "programme.yaml").read_text(encoding="utf-8")
+    for name, _, _, doc in iter_options():
+        assert f"{name.rsplit('.', 1)[-1]}:" in text, name
+        assert doc.split(" (one of")[0] in text, name
+    from generator.inputs.spec import FILES
+    for spec in FILES:
+        rows = list(csv.reader(io.StringIO((folder / spec.path).read_text(encoding="utf-8"))))
+        assert rows[0] == [c.name for c in spec.columns], spec.name
+        assert len(rows) == 3, spec.name
+    capsys.readouterr()
+    with env(HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["check", str(folder)]) == 0
+    out, err = capsys.readouterr()
+    assert "0 errors" in err and "internal error" not in err
+    # two example rows cannot meet every sampling and calibration rule; nothing else is flagged
+    allowed = ("audiometer check", "sample(s); ISO 9612")
+    for line in out.splitlines():
+        assert "warning" in line and any(a in line for a in allowed), line
+    # a second 'new' into the same folder is refused
+    assert main(["new", str(folder)]) == 1
+
+
+def test_check_reports_findings_and_exit_codes(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    bad = make_programme(tmp_path / "bad", files={"people.csv": "person_id,group\nE1,G1\nE1,G1\n"})
+    assert main(["check", str(bad)]) == 1
+    out, err = capsys.readouterr()
+    lines = [l for l in out.splitlines() if l.strip()]
+    assert lines and all(__import__("re").match(FINDING_LINE, l) for l in lines), out
+    assert any(l.startswith("data/people.csv:3:person_id: error:") for l in lines), out
+    assert "Traceback" not in out + err and "internal error" not in out + err
+
+    warn = make_programme(tmp_path / "warn", files={"people.csv": "person_id,group,shoe_size\nE1,G1,9\n"})
+    with env(HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["check", str(warn)]) == 0
+        out, err = capsys.readouterr()
+        assert "shoe_size" in out and "warning" in out
+        assert main(["check", str(warn), "--strict"]) == 1
+        out, err = capsys.readouterr()
+        assert "shoe_size" in out and "internal error" not in err
+
+
+@pytest.mark.parametrize("argv", [
+    ["bogus"], [], ["build"], ["export", "x"], ["serve", "x", "--port", "99999"],
+    ["demo", "x", "--people", "0"], ["build", "x", "--no-such-flag"],
+])
+def test_usage_errors_exit_2(argv: list[str], capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(argv) == 2
+    out, err = capsys.readouterr()
+    assert "Traceback" not in err and "internal error" not in err
+
+
+def test_missing_programme_folder_is_a_usage_error(tmp_path: Path) -> None:
+    assert main(["check", str(tmp_path / "nowhere")]) == 2
+
+
+def test_build_and_refusals(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    root = make_programme(tmp_path / "p")
+    with env(HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["build", str(root)]) == 0
+        assert (root / "_site" / "index.html").is_file()
+        assert main(["build", str(root), "--out", str(root)]) == 1
+        assert main(["build", str(root), "--out", str(tmp_path)]) == 1
+    out, err = capsys.readouterr()
+    assert "output folder cannot" in err and "internal error" not in err
+
+
+def test_python_dash_m_runs_the_cli() -> None:
+    proc = subprocess.run([sys.executable, "-m", "generator", "--version"], capture_output=True, text=True,
+                          cwd=REPO, timeout=60)
+    assert proc.returncode == 0
+    assert proc.stdout.startswith("hcpsite ")
+
+
+def test_neutralise_formula_cells() -> None:
+    # OWASP "CSV Injection": cells starting with = + - @ tab or CR are prefixed with '
+    assert neutralise("=HYPERLINK(\"x\")") == "'=HYPERLINK(\"x\")"
+    assert neutralise("+1+2") == "'+1+2" and neutralise("@SUM(A1)") == "'@SUM(A1)"
+    assert neutralise("\tx") == "'\tx" and neutralise("\rx") == "'\rx" and neutralise("-x") == "'-x"
+    assert neutralise("-3.50") == "-3.50" and neutralise("+4") == "+4"  # plain numbers stay numbers
+    assert neutralise("plain") == "plain" and neutralise("") == ""
+
+
+def test_frame_to_csv_fixed_formats() -> None:
+    df = pd.DataFrame({"a": [1.0, float("nan"), 2.345], "d": pd.to_datetime(["2025-01-02", None, "2025-03-04"]),
+                       "t": ["=cmd", "ok", None], "b": [True, False, True]})
+    text = frame_to_csv(df).decode()
+    assert text.splitlines() == ["a,d,t,b", "1.00,2025-01-02,'=cmd,true", ",,ok,false", "2.35,2025-03-04,,true"]
+
+
+def test_export_writes_contract_files(tmp_path: Path) -> None:
+    noise = [{"measurement_id": "M1", "date": "2025-03-04", "kind": "personal", "person_id": "E001",
+              "group": "G1", "duration_h": 8, "laeq": 88.0},
+             {"measurement_id": "M2", "date": "2025-03-05", "kind": "personal", "person_id": "E002",
+              "group": "G1", "duration_h": 8, "laeq": 91.0}]
+    root = make_programme(tmp_path / "p", files={"noise.csv": noise})
+    to = tmp_path / "export"
+    with env(HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["export", str(root), "--to", str(to)]) == 0
+        first = {p.name: p.read_bytes() for p in sorted(to.iterdir())}
+        assert main(["export", str(root), "--to", str(to)]) == 0
+        assert {p.name: p.read_bytes() for p in sorted(to.iterdir())} == first
+    assert set(first) >= {"exposure_results.csv", "group_exposure.csv", "hearing_results.csv",
+                          "actions.csv", "summary.json"}
+    header = lambda name: next(csv.reader(io.StringIO(first[name].decode())))  # noqa: E731
+    assert header("exposure_results.csv") == [
+        "measurement_id", "person_id", "group", "date", "duration_h", "laeq", "lex_8h", "osha_dose_pct",
+        "osha_twa", "osha_pel_dose_pct", "niosh_dose_pct", "niosh_twa", "lcpeak", "basis"]
+    assert header("group_exposure.csv")[:7] == ["group", "n_people", "n_samples", "lex_8h", "u_expanded",
+                                               "lex_8h_upper", "band"]
+    assert header("hearing_results.csv") == [
+        "person_id", "ear", "date", "kind", "baseline_date", "avg_234", "shift_234", "shift_234_age_corrected",
+        "osha_sts", "osha_sts_age_corrected", "niosh_shift", "recordable"]
+    assert header("actions.csv") == ["subject", "kind", "detail", "due_date"]
+    rows = list(csv.DictReader(io.StringIO(first["exposure_results.csv"].decode())))
+    assert [r["person_id"].startswith("P-") for r in rows] == [True, True]
+    # 8 h at 88 dB(A): LEX,8h = LAeq + 10 lg(8/8) = 88.0 (ISO 9612:2009, formula (7))
+    assert [r["lex_8h"] for r in rows] == ["88.00", "91.00"]
+    summary = first["summary.json"].decode()
+    data = json.loads(summary)
+    assert summary == json.dumps(data, sort_keys=True, indent=2, ensure_ascii=False) + "\n"
+    assert data["people"] == 2 and data["period"] == {"start": "2025-01-01", "end": "2025-12-31"}
+
+
+def test_serve_builds_serves_and_rebuilds(tmp_path: Path) -> None:
+    from generator.serve import HOST, serve
+    root = make_programme(tmp_path / "p", pages={"about.md": "---\ntitle: About\n---\nfirst text\n"})
+    ready: list[int] = []
+    stop = threading.Event()
+    with env(HCPSITE_ID_KEY=TEST_KEY):
+        t = threading.Thread(target=serve, kwargs=dict(root=root, port=0, on_ready=ready.append, stop=stop,
+                                                       max_polls=120), daemon=True)
+        t.start()
+        try:
+            deadline = time.monotonic() + 60
+            while not ready and time.monotonic() < deadline:
+                time.sleep(0.1)
+            assert ready, "server did not start"
+            url = f"http://{HOST}:{ready[0]}/about.html"
+            assert "first text" in urllib.request.urlopen(url, timeout=10).read().decode()
+            time.sleep(1.1)  # a different mtime
+            (root / "pages" / "about.md").write_text("---\ntitle: About\n---\nsecond text\n", encoding="utf-8")
+            body = ""
+            while time.monotonic() < deadline and "second text" not in body:
+                time.sleep(0.3)
+                body = urllib.request.urlopen(url, timeout=10).read().decode()
+            assert "second text" in body
+        finally:
+            stop.set()
+            t.join(timeout=30)
+    assert not t.is_alive()
