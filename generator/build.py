@@ -90,9 +90,15 @@ def load(root: Path, strict: bool = False) -> Programme:
         raise UsageError(f"{root}: no such programme folder")
     from .inputs.reader import load_programme
     programme = load_programme(root, today=validation_today())
-    if programme.findings.failed(strict):
-        raise HcpsiteError(f"{root}: {programme.findings.summary()}", programme.findings)
+    _stop_if_failed(root, programme.findings, strict)
     return programme
+
+
+def _stop_if_failed(root: Path, findings: Findings, strict: bool) -> None:
+    """Raise HcpsiteError when *findings* stop the build (errors, or warnings under --strict)."""
+    if findings.failed(strict):
+        why = "" if findings.has_errors() else " (warnings fail under --strict)"
+        raise HcpsiteError(f"{root}: {findings.summary()}{why}", findings)
 
 
 def compute(programme: Programme) -> tuple[dict[str, Any], list[str]]:
@@ -128,8 +134,7 @@ def prepare(root: Path, *, strict: bool = False, restricted: bool = False) -> tu
     programme = load(root, strict)
     results, skipped = compute(programme)
     ctx = make_context(programme, results, restricted)
-    if programme.findings.failed(strict):
-        raise HcpsiteError(f"{root}: {programme.findings.summary()}", programme.findings)
+    _stop_if_failed(root, programme.findings, strict)
     return ctx, skipped
 
 
@@ -152,6 +157,31 @@ def build_pages(ctx: SiteContext) -> list[str]:
         mod = importlib.import_module(module)
         _add_pages(ctx, list(mod.build(ctx)))
     return skipped
+
+
+#: image files beside the narrative pages that are copied into the site (no SVG: it can carry script).
+IMAGE_SUFFIXES = (".png", ".jpg", ".jpeg", ".gif", ".webp")
+IMAGE_MAX_BYTES = 5 * 1024 * 1024
+_IMAGE_NAME = re.compile(r"^[A-Za-z0-9][A-Za-z0-9_.-]*$")
+
+
+def narrative_images(root: Path, taken: set[str]) -> dict[str, bytes]:
+    """Return the images of the programme's pages/ folder (top level) to copy beside the pages."""
+    folder = Path(root) / "pages"
+    out: dict[str, bytes] = {}
+    if not folder.is_dir() or folder.is_symlink():
+        return out
+    for p in sorted(folder.iterdir()):
+        if p.suffix.lower() not in IMAGE_SUFFIXES or p.is_symlink() or not p.is_file():
+            continue
+        if not _IMAGE_NAME.match(p.name) or p.name in taken or p.name.lower().startswith("assets"):
+            log.warning("pages/%s: image not copied (unsafe or clashing name)", p.name)
+            continue
+        if p.stat().st_size > IMAGE_MAX_BYTES:
+            log.warning("pages/%s: image larger than %d MB not copied", p.name, IMAGE_MAX_BYTES // 2**20)
+            continue
+        out[p.name] = p.read_bytes()
+    return out
 
 
 # ---------------------------------------------------------------------------------------
@@ -303,6 +333,7 @@ def build_site(root: Path, out: Path | None = None, *, strict: bool = False,
     ctx, skipped_stages = prepare(root, strict=strict, restricted=restricted)
     skipped_sections = build_pages(ctx)
     files = render_site(ctx)
+    files.update(narrative_images(root, set(files)))
     size = write_site(files, out)
     pages = sorted(p.slug for p in ctx.pages if restricted or not p.restricted)
     log.info("built %d pages (%d files, %d bytes) into %s", len(pages), len(files) + 1, size, out)

@@ -230,6 +230,8 @@ def _bool(s: pd.Series) -> pd.Series:
 
 @dataclass
 class _Inputs:
+    """Per-person inputs of every rule, gathered once from the tables and earlier stages."""
+
     people: pd.DataFrame  # person_id, group, hire_date, leave_date, must_enrol, first_exposed_date, group_exposed
     audiograms: pd.DataFrame  # person_id, date, kind (one row per person and date)
     training: pd.DataFrame  # person_id, date
@@ -350,7 +352,7 @@ def person_status(inp: _Inputs, as_of: pd.Timestamp, start: pd.Timestamp) -> pd.
     # baseline: within baseline_months of first exposure (29 CFR 1910.95(g)(5))
     s["baseline_due"] = add_months(s["first_exposed_date"], inp.baseline_months) \
         if inp.baseline_months is not None else pd.Series(pd.NaT, index=s.index, dtype="datetime64[ns]")
-    status = _classify(s["baseline_due"], as_of, s["must_enrol"], has_aud)
+    status = _classify(s["baseline_due"], as_of, s["must_enrol"] & (inp.baseline_months is not None), has_aud)
     late = has_aud & s["baseline_due"].notna() & (s["first_audiogram"] > s["baseline_due"])
     status = status.where(~(s["must_enrol"] & has_aud), np.where(late, "late", "on_time"))
     if inp.baseline_months is None:
@@ -718,6 +720,7 @@ def _figures(s: pd.DataFrame, hearing: pd.DataFrame | None, year_start: pd.Times
                                    + s["baseline_status"].eq("due_soon").sum()
                                    + s["exit_status"].eq("due_soon").sum()),
         "overdue_training": int(s["training_status"].eq("overdue").sum()),
+        "due_soon_training": int(s["training_status"].eq("due_soon").sum()),
     }
     sts = rec = 0
     if hearing is not None and not hearing.empty:

@@ -4,7 +4,8 @@ Everything is drawn from one seeded ``numpy.random.Generator`` in a fixed order,
 same arguments always write the same bytes. The workplace, its people and its
 protectors are invented. Hearing levels follow published population models:
 
-* a young-adult threshold per person, ear and frequency (about 0-10 dB HL, SD about 5 dB);
+* a young-adult threshold per person, ear and frequency (mean 3 dB HL, SD about 5 dB,
+  close to ISO 7029's spread at age 18);
 * the ISO 7029:2017 age effect, with a per-person fractile kept across the years
   (:func:`generator.norms.iso7029_median` and :func:`generator.norms.iso7029_spread`);
 * the ISO 1999:2013 noise-induced permanent threshold shift from the group's LEX,8h and
@@ -42,6 +43,8 @@ ORGANISATION = "Tallowmere Pressings Ltd"
 TURNOVER = 0.05
 #: Annual hours worked per full-time person, for ``hours_worked``.
 HOURS_PER_PERSON_YEAR = 1900.0
+#: Mean young-adult hearing level (dB HL); per person and ear the spread is about 5 dB.
+YOUNG_MEAN = 3.0
 #: Plant floor (metres) of the area survey: east x north.
 PLANT = (160.0, 80.0)
 
@@ -125,20 +128,83 @@ TASKS = {
             ("Inspection and handling", 1.5, 86.0), ("Breaks away from the shop", 0.5, 65.0)),
 }
 
-#: Invented protector catalogue: id, type, nrr, snr, h, m, l, name.
+#: Invented protector catalogue: id, type, nrr (label value), name.
 PROTECTORS = (
-    ("FP33", "foam_plug", 33.0, 37.0, 36.0, 34.0, 31.0, "Tall slow-recovery foam plug"),
-    ("FP29", "foam_plug", 29.0, 34.0, 33.0, 31.0, 28.0, "Small-fit slow-recovery foam plug"),
-    ("PP25", "premolded_plug", 25.0, 29.0, 29.0, 26.0, 23.0, "Triple-flange reusable plug"),
-    ("CC20", "canal_cap", 20.0, 24.0, 27.0, 20.0, 17.0, "Banded canal caps"),
-    ("EM27", "earmuff", 27.0, 31.0, 33.0, 28.0, 20.0, "Headband earmuff, standard"),
-    ("EM31", "earmuff", 31.0, 35.0, 35.0, 33.0, 25.0, "Headband earmuff, high attenuation"),
-    ("CU26", "custom_plug", 26.0, 28.0, 29.0, 25.0, 23.0, "Custom-moulded plug with filter"),
+    ("FP33", "foam_plug", 33.0, "Tall slow-recovery foam plug"),
+    ("FP29", "foam_plug", 29.0, "Small-fit slow-recovery foam plug"),
+    ("PP25", "premolded_plug", 25.0, "Triple-flange reusable plug"),
+    ("CC20", "canal_cap", 20.0, "Banded canal caps"),
+    ("EM27", "earmuff", 27.0, "Headband earmuff, standard"),
+    ("EM31", "earmuff", 31.0, "Headband earmuff, high attenuation"),
+    ("CU26", "custom_plug", 26.0, "Custom-moulded plug with filter"),
 )
+#: Invented ISO 4869-1 style octave attenuation 63..8000 Hz: protector -> (means, SDs), dB.
+#: SNR and H/M/L of the catalogue are derived from these (see :func:`protector_ratings`).
+PROTECTOR_OCTAVES = {
+    "FP33": ((31.0, 33.0, 35.0, 37.5, 37.0, 36.0, 43.0, 45.0), (5.5, 5.5, 5.0, 5.5, 4.5, 4.0, 4.5, 5.0)),
+    "FP29": ((26.0, 28.0, 30.5, 33.0, 33.5, 34.0, 40.0, 41.0), (5.5, 5.5, 5.5, 5.0, 4.5, 4.5, 5.0, 5.5)),
+    "PP25": ((21.0, 23.0, 24.5, 26.5, 28.0, 33.0, 37.5, 38.0), (6.0, 6.0, 6.0, 5.5, 5.0, 4.5, 5.0, 5.5)),
+    "CC20": ((17.0, 18.5, 19.0, 21.0, 24.5, 32.5, 37.0, 36.0), (6.0, 6.0, 5.5, 5.5, 5.0, 4.5, 4.5, 5.5)),
+    "EM27": ((12.0, 15.5, 24.0, 33.0, 36.5, 35.0, 38.5, 37.0), (3.5, 3.0, 3.0, 3.0, 3.0, 3.5, 3.5, 4.0)),
+    "EM31": ((16.0, 21.0, 29.5, 38.0, 40.5, 37.5, 40.5, 39.5), (3.5, 3.0, 3.0, 3.0, 3.0, 3.5, 3.5, 4.0)),
+    "CU26": ((20.0, 21.5, 23.0, 25.0, 26.0, 30.5, 34.0, 33.5), (4.0, 4.0, 4.0, 3.5, 3.5, 3.5, 4.0, 4.0)),
+}
+#: Protectors listed with ratings only (no octave data in the catalogue).
+_NO_OCTAVES = ("CC20", "CU26")
+#: ISO 4869-2:2018 Table 2: A-weighted octave levels 125..8000 Hz of the reference noises 1-8
+#: (100 dB(A)) and their d values; Table 3: pink noise (C-weighted total 100 dB).
+_REF_NOISES = (
+    (62.6, 70.8, 81.0, 90.4, 96.2, 94.7, 92.3), (68.9, 78.3, 84.3, 92.8, 96.3, 94.0, 90.0),
+    (71.1, 80.8, 88.0, 95.0, 94.4, 94.1, 89.0), (77.2, 84.5, 89.8, 95.5, 94.3, 92.5, 88.8),
+    (77.4, 86.5, 92.5, 96.4, 93.0, 90.4, 83.7), (82.0, 89.3, 93.3, 95.6, 93.0, 90.1, 83.0),
+    (84.2, 90.1, 93.6, 96.2, 91.3, 87.9, 81.9), (88.0, 93.4, 93.8, 94.2, 91.4, 87.9, 79.9),
+)
+_REF_D = (-1.20, -0.49, 0.14, 1.56, -2.98, -1.01, 0.85, 3.14)
+_PINK_A = (75.9, 83.4, 88.8, 92.0, 93.2, 93.0, 90.9)
+#: alpha of the catalogue ratings (80 % protection performance, ISO 4869-2:2018 Table 1)
+_ALPHA_80 = 0.84
+
+
+def protector_ratings(means: Any, sds: Any, alpha: float = _ALPHA_80) -> tuple[float, float, float, float]:
+    """Return (SNR, H, M, L) of octave attenuation data 63..8000 Hz, rounded to whole dB.
+
+    The assumed protection values APV = m - alpha·s (ISO 4869-2:2018 Formula (1)) at 125..8000 Hz
+    go through ISO 4869-2 Formulas (15) and (22) and the H/M/L weights of Formulas (12)-(14)
+    as one average subject (a demo simplification of the per-subject derivation).
+    """
+    apv = (np.asarray(means, dtype=float) - alpha * np.asarray(sds, dtype=float))[1:]
+    pnr = np.array([100.0 - 10.0 * np.log10(np.sum(np.power(10.0, 0.1 * (np.array(n) - apv))))
+                    for n in _REF_NOISES])
+    d = np.array(_REF_D)
+    h = 0.25 * pnr[:4].sum() - 0.48 * (d[:4] * pnr[:4]).sum()
+    m = 0.25 * pnr[4:].sum() - 0.16 * (d[4:] * pnr[4:]).sum()
+    lo = 0.25 * pnr[4:].sum() + 0.23 * (d[4:] * pnr[4:]).sum()
+    snr = 100.0 - 10.0 * np.log10(np.sum(np.power(10.0, 0.1 * (np.array(_PINK_A) - apv))))
+    return tuple(float(np.floor(v + 0.5)) for v in (snr, h, m, lo))  # type: ignore[return-value]
+
+
+def protector_catalogue() -> pd.DataFrame:
+    """Return protectors.csv: label NRR, SNR/H/M/L from the octave data, octave data where listed."""
+    rows = []
+    for pid, ptype, nrr, name in PROTECTORS:  # seven catalogue entries
+        means, sds = PROTECTOR_OCTAVES[pid]
+        snr, h, m, lo = protector_ratings(means, sds)
+        row: dict[str, Any] = {"protector_id": pid, "type": ptype, "nrr": nrr, "snr": snr, "h": h, "m": m,
+                               "l": lo, "name": name}
+        listed = pid not in _NO_OCTAVES
+        for f, mv, sv in zip(OCTAVE_BANDS, means, sds):
+            row[f"att_{f}"] = mv if listed else np.nan
+            row[f"sd_{f}"] = sv if listed else np.nan
+        rows.append(row)
+    cols = (["protector_id", "type", "nrr", "snr", "h", "m", "l", "name"] + [f"att_{f}" for f in OCTAVE_BANDS]
+            + [f"sd_{f}" for f in OCTAVE_BANDS])
+    return pd.DataFrame(rows)[cols]
+
+
 #: Protectors usually issued in each enrolled group.
-_ISSUE = {"ASM": ("FP29", "PP25", "CC20"), "MNT": ("CC20", "FP33", "EM27"),
-          "PRS": ("FP33", "EM31", "CU26"), "GRD": ("EM31", "FP33", "EM27"),
-          "WHS": ("PP25", "FP29", "CU26")}
+_ISSUE = {"ASM": ("FP29", "PP25", "CC20"), "MNT": ("CC20", "PP25", "EM27"),
+          "PRS": ("FP29", "EM27", "CU26"), "GRD": ("EM31", "FP33", "EM27"),
+          "WHS": ("CC20", "PP25", "CU26")}
 
 AUDIOMETERS = ("AM-01", "AM-02")
 #: Typical booth background octave levels at 500..8000 Hz (dB), well below 29 CFR 1910.95 App. D.
@@ -158,7 +224,7 @@ _SUR_B = ("by", "ford", "ley", "wood", "ton", "well", "mere", "ridge", "field", 
 _PEOPLE_COLS = ["person_id", "group", "sex", "birth_date", "hire_date", "leave_date", "department",
                 "job_title", "name"]
 _NOISE_COLS = (["measurement_id", "date", "kind", "person_id", "group", "location", "duration_h", "laeq",
-                "lcpeak", "instrument_class", "osha_dose_pct", "osha_twa", "x_m", "y_m", "notes"]
+                "lcpeak", "lceq", "instrument_class", "osha_dose_pct", "osha_twa", "x_m", "y_m", "notes"]
                + [f"oct_{f}" for f in OCTAVE_BANDS])
 _AUDIO_COLS = (["person_id", "date", "ear", "kind"] + [f"hl_{f}" for f in AUDIO_FREQS]
                + ["quiet_hours", "audiometer_id"])
@@ -331,18 +397,22 @@ def _iso7029_tables() -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     for i, sx in enumerate(("M", "F")):  # two sexes
         a = _AGE_GRID[:, None]
         md[i] = norms.iso7029_median(a, freqs[None, :], sx)
-        # spread growth from age 18: the young-adult spread is the separate baseline term
-        su[i] = norms.iso7029_spread(a, freqs[None, :], sx, "u") - norms.iso7029_spread(18.0, freqs, sx, "u")
-        sl[i] = norms.iso7029_spread(a, freqs[None, :], sx, "l") - norms.iso7029_spread(18.0, freqs, sx, "l")
+        # spread added since age 18 (variances add): the young-adult spread is the separate
+        # baseline term, so the sum keeps ISO 7029's spread at every age
+        for t, side in ((su, "u"), (sl, "l")):
+            s_y = norms.iso7029_spread(a, freqs[None, :], sx, side)
+            s_18 = norms.iso7029_spread(18.0, freqs, sx, side)
+            t[i] = np.sqrt(np.maximum(s_y ** 2 - s_18 ** 2, 0.0))
     return freqs, md, su, sl
 
 
 def age_effect(age: Any, freq: Any, sex: Any, z: Any) -> np.ndarray:
     """Return the ISO 7029:2017 age part (dB) re age 18 at person fractile *z* (z > 0 = worse).
 
-    The median is ISO 7029's; a person at fractile z sits z spreads from it, counting only
-    the growth of the spread since age 18 (the young-adult spread is the separate baseline
-    term), never below 0 dB. Blank or unknown sex uses the male model. Values come from
+    The median is ISO 7029's; a person at fractile z sits z spreads from it, where the
+    spread is the part added since age 18, sqrt(s(Y)² - s(18)²) (the young-adult spread is
+    the separate baseline term, so the two together keep ISO 7029's spread), never below 0 dB.
+    Blank or unknown sex uses the male model. Values come from
     tables of :mod:`generator.norms` on a 0.1-year grid, interpolated linearly.
     """
     freqs, md_t, su_t, sl_t = _iso7029_tables()
@@ -431,7 +501,7 @@ def _people(rng: np.random.Generator, headcount: int, start: int, end: int) -> p
     df.loc[df["leave"] > end - 7, "leave"] = np.nan
     df = df.sort_values(["hire", "slot", "occupant"], kind="mergesort").reset_index(drop=True)
     n = len(df)
-    df["person_id"] = [f"P{i + 1:05d}" for i in range(n)]
+    df["person_id"] = np.strings.add("P", np.strings.zfill((np.arange(n) + 1).astype(_SD), 5)).astype(object)
     fshare = np.array([g.female_share for g in GROUPS])[df["gi"].to_numpy()]
     u = rng.random(n)
     sex = np.where(u < fshare, "F", "M").astype(object)
@@ -457,15 +527,14 @@ def _people(rng: np.random.Generator, headcount: int, start: int, end: int) -> p
         cdf = np.cumsum(w / w.sum())
         titles[m] = t[np.searchsorted(cdf, title_pick[m])]
     df["job_title"] = titles
-    # person-level model draws
-    df["z_age"] = rng.standard_normal(n)
+    # person-level model draws: ISO 1999 fraction (kept for life), own level re the group's
     df["q_noise"] = np.clip(rng.uniform(0.0, 1.0, n), 0.05, 0.95)
     g_lex = np.array([g.laeq + 10.0 * np.log10(g.shift_hours / 8.0) for g in GROUPS])
     g_sd = np.array([g.sd_person for g in GROUPS])
-    df["lex_person"] = g_lex[gi] + g_sd[gi] * rng.standard_normal(n)
+    df["laeq_offset"] = g_sd[gi] * rng.standard_normal(n)
+    df["lex_person"] = g_lex[gi] + df["laeq_offset"].to_numpy()
     # long-run protector benefit (dB): protectors worn much, but not all, of the time
     df["benefit"] = np.where(np.array([g.enrolled for g in GROUPS])[gi], rng.uniform(0.0, 8.0, n), 0.0)
-    df["laeq_offset"] = g_sd[gi] * rng.standard_normal(n)
     return df
 
 
@@ -578,7 +647,7 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
     """Return (test events, their levels, reviews, notices, refits, test days per audiometer)."""
     n_p = len(ppl)
     freqs = len(AUDIO_FREQS)
-    young = (5.0 + 3.5 * rng.standard_normal((n_p, 1, 1)) + 3.5 * rng.standard_normal((n_p, 2, freqs)))
+    young = (YOUNG_MEAN + 3.5 * rng.standard_normal((n_p, 1, 1)) + 3.5 * rng.standard_normal((n_p, 2, freqs)))
     young = np.maximum(young, -10.0)
     z_p = rng.standard_normal(n_p)
     z_f = 0.8 * z_p[:, None] + 0.6 * rng.standard_normal((n_p, freqs))
@@ -784,7 +853,7 @@ def _area_field(x: np.ndarray, y: np.ndarray, zone_code: np.ndarray) -> np.ndarr
     r = np.hypot(x[:, None] - sx[None, :], y[:, None] - sy[None, :])
     wall = np.where(zone_code[:, None] == sz[None, :], 0.0, 18.0)
     direct = sl[None, :] - 20.0 * np.log10(np.maximum(r, 1.0)) - wall
-    rev = np.array([_REVERB[c] for c in zone_code]) if len(zone_code) else np.zeros(0)
+    rev = pd.Series(zone_code, dtype=object).map(_REVERB).to_numpy(dtype=float)
     e = np.power(10.0, 0.1 * direct).sum(axis=1) + np.power(10.0, 0.1 * rev)
     return 10.0 * np.log10(e)
 
@@ -864,7 +933,8 @@ def _noise(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, he
     n = len(noise)
     yr = _year_of(noise["date"].to_numpy())
     seq = noise.groupby(yr).cumcount().to_numpy() + 1
-    noise["measurement_id"] = [f"NM-{y}-{s:05d}" for y, s in zip(yr, seq)]
+    noise["measurement_id"] = np.strings.add(np.strings.add(np.strings.add("NM-", yr.astype(_SD)), "-"),
+                                             np.strings.zfill(seq.astype(_SD), 5)).astype(object)
     for c in ("osha_dose_pct", "osha_twa", "notes"):
         noise[c] = np.nan if c != "notes" else ""
     for f in OCTAVE_BANDS:
@@ -937,8 +1007,19 @@ def _noise(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, he
     worn = (noise["kind"].to_numpy() == "personal") & (noise["notes"].to_numpy() == "") & (rng.random(n) < 0.03)
     noise.loc[worn, "notes"] = "microphone on the shoulder of the dominant side"
 
+    # --- C-weighted Leq: from the bands where measured, else from the area's spectrum shape
+    shapes = np.array([_SPECTRA[g.code] for g in GROUPS], dtype=float)
+    c_minus_a = weighted_from_bands(shapes, weighting="C") - weighted_from_bands(shapes)
+    has_lc = rng.random(n) < np.where(noise["kind"].to_numpy() == "personal", 0.6, 0.4)
+    lceq = noise["laeq"].to_numpy() + c_minus_a[noise["gi"].to_numpy()] + rng.normal(0.0, 0.5, n)
+    oct_cols = [f"oct_{f}" for f in OCTAVE_BANDS]
+    with_bands = noise[oct_cols].notna().all(axis=1).to_numpy()
+    if with_bands.any():
+        lceq[with_bands] = weighted_from_bands(noise.loc[with_bands, oct_cols].to_numpy(dtype=float), weighting="C")
+    noise["lceq"] = np.where(has_lc | with_bands, lceq, np.nan)
+
     noise["date"] = _date_str(noise["date"].to_numpy())
-    for c in ("laeq", "lcpeak", "osha_twa"):
+    for c in ("laeq", "lcpeak", "lceq", "osha_twa"):
         noise[c] = np.round(noise[c].to_numpy(dtype=float), 1)
     noise["instrument_class"] = _int_str(noise["instrument_class"].to_numpy())
     noise = noise.sort_values("measurement_id", kind="mergesort").reset_index(drop=True)
@@ -1020,20 +1101,20 @@ def _fits(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, ref
         prot[sel] = np.array(opts, dtype=object)[pick[sel]]
     date = np.where(hire >= start, hire + rng.integers(0, 20, m), start + rng.integers(0, 300, m))
     date = np.minimum(_workday(date), end)
-    nrr = {p[0]: p[2] for p in PROTECTORS}
-    nrr_v = np.array([nrr[p] for p in prot]) if m else np.zeros(0)
+    nrr = {p[0]: p[2] for p in PROTECTORS}  # label NRR per protector
+    nrr_v = pd.Series(prot, dtype=object).map(nrr).to_numpy(dtype=float)
     tested = rng.random(m) < 0.35
-    par = np.round(np.clip(nrr_v * rng.uniform(0.35, 1.0, m) + rng.normal(0.0, 3.0, m), -5.0, 45.0), 0)
+    par = np.round(np.clip(nrr_v * rng.uniform(0.3, 0.85, m) + rng.normal(0.0, 3.0, m), -5.0, 45.0), 0)
     df = pd.DataFrame({"pi": idx, "protector_id": prot, "date": date,
                        "par": np.where(tested, par, np.nan)})
     # a later re-fit with another protector for some
     re = (rng.random(m) < 0.2)
     d2 = _workday(date + rng.integers(300, 1500, m))
     re &= (d2 <= end) & (d2 < leave)
-    alt = np.array([PROTECTORS[i][0] for i in rng.integers(0, len(PROTECTORS), m)], dtype=object)
-    nrr2 = np.array([nrr[p] for p in alt]) if m else np.zeros(0)
+    alt = np.array([q[0] for q in PROTECTORS], dtype=object)[rng.integers(0, len(PROTECTORS), m)]
+    nrr2 = pd.Series(alt, dtype=object).map(nrr).to_numpy(dtype=float)
     df2 = pd.DataFrame({"pi": idx[re], "protector_id": alt[re], "date": d2[re],
-                        "par": np.round(np.clip(nrr2[re] * rng.uniform(0.5, 1.0, re.sum()), 0.0, 45.0), 0)})
+                        "par": np.round(np.clip(nrr2[re] * rng.uniform(0.4, 0.85, re.sum()), 0.0, 45.0), 0)})
     df = pd.concat([df, df2, refits[["pi", "protector_id", "date", "par"]]], ignore_index=True)
     df = df.sort_values(["pi", "date"], kind="mergesort")
     df = df.drop_duplicates(["pi", "date"])
@@ -1145,8 +1226,6 @@ _ABOUT = """---
 title: About this site
 order: 1
 ---
-# About this site
-
 This review site was built from the demonstration records of **{org}**, a press shop and
 finishing plant that does not exist. Every person, measurement, audiogram, protector and
 decision in it was generated by a program; no record describes a real workplace or a
@@ -1177,8 +1256,6 @@ _SCOPE = """---
 title: Programme scope and responsibilities
 order: 2
 ---
-# Programme scope and responsibilities
-
 ## Who is in the programme
 
 Everyone whose work takes them into the assembly hall, the press shop, the grinding and
@@ -1283,7 +1360,7 @@ def write_demo(folder: Path | str, people: int = 250, years: int = 6, seed: int 
     notices_df = pd.DataFrame({"person_id": pid[notices["pi"].to_numpy()],
                                "date": _date_str(notices["date"].to_numpy()),
                                "about": notices["about"].to_numpy()})
-    protectors_df = pd.DataFrame(PROTECTORS, columns=["protector_id", "type", "nrr", "snr", "h", "m", "l", "name"])
+    protectors_df = protector_catalogue()
 
     _write_csv(people_df, data / "people.csv")
     _write_csv(groups_df, data / "groups.csv")
@@ -1310,7 +1387,8 @@ def write_demo(folder: Path | str, people: int = 250, years: int = 6, seed: int 
     _pages(folder, end_year)
 
     counts = {
-        "people": len(people_df), "groups": len(groups_df), "noise": len(noise), "noise_logs": int(logs["measurement_id"].nunique()),
+        "people": len(people_df), "groups": len(groups_df), "noise": len(noise),
+        "noise_logs": int(logs["measurement_id"].nunique()),
         "noise_log_rows": len(logs), "tasks": len(tasks),
         "audiograms": len(audiograms), "reviews": len(reviews_df), "notices": len(notices_df),
         "training": len(training), "protectors": len(protectors_df), "protector_fits": len(fits),

@@ -4,7 +4,8 @@
 
 * ``measurements``: one row per noise.csv row with the contract's exposure_results.csv
   columns, plus per rule set ``dose_<id>``, ``twa_<id>``, ``shift_twa_<id>``, ``band_<id>``
-  and ``peak_flag_<id>``;
+  and ``peak_flag_<id>`` (and ``limit_dose_<id>``/``limit_twa_<id>`` where the rule set
+  counts a different threshold for its limit, as OSHA's PEL dose does);
 * ``groups``: one row per similar exposure group, ISO 9612:2009 job-based (Clause 10) or
   task-based (Clause 9) LEX,8h with the Annex C uncertainty budget, bands per rule set
   judged on LEX,8h and on LEX,8h + U;
@@ -123,7 +124,7 @@ MEASUREMENT_COLUMNS = ["measurement_id", "person_id", "group", "date", "duration
                        "lcpeak", "basis"]
 GROUP_COLUMNS = ["group", "name", "n_people", "n_samples", "strategy", "lex_8h", "u", "u_expanded",
                  "lex_8h_upper", "band", "osha_twa", "niosh_twa", "max_lcpeak", "last_measured", "stale",
-                 "exposed", "u1", "c1u1", "u2", "u3", "te_h", "cum_hours"]
+                 "exposed", "u1", "c1u1", "u2", "u3", "te_h", "cum_hours", "first_row"]
 TASK_COLUMNS = ["group", "task", "n_samples", "lp_aeq", "t_mean_h", "lex_8h_m", "share_of_dose", "u1a",
                 "c1a", "c1b", "u1b", "u2", "spread_db", "first_row"]
 ACTION_COLUMNS = ["subject", "subject_type", "kind", "detail", "due_date", "clause"]
@@ -415,9 +416,10 @@ def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.nd
         return {}
     n_rows = len(mids)
     counts = np.bincount(idx, minlength=n_rows)
-    first = np.concatenate([[0], np.cumsum(counts)[:-1]])
-    # samples are concatenated log by log, so the position within a log is a running index
-    order = np.arange(idx.size) - first[idx]
+    # samples are concatenated log by log: the position within a log is a running index from its first sample
+    seg_first = np.flatnonzero(np.r_[True, idx[1:] != idx[:-1]])
+    seg_len = np.diff(np.r_[seg_first, idx.size])
+    order = np.arange(idx.size) - np.repeat(seg_first, seg_len)
     per_bin = np.maximum(1, np.ceil(counts / LOG_POINTS)).astype(np.int64)
     nbins = np.ceil(counts / per_bin).astype(np.int64)
     bin_off = np.concatenate([[0], np.cumsum(nbins)[:-1]])
@@ -425,10 +427,12 @@ def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.nd
     total = int(nbins.sum())
     e = np.bincount(b, weights=lv.energy(lev), minlength=total)
     c = np.bincount(b, minlength=total)
-    mx = np.full(total, -np.inf)
-    np.maximum.at(mx, b, lev)
-    st = np.full(total, np.iinfo(np.int64).max)
-    np.minimum.at(st, b, start)
+    # bins are contiguous runs of the concatenated samples: reduce each run at its first sample
+    firsts = np.flatnonzero(np.r_[True, b[1:] != b[:-1]])
+    mx = np.empty(total)
+    mx[b[firsts]] = np.maximum.reduceat(lev, firsts)
+    st = np.empty(total, dtype=np.int64)
+    st[b[firsts]] = start[firsts]
     out: dict[str, pd.DataFrame] = {}
     pos = {m: i for i, m in enumerate(mids)}
     for m in have:
@@ -479,8 +483,7 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
 
     # logs
     idx, lev, step, start, have = _log_arrays(programme, mids)
-    has_log = np.zeros(n, dtype=bool)
-    has_log[np.unique(idx)] = True
+    has_log = np.bincount(idx, minlength=n) > 0
     if have:
         log_hours = np.bincount(idx, weights=step, minlength=n)
         log_laeq = lv.level(np.bincount(idx, weights=lv.energy(lev) * step, minlength=n) /
@@ -514,9 +517,16 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
         l_dosim = osha.criterion_level + osha.exchange_rate * np.log2(
             rep_dose / 100.0 * osha.criterion_hours / hours)
     upper_seen: dict[float, set[str]] = {}
+    cache: dict[tuple[_DoseSpec, bool], np.ndarray] = {}
 
     def dose(spec: _DoseSpec, reported: bool) -> np.ndarray:
-        """Return the dose of every measurement under *spec*."""
+        """Return the dose of every measurement under *spec* (computed once per spec)."""
+        key = (spec, reported)
+        if key not in cache:
+            cache[key] = _dose(spec, reported)
+        return cache[key]
+
+    def _dose(spec: _DoseSpec, reported: bool) -> np.ndarray:
         if spec.exchange_rate == 3.0:
             steady = lv.steady_dose_pct(laeq, hours, spec.criterion_level, spec.criterion_hours, 3.0, None)
         else:
@@ -529,9 +539,9 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
             logged = lv.grouped_dose_pct(lev, step, idx, n, spec.criterion_level, spec.criterion_hours,
                                          spec.exchange_rate, spec.threshold, spec.upper_limit)
             steady = np.where(has_log, logged, steady)
-            if spec.upper_limit is not None:
-                over = np.unique(idx[lev > spec.upper_limit])
-                upper_seen.setdefault(spec.upper_limit, set()).update(mids[over].tolist())
+            if spec.upper_limit is not None and spec.upper_limit not in upper_seen:
+                over = np.bincount(idx[lev > spec.upper_limit], minlength=n) > 0
+                upper_seen[spec.upper_limit] = set(mids[over].tolist())
         return steady
 
     shift = m["group"].map(dict(zip(groups["group"], groups["shift_hours"]))).fillna(8.0).to_numpy(float)
@@ -572,7 +582,9 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
         m[f"peak_flag_{rid}"] = peak_flag(m["lcpeak"].to_numpy(float), rule)
     for ul, ids in sorted(upper_seen.items()):
         for mid in sorted(ids):
-            findings.append(Finding(f"data/noise_logs/{mid}.csv", None, "laeq", WARNING,
+            lf = programme.noise_logs[mid]
+            first = int(lf["_row"].to_numpy()[lf["laeq"].to_numpy(float) > ul][0]) if "_row" in lf else None
+            findings.append(Finding(f"data/noise_logs/{mid}.csv", first, "laeq", WARNING,
                                     f"levels above {ul:g} dB(A), the upper end of the integration range, are "
                                     "counted at their measured level", key="above-integration-range"))
     logs = _downsample(idx, lev, start, mids, have)
@@ -653,6 +665,7 @@ def compute(programme: Programme, results: dict | None = None) -> ExposureResult
     g["lex_8h_upper"] = g["lex_8h"] + g["u_expanded"]
     g["te_h"] = np.where(is_task, tg["te_h"].to_numpy(float), g["shift_hours"].to_numpy(float))
     g["cum_hours"] = np.where(is_job, job["cum_hours"].to_numpy(float), np.nan)
+    g["first_row"] = job["_first_row"].to_numpy(float)
 
     # ---- group dose-based figures: mean shift-projected dose (job) or steady task levels (task)
     task_rows = per_task.merge(g[["te_h"]], left_on="group", right_index=True, how="left") \
@@ -740,27 +753,28 @@ def _sampling_findings(g: pd.DataFrame, per_task: pd.DataFrame, noise_path: str,
     job = g[g["strategy"] == "job"]
     for r in job.itertuples(index=False):
         grp = r.group
+        row = None if pd.isna(r.first_row) else int(r.first_row)
         if r.n_samples < MIN_JOB_SAMPLES:
-            findings.append(Finding(noise_path, None, "group", WARNING,
+            findings.append(Finding(noise_path, row, "group", WARNING,
                                     f"group {grp}: {r.n_samples} personal sample(s); ISO 9612:2009 10.3 asks for at "
                                     f"least {MIN_JOB_SAMPLES} for job-based sampling"
                                     + ("; no uncertainty can be given below 3" if r.n_samples < 3 else ""),
                                     key="job-few-samples"))
         need = float(min_cumulative_hours(r.n_people))
         if r.cum_hours < need:
-            findings.append(Finding(noise_path, None, "duration_h", WARNING,
+            findings.append(Finding(noise_path, row, "duration_h", WARNING,
                                     f"group {grp}: {r.cum_hours:.1f} h sampled in total; ISO 9612:2009 Table 1 asks "
                                     f"for at least {need:g} h for {r.n_people} worker(s)", key="job-short-duration"))
         if r.n_people > 40:
-            findings.append(Finding(noise_path, None, "group", WARNING,
+            findings.append(Finding(noise_path, row, "group", WARNING,
                                     f"group {grp}: {r.n_people} workers; ISO 9612:2009 Table 1 suggests splitting "
                                     "groups of more than 40", key="job-large-group"))
         if r.c1u1 > C1U1_REVISE:
-            findings.append(Finding(noise_path, None, "laeq", WARNING,
+            findings.append(Finding(noise_path, row, "laeq", WARNING,
                                     f"group {grp}: c1·u1 = {r.c1u1:.1f} dB exceeds {C1U1_REVISE:g} dB; ISO 9612:2009 "
                                     "10.4 asks for a revised sampling plan", key="job-c1u1"))
         if r.u1 > TABLE_C4_U1[-1]:
-            findings.append(Finding(noise_path, None, "laeq", WARNING,
+            findings.append(Finding(noise_path, row, "laeq", WARNING,
                                     f"group {grp}: samples spread u1 = {r.u1:.1f} dB, beyond ISO 9612 Table C.4 "
                                     "(6 dB); c1·u1 is extrapolated", key="job-u1-beyond-table"))
     for r in per_task.itertuples(index=False):
@@ -806,7 +820,9 @@ def _people(people: pd.DataFrame, m: pd.DataFrame, g: pd.DataFrame, head: RuleSe
     glev = _lookup(p["group"], gi[f"level_{hid}"]).to_numpy(float)
     gU = _lookup(p["group"], gi["u_expanded"]).to_numpy(float)
     has_own = ~np.isnan(own_lex)
-    has_grp = ~np.isnan(glev)
+    has_grp = ~np.isnan(glex)
+    # a group with a level but no dose above the threshold sits below every band edge
+    glev = np.where(np.isnan(glev) & has_grp, -np.inf, glev)
     p["lex_8h"] = np.where(has_own, own_lex, glex)
     val = np.where(has_own, own, glev)
     p["twa"] = np.where(np.isneginf(val), np.nan, val)

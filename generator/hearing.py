@@ -213,7 +213,7 @@ def years_between(start: pd.Series, end: pd.Series) -> pd.Series:
 
 def _lgamma(x: np.ndarray) -> np.ndarray:
     """Return ln Γ(x) element-wise."""
-    return np.frompyfunc(math.lgamma, 1, 1)(x).astype(float)
+    return np.asarray(np.frompyfunc(math.lgamma, 1, 1)(np.asarray(x, dtype=float)), dtype=float)
 
 
 def _betacf(a: np.ndarray, b: np.ndarray, x: np.ndarray, iters: int = 2000) -> np.ndarray:
@@ -269,6 +269,7 @@ def beta_ppf(q: Any, a: Any, b: Any) -> np.ndarray:
     """Return the q-quantile of the beta(a, b) distribution (safeguarded Newton), vectorised."""
     q, a, b = (np.asarray(v, dtype=float) for v in np.broadcast_arrays(q, a, b))
     q0 = q
+    q, a, b = (np.atleast_1d(v) for v in (q, a, b))
     lo = np.zeros_like(q)
     hi = np.ones_like(q)
     # start from the normal approximation of the beta distribution
@@ -358,7 +359,8 @@ def _prepare(programme: Programme) -> pd.DataFrame:
     ag["age"] = age_at(ag["birth_date"], ag["date"])
     ag["nr_any"] = ag[[f"nr_{f}" for f in AUDIO_FREQS]].any(axis=1)
     ag["nr_234"] = ag[[f"nr_{f}" for f in STS_FREQS]].any(axis=1)
-    key = (ag["person_id"] + "\x1f" + ag["ear"]).to_numpy(object)
+    ag["_pid"] = pd.factorize(ag["person_id"], sort=True)[0].astype(np.int64)
+    key = ag["_pid"].to_numpy() * 2 + ag["ear"].eq("R").to_numpy()
     same = np.zeros(len(ag), dtype=bool)
     if len(ag) > 1:
         same[1:] = key[1:] == key[:-1]
@@ -805,18 +807,25 @@ def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start:
 # population views
 
 
-def _per_person_year(ag: pd.DataFrame) -> pd.DataFrame:
+def _last_per_year(ag: pd.DataFrame) -> pd.DataFrame:
+    """Return the latest audiogram per person, ear and year, retests of a shift left out."""
+    main = ag[~ag["is_retest_of_shift"].to_numpy(bool)]
+    key = main["_pid"].to_numpy() * 2 + main["ear"].eq("R").to_numpy()
+    yr = main["year"].to_numpy()
+    last = np.ones(len(main), dtype=bool)
+    if len(main) > 1:
+        last[:-1] = (key[1:] != key[:-1]) | (yr[1:] != yr[:-1])
+    return main[last]
+
+
+def _per_person_year(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     """Return one row per person and year: group, tested, sts, recordable, mean 2/3/4 kHz average."""
-    main = ag[~ag["is_retest_of_shift"]]
-    last = main.sort_values(["person_id", "year", "ear", "date"], kind="mergesort").drop_duplicates(
-        ["person_id", "year", "ear"], keep="last")
-    avg = last.groupby(["person_id", "year"], sort=True).agg(avg_234=("avg_234", "mean"),
-                                                             n_nr=("nr_234", "sum"))
-    flags = ag.groupby(["person_id", "year"], sort=True).agg(group=("group", "first"), sts=("sts", "any"),
-                                                             recordable=("recordable", "any"))
+    avg = last.groupby(["_pid", "year"], sort=True).agg(avg_234=("avg_234", "mean"), n_nr=("nr_234", "sum"))
+    flags = ag.groupby(["_pid", "year"], sort=True).agg(person_id=("person_id", "first"), group=("group", "first"),
+                                                        sts=("sts", "any"), recordable=("recordable", "any"))
     py = flags.join(avg).reset_index()
-    py["prev_avg"] = py.groupby("person_id", sort=False)["avg_234"].shift(1)
-    py["prev_year"] = py.groupby("person_id", sort=False)["year"].shift(1)
+    py["prev_avg"] = py.groupby("_pid", sort=False)["avg_234"].shift(1)
+    py["prev_year"] = py.groupby("_pid", sort=False)["year"].shift(1)
     py["within_change"] = (py["avg_234"] - py["prev_avg"]).where(py["prev_year"] == py["year"] - 1)
     return py
 
@@ -872,24 +881,23 @@ def _period_groups(py: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp) -> 
     return p[cols]
 
 
-def _indicators(ag: pd.DataFrame) -> pd.DataFrame:
+def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     """Return %Worse-sequential and %Better-or-Worse-sequential per group and year."""
     cols = ["group", "year", "n_pairs", "n_worse", "pct_worse", "n_better_or_worse", "pct_better_or_worse",
             "n_incomplete"]
-    main = ag[~ag["is_retest_of_shift"]]
-    last = main.sort_values(["person_id", "year", "ear", "date"], kind="mergesort").drop_duplicates(
-        ["person_id", "year", "ear"], keep="last")
     hl = [f"hl_{f}" for f in NIOSH_FREQS]
     if last.empty:
         return pd.DataFrame(columns=cols)
-    keys = last[["person_id", "year"]].drop_duplicates().sort_values(["person_id", "year"], kind="mergesort")
-    parts = [keys.reset_index(drop=True)]
-    for ear in ("L", "R"):
-        e = last.loc[last["ear"] == ear, ["person_id", "year"] + hl]
-        parts.append(keys.merge(e, on=["person_id", "year"], how="left")[hl].reset_index(drop=True))
-    vals = np.hstack([parts[1].to_numpy(float), parts[2].to_numpy(float)])
-    persons = parts[0]["person_id"].to_numpy(object)
-    years = parts[0]["year"].to_numpy()
+    k = last["_pid"].to_numpy() * 10000 + last["year"].to_numpy()
+    uk = np.unique(k)
+    vals = np.full((len(uk), 2 * len(hl)), np.nan)
+    for j, ear in enumerate(("L", "R")):
+        sel = last["ear"].eq(ear).to_numpy()
+        vals[np.searchsorted(uk, k[sel]), j * len(hl):(j + 1) * len(hl)] = last.loc[sel, hl].to_numpy(float)
+    pid_of = pd.Series(ag["person_id"].to_numpy(), index=ag["_pid"].to_numpy())
+    pid_of = pid_of[~pid_of.index.duplicated()]
+    persons = pid_of.reindex(uk // 10000).to_numpy(object)
+    years = uk % 10000
     same = np.r_[False, persons[1:] == persons[:-1]]
     prev = np.vstack([np.full((1, vals.shape[1]), np.nan), vals[:-1]])
     diff = vals - prev
@@ -1120,10 +1128,11 @@ def compute(programme: Programme, results: dict) -> HearingResult:
                                                       cfg.hours_worked, start, as_of)
     followups = _followups(programme, ag, decisions, as_of)
     actions = _actions(ag, followups, baselines, start, as_of)
-    py = _per_person_year(ag)
+    last = _last_per_year(ag)
+    py = _per_person_year(ag, last)
     population = _population(py)
     period_groups = _period_groups(py, start, as_of)
-    indicators = _indicators(ag)
+    indicators = _indicators(ag, last)
     age_norms = _age_norms(ag, as_of)
     noise_expected, n_notes = _noise_expected(ag, results, as_of)
     notes.extend(n_notes)

@@ -136,10 +136,14 @@ def dose_rate(levels: ArrayLike, criterion_level: float, criterion_hours: float,
     L = np.asarray(levels, dtype=float)
     if clip_upper and upper_limit is not None:
         L = np.minimum(L, upper_limit)
-    rate = 100.0 / reference_duration(L, criterion_level, criterion_hours, exchange_rate)
-    if threshold is not None:
-        rate = np.where(L >= threshold, rate, 0.0)
-    return np.where(np.isnan(L), 0.0, rate)
+    # 100 / T(L) = (100 / Tc) · 2^((L - Lc)/q), computed in place on one temporary array
+    rate = np.array(L - criterion_level, dtype=float)
+    rate *= 1.0 / exchange_rate
+    np.exp2(rate, out=rate)
+    rate *= 100.0 / criterion_hours
+    keep = ~np.isnan(L) if threshold is None else (L >= threshold)
+    rate[~keep] = 0.0
+    return rate
 
 
 def dose_pct(levels: ArrayLike, hours: ArrayLike, criterion_level: float, criterion_hours: float,

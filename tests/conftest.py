@@ -10,7 +10,8 @@ from typing import Any, Iterator
 import pytest
 
 REPO = Path(__file__).resolve().parent.parent
-EXAMPLE = REPO / "site_example"
+#: the example programme (HCPSITE_EXAMPLE may point the shared fixture at another programme folder)
+EXAMPLE = Path(os.environ.get("HCPSITE_EXAMPLE") or REPO / "site_example")
 #: 2026-01-01T00:00:00Z: after the example's review period, so no record lies in the future.
 FIXED_EPOCH = "1767225600"
 #: a published-in-the-tests key: codes are stable across test runs, and not the built-in key

@@ -487,6 +487,16 @@ def test_eu_rule_set_without_intervals() -> None:
     res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
     assert person(res)["audiogram_status"] == "not_required"
     assert any("interval" in n for n in res.notes)
+    # no time limit for the baseline either: a person without audiograms is not "overdue"
+    res = compliance.compute(make(ONE, rules="eu-2003-10"), {"exposure": exposed("2020-01-01")})
+    assert person(res)["baseline_status"] == "not_required"
+    assert res.actions.empty or "baseline audiogram" not in set(res.actions["kind"])
+
+
+def test_no_people_at_all() -> None:
+    res = compliance.compute(make([]), {"exposure": exposure([])})
+    assert res.people.empty and res.actions.empty
+    assert res.summary["current_audiogram_share"] is None
 
 
 # ---------------------------------------------------------------------------------------
@@ -517,3 +527,49 @@ def test_programme_folder_baseline_boundary(tmp_path: Path) -> None:
     assert st.loc["E001", "training_status"] == "overdue"  # 29 CFR 1910.95(k): never trained
     acts = results["compliance"].actions
     assert set(acts.loc[acts["subject"].eq("E001"), "kind"]) >= {"training", "protector"}
+
+
+# ---------------------------------------------------------------------------------------
+# the pages of a small built demo programme (invented workplace)
+
+
+@pytest.fixture(scope="module")
+def small_site(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, Path]:
+    from generator.demo import write_demo
+    from tests.conftest import build_fixed
+
+    root = tmp_path_factory.mktemp("small") / "programme"
+    write_demo(root, people=40, years=3, seed=11)
+    out = root.parent / "site"
+    build_fixed(root, out)
+    return root, out
+
+
+def test_pages_show_codes_never_raw_ids_or_names(small_site: tuple[Path, Path]) -> None:
+    import re
+
+    root, out = small_site
+    people = pd.read_csv(root / "data" / "people.csv", dtype=str).fillna("")
+    for slug in ("programme", "actions", "trends", "review"):
+        html = (out / f"{slug}.html").read_text(encoding="utf-8")
+        text = re.sub(r"<script.*?</script>", "", html, flags=re.S)
+        for pid in people["person_id"]:
+            assert not re.search(r"(?<![\w-])" + re.escape(pid) + r"(?![\w-])", text), (slug, pid)
+        for name in people["name"]:
+            if name:
+                assert name not in html, (slug, name)
+
+
+def test_review_gathers_sections_in_print_order(small_site: tuple[Path, Path]) -> None:
+    import re
+
+    _, out = small_site
+    html = (out / "review.html").read_text(encoding="utf-8")
+    order = re.findall(r'<section class="review-part" id="review-([a-z]+)"', html)
+    expected = [s for s in ("index", "exposure", "protection", "hearing", "programme", "trends", "actions",
+                            "methods") if s in order]
+    assert order == expected and {"index", "programme", "actions", "methods"} <= set(order)
+    ids = re.findall(r'<div id="(review-\d+)" class="plotly-graph-div"', html)
+    assert ids == [f"review-{i}" for i in range(1, len(ids) + 1)]
+    trends = (out / "trends.html").read_text(encoding="utf-8")
+    assert "What changed since last year" in trends

@@ -7,7 +7,6 @@ import subprocess
 import sys
 from pathlib import Path
 
-import pytest
 
 from tests.conftest import FIXED_EPOCH, REPO, TEST_KEY, build_fixed, env
 from tests.progkit import make_programme

@@ -197,3 +197,11 @@ def test_methods_overview_states_the_limits() -> None:
     text = (ROOT / "content" / "methods" / "overview.md").read_text(encoding="utf-8")
     assert "not a diagnosis" in text
     assert "audiologist" in text and "noise assessor" in text
+
+
+def test_methods_page_texts_start_with_overview_and_end_with_glossary() -> None:
+    from generator.pages.methods import method_texts
+
+    names = [t["name"] for t in method_texts()]
+    assert names[0] == "overview" and names[-1] == "glossary"
+    assert "| LEX,8h (daily noise exposure level) |" in method_texts()[-1]["markdown"]

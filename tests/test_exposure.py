@@ -340,11 +340,16 @@ def test_stale_group_and_limit_actions(tmp_path: Path) -> None:
 def test_group_with_few_samples_is_warned(tmp_path: Path) -> None:
     noise = [{"measurement_id": f"M{i}", "date": "2025-05-01", "kind": "personal", "person_id": "E001",
               "duration_h": 1, "laeq": 85.0 + i} for i in range(3)]
+    noise[0].update({f"oct_{f}": 80.0 for f in (63, 125, 250, 500, 1000, 2000, 4000, 8000)})
     p = _load(tmp_path, {"noise.csv": noise, "groups.csv": [{"group": "G1"}]})
     r = ex.compute(p, {})
     keys = {f.key for f in r.findings}
     # ISO 9612:2009 10.3 (N >= 5) and Table 1 (5 h minimum for up to 5 workers)
     assert "job-few-samples" in keys and "job-short-duration" in keys
+    assert "octave-laeq-mismatch" in keys
+    # every finding names its line, so the build can sort them with the reader's findings
+    assert all(isinstance(f.row, int) for f in r.findings)
+    assert sorted(r.findings)[0].path == "data/noise.csv"
     g = r.groups.set_index("group").loc["G1"]
     # N = 3: Table C.4 row 3, u1 = 1.0 -> 1.6 dB
     assert g["c1u1"] == pytest.approx(1.6)
@@ -392,7 +397,8 @@ def test_pages_build_with_codes_and_suppression(tmp_path: Path) -> None:
     noise.append({"measurement_id": "T1", "date": "2025-04-02", "kind": "personal", "person_id": "EMP900",
                   "duration_h": 8, "laeq": 97.3})
     noise += [{"measurement_id": f"A{i}", "date": "2025-04-01", "kind": "area", "group": "BIG", "duration_h": 1,
-               "laeq": 80.0 + 3 * i, "x_m": 5.0 * i, "y_m": 2.0 * (i % 2)} for i in range(3)]
+               "laeq": 80.0 + 3 * i, "x_m": 5.0 * i, "y_m": 2.0 * (i % 2), "location": f"bench of EMP00{i}"}
+              for i in range(3)]
     p = _load(tmp_path, {"people.csv": people, "noise.csv": noise, "groups.csv": [{"group": "BIG"}, {"group": "TINY"}],
                          "noise_logs/M0.csv": _log_csv([84.0] * 480)},
               config={"privacy": {"min_group_size": 3}})
@@ -413,5 +419,52 @@ def test_pages_build_with_codes_and_suppression(tmp_path: Path) -> None:
     assert "97.3" not in html["exposure"]
     assert ctx.code("EMP001") in html["exposure/big"]
     assert "for orientation only" in html["noise-map"]
+    # free text naming a person is shown with the person's code
+    assert f"bench of {ctx.code('EMP002')}" in html["noise-map"]
     # every chart has its data table and a summary sentence
     assert all(c.summary and c.table.columns for pg in built for c in pg.charts)
+
+
+def test_osha_limit_band_uses_the_pel_dose(tmp_path: Path) -> None:
+    # 29 CFR 1910.95 App. A: 4 h at 93 dB (T = 5.28 h) + 4 h at 88 dB (T = 10.56 h) -> 113.7 %, TWA 90.9;
+    # counting only levels >= 90 dB (OSHA Technical Manual, common practice): 75.8 %, TWA 88.0 -> below the PEL
+    noise = [{"measurement_id": "L1", "date": "2025-03-10", "kind": "personal", "person_id": "E001",
+              "duration_h": 8, "laeq": 91.2}]
+    p = _load(tmp_path, {"noise.csv": noise, "groups.csv": [{"group": "G1"}],
+                         "noise_logs/L1.csv": _log_csv([93.0] * 240 + [88.0] * 240)})
+    r = ex.compute(p, {})
+    m = r.measurements.set_index("measurement_id").loc["L1"]
+    t93, t88 = (float(lv.reference_duration(L, 90, 8, 5)) for L in (93, 88))
+    assert m["osha_dose_pct"] == pytest.approx(100 * (4 / t93 + 4 / t88), rel=1e-9)
+    assert m["osha_pel_dose_pct"] == pytest.approx(100 * 4 / t93, rel=1e-9)
+    assert m["osha_twa"] == pytest.approx(90.9, abs=0.05)
+    assert m["limit_twa_osha-1910.95"] == pytest.approx(88.0, abs=0.05)
+    assert m["band_osha-1910.95"] == "85–90"
+    g = r.groups.set_index("group").loc["G1"]
+    assert g["band_osha-1910.95"] == "85–90" and g["osha_twa"] == pytest.approx(90.9, abs=0.05)
+    assert not (r.actions["kind"] == "noise controls").any()
+
+
+def test_several_logs_in_any_row_order(tmp_path: Path) -> None:
+    # common practice: each log's figures are its own, whatever the order of rows and files
+    noise = [{"measurement_id": "Z9", "date": "2025-03-10", "kind": "personal", "person_id": "E001",
+              "duration_h": 1200 / 3600, "laeq": 90.0},
+             {"measurement_id": "A1", "date": "2025-03-11", "kind": "personal", "person_id": "E002",
+              "duration_h": 700 / 3600, "laeq": 80.0}]
+    z = [90.0] * 600 + [96.0] * 600
+    a = [80.0] * 350 + [70.0] * 350
+    p = _load(tmp_path, {"noise.csv": noise, "noise_logs/Z9.csv": _log_csv(z, step_s=1),
+                         "noise_logs/A1.csv": _log_csv(a, "2025-03-11T07:00:00", step_s=1)})
+    r = ex.compute(p, {})
+    m = r.measurements.set_index("measurement_id")
+    assert m.loc["Z9", "laeq"] == pytest.approx(lv.leq(z))
+    assert m.loc["A1", "laeq"] == pytest.approx(lv.leq(a))
+    for mid, levels, t0 in (("Z9", z, "2025-03-10 06:00:00"), ("A1", a, "2025-03-11 07:00:00")):
+        h = r.logs[mid]
+        assert h["n"].sum() == len(levels) and len(h) <= ex.LOG_POINTS
+        assert h["lmax"].max() == max(levels) and h["start"].iloc[0] == pd.Timestamp(t0)
+        assert h["start"].is_monotonic_increasing
+        assert lv.leq(h["laeq"], h["n"]) == pytest.approx(lv.leq(levels))
+    # NIOSH 98-126 (85 dBA, 3 dB): 600 s at 90 and 600 s at 96 (threshold 80 dBA)
+    t = 600 / 3600
+    assert m.loc["Z9", "niosh_dose_pct"] == pytest.approx(100 * t * (2 ** (5 / 3) + 2 ** (11 / 3)) / 8)

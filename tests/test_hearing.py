@@ -355,6 +355,13 @@ def test_clopper_pearson_against_scipy():
         assert hi == pytest.approx(want_hi, abs=1e-9)
     lo, hi = hearing.clopper_pearson([0], [0])
     assert np.isnan(lo[0]) and np.isnan(hi[0])
+    # the incomplete beta function and its inverse against scipy.stats.beta (tests only)
+    a = np.array([0.5, 2.0, 5.0, 40.0, 300.0])
+    b = np.array([0.5, 5.0, 2.0, 900.0, 30.0])
+    x = np.array([0.2, 0.3, 0.8, 0.05, 0.9])
+    assert hearing.betainc_reg(a, b, x) == pytest.approx(beta.cdf(x, a, b), abs=1e-12)
+    assert hearing.beta_ppf([0.025, 0.3, 0.5, 0.9, 0.975], a, b) == pytest.approx(
+        beta.ppf([0.025, 0.3, 0.5, 0.9, 0.975], a, b), abs=1e-10)
 
 
 def test_sequential_indicators(tmp_path):
@@ -449,3 +456,38 @@ def test_no_audiograms(tmp_path):
     from generator.build import build_site
     rep = build_site(root, tmp_path / "out")
     assert "hearing" in rep.pages
+
+
+def test_incidence_improvement_and_referral(tmp_path):
+    # incidence rate = cases x 200,000 / hours worked (OSHA recordkeeping incidence-rate formula,
+    # 29 CFR 1904 "Forms" instructions: N / EH x 200,000)
+    people = [person("I1", "M", "1990-01-01"), person("I2", "M", "1990-01-01"), person("IM", "F", "1990-01-01")]
+    auds = [ag("I1", "2024-01-10", "R", (10, 10, 10), kind="baseline"), ag("I1", "2025-01-10", "R", (25, 30, 30)),
+            ag("I2", "2024-01-10", "L", (10, 10, 10), kind="baseline"), ag("I2", "2025-01-10", "L", (25, 30, 30)),
+            # marked improvement on two tests in a row: a revision candidate, not applied
+            ag("IM", "2023-01-10", "L", (25, 25, 25), kind="baseline"), ag("IM", "2024-01-10", "L", (15, 20, 20)),
+            ag("IM", "2025-01-10", "L", (15, 15, 20))]
+    reviews = [{"person_id": "I1", "ear": "R", "date": "2025-02-01", "decision": "refer",
+                "audiogram_date": "2025-01-10"}]
+    notices = [{"person_id": "I1", "date": "2025-02-10", "about": "referral to audiologist"}]
+    res = run(tmp_path, auds, people, config={"audiometry": {"age_correction": False}, "hours_worked": 400000},
+              reviews=reviews, notices=notices)
+    assert res.summary["recordable_cases"] == 2
+    assert res.summary["recordable_rate_per_200k"] == pytest.approx(1.0)
+    inc = res.incidence.set_index("year").loc[2025]
+    assert inc["n_cases"] == 2 and inc["rate_per_200k"] == pytest.approx(1.0)
+    b = res.baselines.set_index("person_id").loc["IM"]
+    assert b["candidate"] == "improvement" and b["candidate_date"] == pd.Timestamp("2025-01-10")
+    assert b["baseline_date"] == pd.Timestamp("2023-01-10")  # never revised automatically
+    fu = res.followups.set_index(["person_id", "kind"])
+    assert fu.loc[("I1", "referral"), "status"] == "on time"
+    assert fu.loc[("I1", "referral"), "done_date"] == pd.Timestamp("2025-02-10")
+    assert res.sts_people == frozenset({"I1", "I2"})
+
+
+def test_age_at_whole_years():
+    # whole years at the test date (common practice: age at last birthday)
+    birth = pd.Series(pd.to_datetime(["1990-03-01", "1990-03-01", "1990-03-01", None]))
+    date = pd.Series(pd.to_datetime(["2022-02-28", "2022-03-01", "2023-12-31", "2022-01-01"]))
+    got = hearing.age_at(birth, date)
+    assert got.iloc[:3].tolist() == [31.0, 32.0, 33.0] and np.isnan(got.iloc[3])

@@ -670,6 +670,16 @@ def _typed(spec: FileSpec, frame: pd.DataFrame, unknown: list[str], rows: np.nda
 
 def empty_table(spec: FileSpec) -> pd.DataFrame:
     """Return an empty DataFrame with the declared (and generated) columns of *spec*."""
+    key = (spec.name, spec.columns)
+    if key not in _EMPTY:
+        _EMPTY[key] = _make_empty(spec)
+    return _EMPTY[key].copy()
+
+
+_EMPTY: dict[tuple, pd.DataFrame] = {}
+
+
+def _make_empty(spec: FileSpec) -> pd.DataFrame:
     cols: dict[str, pd.Series] = {}
     for c in spec.columns:
         if c.kind in ("id", "text", "choice"):
@@ -992,6 +1002,8 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
     sink.add(back, "start", ERROR, "start is not later than the row before (timestamps must increase)",
              key="start: not increasing")
     allf = allf.loc[start.notna()].sort_values(["_file", "start", "_row"], kind="stable").reset_index(drop=True)
+    if allf.empty:
+        return {}, {}
     f = allf["_file"].to_numpy()
     t = allf["start"].to_numpy(dtype="datetime64[ns]").astype(np.int64) / 1e9
     same = np.concatenate(([False], f[1:] == f[:-1]))

@@ -11,6 +11,7 @@ import plotly.graph_objects as go
 
 from .. import charts
 from ..exposure import PARAMETERS, ExposureResult, action_value, band_names
+from ..privacy import redactor
 from .base import Chart, Page, SiteContext, Table
 
 log = logging.getLogger(__name__)
@@ -216,21 +217,21 @@ def weekly_table(res: ExposureResult, ctx: SiteContext) -> Table:
                  classes=["", "", "", "num", "num", "num", ""])
 
 
-def actions_table(res: ExposureResult, ctx: SiteContext) -> Table:
+def actions_table(res: ExposureResult, ctx: SiteContext, redact: Any = str) -> Table:
     """Return the exposure actions (group subjects; person subjects by code)."""
     rows = []
     for r in res.actions.itertuples(index=False):
         subj = ctx.code(r.subject) if r.subject_type == "person" else str(r.subject)
         due = r.due_date.strftime("%Y-%m-%d") if not pd.isna(r.due_date) else charts.BLANK
-        rows.append([subj, r.kind, r.detail, due, r.clause])
+        rows.append([subj, r.kind, redact(r.detail), due, r.clause])
     return Table(columns=["Subject", "Action", "Detail", "Due", "Clause"], rows=rows,
                  caption="Exposure actions", classes=["", "", "", "", ""])
 
 
-def findings_table(res: ExposureResult, suppressed: frozenset[str] = frozenset()) -> Table:
+def findings_table(res: ExposureResult, suppressed: frozenset[str] = frozenset(), redact: Any = str) -> Table:
     """Return the sampling and data warnings of the exposure stage (none about suppressed groups)."""
     hidden = tuple(f"group {g}{sep}" for g in sorted(suppressed) for sep in (":", ","))
-    rows = [[f.path, "" if f.row is None else str(f.row), f.message] for f in res.findings
+    rows = [[redact(f.path), "" if f.row is None else str(f.row), redact(f.message)] for f in res.findings
             if not f.message.startswith(hidden)]
     return Table(columns=["File", "Row", "Warning"], rows=rows, caption="Warnings about the exposure data",
                  classes=["", "num", ""])
@@ -240,7 +241,7 @@ def findings_table(res: ExposureResult, suppressed: frozenset[str] = frozenset()
 # group pages
 
 
-def measurement_table(m: pd.DataFrame, ctx: SiteContext) -> Table:
+def measurement_table(m: pd.DataFrame, ctx: SiteContext, redact: Any = str) -> Table:
     """Return one group's measurements with person codes (never raw ids)."""
     hid = ctx.headline.id
     rows = []
@@ -249,7 +250,7 @@ def measurement_table(m: pd.DataFrame, ctx: SiteContext) -> Table:
     for (date, mid, pid, kind, loc, dur, laeq, lex, od, ot, nd, nt, pk, basis, band) in \
             m[cols].itertuples(index=False, name=None):
         who = ctx.code(pid) if pid else "area"
-        rows.append([date.strftime("%Y-%m-%d"), mid, who, kind, loc or charts.BLANK, _num(dur, 2), _num(laeq),
+        rows.append([date.strftime("%Y-%m-%d"), redact(mid), who, kind, redact(loc) or charts.BLANK, _num(dur, 2), _num(laeq),
                      _num(lex), _num(od, 0), _num(ot), _num(nd, 0), _num(nt), _num(pk), basis,
                      band or charts.BLANK])
     return Table(columns=["Date", "Measurement", "Person", "Kind", "Location", "Run, h", "LAeq", "LEX,8h",
@@ -285,9 +286,10 @@ def task_chart(t: pd.DataFrame, slug: str) -> Chart:
     return Chart(id=_chart_id(slug, 1), figure=fig, summary=summary, table=table, title="Share of the daily dose")
 
 
-def history_chart(mid: str, h: pd.DataFrame, ctx: SiteContext, slug: str, n: int) -> Chart:
+def history_chart(mid: str, h: pd.DataFrame, ctx: SiteContext, slug: str, n: int, redact: Any = str) -> Chart:
     """Return a downsampled time history with the threshold and criterion lines of the headline rule."""
     head = ctx.headline
+    mid = redact(mid)
     x = h["start"].dt.strftime("%Y-%m-%dT%H:%M:%S").to_numpy(dtype=object)
     fig = go.Figure(go.Scatter(x=x, y=h["laeq"].round(1).to_numpy(), mode="lines",
                                name="LAeq per interval (energy mean)", line=dict(color=charts.PALETTE[0])))
@@ -305,10 +307,10 @@ def history_chart(mid: str, h: pd.DataFrame, ctx: SiteContext, slug: str, n: int
     table = Table(columns=["From", "LAeq, dB(A)", "Highest interval, dB(A)", "Intervals"], rows=rows,
                   caption=f"Time history of {mid}, up to {int(step)} logged intervals per point",
                   classes=["", "num", "num", "num"])
-    above = float((h["laeq"] >= head.criterion_level).mean() * 100) if len(h) else 0.0
-    summary = (f"Measurement {mid}: levels from {h['laeq'].min():.0f} to {h['laeq'].max():.0f} dB(A); "
-               f"{above:.0f} % of the time at or above the {head.short} criterion level of "
-               f"{head.criterion_level:g} dB(A).")
+    summary = (f"Measurement {mid}: plotted levels from {h['laeq'].min():.0f} to {h['laeq'].max():.0f} dB(A) "
+               f"(energy means of up to {int(step)} logged intervals per point); dashed lines mark the "
+               f"{head.short} criterion level {head.criterion_level:g} dB(A)"
+               + (f" and threshold {head.threshold:g} dB(A)." if head.threshold else "."))
     return Chart(id=_chart_id(slug, n), figure=fig, summary=summary, table=table, height=360,
                  title=f"Time history {mid}")
 
@@ -349,7 +351,7 @@ def bands_table(gr: pd.Series, ctx: SiteContext) -> Table:
                  classes=["", "", "num", "", "num", "", ""])
 
 
-def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str) -> Page:
+def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str, redact: Any = str) -> Page:
     """Return the page of one group."""
     code = gr["group"]
     suppressed = code in ctx.suppressed_groups
@@ -364,19 +366,20 @@ def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str) 
                      "u_expanded": gr["u_expanded"], "lex_8h_upper": gr["lex_8h_upper"], "band": gr["band"],
                      "osha_twa": gr["osha_twa"], "niosh_twa": gr["niosh_twa"], "max_lcpeak": gr["max_lcpeak"],
                      "te_h": gr["te_h"], "stale": bool(gr["stale"]), "last_measured": gr["last_measured"]},
-            measurement_table=measurement_table(m, ctx),
+            measurement_table=measurement_table(m, ctx, redact),
             task_table=task_table(t) if len(t) else None,
             budget_table=budget_table(gr, t),
             bands_table=bands_table(gr, ctx),
             steady=bool((m["basis"] == "steady_level").any()),
-            findings=[f.message for f in res.findings if f"group {code}:" in f.message or f"group {code}," in f.message],
+            findings=[redact(f.message) for f in res.findings
+                      if f"group {code}:" in f.message or f"group {code}," in f.message],
         )
         n = 1
         if len(t):
             page_charts.append(task_chart(t, slug))
             n += 1
         for mid in sorted(set(m["measurement_id"]) & set(res.logs)):
-            page_charts.append(history_chart(mid, res.logs[mid], ctx, slug, n))
+            page_charts.append(history_chart(mid, res.logs[mid], ctx, slug, n, redact))
             n += 1
     return Page(slug=slug, title=f"Exposure: {gr['name']}", template="exposure_group.html", section=SECTION,
                 context=context, charts=page_charts)
@@ -386,10 +389,10 @@ def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str) 
 # noise map
 
 
-def noise_map_chart(res: ExposureResult, ctx: SiteContext) -> Chart | None:
+def noise_map_chart(res: ExposureResult, ctx: SiteContext, redact: Any = str) -> Chart | None:
     """Return the map of area measurements with the interpolated contour, or None without positions."""
     nm = res.noise_map
-    pts = nm.points
+    pts = nm.points.assign(location=[redact(v) for v in nm.points["location"]])
     if pts.empty:
         return None
     fig = go.Figure()
@@ -427,6 +430,7 @@ def build(ctx: SiteContext) -> list[Page]:
     if res is None:
         return []
     head = ctx.headline
+    redact = redactor(ctx.programme.table("people"), ctx.code)
     codes = res.groups["group"].tolist()
     slugs = group_slugs(codes)
     m = res.measurements
@@ -454,8 +458,8 @@ def build(ctx: SiteContext) -> list[Page]:
             "basis_table": basis_table(res),
             "steady": bool((m["basis"] == "steady_level").any()),
             "weekly_table": weekly_table(res, ctx),
-            "actions_table": actions_table(res, ctx),
-            "findings_table": findings_table(res, ctx.suppressed_groups),
+            "actions_table": actions_table(res, ctx, redact),
+            "findings_table": findings_table(res, ctx.suppressed_groups, redact),
             "parameters": [{"name": p[0], "value": p[1], "unit": p[2], "source": p[3]} for p in PARAMETERS],
             "notes": [n for r in ctx.rules.values() for n in r.notes],
             "any_suppressed": bool(set(res.groups["group"]) & set(ctx.suppressed_groups)),
@@ -465,8 +469,8 @@ def build(ctx: SiteContext) -> list[Page]:
     )
     pages = [overview]
     for _, gr in res.groups.iterrows():
-        pages.append(group_page(gr, res, ctx, f"exposure/{slugs[gr['group']]}"))
-    chart = noise_map_chart(res, ctx)
+        pages.append(group_page(gr, res, ctx, f"exposure/{slugs[gr['group']]}", redact))
+    chart = noise_map_chart(res, ctx, redact)
     pages.append(Page(slug="noise-map", title="Noise map", template="noise_map.html", section=SECTION,
                       context={"has_points": chart is not None, "map_note": MAP_NOTE,
                                "n_points": int(len(res.noise_map.points))},

@@ -11,7 +11,7 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from .. import charts
-from ..hearing import EAR_NAMES, HearingResult, PARAMETERS
+from ..hearing import EAR_NAMES, HearingResult
 from ..inputs.spec import AUDIO_FREQS
 from .base import Chart, Page, SiteContext, Table
 
@@ -219,7 +219,7 @@ def age_chart(an: pd.DataFrame, cid: str, freq: int = 4000) -> Chart:
         for label, column, dash, mode in (("observed median", "observed_median", "solid", "lines+markers"),
                                           ("ISO 7029 median", "iso_median", "dash", "lines"),
                                           ("ISO 7029 10 % worst", "iso_p90", "dot", "lines")):
-            ys = charts._values(s[column].replace(np.inf, np.nan))
+            ys = [None if not np.isfinite(v) else float(v) for v in s[column].to_numpy(float)]
             fig.add_trace(go.Scatter(x=bands, y=ys, name=f"{label}, {word}", mode=mode,
                                      line=dict(color=col, dash=dash)))
     charts.base_layout(fig, None, 440, "age band, years", f"hearing level at {freq} Hz, dB")
@@ -298,13 +298,12 @@ def rate_by_group_chart(pg: pd.DataFrame, suppressed: frozenset[str], cid: str) 
 # tables
 
 
-def shifts_table(a: pd.DataFrame, ctx: SiteContext, link: bool) -> Table:
+def shifts_table(a: pd.DataFrame, ctx: SiteContext) -> Table:
     """Return the audiograms with a shift, a recordable case or an NR to review (codes only)."""
-    d = a.sort_values(["date", "person_id", "ear"])
+    d = a.assign(pcode=[ctx.code(p) for p in a["person_id"]]).sort_values(["date", "pcode", "ear"])
     rows = []
     for r in d.itertuples():
-        code = ctx.code(r.person_id)
-        rows.append([code, EAR_NAMES.get(r.ear, r.ear), _date(r.date), _num(r.avg_234), _num(r.shift_234),
+        rows.append([r.pcode, EAR_NAMES.get(r.ear, r.ear), _date(r.date), _num(r.avg_234), _num(r.shift_234),
                      _num(r.shift_234_age_corrected), r.shift_status or BLANK, r.retest_status or BLANK,
                      _yes(r.recordable), _yes(r.niosh_shift)])
     return Table(["Person", "Ear", "Date", "2/3/4 kHz average, dB HL", "Shift, dB", "Shift age-corrected, dB",
@@ -315,8 +314,9 @@ def shifts_table(a: pd.DataFrame, ctx: SiteContext, link: bool) -> Table:
 
 def followups_table(fu: pd.DataFrame, ctx: SiteContext) -> Table:
     """Return follow-ups that were late, are missing or are due (codes only)."""
-    d = fu[fu["status"] != "on time"].sort_values(["due_date", "person_id", "ear", "kind"])
-    rows = [[ctx.code(r.person_id), EAR_NAMES.get(r.ear, r.ear), KIND_WORDS.get(r.kind, r.kind),
+    d = fu[fu["status"] != "on time"]
+    d = d.assign(pcode=[ctx.code(p) for p in d["person_id"]]).sort_values(["due_date", "pcode", "ear", "kind"])
+    rows = [[r.pcode, EAR_NAMES.get(r.ear, r.ear), KIND_WORDS.get(r.kind, r.kind),
              _date(r.trigger_date), _date(r.due_date), _date(r.done_date), r.status, r.clause]
             for r in d.itertuples()]
     return Table(["Person", "Ear", "Follow-up", "Shift or decision", "Due", "Done", "Status", "Clause"], rows,
@@ -333,7 +333,8 @@ def group_table(pg: pd.DataFrame, pop: pd.DataFrame, years: list[int], suppresse
         if r.group in suppressed:
             rows.append([name] + [SUPPRESSED] * 6)
             continue
-        m = mean.loc[r.group] if r.group in mean.index else pd.Series({"mean_avg_234": np.nan, "change_mean_avg": np.nan})
+        m = mean.loc[r.group] if r.group in mean.index else pd.Series(
+            {"mean_avg_234": np.nan, "change_mean_avg": np.nan})
         rows.append([name, str(int(r.n_tested)), str(int(r.n_sts)), _ci_text(r.sts_ci_low, r.sts_ci_high),
                      str(int(r.n_recordable)), _num(m["mean_avg_234"]), _num(m["change_mean_avg"])])
     return Table(["Group", "Tested", "With STS", "STS rate 95 % CI (exact)", "Recordable",
@@ -399,7 +400,7 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
         "group_table": group_table(h.period_groups, h.population, years, sup),
         "group_links": [{"group": g, "href": f"hearing/{slugs[g]}.html", "suppressed": g in sup}
                         for g in sorted(slugs)],
-        "shifts_table": shifts_table(flagged, ctx, False),
+        "shifts_table": shifts_table(flagged, ctx),
         "followups_table": followups_table(fu_vis, ctx),
         "notes": list(h.notes),
         "any_suppressed": bool(set(slugs) & set(sup)),
@@ -431,7 +432,7 @@ def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Pa
     ]
     flagged = a[(a["shift_status"] != "") | a["recordable"]]
     context = {"group": group, "suppressed": False, "tiles": _tiles(h, a, fu, cases),
-               "shifts_table": shifts_table(flagged, ctx, False), "followups_table": followups_table(fu, ctx),
+               "shifts_table": shifts_table(flagged, ctx), "followups_table": followups_table(fu, ctx),
                "group_name": group}
     return Page(slug=full, title=f"Hearing: {group}", template="hearing_group.html", section="hearing",
                 context=context, charts=page_charts)

@@ -88,12 +88,17 @@ def parameter_tables() -> list[dict[str, Any]]:
 
 
 def method_texts() -> list[dict[str, str]]:
-    """Return the markdown texts of content/methods/, in file-name order."""
+    """Return the markdown texts of content/methods/ (overview first) and the glossary."""
     folder = content_dir() / "methods"
     if not folder.is_dir():
         return []
-    return [{"name": p.stem, "markdown": p.read_text(encoding="utf-8")}
-            for p in sorted(folder.glob("*.md"))]
+    # the general notes (overview.md) come first, then the domain texts by name
+    files = sorted(folder.glob("*.md"), key=lambda p: (p.stem != "overview", p.name))
+    texts = [{"name": p.stem, "markdown": p.read_text(encoding="utf-8")} for p in files]
+    glossary = content_dir() / "glossary.md"
+    if glossary.is_file():
+        texts.append({"name": "glossary", "markdown": glossary.read_text(encoding="utf-8")})
+    return texts
 
 
 def build(ctx: SiteContext) -> list[Page]:

@@ -167,6 +167,7 @@ def build(ctx: SiteContext) -> list[Page]:
         return [Page(slug="programme", title="Programme", template="programme.html", section="programme",
                      in_nav=True, context={"available": False})]
     sup = ctx.suppressed_groups
+    start = pd.Timestamp(ctx.programme.config.period.start)
     s = comp.people
     late = s[s["baseline_status"].eq("late")]
     due = comp.due.copy()
@@ -177,10 +178,11 @@ def build(ctx: SiteContext) -> list[Page]:
     if len(meters):
         meters["booth"] = [("within Table D-1" if ok else str(d)) for ok, d in zip(meters["booth_ok"],
                                                                                    meters["booth_detail"])]
-    start = pd.Timestamp(ctx.programme.config.period.start)
     all_flagged = comp.audiograms_flagged
     flagged = all_flagged[pd.to_datetime(all_flagged["date"]) >= start].copy()
-    refits = comp.refits.copy()
+    refits = comp.refits
+    if len(refits):  # open ones, and those of shifts found in the period
+        refits = refits[refits["done_date"].isna() | (pd.to_datetime(refits["trigger_date"]) >= start)]
     page_charts = [training_chart(comp.training_groups, sup), protector_chart(comp.protector_groups, sup)]
     st = comp.audiometer_status
     ac = audiometer_chart(st[pd.to_datetime(st["date"]) >= start] if len(st) else st)
@@ -217,7 +219,8 @@ def build(ctx: SiteContext) -> list[Page]:
         "refit_table": person_table(refits, ctx, {"ear": "Ear", "trigger_date": "Shift found",
                                                   "due_date": "Due", "done_date": "Done", "status": "Status",
                                                   "clause": "Clause"},
-                                    caption="Protector refits after a standard threshold shift"),
+                                    caption="Protector refits after a standard threshold shift: open ones and "
+                                            "those of shifts found in the period"),
         "audiometer_table": charts.table_from_frame(meters, {
             "audiometer_id": "Audiometer", "last_used": "Last used", "last_functional": "Last functional check",
             "last_acoustic": "Last acoustic calibration", "acoustic_due": "Acoustic due",
