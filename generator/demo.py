@@ -534,7 +534,7 @@ def _people(rng: np.random.Generator, headcount: int, start: int, end: int) -> p
     df["laeq_offset"] = g_sd[gi] * rng.standard_normal(n)
     df["lex_person"] = g_lex[gi] + df["laeq_offset"].to_numpy()
     # long-run protector benefit (dB): protectors worn much, but not all, of the time
-    df["benefit"] = np.where(np.array([g.enrolled for g in GROUPS])[gi], rng.uniform(0.0, 8.0, n), 0.0)
+    df["benefit"] = np.where(np.array([g.enrolled for g in GROUPS])[gi], rng.uniform(2.0, 10.0, n), 0.0)
     return df
 
 

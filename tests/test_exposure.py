@@ -468,3 +468,17 @@ def test_several_logs_in_any_row_order(tmp_path: Path) -> None:
     # NIOSH 98-126 (85 dBA, 3 dB): 600 s at 90 and 600 s at 96 (threshold 80 dBA)
     t = 600 / 3600
     assert m.loc["Z9", "niosh_dose_pct"] == pytest.approx(100 * t * (2 ** (5 / 3) + 2 ** (11 / 3)) / 8)
+
+
+def test_quiet_group_still_gives_people_a_source(tmp_path: Path) -> None:
+    # 29 CFR 1910.95(d)(2)(i): below 80 dB nothing counts in the OSHA dose, yet the group has a LEX,8h
+    noise = [{"measurement_id": "Q1", "date": "2025-03-10", "kind": "personal", "person_id": "E001",
+              "duration_h": 8, "laeq": 70.0}]
+    p = _load(tmp_path, {"noise.csv": noise, "groups.csv": [{"group": "G1"}]})
+    r = ex.compute(p, {})
+    pp = r.people.set_index("person_id")
+    assert pp.loc["E002", "source"] == "group" and pp.loc["E002", "lex_8h"] == pytest.approx(70.0)
+    assert np.isnan(pp.loc["E002", "twa"]) and not bool(pp.loc["E002", "exposed"])
+    g = r.groups.set_index("group").loc["G1"]
+    assert g["band_osha-1910.95"] == "below 85" and g["band_eu-2003-10"] == "below 80"
+    assert r.measurements.iloc[0]["osha_dose_pct"] == 0.0
