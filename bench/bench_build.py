@@ -101,12 +101,16 @@ def input_summary(folder: Path) -> dict[str, int]:
     return {"files": len(files), "bytes": sum(p.stat().st_size for p in files)}
 
 
-def write_data(folder: Path, people: int, years: int, seed: int) -> float:
-    """Write a demo programme into *folder*; return the seconds it took."""
-    from generator.demo import write_demo
+def write_data(folder: Path, people: int, years: int, seed: int, env: dict[str, str]) -> float:
+    """Write a demo programme into *folder* (``hcpsite demo`` in a subprocess); return its seconds.
 
+    A subprocess, because Linux carries a process's peak RSS over fork and exec: data
+    written in this process would inflate every later step's peak-memory figure.
+    """
     t0 = time.perf_counter()
-    write_demo(folder, people=people, years=years, seed=seed)
+    subprocess.run([sys.executable, "-m", "generator", "demo", str(folder), "--people", str(people),
+                    "--years", str(years), "--seed", str(seed)], env=env, check=True,
+                   stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
     return time.perf_counter() - t0
 
 
@@ -147,7 +151,7 @@ def main(argv: list[str] | None = None) -> int:
         sizes = [(prog, args.people)] + ([] if args.skip_2x else [(prog2, 2 * args.people)])
         for folder, people in sizes:
             if not (folder / "programme.yaml").is_file():
-                secs = write_data(folder, people, args.years, args.seed)
+                secs = write_data(folder, people, args.years, args.seed, env)
                 log.info("wrote %s (%d people, %d years) in %.1f s", folder.name, people, args.years, secs)
         result["inputs_1x"] = input_summary(prog)
         steps = [

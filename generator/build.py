@@ -330,6 +330,7 @@ def build_site(root: Path, out: Path | None = None, *, strict: bool = False,
     root = Path(root)
     out = Path(out) if out is not None else root / DEFAULT_OUT
     check_output(root, out)
+    clean_stale(Path(out).resolve())
     ctx, skipped_stages = prepare(root, strict=strict, restricted=restricted)
     skipped_sections = build_pages(ctx)
     files = render_site(ctx)

@@ -697,7 +697,8 @@ def _figures(s: pd.DataFrame, hearing: pd.DataFrame | None, year_start: pd.Times
              as_of: pd.Timestamp) -> dict[str, Any]:
     """Return the headline figures of one status table."""
     must = s["must_enrol"]
-    must_active = must & s["active"]
+    # people still within their baseline time limit are not yet expected to have an audiogram
+    must_active = must & s["active"] & ~s["baseline_status"].isin(["scheduled", "due_soon"])
     req_train = s["in_programme"] & s["active"]
     f: dict[str, Any] = {
         "in_scope": int(len(s)),

@@ -31,6 +31,7 @@ import pandas as pd
 
 from . import norms
 from .config import Config, iter_options
+from .findings import UsageError
 from .inputs.spec import AUDIO_FREQS, BOOTH_BANDS, OCTAVE_BANDS
 from .levels import weighted_from_bands
 
@@ -1191,6 +1192,22 @@ def _yaml_value(value: Any) -> str:
     return json.dumps(str(value), ensure_ascii=False)
 
 
+#: First line of a demo programme.yaml: marks a folder write_demo may overwrite.
+_YAML_HEADER = f"# programme.yaml of the {ORGANISATION} demonstration programme (invented workplace)."
+
+
+def _check_target(folder: Path) -> None:
+    """Refuse to write into a file or into a non-empty folder that holds no demo programme."""
+    if folder.exists() and not folder.is_dir():
+        raise UsageError(f"demo: {folder} exists and is not a folder")
+    if folder.is_dir() and any(folder.iterdir()):
+        cfg = folder / "programme.yaml"
+        head = cfg.read_text(encoding="utf-8", errors="replace").split("\n", 1)[0] if cfg.is_file() else ""
+        if head != _YAML_HEADER:
+            raise UsageError(f"demo: {folder} is not empty and holds no demo programme; "
+                             "name a new folder (a demo never overwrites other records)")
+
+
 def programme_yaml(end_year: int, hours_worked: float) -> str:
     """Return programme.yaml text showing every option, each with its documentation."""
     import datetime as dt
@@ -1207,7 +1224,7 @@ def programme_yaml(end_year: int, hours_worked: float) -> str:
         "hours_worked": float(hours_worked),
         "site_url_note": "Synthetic demonstration data of an invented workplace.",
     }
-    lines = [f"# programme.yaml of the {ORGANISATION} demonstration programme (invented workplace).",
+    lines = [_YAML_HEADER,
              "# Every option is shown with its documentation; values not set here are the defaults.", ""]
     for name, kind, default, doc in iter_options(Config):
         depth = name.count(".")
@@ -1313,13 +1330,15 @@ def write_demo(folder: Path | str, people: int = 250, years: int = 6, seed: int 
 
     *people* is the headcount of the positions (leavers are replaced, so people.csv holds
     somewhat more rows); *years* the number of calendar years of records ending with
-    *end_year*, the review period. The same arguments always write the same bytes.
+    *end_year*, the review period. The same arguments always write the same bytes. A
+    folder that is not empty is only overwritten when it holds an earlier demo programme.
     """
-    if people < 6:
-        raise ValueError("people must be at least 6 (one per group)")
+    if people < len(GROUPS):
+        raise UsageError(f"demo: --people must be at least {len(GROUPS)} (one per similar exposure group)")
     if years < 1:
-        raise ValueError("years must be at least 1")
+        raise UsageError("demo: --years must be at least 1")
     folder = Path(folder)
+    _check_target(folder)
     rng = np.random.default_rng(seed)
     start = _day(end_year - years + 1)
     end = _day(end_year, 12, 31)

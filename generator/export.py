@@ -20,6 +20,7 @@ import pandas as pd
 
 from .findings import HcpsiteError
 from .pages.base import SiteContext
+from .privacy import redactor
 
 log = logging.getLogger(__name__)
 
@@ -216,6 +217,10 @@ def export_files(ctx: SiteContext) -> dict[str, bytes]:
                 table = table.drop(columns=["subject_type"])
             else:
                 table = pseudonymise(table, ctx.code, ids)
+            if "detail" in table.columns:
+                clean = redactor(people, ctx.code)
+                texts = table["detail"].astype("string").fillna("")
+                table["detail"] = texts.map({t: clean(t) for t in sorted(set(texts.tolist()))}).astype(object)
         files[spec.file] = frame_to_csv(table)
     files["summary.json"] = summary_json(ctx)
     return files

@@ -642,7 +642,11 @@ def compute(programme: Programme, results: dict | None = None) -> ExposureResult
 
     # ---- task-based
     tasks = programme.table("tasks")
-    tasks_in = tasks[tasks["group"].isin(g.index) & tasks["laeq"].notna()] if len(tasks) else tasks
+    if len(tasks):
+        undated_or_in = tasks["date"].isna() | (tasks["date"] <= end) if "date" in tasks else True
+        tasks_in = tasks[tasks["group"].isin(g.index) & tasks["laeq"].notna() & undated_or_in]
+    else:
+        tasks_in = tasks
     if len(tasks_in):
         per_task, tg = task_table(tasks_in)
         tg = tg.set_index("group").reindex(g.index)

@@ -898,7 +898,8 @@ def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     pid_of = pid_of[~pid_of.index.duplicated()]
     persons = pid_of.reindex(uk // 10000).to_numpy(object)
     years = uk % 10000
-    same = np.r_[False, persons[1:] == persons[:-1]]
+    # sequential annual pairs: the same person's test of the previous calendar year
+    same = np.r_[False, (persons[1:] == persons[:-1]) & (years[1:] == years[:-1] + 1)]
     prev = np.vstack([np.full((1, vals.shape[1]), np.nan), vals[:-1]])
     diff = vals - prev
     complete = np.isfinite(diff).all(axis=1)

@@ -36,6 +36,10 @@ __all__ = [
 #: Frequencies (Hz) of ISO 7029:2017 Table 1.
 ISO7029_FREQS = (125, 250, 500, 750, 1000, 1500, 2000, 3000, 4000, 6000, 8000)
 
+# ISO 7029:2017 coefficients as transcribed from the standard by a third party (one source);
+# the printed check values (male 60 y, 4 kHz median 20.2085 dB; 1 kHz s_u 10.1533 dB) are
+# reproduced by the tests.
+
 #: ISO 7029:2017 Table 1: median deviation from age 18, ΔH = a·(Y − 18)^b; (a, b) per
 #: frequency for males and females.
 _ISO7029_AB = {
@@ -137,6 +141,11 @@ ISO1999_YEARS_MAX = 40.0
 APPF_FREQS = (1000, 2000, 3000, 4000, 6000)
 #: Ages of the table rows: the 20 row is "20 or younger", the 60 row "60 or older".
 APPF_AGES = tuple(range(20, 61))
+
+# The 2000/3000/4000 Hz columns (the ones the STS uses) were checked against two printings of
+# the tables (App. F and 30 CFR 62 Tables 62-3/62-4; female age 51 at 3000 Hz is 11 as printed
+# there). The 1000 and 6000 Hz columns for males from age 32/33 and for all females are from
+# memory (unverified); nothing in this program computes an STS from them.
 
 #: Table F-1, males, rows age 20..60, columns 1000/2000/3000/4000/6000 Hz (dB).
 _APPF_MALE = np.array([

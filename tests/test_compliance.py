@@ -103,6 +103,7 @@ def test_baseline_missing_is_overdue_or_due_soon() -> None:
     assert person(res)["baseline_status"] == "due_soon"  # due 2026-01-15, within 60 days
     kinds = set(res.actions["kind"])
     assert "baseline audiogram" in kinds
+    assert res.summary["current_audiogram_share"] is None  # within the baseline limit: not counted
     assert res.actions.loc[res.actions["kind"].eq("baseline audiogram"), "due_date"].iloc[0] == D("2026-01-15")
 
 

@@ -15,7 +15,7 @@ import pytest
 
 from generator import demo
 from generator.config import CONFIG_FILE, iter_options, load_config
-from generator.findings import Findings
+from generator.findings import Findings, UsageError
 from generator.inputs.spec import AUDIO_FREQS, FILES, OCTAVE_BANDS
 
 REPO = Path(__file__).resolve().parents[1]
@@ -385,7 +385,20 @@ def test_scale_counts_grow_with_people(tmp_path: Path) -> None:
 
 
 def test_rejects_impossible_sizes(tmp_path: Path) -> None:
-    with pytest.raises(ValueError):
+    with pytest.raises(UsageError):
         demo.write_demo(tmp_path / "x", people=3)
-    with pytest.raises(ValueError):
+    with pytest.raises(UsageError):
         demo.write_demo(tmp_path / "y", years=0)
+    assert not (tmp_path / "x").exists()
+
+
+def test_never_overwrites_other_records(tmp_path: Path) -> None:
+    (tmp_path / "real" / "data").mkdir(parents=True)
+    people = tmp_path / "real" / "data" / "people.csv"
+    people.write_text("person_id,group\nE1,G1\n", encoding="utf-8")
+    with pytest.raises(UsageError):
+        demo.write_demo(tmp_path / "real", people=40, years=2)
+    assert people.read_text(encoding="utf-8") == "person_id,group\nE1,G1\n"
+    (tmp_path / "file").write_text("x", encoding="utf-8")
+    with pytest.raises(UsageError):
+        demo.write_demo(tmp_path / "file", people=40, years=2)

@@ -376,6 +376,9 @@ def test_sequential_indicators(tmp_path):
     auds += [ag("W", "2025-02-01", "L", {**b, 6000: 25}), ag("W", "2025-02-01", "R", b),
              ag("B", "2025-02-01", "L", b), ag("B", "2025-02-01", "R", {**b, 500: -5}),
              ag("S", "2025-02-01", "L", {**b, 3000: 24}), ag("S", "2025-02-01", "R", b)]
+    # a person tested in 2023 and 2025 only has no sequential (annual) pair in 2025
+    people.append(person("GAP", "M", "1990-01-01"))
+    auds += [ag("GAP", "2023-02-01", "L", b, kind="baseline"), ag("GAP", "2025-02-01", "L", {**b, 4000: 40})]
     res = run(tmp_path, auds, people)
     ind = res.indicators.set_index(["group", "year"]).loc[("all", 2025)]
     assert ind["n_pairs"] == 3

@@ -208,6 +208,8 @@ CASES: list[Case] = [
     Case("empty-optional", {"training.csv": b""}, (T, None, None, WARNING, "the file is empty")),
     Case("unknown-data-file", {"trainings.csv": TRAINING_HEAD}, ("data/trainings.csv", None, None, WARNING,
                                                                  "not a known data file")),
+    Case("upper-case-file-name", {"Training.csv": TRAINING_HEAD + "E001,2025-01-01,x\n"},
+         ("data/Training.csv", None, None, WARNING, "rename it to training.csv")),
     # --- spreadsheet formulas (CSV injection) ------------------------------------------------------
     Case("formula-cmd", {"training.csv": TRAINING_HEAD + "E001,2025-01-01,=cmd|' /C calc'!A0\n"},
          (T, 2, "topic", WARNING, "looks like a spreadsheet formula; kept as text")),
@@ -271,6 +273,9 @@ CASES: list[Case] = [
     Case("log-ragged", log("start,laeq", "2025-03-01T08:00:00,85", "2025-03-01T08:01:00,85,1"),
          (L1, 3, None, ERROR, "has 3 fields")),
     Case("log-in-future", log("start,laeq", "2026-01-03T08:00:00,85"), (L1, 2, "start", ERROR, "in the future")),
+    # ISO 8601 section 4.2.5.1: a UTC offset such as +01:00 ends the time of day
+    Case("log-time-zone-offset", log("start,laeq", "2025-03-01T08:00:00+01:00,85", "2025-03-01T08:01:00+01:00,85"),
+         (L1, 2, "start", WARNING, "time-zone offset ignored")),
     # --- cross-checks (warnings) ---------------------------------------------------------------------------
     Case("personal-without-person", {"noise.csv": noise(kind="personal")},
          (N, 2, "person_id", WARNING, "personal measurement without person_id")),

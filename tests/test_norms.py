@@ -41,8 +41,7 @@ def test_appf_end_rows_and_unknowns():
     assert norms.appf_correction([16, 19.9, 20], 4000, "M").tolist() == [5, 5, 5]
     assert norms.appf_correction([60, 64, 80], 4000, "M").tolist() == [33, 33, 33]
     assert norms.appf_correction([17, 75], 3000, "F").tolist() == [3, 16]
-    # ages are whole years: 32.9 reads the 32 row (Table F-1 age 32 at 4000 Hz = 10, 33 = 10,
-    # 34 = 11)
+    # ages are whole years: 33.99 reads the 33 row (Table F-1 age 33 at 4000 Hz = 10; age 34 = 11)
     assert norms.appf_correction([33.99, 34.0], 4000, "M").tolist() == [10, 11]
     # unknown sex, missing age, or a frequency outside the tables: no value
     got = norms.appf_correction([30, np.nan, 30, 30], [4000, 4000, 500, 8000], ["", "M", "M", "F"])
@@ -70,7 +69,8 @@ def test_iso1999_median_by_hand():
     assert float(norms.iso1999_nipts(4000, 90, 20)) == pytest.approx(12.94, abs=0.01)
 
 
-# ISO 1999:2013 Annex D (Tables D.1-D.4), values printed as whole dB, columns Q = 0.90 / 0.50
+# ISO 1999:2013 Annex D (Tables D.1-D.4) as transcribed (one source, every cell reproduced by
+# Formulae (2)-(7)), values printed as whole dB, columns Q = 0.90 / 0.50
 # / 0.10 at 500, 1000, 2000, 3000, 4000, 6000 Hz.
 ANNEX_D = {
     (85.0, 40.0): [(0, 0, 0), (0, 0, 0), (1, 2, 2), (3, 5, 7), (5, 7, 9), (2, 4, 6)],
@@ -90,7 +90,8 @@ def test_iso1999_annex_d_fractiles(case):
 
 
 def test_iso1999_fractiles_ordered_and_k():
-    # ISO 1999:2013 Table 2: k = 1.282 at Q = 0.10 (standard-normal quantile); Formulae (4)
+    # ISO 1999:2013 Table 2: k = 1.282 at Q = 0.10 (standard-normal quantiles; the printed
+    # digits of Table 2 from memory, unverified); Formulae (4)
     # and (6) at 4 kHz, 90 dB, 20 years: N0.10 = N0.50 + 1.282 * (0.005 + 0.009 lg 20) * 225
     du = (0.005 + 0.009 * np.log10(20)) * 225
     n50 = (0.025 + 0.025 * np.log10(20)) * 225
@@ -122,7 +123,8 @@ def test_iso1999_combination_annex_c():
 
 
 def test_iso7029_median_table1_values():
-    # ISO 7029:2017 Table 1, ΔH = a (Y - 18)^b: male 60 y at 4 kHz = 3.40e-3 * 42^2.325
+    # ISO 7029:2017 Table 1 (coefficients as transcribed: one source), ΔH = a (Y - 18)^b:
+    # male 60 y at 4 kHz = 3.40e-3 * 42^2.325
     assert float(norms.iso7029_median(60, 4000, "M")) == pytest.approx(20.2085, abs=1e-3)
     # ISO 7029:2017 Table 1, male medians at 1/2/4/6 kHz (computed from the table)
     want = {40: (1.56, 2.63, 4.49, 5.81), 50: (3.98, 6.48, 10.74, 13.82), 70: (13.37, 20.82, 33.20, 42.53)}

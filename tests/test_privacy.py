@@ -135,3 +135,15 @@ def test_export_codes_person_ids_unless_restricted(tmp_path: Path, restricted: b
     text = files["exposure_results.csv"].decode()
     assert ("E001" in text) is restricted
     assert (ctx.code("E001") in text) is not restricted
+
+
+def test_example_export_carries_no_raw_ids(built_example) -> None:
+    from generator.export import export_files
+    rows = _people_rows(built_example.root)
+    ids = sorted({r["person_id"] for r in rows if r["person_id"]}, key=lambda s: (-len(s), s))
+    id_re = re.compile(r"(?<![A-Za-z0-9_-])(" + "|".join(map(re.escape, ids)) + r")(?![A-Za-z0-9_-])")
+    files = export_files(built_example.context)
+    assert {"exposure_results.csv", "hearing_results.csv", "actions.csv", "summary.json"} <= set(files)
+    for name, data in sorted(files.items()):
+        hit = id_re.search(data.decode("utf-8"))
+        assert hit is None, f"{name} shows the raw person id {hit.group(1)!r}"

@@ -207,3 +207,18 @@ def test_unsafe_page_slugs_are_refused() -> None:
     with pytest.raises(ValueError, match="two pages"):
         check_pages([Page(slug="x", title="t", template="t", section="s"),
                      Page(slug="x", title="t", template="t", section="s")])
+
+
+def test_site_left_aside_by_a_killed_swap_is_restored(tmp_path: Path) -> None:
+    root = make_programme(tmp_path / "prog")
+    out = tmp_path / "site"
+    build_fixed(root, out)
+    before = _tree_hashes(out)
+    dead = subprocess.run([sys.executable, "-c", "import os; print(os.getpid())"], capture_output=True,
+                          text=True, check=True)
+    aside = tmp_path / f".hcpsite-tmp-site-{int(dead.stdout)}-old"
+    out.rename(aside)  # as if killed between moving the old site aside and moving the new one in
+    (root / "data" / "people.csv").write_text("person_id,group\nE1,\n", encoding="utf-8")
+    with pytest.raises(HcpsiteError):
+        build_fixed(root, out)
+    assert _tree_hashes(out) == before and not aside.exists()

@@ -272,3 +272,28 @@ def test_public_build_leaves_restricted_pages_out(tmp_path: Path) -> None:
     ctx.restricted = True
     files = render_site(ctx)
     assert "people/x.html" in files and b"Restricted build" in files["people/x.html"]
+
+
+def test_quality_page_codes_person_ids_in_messages(tmp_path: Path) -> None:
+    from generator.pages import quality
+    root = make_programme(tmp_path / "p")
+    with env(HCPSITE_ID_KEY=TEST_KEY):
+        ctx, _ = prepare(root)
+    ctx.programme.findings.warning("data/noise.csv", 7, "person_id", "person E001 measured twice")
+    (page,) = quality.build(ctx)
+    rows = page.context["findings_table"].rows
+    hit = [r for r in rows if r[1] == "data/noise.csv"]
+    assert hit and hit[0][3] == f"person {ctx.code('E001')} measured twice" and hit[0][4] == "7"
+    ctx.restricted = True
+    (page,) = quality.build(ctx)
+    assert any(r[3] == "person E001 measured twice" for r in page.context["findings_table"].rows)
+
+
+def test_overview_headline_shows_the_compliance_summary(built_example) -> None:
+    summary = built_example.context.results["compliance"].summary
+    text = built_example.html("index")
+    tiles = dict((label, value) for value, label in re.findall(
+        r'<span class="tile-value">([^<]+)</span><span class="tile-label">([^<]+)</span>', text))
+    assert tiles["People in the programme&#39;s scope"] == f"{summary['in_scope']:,}"
+    assert tiles["Open actions"] == f"{summary['open_actions_total']:,}"
+    assert tiles["People in the records"] == f"{len(built_example.context.programme.table('people')):,}"

@@ -153,10 +153,12 @@ def _byte_hints(arr: np.ndarray) -> tuple[bool, bool]:
 
 
 def _fmt(x: float) -> str:
+    """Return a bound as short text."""
     return f"{x:g}"
 
 
 def _range_text(c: Column) -> str:
+    """Return the allowed range of column *c* in words."""
     if c.lo is not None and c.hi is not None:
         if c.lo_open:
             return f"above {_fmt(c.lo)} up to {_fmt(c.hi)}"
@@ -195,10 +197,14 @@ class _Inputs:
         self.findings = findings
         self.read: dict[str, bytes] = {}
 
-    def get(self, path: Path) -> bytes | None:
-        """Return the bytes of *path*, or None (with an error) when it may not or cannot be read."""
-        rel = _rel(self.root, path)
-        if _inside(self.root, path) is None:
+    def get(self, path: Path, rel: str | None = None, folder_inside: bool = False) -> bytes | None:
+        """Return the bytes of *path*, or None (with an error) when it may not or cannot be read.
+
+        With *folder_inside* (the containing folder already resolved inside the programme),
+        only a symbolic link needs resolving.
+        """
+        rel = rel or _rel(self.root, path)
+        if (not folder_inside or os.path.islink(path)) and _inside(self.root, path) is None:
             self.findings.error(rel, None, None, "resolves outside the programme folder (symbolic link?); "
                                 "not read")
             return None
@@ -333,6 +339,7 @@ def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
 
 
 def _ragged(findings: Findings, rel: str, lines: np.ndarray, fields: np.ndarray, ncols: int) -> None:
+    """Record one error per line whose number of cells differs from the header's."""
     msgs = [f"has {n} field{'s' if n != 1 else ''} but the header has {ncols}"
             + (" (row not read)" if n > ncols else " (missing cells read as blank)")
             for n in fields.tolist()]
@@ -360,6 +367,7 @@ def _parse_csv(raw: bytes, rel: str, findings: Findings) -> _Grid | None:
 
 
 def _xlsx_cell_text(v: Any, date_only: bool = False) -> str:
+    """Return one workbook cell as the text a CSV would hold."""
     if v is None or (isinstance(v, float) and np.isnan(v)) or v is pd.NaT:
         return ""
     if isinstance(v, (pd.Timestamp, dt.datetime)):
@@ -408,6 +416,7 @@ def _parse_xlsx(raw: bytes, rel: str, findings: Findings, spec: FileSpec) -> _Gr
 
 
 def _generated(spec: FileSpec) -> set[str]:
+    """Return the column names the reader adds to a table of *spec*."""
     out = {"_row"}
     for c in spec.columns:
         if c.kind == "hl":
@@ -458,6 +467,7 @@ def _named(grid: _Grid, spec: FileSpec, findings: Findings) -> tuple[pd.DataFram
 
 
 def _as_text(s: pd.Series, strip: bool = True) -> pd.Series:
+    """Return the cells as str, stripped of surrounding spaces when some may have them."""
     s = s.astype(str)
     return s.str.strip() if strip else s
 
@@ -474,16 +484,18 @@ def _to_float(s: pd.Series, blank: np.ndarray) -> np.ndarray:
 
 
 def _to_date(s: pd.Series) -> pd.Series:
-    out = pd.to_datetime(s, format="%Y-%m-%d", errors="coerce")
-    return out
+    """Parse ISO calendar dates; anything else becomes NaT."""
+    return pd.to_datetime(s, format="%Y-%m-%d", errors="coerce")
 
 
 def _in_year_range(values: pd.Series) -> np.ndarray:
+    """Return True where a parsed date lies in the accepted years."""
     years = values.dt.year
     return ((years >= YEAR_MIN) & (years <= YEAR_MAX)).fillna(False).to_numpy(dtype=bool)
 
 
 def _as_ns(values: pd.Series, ok: np.ndarray) -> pd.Series:
+    """Return datetime64[ns] values, NaT where not *ok*."""
     return values.where(pd.Series(ok, index=values.index)).astype("datetime64[ns]")
 
 
@@ -525,6 +537,7 @@ class _Converter:
         raise ValueError(f"column {c.name}: unknown kind {kind!r} in spec")
 
     def _formula(self, name: str, s: pd.Series) -> None:
+        """Warn about text cells that a spreadsheet would run as a formula."""
         if not self.formulas:
             return
         hit = s.str.match(_FORMULA).fillna(False).to_numpy(dtype=bool)
@@ -532,6 +545,7 @@ class _Converter:
                       key=f"{name}: formula")
 
     def _choice(self, c: Column, s: pd.Series, bl: np.ndarray) -> pd.Series:
+        """Normalise choices case-insensitively to their declared spelling."""
         canon = {ch.lower(): ch for ch in c.choices}
         codes, uniques = pd.factorize(s)
         mapped = np.asarray([canon.get(str(u).lower()) for u in uniques] + [None], dtype=object)
@@ -544,6 +558,7 @@ class _Converter:
         return pd.Series(values, index=s.index, dtype=str)
 
     def _past(self, c: Column, values: pd.Series, s: pd.Series, limit: pd.Timestamp) -> None:
+        """Report dates after the build date."""
         if not c.past_only:
             return
         future = (values > limit).fillna(False).to_numpy(dtype=bool)
@@ -552,6 +567,7 @@ class _Converter:
                       key=f"{c.name}: future")
 
     def _date(self, c: Column, s: pd.Series, bl: np.ndarray) -> dict[str, pd.Series]:
+        """Convert a date (or date-or-year) column."""
         out: dict[str, pd.Series] = {}
         if c.kind == "date_or_year":
             year_only = s.str.match(_YEAR_ONLY).fillna(False)
@@ -577,6 +593,7 @@ class _Converter:
         return out
 
     def _datetime(self, c: Column, s: pd.Series, bl: np.ndarray) -> pd.Series:
+        """Convert an ISO 8601 date-time column (offsets dropped with a warning)."""
         try:
             values = pd.to_datetime(s, format="ISO8601", errors="coerce")
             aware = getattr(values.dt, "tz", None) is not None
@@ -607,6 +624,7 @@ class _Converter:
         return values
 
     def _number(self, c: Column, s: pd.Series, bl: np.ndarray) -> pd.Series:
+        """Convert a numeric column, rejecting text, non-finite and out-of-range values."""
         values = _to_float(s, bl)
         finite = np.isfinite(values)
         bad = ~bl & ~finite
@@ -630,6 +648,7 @@ class _Converter:
         return pd.Series(values, index=s.index, dtype="float64")
 
     def _bounded(self, c: Column, values: np.ndarray, s: pd.Series) -> np.ndarray:
+        """Report values outside the declared range and blank them."""
         finite = np.isfinite(values)
         out = np.zeros(values.shape, dtype=bool)
         if c.lo is not None:
@@ -641,6 +660,7 @@ class _Converter:
         return np.where(out, np.nan, values)
 
     def _hl(self, c: Column, s: pd.Series, bl: np.ndarray) -> dict[str, pd.Series]:
+        """Convert a hearing-level column and its NR companion."""
         nr = s.isin(["NR", "nr", "Nr", "nR"]).to_numpy()
         values = _to_float(s, bl | nr)
         finite = np.isfinite(values)
@@ -680,6 +700,7 @@ _EMPTY: dict[tuple, pd.DataFrame] = {}
 
 
 def _make_empty(spec: FileSpec) -> pd.DataFrame:
+    """Build the empty table of *spec* (cached by empty_table)."""
     cols: dict[str, pd.Series] = {}
     for c in spec.columns:
         if c.kind in ("id", "text", "choice"):
@@ -702,6 +723,7 @@ def _make_empty(spec: FileSpec) -> pd.DataFrame:
 
 
 def _check_key(df: pd.DataFrame, spec: FileSpec, sink: _Sink) -> None:
+    """Report rows repeating the key of an earlier row, naming that row's line."""
     key = [k for k in spec.key if k in df.columns]
     if not key or len(key) != len(spec.key) or df.empty:
         return
@@ -734,6 +756,7 @@ def _check_key(df: pd.DataFrame, spec: FileSpec, sink: _Sink) -> None:
 
 def _check_refs(df: pd.DataFrame, spec: FileSpec, sink: _Sink, tables: dict[str, pd.DataFrame],
                 present: dict[str, str], derived_groups: bool) -> None:
+    """Report identifiers that the referenced file does not hold."""
     for c in spec.columns:
         if c.ref is None or c.name not in df.columns:
             continue
@@ -865,6 +888,7 @@ def _read_table(spec: FileSpec, root: Path, inputs: _Inputs, findings: Findings,
 
 
 def _no_rows(spec: FileSpec, rel: str, findings: Findings, what: str) -> None:
+    """Report a file without rows: an error when required, else a warning."""
     if spec.required:
         findings.error(rel, None, None, f"{what}; this file is required and needs at least one row",
                        key="no rows")
@@ -873,14 +897,20 @@ def _no_rows(spec: FileSpec, rel: str, findings: Findings, what: str) -> None:
 
 
 def _unknown_data_files(root: Path, findings: Findings) -> None:
+    """Warn about data/*.csv|xlsx files that no spec declares (they are not read)."""
     data = root / DATA_DIR
     if not data.is_dir():
         return
     known = {Path(f.path).stem for f in FILES}
     for p in sorted(data.iterdir()):
-        if p.suffix.lower() in (".csv", ".xlsx") and p.stem not in known:
-            findings.warning(_rel(root, p), None, None, f"not a known data file; ignored (known: "
-                             f"{', '.join(sorted(known))})", key="unknown data file")
+        if p.suffix.lower() not in (".csv", ".xlsx") or (p.stem in known and p.suffix in (".csv", ".xlsx")):
+            continue
+        if p.stem.lower() in known:
+            hint = f"file names are lower-case: rename it to {p.stem.lower()}{p.suffix.lower()}"
+        else:
+            hint = f"known: {', '.join(sorted(known))}"
+        findings.warning(_rel(root, p), None, None, f"not a known data file; ignored ({hint})",
+                         key="unknown data file")
 
 
 # ---------------------------------------------------------------------------------------
@@ -901,23 +931,25 @@ def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFr
     frames: list[pd.DataFrame] = []
     names: list[str] = []
     paths: list[str] = []
-    for p in sorted(folder.iterdir()):
-        rel = _rel(root, p)
-        if p.suffix.lower() != ".csv" or p.is_dir():
+    for entry in sorted(os.listdir(folder)):
+        p = folder / entry
+        rel = f"{LOG_DIR}/{entry}"
+        stem, dot, suffix = entry.rpartition(".")
+        if not dot or suffix.lower() != "csv" or os.path.isdir(p):
             findings.warning(rel, None, None, "not a .csv log file; ignored", key="log: not csv")
             continue
-        if p.stem not in ids:
-            findings.warning(rel, None, None, f"no measurement_id '{p.stem}' in data/noise.csv; log ignored",
+        if stem not in ids:
+            findings.warning(rel, None, None, f"no measurement_id '{stem}' in data/noise.csv; log ignored",
                              key="log: unknown measurement")
             continue
-        raw = inputs.get(p)
+        raw = inputs.get(p, rel, folder_inside=True)
         if raw is None:
             continue
         text = _decode(raw, rel, findings)
         if text is None:
             continue
         idx = len(names)
-        names.append(p.stem)
+        names.append(stem)
         paths.append(rel)
         head, _, body = text.partition("\n")
         cols = tuple(h.strip().lower() for h in head.rstrip("\r").split(","))
@@ -935,6 +967,7 @@ def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFr
 
 
 def _log_single(raw: bytes, rel: str, idx: int, findings: Findings, today: dt.date) -> pd.DataFrame | None:
+    """Read one log file on the general path (quotes, odd headers, blank lines)."""
     grid = _parse_csv(raw, rel, findings)
     if grid is None:
         return None
@@ -1078,6 +1111,7 @@ def _front_matter(text: str, rel: str, findings: Findings) -> tuple[dict[str, An
 
 
 def _load_pages(root: Path, inputs: _Inputs, findings: Findings) -> list[NarrativePage]:
+    """Read pages/*.md with their front matter, sorted by (order, slug)."""
     folder = root / PAGES_DIR
     if not folder.is_dir():
         return []
@@ -1120,6 +1154,7 @@ def _load_pages(root: Path, inputs: _Inputs, findings: Findings) -> list[Narrati
 
 
 def _template_dir(root: Path, inputs: _Inputs, findings: Findings) -> Path | None:
+    """Return the programme's templates/ folder, its files recorded for the digest."""
     folder = root / TEMPLATES_DIR
     if not folder.is_dir():
         return None

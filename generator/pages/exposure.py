@@ -52,6 +52,11 @@ def _num(v: Any, digits: int = 1) -> str:
     return f"{float(v):.{digits}f}"
 
 
+def _list(values: pd.Series) -> list[float | None]:
+    """Return floats rounded to 0.01 dB, None where missing (for plotly traces)."""
+    return [None if np.isnan(v) else round(float(v), 2) for v in values.to_numpy(dtype=float)]
+
+
 def _chart_id(slug: str, n: int) -> str:
     return f"{slug.replace('/', '-')}-{n}"
 
@@ -104,9 +109,9 @@ def distribution_chart(res: ExposureResult, ctx: SiteContext) -> Chart:
                              q3=st["75%"].tolist(), lowerfence=st["min"].tolist(), upperfence=st["max"].tolist(),
                              name="measurements (LEX,8h)", boxpoints=False, marker=dict(color=charts.PALETTE[5])))
     fig.add_trace(go.Scatter(
-        x=g["group"].tolist(), y=charts._values(g["lex_8h"]), mode="markers", name="group LEX,8h with + U",
+        x=g["group"].tolist(), y=_list(g["lex_8h"]), mode="markers", name="group LEX,8h with + U",
         marker=dict(size=10, color=charts.PALETTE[0]),
-        error_y=dict(type="data", symmetric=False, array=charts._values(g["u_expanded"]),
+        error_y=dict(type="data", symmetric=False, array=_list(g["u_expanded"]),
                      arrayminus=[0.0] * len(g), color=charts.PALETTE[0])))
     charts.base_layout(fig, None, 440, "similar exposure group", "LEX,8h, dB(A)")
     _hlines(fig, _reference_values(head))

@@ -29,6 +29,8 @@ EAR_STYLE = {"R": dict(color="#c0392b", symbol="circle-open"), "L": dict(color="
 ROLE_DASH = {"baseline": "dot", "previous": "dash", "latest": "solid"}
 KIND_WORDS = {"notice": "written notice", "retest": "retest", "refit": "protector refit", "referral": "referral"}
 BLANK = charts.BLANK
+#: rows shown in a listing on the overview and group pages (the export has them all)
+MAX_ROWS = 300
 
 
 def group_slug(group: str) -> str:
@@ -307,8 +309,8 @@ def shifts_table(a: pd.DataFrame, ctx: SiteContext) -> Table:
                      _num(r.shift_234_age_corrected), r.shift_status or BLANK, r.retest_status or BLANK,
                      _yes(r.recordable), _yes(r.niosh_shift)])
     return Table(["Person", "Ear", "Date", "2/3/4 kHz average, dB HL", "Shift, dB", "Shift age-corrected, dB",
-                  "Status", "Retest", "Recordable", "NIOSH shift"], rows,
-                 caption="Audiograms with a shift or to review in the period (pseudonymous codes)",
+                  "Status", "Retest", "Recordable", "NIOSH shift"], rows[:MAX_ROWS],
+                 caption="Audiograms with a shift or to review in the period (pseudonymous codes)" + _more(len(rows)),
                  classes=["", "", "", "num", "num", "num", "", "", "", ""])
 
 
@@ -319,8 +321,13 @@ def followups_table(fu: pd.DataFrame, ctx: SiteContext) -> Table:
     rows = [[r.pcode, EAR_NAMES.get(r.ear, r.ear), KIND_WORDS.get(r.kind, r.kind),
              _date(r.trigger_date), _date(r.due_date), _date(r.done_date), r.status, r.clause]
             for r in d.itertuples()]
-    return Table(["Person", "Ear", "Follow-up", "Shift or decision", "Due", "Done", "Status", "Clause"], rows,
-                 caption="Follow-ups not done on time (pseudonymous codes)")
+    return Table(["Person", "Ear", "Follow-up", "Shift or decision", "Due", "Done", "Status", "Clause"],
+                 rows[:MAX_ROWS], caption="Follow-ups not done on time (pseudonymous codes)" + _more(len(rows)))
+
+
+def _more(n: int) -> str:
+    """Return the caption tail of a listing cut at MAX_ROWS."""
+    return "" if n <= MAX_ROWS else f"; the first {MAX_ROWS} of {n} (all are in hearing_results.csv and actions.csv)"
 
 
 def group_table(pg: pd.DataFrame, pop: pd.DataFrame, years: list[int], suppressed: frozenset[str]) -> Table:

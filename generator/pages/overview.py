@@ -113,7 +113,10 @@ def count_tiles(ctx: SiteContext) -> list[dict[str, str]]:
     tiles = [{"label": "People in the records", "value": f"{len(people):,}", "note": ""}]
     if "leave_date" in people.columns:
         end = pd.Timestamp(prog.config.period.end)
-        current = int((people["leave_date"].isna() | (people["leave_date"] > end)).sum())
+        employed = people["leave_date"].isna() | (people["leave_date"] > end)
+        if "hire_date" in people.columns:
+            employed &= people["hire_date"].isna() | (people["hire_date"] <= end)
+        current = int(employed.sum())
         tiles.append({"label": "Employed at the end of the period", "value": f"{current:,}", "note": ""})
     groups = people["group"].nunique() if "group" in people.columns else 0
     tiles.append({"label": "Similar exposure groups", "value": f"{groups:,}",

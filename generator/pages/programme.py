@@ -8,6 +8,7 @@ import pandas as pd
 
 from .. import charts
 from ..compliance import BOOTH_LIMITS
+from ..privacy import code_series
 from .base import Chart, Page, SiteContext, Table
 
 log = logging.getLogger(__name__)
@@ -37,7 +38,7 @@ def group_label(group: Any, suppressed: frozenset[str]) -> str:
 
 def coded(df: pd.DataFrame, ctx: SiteContext, column: str = "person_id") -> pd.Series:
     """Return the pseudonymous codes of a person-id column."""
-    return df[column].astype(str).map(ctx.code) if len(df) else pd.Series(dtype=object)
+    return code_series(df[column], ctx.code) if len(df) else pd.Series(dtype=object)
 
 
 def person_table(df: pd.DataFrame, ctx: SiteContext, columns: dict[str, str],
