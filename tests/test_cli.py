@@ -91,6 +91,14 @@ def test_build_and_refusals(tmp_path: Path, capsys: pytest.CaptureFixture[str]) 
         assert main(["build", str(root), "--out", str(tmp_path)]) == 1
     out, err = capsys.readouterr()
     assert "output folder cannot" in err and "internal error" not in err
+    # --strict: a warning stops the build before anything is written
+    (root / "data" / "people.csv").write_text("person_id,group,shoe_size\nE1,G1,9\n", encoding="utf-8")
+    with env(HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["build", str(root), "--strict", "--out", str(tmp_path / "strict")]) == 1
+        assert not (tmp_path / "strict").exists()
+        assert main(["build", str(root), "--out", str(tmp_path / "lenient")]) == 0
+    out, err = capsys.readouterr()
+    assert "warnings fail under --strict" in err and "shoe_size" in out
 
 
 def test_python_dash_m_runs_the_cli() -> None:

@@ -445,6 +445,9 @@ def test_pages_public_and_restricted(tmp_path):
     res = build_site(root, tmp_path / "res", restricted=True)
     people_pages = sorted(s for s in res.pages if s.startswith("people/"))
     assert people_pages == sorted(f"people/{res.context.code(p)}" for p in ("RAWID0", "RAWID1", "RAWID2", "RAWLONE"))
+    over = (tmp_path / "res" / "hearing.html").read_text(encoding="utf-8")
+    assert f'href="{people_pages[0]}.html"' in over  # the restricted overview links the person pages
+    assert 'href="people/' not in html  # the public one does not
     page = (tmp_path / "res" / f"{people_pages[0]}.html").read_text(encoding="utf-8").replace(" ", "")
     assert '"type":"log"' in page and '"autorange":"reversed"' in page
 
@@ -494,3 +497,19 @@ def test_age_at_whole_years():
     date = pd.Series(pd.to_datetime(["2022-02-28", "2022-03-01", "2023-12-31", "2022-01-01"]))
     got = hearing.age_at(birth, date)
     assert got.iloc[:3].tolist() == [31.0, 32.0, 33.0] and np.isnan(got.iloc[3])
+
+
+def test_review_without_audiogram_date_and_unmatched(tmp_path):
+    people = [person("RV", "M", "1990-01-01")]
+    auds = [ag("RV", "2024-01-05", "R", (10, 10, 10), kind="baseline"), ag("RV", "2025-01-06", "R", (25, 25, 30))]
+    reviews = [
+        # no audiogram date: the latest audiogram of that ear on or before the decision
+        {"person_id": "RV", "ear": "R", "date": "2025-02-01", "decision": "cancel_shift"},
+        # names an audiogram that does not exist: reported, not applied
+        {"person_id": "RV", "ear": "L", "date": "2025-02-01", "decision": "confirm_shift",
+         "audiogram_date": "2025-01-06"},
+    ]
+    res = run(tmp_path, auds, people, config={"audiometry": {"age_correction": False}}, reviews=reviews)
+    r = row(res, "RV", "2025-01-06", "R")
+    assert r["review_decision"] == "cancel_shift" and not r["sts"] and r["shift_status"] == "cancelled by reviewer"
+    assert [f.row for f in res.findings if f.key == "review-unmatched"] == [3]

@@ -131,6 +131,8 @@ CASES: list[Case] = [
     Case("duplicate-header-column", {"people.csv": "person_id,group,group\nE001,G1,G2\n"},
          (P, 1, "group", ERROR, "appears more than once")),
     # --- numbers -------------------------------------------------------------------------
+    # 1e308 is below the largest IEEE 754 binary64 value (about 1.797e308) and parses as a number;
+    # 1e999 overflows to infinity (IEEE 754-2019 section 7.4)
     Case("laeq-text", {"noise.csv": noise(laeq="abc")}, (N, 2, "laeq", ERROR, "'abc' is not a number"), cli=True),
     Case("laeq-1e308", {"noise.csv": noise(laeq="1e308")},
          (N, 2, "laeq", ERROR, "1e308 is outside the allowed range (0 to 160)")),
@@ -158,6 +160,7 @@ CASES: list[Case] = [
     Case("review-decision-unknown", {"reviews.csv": "person_id,ear,date,decision\nE001,L,2025-01-01,approve\n"},
          (("data/reviews.csv"), 2, "decision", ERROR, "'approve' is not one of")),
     # --- hearing levels (dB HL) ------------------------------------------------------------
+    # the accepted range -10..120 dB HL is the one declared in generator/inputs/spec.py (HL_MIN, HL_MAX)
     Case("hl-abc", {"audiograms.csv": aud(hl_4000="abc")}, (A, 2, "hl_4000", ERROR, "'abc' is not a hearing level"),
          cli=True),
     Case("hl-130", {"audiograms.csv": aud(hl_2000="130")},
@@ -165,6 +168,7 @@ CASES: list[Case] = [
     Case("hl-minus-20", {"audiograms.csv": aud(hl_500="-20")},
          (A, 2, "hl_500", ERROR, "-20 is outside the allowed range (-10 to 120)")),
     # --- dates (ISO 8601 calendar dates YYYY-MM-DD) ------------------------------------------
+    # 2025 is not a leap year, so February has 28 days (Gregorian calendar rule, ISO 8601 section 3.2.1)
     Case("date-feb-30", {"training.csv": TRAINING_HEAD + "E001,2025-02-30,x\n"},
          (T, 2, "date", ERROR, "'2025-02-30' is not a date (YYYY-MM-DD)"), cli=True),
     Case("date-day-first", {"training.csv": TRAINING_HEAD + "E001,02/03/2025,x\n"},
@@ -200,17 +204,20 @@ CASES: list[Case] = [
          (T, 2, "date", ERROR, "required value is blank")),
     Case("unknown-column", {"people.csv": "person_id,group,shoe_size\nE001,G1,44\n"},
          (P, 1, None, WARNING, "unknown column 'shoe_size'")),
-    Case("empty-people", {"people.csv": b""}, (P, None, None, ERROR, "the file is empty; this file is required"), cli=True),
+    Case("empty-people", {"people.csv": b""},
+         (P, None, None, ERROR, "no rows (the file is empty); this file is required"), cli=True),
     Case("header-only-people", {"people.csv": "person_id,group\n"},
          (P, None, None, ERROR, "no rows (header only); this file is required")),
     Case("people-missing", {}, (P, None, None, ERROR, "is missing; this file is required"), people=False),
     Case("header-only-optional", {"training.csv": TRAINING_HEAD}, (T, None, None, WARNING, "no rows")),
-    Case("empty-optional", {"training.csv": b""}, (T, None, None, WARNING, "the file is empty")),
+    Case("empty-optional", {"training.csv": b""}, (T, None, None, WARNING, "no rows (the file is empty)")),
     Case("unknown-data-file", {"trainings.csv": TRAINING_HEAD}, ("data/trainings.csv", None, None, WARNING,
                                                                  "not a known data file")),
     Case("upper-case-file-name", {"Training.csv": TRAINING_HEAD + "E001,2025-01-01,x\n"},
          ("data/Training.csv", None, None, WARNING, "rename it to training.csv")),
     # --- spreadsheet formulas (CSV injection) ------------------------------------------------------
+    # cells starting with = + - @ are run as formulas by spreadsheet programs (OWASP "CSV Injection";
+    # common practice)
     Case("formula-cmd", {"training.csv": TRAINING_HEAD + "E001,2025-01-01,=cmd|' /C calc'!A0\n"},
          (T, 2, "topic", WARNING, "looks like a spreadsheet formula; kept as text")),
     Case("formula-at-sum", {"people.csv": "person_id,group,name\nE001,G1,@SUM(A1)\n"},

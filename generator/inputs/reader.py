@@ -280,8 +280,6 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings) -> _Grid | No
     bad = (fields != ncols) & ~blank
     bad[0] = False
     line_no = np.arange(1, n_lines + 1)
-    if bad.any():
-        _ragged(findings, rel, line_no[bad], fields[bad], ncols)
     keep = fields <= ncols
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -289,7 +287,9 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings) -> _Grid | No
                          keep_default_na=False, na_filter=False, skip_blank_lines=False,
                          on_bad_lines="skip", engine="c", quoting=csv.QUOTE_NONE)
     if len(df) != int(keep.sum()):
-        return None
+        return None  # the C reader saw the lines differently (e.g. lone CR line ends): use the slow path
+    if bad.any():
+        _ragged(findings, rel, line_no[bad], fields[bad], ncols)
     rows = line_no[keep]
     drop = blank[keep]
     header = [str(x) for x in df.iloc[0].tolist()] if len(df) else []
@@ -362,7 +362,6 @@ def _parse_csv(raw: bytes, rel: str, findings: Findings) -> _Grid | None:
             grid = None
         if grid is not None:
             return grid
-        # the consistency check failed: start again on the slow path without the fast path's findings
     return _csv_quoted(text, rel, findings)
 
 
@@ -877,7 +876,7 @@ def _read_table(spec: FileSpec, root: Path, inputs: _Inputs, findings: Findings,
     if grid is None:
         return empty_table(spec), rel
     if not grid.header:
-        _no_rows(spec, rel, findings, "the file is empty")
+        _no_rows(spec, rel, findings, "no rows (the file is empty)")
         return empty_table(spec), rel
     frame, unknown, _missing = _named(grid, spec, findings)
     if frame.empty:

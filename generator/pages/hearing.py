@@ -412,6 +412,9 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
         "notes": list(h.notes),
         "any_suppressed": bool(set(slugs) & set(sup)),
         "n_candidates": int(h.summary.get("baseline_candidates", 0)),
+        # restricted builds only: links to the per-person pages, by code
+        "people_links": (sorted({ctx.code(p) for p in h.audiograms["person_id"].unique()})
+                         if ctx.restricted else []),
     }
     return Page(slug="hearing", title="Hearing", template="hearing.html", section="hearing", context=context,
                 charts=page_charts, in_nav=True)
@@ -546,7 +549,7 @@ def build(ctx: SiteContext) -> list[Page]:
     if h is None:
         return [Page(slug="hearing", title="Hearing", template="hearing.html", section="hearing",
                      context={"has_data": False, "notes": ["The hearing stage did not run."], "tiles": [],
-                              "group_links": [], "any_suppressed": False}, in_nav=True)]
+                              "group_links": [], "any_suppressed": False, "people_links": []}, in_nav=True)]
     groups = sorted(set(h.audiograms["group"].astype(str)) - {""}) if not h.audiograms.empty else []
     slugs = _group_slugs(groups)
     pages = [_overview(ctx, h, slugs)]
