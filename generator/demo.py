@@ -635,6 +635,24 @@ def _audiometers_from(start: int) -> int:
     return start - 366
 
 
+#: Years each retired audiometer served before the current pair.
+_RETIRED_SPAN_YEARS = 10
+
+
+def _audiometer_periods(first_test: int, start: int, end: int) -> list[tuple[str, int, int]]:
+    """Return (audiometer_id, first day, last day) of every audiometer used, oldest first.
+
+    The current pair serves from a year before the records on; before them, retired
+    audiometers (AM-R1 the oldest) each served :data:`_RETIRED_SPAN_YEARS` years.
+    """
+    am_from = _audiometers_from(start)
+    span = int(round(_RETIRED_SPAN_YEARS * _DAY))
+    n_old = max(0, int(np.ceil((am_from - first_test) / span)))
+    old = [(f"AM-R{k + 1}", am_from - (n_old - k) * span, am_from - (n_old - k - 1) * span - 1)
+           for k in range(n_old)]
+    return old + [(am, am_from, end) for am in AUDIOMETERS]
+
+
 def _appf_234(ppl: pd.DataFrame, pi: np.ndarray, date: np.ndarray) -> np.ndarray:
     """Return the mean 29 CFR 1910.95 App. F age correction at 2/3/4 kHz (0 where sex is blank)."""
     age = (date - ppl["birth"].to_numpy()[pi]) / _DAY
@@ -788,15 +806,15 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
     order = np.lexsort((allev["date"].to_numpy(), allev["pi"].to_numpy()))
     allev = allev.iloc[order].reset_index(drop=True)
     all_hl = all_hl[order]
-    # audiometer per test day (older tests from before the current audiometers: blank)
+    # audiometer per test day: the two current ones, or the retired one in use that day
     days = np.unique(allev["date"].to_numpy())
     day_am = np.where(rng.random(len(days)) < 0.6, AUDIOMETERS[0], AUDIOMETERS[1]).astype(object)
-    am = day_am[np.searchsorted(days, allev["date"].to_numpy())]
-    am_from = _audiometers_from(start)
-    am = np.where(allev["date"].to_numpy() >= am_from, am, "")
-    allev["audiometer_id"] = am
+    periods = _audiometer_periods(int(days[0]) if len(days) else start, start, end)
+    for am_id, p0, p1 in periods:  # a handful of retired audiometers
+        if am_id not in AUDIOMETERS:
+            day_am[(days >= p0) & (days <= p1)] = am_id
+    allev["audiometer_id"] = day_am[np.searchsorted(days, allev["date"].to_numpy())]
     test_days = pd.DataFrame({"date": days, "audiometer_id": day_am})
-    test_days = test_days[test_days["date"] >= am_from]
     return allev, all_hl, reviews, notices, refits, test_days
 
 
@@ -1135,24 +1153,36 @@ def _schedule(first: int, step: int, n: int) -> np.ndarray:
     return out
 
 
+#: Test days of the review years without a functional check (deliberate, for the action list).
+_MISSED_FUNCTIONAL_DAYS = 4
+
+
 def _audiometer_checks(rng: np.random.Generator, test_days: pd.DataFrame, start: int, end: int) -> pd.DataFrame:
-    """Return daily functional checks on test days (a few missing), annual acoustic, biennial
-    exhaustive and annual booth checks (one booth failing once, then re-checked)."""
-    func = test_days[rng.random(len(test_days)) >= 0.02]
+    """Return daily functional checks on every test day (a deliberate handful missing), annual
+    acoustic and booth checks, biennial exhaustive calibrations of each audiometer over its years
+    of use (from before its first test), and one failed booth check, re-checked."""
+    td = test_days.sort_values(["date", "audiometer_id"], kind="mergesort").reset_index(drop=True)
+    in_records = np.flatnonzero(td["date"].to_numpy() >= start)
+    miss = np.zeros(len(td), dtype=bool)
+    if len(in_records):
+        miss[rng.choice(in_records, size=min(_MISSED_FUNCTIONAL_DAYS, len(in_records)), replace=False)] = True
+    func = td[~miss]
     rows = [pd.DataFrame({"audiometer_id": func["audiometer_id"].to_numpy(), "date": func["date"].to_numpy(),
                           "check": "functional", "result": "pass"})]
-    n_y = int(_year_of(np.array([end]))[0] - _year_of(np.array([start]))[0]) + 1
-    for a, am in enumerate(AUDIOMETERS):  # two audiometers
-        # the last calibrations before the records, then one a little within each interval
-        first = _audiometers_from(start) - 20 - 3 * a
-        acu = _schedule(first, 358, n_y + 2)
-        rows.append(pd.DataFrame({"audiometer_id": am, "date": acu, "check": "acoustic", "result": "pass"}))
-        exh = _schedule(first - 360 * a, 718, n_y // 2 + 3)
-        rows.append(pd.DataFrame({"audiometer_id": am, "date": exh, "check": "exhaustive", "result": "pass"}))
-        booth_d = _schedule(first + 5, 358, n_y + 2)
-        ob = np.array(_BOOTH)[None, :] + a * 1.5 + rng.normal(0.0, 1.5, (len(booth_d), len(BOOTH_BANDS)))
+    first_test = int(td["date"].min()) if len(td) else start
+    for a, (am, p0, p1) in enumerate(_audiometer_periods(first_test, start, end)):  # a few audiometers
+        n_y = int(np.ceil((p1 - p0) / _DAY)) + 2
+        # calibrated a little before first use, then each time a little within the interval
+        first = p0 - 20 - 3 * (a % 2)
+        acu = _schedule(first, 358, n_y + 1)
+        own = [pd.DataFrame({"audiometer_id": am, "date": acu, "check": "acoustic", "result": "pass"})]
+        exh = _schedule(first - 5 - 360 * (a % 2), 718, n_y // 2 + 2)
+        own.append(pd.DataFrame({"audiometer_id": am, "date": exh, "check": "exhaustive", "result": "pass"}))
+        booth_d = _schedule(first + 5, 358, n_y + 1)
+        ob = (np.array(_BOOTH)[None, :] + (a % 2) * 1.5
+              + rng.normal(0.0, 1.5, (len(booth_d), len(BOOTH_BANDS))))
         b = pd.DataFrame({"audiometer_id": am, "date": booth_d, "check": "booth", "result": "pass"})
-        if a == 1:
+        if am == AUDIOMETERS[1]:
             fail_i = min(2, len(booth_d) - 1)
             ob[fail_i, 0] = 44.5  # above the 40 dB of 29 CFR 1910.95 App. D at 500 Hz
             b.loc[fail_i, "result"] = "fail"
@@ -1161,10 +1191,12 @@ def _audiometer_checks(rng: np.random.Generator, test_days: pd.DataFrame, start:
             ob_again = (np.array(_BOOTH) + rng.normal(0.0, 1.0, len(BOOTH_BANDS)))[None, :]
             for j, f in enumerate(BOOTH_BANDS):
                 again[f"ob_{f}"] = np.round(ob_again[:, j], 1)
-            rows.append(again)
+            own.append(again)
         for j, f in enumerate(BOOTH_BANDS):
             b[f"ob_{f}"] = np.round(ob[:, j], 1)
-        rows.append(b)
+        own.append(b)
+        # no calibrations after the audiometer was taken out of use
+        rows.extend(o[o["date"] <= p1] for o in own)
     df = pd.concat(rows, ignore_index=True)
     df = df[df["date"] <= end]
     df = df.sort_values(["audiometer_id", "date", "check"], kind="mergesort").drop_duplicates(
