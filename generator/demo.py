@@ -138,6 +138,8 @@ PROTECTORS = (
     ("EM27", "earmuff", 27.0, "Headband earmuff, standard"),
     ("EM31", "earmuff", 31.0, "Headband earmuff, high attenuation"),
     ("CU26", "custom_plug", 26.0, "Custom-moulded plug with filter"),
+    ("UF12", "premolded_plug", 12.0, "Uniform-attenuation filtered plug"),
+    ("EM19", "earmuff", 19.0, "Low-profile earmuff, light attenuation"),
 )
 #: Invented ISO 4869-1 style octave attenuation 63..8000 Hz: protector -> (means, SDs), dB.
 #: SNR and H/M/L of the catalogue are derived from these (see :func:`protector_ratings`).
@@ -149,6 +151,8 @@ PROTECTOR_OCTAVES = {
     "EM27": ((12.0, 15.5, 24.0, 33.0, 36.5, 35.0, 38.5, 37.0), (3.5, 3.0, 3.0, 3.0, 3.0, 3.5, 3.5, 4.0)),
     "EM31": ((16.0, 21.0, 29.5, 38.0, 40.5, 37.5, 40.5, 39.5), (3.5, 3.0, 3.0, 3.0, 3.0, 3.5, 3.5, 4.0)),
     "CU26": ((20.0, 21.5, 23.0, 25.0, 26.0, 30.5, 34.0, 33.5), (4.0, 4.0, 4.0, 3.5, 3.5, 3.5, 4.0, 4.0)),
+    "UF12": ((11.0, 12.0, 12.5, 13.5, 15.0, 17.0, 19.0, 20.0), (3.5, 3.5, 3.5, 3.5, 3.0, 3.5, 4.0, 4.0)),
+    "EM19": ((7.0, 9.5, 14.5, 20.5, 24.0, 23.5, 26.5, 25.5), (3.5, 3.0, 3.0, 3.0, 3.0, 3.5, 3.5, 4.0)),
 }
 #: Protectors listed with ratings only (no octave data in the catalogue).
 _NO_OCTAVES = ("CC20", "CU26")
@@ -187,7 +191,7 @@ def protector_ratings(means: Any, sds: Any, alpha: float = _ALPHA_80) -> tuple[f
 def protector_catalogue() -> pd.DataFrame:
     """Return protectors.csv: label NRR, SNR/H/M/L from the octave data, octave data where listed."""
     rows = []
-    for pid, ptype, nrr, name in PROTECTORS:  # seven catalogue entries
+    for pid, ptype, nrr, name in PROTECTORS:  # nine catalogue entries
         means, sds = PROTECTOR_OCTAVES[pid]
         snr, h, m, lo = protector_ratings(means, sds)
         row: dict[str, Any] = {"protector_id": pid, "type": ptype, "nrr": nrr, "snr": snr, "h": h, "m": m,
@@ -202,10 +206,17 @@ def protector_catalogue() -> pd.DataFrame:
     return pd.DataFrame(rows)[cols]
 
 
-#: Protectors usually issued in each enrolled group.
-_ISSUE = {"ASM": ("FP29", "PP25", "CC20"), "MNT": ("CC20", "PP25", "EM27"),
-          "PRS": ("FP29", "EM27", "CU26"), "GRD": ("EM31", "FP33", "EM27"),
-          "WHS": ("CC20", "PP25", "CU26")}
+#: Protectors usually issued in each enrolled group, matched to its exposure: light
+#: attenuation where the 8-h level is a little above 85 dB(A) (so that the level under the
+#: protector stays above the over-protection band), more where it is well above.
+_ISSUE = {"ASM": ("UF12", "EM19", "CC20"), "MNT": ("CC20", "EM19", "UF12"),
+          "PRS": ("EM27", "CU26", "PP25"), "GRD": ("CU26", "PP25", "CC20"),
+          "WHS": ("UF12", "EM19", "CC20")}
+#: Protectors issued at a refit after a shift: one step up in the group's range.
+_REFIT = {"ASM": ("CC20", "EM19"), "MNT": ("CC20", "EM19"), "PRS": ("EM27", "CU26"),
+          "GRD": ("CU26", "PP25"), "WHS": ("CC20", "EM19")}
+#: People of the loudest group whose latest fit test shows a poor fit (PAR, dB): deliberate.
+_POOR_FITS = (3.0, 2.0)
 
 AUDIOMETERS = ("AM-01", "AM-02")
 #: Typical booth background octave levels at 500..8000 Hz (dB), well below 29 CFR 1910.95 App. D.
@@ -654,8 +665,15 @@ def _audiometer_periods(first_test: int, start: int, end: int) -> list[tuple[str
 
 
 def _appf_234(ppl: pd.DataFrame, pi: np.ndarray, date: np.ndarray) -> np.ndarray:
-    """Return the mean 29 CFR 1910.95 App. F age correction at 2/3/4 kHz (0 where sex is blank)."""
-    age = (date - ppl["birth"].to_numpy()[pi]) / _DAY
+    """Return the mean 29 CFR 1910.95 App. F age correction at 2/3/4 kHz (0 where sex is blank).
+
+    Ages are whole calendar years at the test date (App. F tabulates whole years).
+    """
+    birth = np.asarray(ppl["birth"].to_numpy()[pi], dtype=np.int64).astype("datetime64[D]")
+    test = np.asarray(date, dtype=np.int64).astype("datetime64[D]")
+    by, ty = birth.astype("datetime64[Y]"), test.astype("datetime64[Y]")
+    before = (test - ty) < (birth - by)  # the birthday of that year is still to come
+    age = (ty.astype(np.int64) - by.astype(np.int64) - before).astype(float)
     sex = ppl["sex"].to_numpy()[pi]
     c = sum(norms.appf_correction(age, f, sex) for f in (2000, 3000, 4000)) / 3.0
     return np.nan_to_num(np.asarray(c, dtype=float), nan=0.0)
@@ -709,7 +727,7 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
     # out retest, review, notice and refit; revised baselines move the reference
     for _round in range(16):  # a few rounds, each vectorised over people
         sh = avg - ref_avg[pi] - (corr[:, None] - ref_corr[pi])
-        fl = (sh >= 10.0) & (ev_date > search_from[pi])[:, None] & (ev_date[:, None] > ref_date[pi])
+        fl = (np.round(sh, 6) >= 10.0) & (ev_date > search_from[pi])[:, None] & (ev_date[:, None] > ref_date[pi])
         fl &= (kind != "baseline")[:, None]
         cand = np.flatnonzero(fl.any(axis=1))
         if not len(cand):
@@ -719,18 +737,26 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
         k = len(pos)
         hit = fl[pos]
         is_temp = ev["temp_db"].to_numpy()[pos] > 0
-        do_rt = (kind[pos] == "periodic") & (rng.random(k) < np.where(is_temp, 0.95, 0.85))
-        gap = np.where(rng.random(k) < 0.06, rng.integers(32, 46, k), rng.integers(5, 15, k))
+        do_rt = (kind[pos] == "periodic") & (rng.random(k) < np.where(is_temp, 0.98, 0.95))
+        gap = np.where(rng.random(k) < 0.03, rng.integers(32, 46, k), rng.integers(5, 15, k))
         rdate = _workday(ev_date[pos] + gap).astype(float)
         do_rt &= (rdate < nxt[pos] - 7) & (rdate <= end) & (rdate < leave[pk])
         rt = pd.DataFrame({"pi": pk[do_rt], "date": rdate[do_rt], "kind": "retest",
                            "quiet_hours": np.round(rng.uniform(14.0, 20.0, do_rt.sum()), 1), "temp_db": 0.0})
         rt_hl = _levels_for(rng, ppl, rt, young, real) if len(rt) else np.zeros((0, 2, freqs))
+        rt_corr = np.zeros(k)
+        rt_corr[do_rt] = _appf_234(ppl, pk[do_rt], rdate[do_rt])
+        # an ear without a shift on the flagged test keeps its levels on the retest (a shift that
+        # first shows on a retest would need a retest of its own; the demo keeps to the common case)
+        rt_pos = np.flatnonzero(do_rt)
+        for e in range(2):  # two ears
+            rt_sh0 = rt_hl[:, e, sts_cols].mean(axis=1) - ref_avg[pk[rt_pos], e] - (
+                rt_corr[rt_pos] - ref_corr[pk[rt_pos], e])
+            keep_ear = ~hit[rt_pos, e] & (np.round(rt_sh0, 6) >= 10.0)
+            rt_hl[keep_ear, e, :] = hl[pos[rt_pos[keep_ear]], e, :]
         rt_parts.append((rt, rt_hl))
         rt_avg = np.full((k, 2), np.nan)
         rt_avg[do_rt] = rt_hl[:, :, sts_cols].mean(axis=2)
-        rt_corr = np.zeros(k)
-        rt_corr[do_rt] = _appf_234(ppl, pk[do_rt], rdate[do_rt])
         basis = np.where(do_rt, rdate, ev_date[pos])
         when = basis + rng.integers(3, 21, k)
         reviewed = (rng.random(k) >= 0.05) & (when <= end)
@@ -739,7 +765,7 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
         refer_any = np.zeros(k, dtype=bool)
         for e, ear in enumerate(("L", "R")):  # two ears
             rt_sh = rt_avg[:, e] - ref_avg[pk, e] - (rt_corr - ref_corr[pk, e])
-            cancelled = hit[:, e] & do_rt & (rt_sh < 10.0)
+            cancelled = hit[:, e] & do_rt & (np.round(rt_sh, 6) < 10.0)
             confirmed = hit[:, e] & ~cancelled
             confirmed_any |= confirmed
             decision = np.where(cancelled, "cancel_shift",
@@ -777,21 +803,25 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
         # (on time: within 21 days of the flagged test as well as of its retest)
         span = np.maximum(21.0 - (basis - ev_date[pos]), 2.0)
         u = rng.random(k)
-        ndate = basis + np.where(u < 0.84, 1.0 + np.floor(rng.random(k) * (span - 1.0)), rng.integers(23, 50, k))
-        give = confirmed_any & (u < 0.94) & (ndate <= end)
+        ndate = basis + np.where(u < 0.93, 1.0 + np.floor(rng.random(k) * (span - 1.0)), rng.integers(23, 50, k))
+        give = confirmed_any & (u < 0.985) & (ndate <= end)
         note_parts.append(pd.DataFrame({"pi": pk[give], "date": ndate[give], "about": "sts"}))
         rdate2 = when + 1 + rng.integers(2, 15, k)
-        give_r = refer_any & (rng.random(k) < 0.85) & (rdate2 <= end)
+        give_r = refer_any & (rng.random(k) < 0.93) & (rdate2 <= end)
         note_parts.append(pd.DataFrame({"pi": pk[give_r], "date": rdate2[give_r], "about": "referral"}))
         # protector refit after a shift (not for leavers)
         u = rng.random(k)
-        fdate = _workday(basis + np.where(u < 0.82, np.floor(rng.random(k) * (span - 3.0)),
+        fdate = _workday(basis + np.where(u < 0.93, np.floor(rng.random(k) * (span - 3.0)),
                                           rng.integers(25, 60, k))).astype(float)
-        give_f = confirmed_any & (u < 0.92) & (fdate <= end) & (fdate < leave[pk])
-        refit_parts.append(pd.DataFrame({
-            "pi": pk[give_f], "date": fdate[give_f],
-            "protector_id": np.array(("FP33", "EM31", "CU26"), dtype=object)[rng.integers(0, 3, k)][give_f],
-            "par": np.where(rng.random(k) < 0.7, np.round(rng.uniform(14.0, 30.0, k), 0), np.nan)[give_f]}))
+        give_f = confirmed_any & (u < 0.985) & (fdate <= end) & (fdate < leave[pk])
+        choice = rng.integers(0, 2, k)
+        refit_tab = np.array([_REFIT.get(g.code, ("CC20", "EM19")) for g in GROUPS], dtype=object)
+        refit_prot = refit_tab[ppl["gi"].to_numpy()[pk], choice]
+        refit_nrr = pd.Series(refit_prot, dtype=object).map({q[0]: q[2] for q in PROTECTORS}).to_numpy(dtype=float)
+        # a supervised refit with a fit test: a good fit, most of the label value
+        refit_par = np.where(rng.random(k) < 0.7, np.round(refit_nrr * rng.uniform(0.6, 0.9, k), 0), np.nan)
+        refit_parts.append(pd.DataFrame({"pi": pk[give_f], "date": fdate[give_f],
+                                         "protector_id": refit_prot[give_f], "par": refit_par[give_f]}))
     reviews = pd.concat(rev_parts, ignore_index=True) if rev_parts else pd.DataFrame(
         columns=["pi", "ear", "date", "decision", "audiogram_date", "reviewer_role", "note"])
     notices = pd.concat(note_parts, ignore_index=True) if note_parts else pd.DataFrame(columns=["pi", "date", "about"])
@@ -1108,7 +1138,7 @@ def _fits(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, ref
     """Return protector issue and fit-test records for most enrolled people, with refits after shifts."""
     gi = ppl["gi"].to_numpy()
     enrolled = np.array([g.enrolled for g in GROUPS])[gi]
-    idx = np.flatnonzero(enrolled & (rng.random(len(ppl)) < 0.92))
+    idx = np.flatnonzero(enrolled & (rng.random(len(ppl)) < 0.985))
     hire = ppl["hire"].to_numpy()[idx]
     leave = np.where(np.isnan(ppl["leave"].to_numpy()[idx]), np.inf, ppl["leave"].to_numpy()[idx])
     m = len(idx)
@@ -1130,13 +1160,31 @@ def _fits(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, ref
     re = (rng.random(m) < 0.2)
     d2 = _workday(date + rng.integers(300, 1500, m))
     re &= (d2 <= end) & (d2 < leave)
-    alt = np.array([q[0] for q in PROTECTORS], dtype=object)[rng.integers(0, len(PROTECTORS), m)]
+    # ... with another protector of the group's range
+    alt_pick = (pick + rng.integers(1, 3, m)) % 3
+    alt = np.empty(m, dtype=object)
+    for code, opts in _ISSUE.items():  # five groups
+        sel = gi[idx] == codes.index(code)
+        alt[sel] = np.array(opts, dtype=object)[alt_pick[sel]]
     nrr2 = pd.Series(alt, dtype=object).map(nrr).to_numpy(dtype=float)
     df2 = pd.DataFrame({"pi": idx[re], "protector_id": alt[re], "date": d2[re],
                         "par": np.round(np.clip(nrr2[re] * rng.uniform(0.4, 0.85, re.sum()), 0.0, 45.0), 0)})
     df = pd.concat([df, df2, refits[["pi", "protector_id", "date", "par"]]], ignore_index=True)
     df = df.sort_values(["pi", "date"], kind="mergesort")
     df = df.drop_duplicates(["pi", "date"])
+    # a fit test late in the review year shows a poor fit for the most exposed of the loudest group
+    loud = int(np.argmax([g.laeq + 10.0 * np.log10(g.shift_hours / 8.0) for g in GROUPS]))
+    last = df.drop_duplicates("pi", keep="last")
+    still = np.isnan(ppl["leave"].to_numpy()[last["pi"].to_numpy()]) & (gi[last["pi"].to_numpy()] == loud)
+    cand = last[still & (last["date"].to_numpy() < end - 30)]
+    if len(cand):
+        top = cand.iloc[np.argsort(-ppl["lex_person"].to_numpy()[cand["pi"].to_numpy()], kind="stable")
+                        [:len(_POOR_FITS)]]
+        poor_d = np.busday_offset(np.full(len(top), end - 25).astype("datetime64[D]"), 0, roll="backward")
+        df = pd.concat([df, pd.DataFrame({"pi": top["pi"].to_numpy(), "protector_id": top["protector_id"].to_numpy(),
+                                          "date": poor_d.astype(np.int64),
+                                          "par": np.array(_POOR_FITS[:len(top)])})], ignore_index=True)
+        df = df.sort_values(["pi", "date"], kind="mergesort").drop_duplicates(["pi", "date"], keep="last")
     return pd.DataFrame({"person_id": ppl["person_id"].to_numpy()[df["pi"].to_numpy()],
                          "protector_id": df["protector_id"].to_numpy(),
                          "date": _date_str(df["date"].to_numpy()), "par": df["par"].to_numpy()})
