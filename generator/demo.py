@@ -679,6 +679,27 @@ def _appf_234(ppl: pd.DataFrame, pi: np.ndarray, date: np.ndarray) -> np.ndarray
     return np.nan_to_num(np.asarray(c, dtype=float), nan=0.0)
 
 
+def _review_year_lapses(notices: pd.DataFrame, refits: pd.DataFrame, year0: int, end: int
+                        ) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Make one written notice of the review year late, leave out another and one refit (deliberate)."""
+    notices = notices.sort_values(["date", "pi"], kind="mergesort").reset_index(drop=True)
+    referred = set(notices.loc[notices["about"] == "referral", "pi"].tolist())
+    sts = notices[(notices["about"] == "sts") & (notices["date"] >= year0) & (notices["date"] <= end - 60)
+                  & ~notices["pi"].isin(sorted(referred))]
+    firsts = sts.drop_duplicates("pi")
+    used: list[int] = []
+    if len(firsts) >= 2:
+        late_i, miss_i = firsts.index[0], firsts.index[1]
+        notices.loc[late_i, "date"] = notices.loc[late_i, "date"] + 28.0  # past the 21 days
+        notices = notices.drop(index=miss_i)
+        used = [int(firsts.loc[late_i, "pi"]), int(firsts.loc[miss_i, "pi"])]
+    refits = refits.sort_values(["date", "pi"], kind="mergesort").reset_index(drop=True)
+    cand = refits[(refits["date"] >= year0) & (refits["date"] <= end - 60) & ~refits["pi"].isin(used)]
+    if len(cand):
+        refits = refits.drop(index=cand.index[0])
+    return notices.reset_index(drop=True), refits.reset_index(drop=True)
+
+
 def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int
                 ) -> tuple[pd.DataFrame, np.ndarray, pd.DataFrame, pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     """Return (test events, their levels, reviews, notices, refits, test days per audiometer)."""
@@ -725,6 +746,9 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
     # each round takes, per person, the first test after the last event that shows a shift
     # against the reference in force (age corrected as in 29 CFR 1910.95 App. F) and plays
     # out retest, review, notice and refit; revised baselines move the reference
+    # deliberate lapses of the review year, so that the action list shows each kind once
+    year0 = _day(int(_year_of(np.array([end]))[0]))
+    skip_retest = True
     for _round in range(16):  # a few rounds, each vectorised over people
         sh = avg - ref_avg[pi] - (corr[:, None] - ref_corr[pi])
         fl = (np.round(sh, 6) >= 10.0) & (ev_date > search_from[pi])[:, None] & (ev_date[:, None] > ref_date[pi])
@@ -741,6 +765,11 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
         gap = np.where(rng.random(k) < 0.03, rng.integers(32, 46, k), rng.integers(5, 15, k))
         rdate = _workday(ev_date[pos] + gap).astype(float)
         do_rt &= (rdate < nxt[pos] - 7) & (rdate <= end) & (rdate < leave[pk])
+        lapse = np.flatnonzero(do_rt & (ev_date[pos] >= year0) & (ev_date[pos] <= end - 90) & (nxt[pos] > end)
+                               & ~is_temp)
+        if skip_retest and len(lapse):  # one shift of the review year without its retest
+            do_rt[lapse[0]] = False
+            skip_retest = False
         rt = pd.DataFrame({"pi": pk[do_rt], "date": rdate[do_rt], "kind": "retest",
                            "quiet_hours": np.round(rng.uniform(14.0, 20.0, do_rt.sum()), 1), "temp_db": 0.0})
         rt_hl = _levels_for(rng, ppl, rt, young, real) if len(rt) else np.zeros((0, 2, freqs))
@@ -827,6 +856,7 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
     notices = pd.concat(note_parts, ignore_index=True) if note_parts else pd.DataFrame(columns=["pi", "date", "about"])
     refits = pd.concat(refit_parts, ignore_index=True) if refit_parts else pd.DataFrame(
         columns=["pi", "date", "protector_id", "par"])
+    notices, refits = _review_year_lapses(notices, refits, year0, end)
     rt_all = [r for r, _ in rt_parts]
     rt_hl_all = [h for _, h in rt_parts]
 
