@@ -101,7 +101,7 @@ GROUPS: tuple[GroupModel, ...] = (
     GroupModel("WHS", "Forklift and warehouse", "Forklift driving, loading bays and the "
                "finished-goods store.", "Logistics",
                ("Forklift driver", "Warehouse operative", "Dispatch clerk"),
-               0.18, 84.0, 2.0, 2.5, 10.0, 4.0, True, 0.20, 24.0, 7.0, (90.0, 160.0, 40.0, 80.0)),
+               0.18, 86.0, 2.0, 2.5, 10.0, 4.0, True, 0.20, 24.0, 7.0, (90.0, 160.0, 40.0, 80.0)),
 )
 
 #: Point sources of the area-survey field model: (x, y, level at 1 m dB(A), group code).
@@ -583,27 +583,26 @@ def _audiogram_schedule(rng: np.random.Generator, ppl: pd.DataFrame, start: int,
     # exit tests for leavers
     exit_d = _workday(np.where(np.isfinite(leave), leave - rng.integers(1, 15, m), 0)).astype(float)
     ok_exit = np.isfinite(leave) & (rng.random(m) < 0.85) & ok_base & (exit_d > base + 60) & (exit_d >= start)
-    # the annual test of the year before the records, for staff hired well before them
-    pre_d = _workday(start - rng.integers(30, 330, m)).astype(float)
-    ok_pre = ok_base & (hire < start - 400) & (pre_d > base + 180) & (pre_d < leave_f - 45)
-    pi = np.concatenate([idx[ok_base], idx[ok_pre], np.repeat(idx[:, None], len(years), axis=1)[ok_per],
-                         idx[ok_exit]])
-    date = np.concatenate([base[ok_base], pre_d[ok_pre], per[ok_per], exit_d[ok_exit]])
+    # (the records begin with the review window: staff hired before it have their baseline at
+    # hire and their annual tests from the first year of the records on)
+    pi = np.concatenate([idx[ok_base], np.repeat(idx[:, None], len(years), axis=1)[ok_per], idx[ok_exit]])
+    date = np.concatenate([base[ok_base], per[ok_per], exit_d[ok_exit]])
     kind = np.concatenate([np.full(ok_base.sum(), "baseline", dtype=object),
-                           np.full(ok_pre.sum(), "periodic", dtype=object),
                            np.full(ok_per.sum(), "periodic", dtype=object),
                            np.full(ok_exit.sum(), "exit", dtype=object)])
-    pre = np.concatenate([np.zeros(ok_base.sum(), bool), np.ones(ok_pre.sum(), bool),
-                          np.zeros(ok_per.sum() + ok_exit.sum(), bool)])
-    ev = pd.DataFrame({"pi": pi, "date": date, "kind": kind, "pre": pre})
+    ev = pd.DataFrame({"pi": pi, "date": date, "kind": kind})
     ev = ev.sort_values(["pi", "date"], kind="mergesort").drop_duplicates(["pi", "date"]).reset_index(drop=True)
     n = len(ev)
     quiet = np.round(rng.uniform(12.0, 18.0, n), 1)
     is_base = ev["kind"].to_numpy() == "baseline"
     quiet[is_base] = np.round(rng.uniform(14.0, 20.0, is_base.sum()), 1)
-    short_base = is_base & (rng.random(n) < 0.03)
-    quiet[short_base] = np.round(rng.uniform(8.0, 13.5, short_base.sum()), 1)
-    quiet[rng.random(n) < 0.02] = np.nan
+    quiet[~is_base & (rng.random(n) < 0.02)] = np.nan
+    # a few baselines after too short a quiet period or without it recorded (deliberate)
+    base_i = np.flatnonzero(is_base)
+    k_odd = min(len(base_i) // 2, max(2, int(round(0.004 * len(base_i)))))
+    odd = rng.choice(base_i, size=2 * k_odd, replace=False) if k_odd else np.zeros(0, dtype=np.int64)
+    quiet[odd[:k_odd]] = np.round(rng.uniform(8.0, 13.5, k_odd), 1)
+    quiet[odd[k_odd:]] = np.nan
     ev["quiet_hours"] = quiet
     # a temporary shift on a few periodic tests taken soon after a noisy shift
     temp = (ev["kind"].to_numpy() == "periodic") & (rng.random(n) < 0.03)
@@ -642,26 +641,11 @@ def _levels_for(rng: np.random.Generator, ppl: pd.DataFrame, ev: pd.DataFrame,
 
 
 def _audiometers_from(start: int) -> int:
-    """Return the first day the current audiometers were used (a year before the records)."""
-    return start - 366
+    """Return the day the current audiometers were commissioned (the first day of the records).
 
-
-#: Years each retired audiometer served before the current pair.
-_RETIRED_SPAN_YEARS = 10
-
-
-def _audiometer_periods(first_test: int, start: int, end: int) -> list[tuple[str, int, int]]:
-    """Return (audiometer_id, first day, last day) of every audiometer used, oldest first.
-
-    The current pair serves from a year before the records on; before them, retired
-    audiometers (AM-R1 the oldest) each served :data:`_RETIRED_SPAN_YEARS` years.
+    Tests before it come from older records that do not name the audiometer (blank).
     """
-    am_from = _audiometers_from(start)
-    span = int(round(_RETIRED_SPAN_YEARS * _DAY))
-    n_old = max(0, int(np.ceil((am_from - first_test) / span)))
-    old = [(f"AM-R{k + 1}", am_from - (n_old - k) * span, am_from - (n_old - k - 1) * span - 1)
-           for k in range(n_old)]
-    return old + [(am, am_from, end) for am in AUDIOMETERS]
+    return int(_workday(np.array([start]))[0])
 
 
 def _appf_234(ppl: pd.DataFrame, pi: np.ndarray, date: np.ndarray) -> np.ndarray:
@@ -717,7 +701,7 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
     ears = np.stack([both | left, both | ~left], axis=1)
     real = {"z_f": z_f, "onset": onset, "ears": ears, "size": rng.uniform(12.0, 24.0, n_p)}
 
-    ev = _audiogram_schedule(rng, ppl, start, end).drop(columns="pre")
+    ev = _audiogram_schedule(rng, ppl, start, end)
     hl = _levels_for(rng, ppl, ev, young, real)
     pi = ev["pi"].to_numpy()
     ev_date = ev["date"].to_numpy()
@@ -761,8 +745,10 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
         k = len(pos)
         hit = fl[pos]
         is_temp = ev["temp_db"].to_numpy()[pos] > 0
-        do_rt = (kind[pos] == "periodic") & (rng.random(k) < np.where(is_temp, 0.98, 0.95))
-        gap = np.where(rng.random(k) < 0.03, rng.integers(32, 46, k), rng.integers(5, 15, k))
+        # the earlier years hold a few random lapses; the review year only the deliberate ones
+        in_rev = ev_date[pos] >= year0
+        do_rt = (kind[pos] == "periodic") & ((rng.random(k) < np.where(is_temp, 0.99, 0.97)) | in_rev)
+        gap = np.where((rng.random(k) < 0.02) & ~in_rev, rng.integers(32, 46, k), rng.integers(5, 15, k))
         rdate = _workday(ev_date[pos] + gap).astype(float)
         do_rt &= (rdate < nxt[pos] - 7) & (rdate <= end) & (rdate < leave[pk])
         lapse = np.flatnonzero(do_rt & (ev_date[pos] >= year0) & (ev_date[pos] <= end - 90) & (nxt[pos] > end)
@@ -808,8 +794,8 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
                                  np.where(decision[keep] == "not_work_related",
                                           "reviewer judged the shift not work-related", "shift persists on review")),
             }))
-            # persistent shifts: the retest (or the flagged test) becomes the revised baseline
-            revise = keep & confirmed & (rng.random(k) < 0.85)
+            # persistent shifts (confirmed by a retest): the retest becomes the revised baseline
+            revise = keep & confirmed & do_rt & (rng.random(k) < 0.85)
             new_pos_avg = np.where(do_rt, rt_avg[:, e], avg[pos, e])
             new_corr = np.where(do_rt, rt_corr, corr[pos])
             rev_parts.append(pd.DataFrame({
@@ -831,18 +817,18 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
         # written notice of the shift: most within 21 days, some late, a few missing
         # (on time: within 21 days of the flagged test as well as of its retest)
         span = np.maximum(21.0 - (basis - ev_date[pos]), 2.0)
-        u = rng.random(k)
-        ndate = basis + np.where(u < 0.93, 1.0 + np.floor(rng.random(k) * (span - 1.0)), rng.integers(23, 50, k))
-        give = confirmed_any & (u < 0.985) & (ndate <= end)
+        u = np.where(in_rev, 0.0, rng.random(k))
+        ndate = basis + np.where(u < 0.97, 1.0 + np.floor(rng.random(k) * (span - 1.0)), rng.integers(23, 50, k))
+        give = confirmed_any & (u < 0.99) & (ndate <= end)
         note_parts.append(pd.DataFrame({"pi": pk[give], "date": ndate[give], "about": "sts"}))
         rdate2 = when + 1 + rng.integers(2, 15, k)
         give_r = refer_any & (rng.random(k) < 0.93) & (rdate2 <= end)
         note_parts.append(pd.DataFrame({"pi": pk[give_r], "date": rdate2[give_r], "about": "referral"}))
         # protector refit after a shift (not for leavers)
-        u = rng.random(k)
-        fdate = _workday(basis + np.where(u < 0.93, np.floor(rng.random(k) * (span - 3.0)),
+        u = np.where(in_rev, 0.0, rng.random(k))
+        fdate = _workday(basis + np.where(u < 0.97, np.floor(rng.random(k) * np.maximum(span - 3.0, 1.0)),
                                           rng.integers(25, 60, k))).astype(float)
-        give_f = confirmed_any & (u < 0.985) & (fdate <= end) & (fdate < leave[pk])
+        give_f = confirmed_any & (u < 0.99) & (fdate <= end) & (fdate < leave[pk])
         choice = rng.integers(0, 2, k)
         refit_tab = np.array([_REFIT.get(g.code, ("CC20", "EM19")) for g in GROUPS], dtype=object)
         refit_prot = refit_tab[ppl["gi"].to_numpy()[pk], choice]
@@ -856,6 +842,9 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
     notices = pd.concat(note_parts, ignore_index=True) if note_parts else pd.DataFrame(columns=["pi", "date", "about"])
     refits = pd.concat(refit_parts, ignore_index=True) if refit_parts else pd.DataFrame(
         columns=["pi", "date", "protector_id", "par"])
+    for frame in (reviews, notices, refits):  # typed even when no shift was found
+        frame["pi"] = frame["pi"].astype(np.int64)
+        frame["date"] = frame["date"].astype(float)
     notices, refits = _review_year_lapses(notices, refits, year0, end)
     rt_all = [r for r, _ in rt_parts]
     rt_hl_all = [h for _, h in rt_parts]
@@ -866,15 +855,16 @@ def _audiograms(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: in
     order = np.lexsort((allev["date"].to_numpy(), allev["pi"].to_numpy()))
     allev = allev.iloc[order].reset_index(drop=True)
     all_hl = all_hl[order]
-    # audiometer per test day: the two current ones, or the retired one in use that day
+    # audiometer per test day (older tests, from before the current audiometers: blank)
     days = np.unique(allev["date"].to_numpy())
     day_am = np.where(rng.random(len(days)) < 0.6, AUDIOMETERS[0], AUDIOMETERS[1]).astype(object)
-    periods = _audiometer_periods(int(days[0]) if len(days) else start, start, end)
-    for am_id, p0, p1 in periods:  # a handful of retired audiometers
-        if am_id not in AUDIOMETERS:
-            day_am[(days >= p0) & (days <= p1)] = am_id
+    am_from = _audiometers_from(start)
+    day_am = np.where(days >= am_from, day_am, "").astype(object)
     allev["audiometer_id"] = day_am[np.searchsorted(days, allev["date"].to_numpy())]
-    test_days = pd.DataFrame({"date": days, "audiometer_id": day_am})
+    test_days = pd.DataFrame({"date": days, "audiometer_id": day_am,
+                              "n_tests": np.bincount(np.searchsorted(days, allev["date"].to_numpy()),
+                                                     minlength=len(days))})
+    test_days = test_days[test_days["date"] >= am_from]
     return allev, all_hl, reviews, notices, refits, test_days
 
 
@@ -1183,7 +1173,8 @@ def _fits(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, ref
     nrr = {p[0]: p[2] for p in PROTECTORS}  # label NRR per protector
     nrr_v = pd.Series(prot, dtype=object).map(nrr).to_numpy(dtype=float)
     tested = rng.random(m) < 0.35
-    par = np.round(np.clip(nrr_v * rng.uniform(0.3, 0.85, m) + rng.normal(0.0, 3.0, m), -5.0, 45.0), 0)
+    # field fit (PAR): most of the label value for a good fit, less for a loose one
+    par = np.round(np.clip(nrr_v * rng.uniform(0.45, 0.85, m) + rng.normal(0.0, 2.0, m), 1.0, 45.0), 0)
     df = pd.DataFrame({"pi": idx, "protector_id": prot, "date": date,
                        "par": np.where(tested, par, np.nan)})
     # a later re-fit with another protector for some
@@ -1199,7 +1190,9 @@ def _fits(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, ref
     nrr2 = pd.Series(alt, dtype=object).map(nrr).to_numpy(dtype=float)
     df2 = pd.DataFrame({"pi": idx[re], "protector_id": alt[re], "date": d2[re],
                         "par": np.round(np.clip(nrr2[re] * rng.uniform(0.4, 0.85, re.sum()), 0.0, 45.0), 0)})
-    df = pd.concat([df, df2, refits[["pi", "protector_id", "date", "par"]]], ignore_index=True)
+    parts = [df, df2] + ([refits[["pi", "protector_id", "date", "par"]]] if len(refits) else [])
+    df = pd.concat(parts, ignore_index=True)
+    df["pi"] = df["pi"].astype(np.int64)
     df = df.sort_values(["pi", "date"], kind="mergesort")
     df = df.drop_duplicates(["pi", "date"])
     # a fit test late in the review year shows a poor fit for the most exposed of the loudest group
@@ -1237,26 +1230,29 @@ _MISSED_FUNCTIONAL_DAYS = 4
 
 def _audiometer_checks(rng: np.random.Generator, test_days: pd.DataFrame, start: int, end: int) -> pd.DataFrame:
     """Return daily functional checks on every test day (a deliberate handful missing), annual
-    acoustic and booth checks, biennial exhaustive calibrations of each audiometer over its years
-    of use (from before its first test), and one failed booth check, re-checked."""
+    acoustic and booth checks and biennial exhaustive calibrations of the two audiometers from
+    their commissioning on, and one failed booth check, re-checked."""
     td = test_days.sort_values(["date", "audiometer_id"], kind="mergesort").reset_index(drop=True)
-    in_records = np.flatnonzero(td["date"].to_numpy() >= start)
+    # the missed checks fall on quiet days (one or two people tested)
+    in_records = np.flatnonzero((td["date"].to_numpy() >= start) & (td["n_tests"].to_numpy() <= 2))
     miss = np.zeros(len(td), dtype=bool)
     if len(in_records):
         miss[rng.choice(in_records, size=min(_MISSED_FUNCTIONAL_DAYS, len(in_records)), replace=False)] = True
     func = td[~miss]
     rows = [pd.DataFrame({"audiometer_id": func["audiometer_id"].to_numpy(), "date": func["date"].to_numpy(),
                           "check": "functional", "result": "pass"})]
-    first_test = int(td["date"].min()) if len(td) else start
-    for a, (am, p0, p1) in enumerate(_audiometer_periods(first_test, start, end)):  # a few audiometers
+    p0, p1 = _audiometers_from(start), end
+    for a, am in enumerate(AUDIOMETERS):  # two audiometers
         n_y = int(np.ceil((p1 - p0) / _DAY)) + 2
-        # calibrated a little before first use, then each time a little within the interval
-        first = p0 - 20 - 3 * (a % 2)
-        acu = _schedule(first, 358, n_y + 1)
+        # commissioned with an exhaustive calibration and a booth check on the first day of
+        # use, then each check a little within its interval (AM-02's cycle runs a year apart)
+        acu = _schedule(p0, 358, n_y + 1)
         own = [pd.DataFrame({"audiometer_id": am, "date": acu, "check": "acoustic", "result": "pass"})]
-        exh = _schedule(first - 5 - 360 * (a % 2), 718, n_y // 2 + 2)
+        exh = _schedule(p0, 718, n_y // 2 + 2)
+        if a % 2:
+            exh = np.concatenate([[p0], _schedule(p0 + 358, 718, n_y // 2 + 2)])
         own.append(pd.DataFrame({"audiometer_id": am, "date": exh, "check": "exhaustive", "result": "pass"}))
-        booth_d = _schedule(first + 5, 358, n_y + 1)
+        booth_d = _schedule(p0, 358, n_y + 1)
         ob = (np.array(_BOOTH)[None, :] + (a % 2) * 1.5
               + rng.normal(0.0, 1.5, (len(booth_d), len(BOOTH_BANDS))))
         b = pd.DataFrame({"audiometer_id": am, "date": booth_d, "check": "booth", "result": "pass"})
@@ -1273,8 +1269,7 @@ def _audiometer_checks(rng: np.random.Generator, test_days: pd.DataFrame, start:
         for j, f in enumerate(BOOTH_BANDS):
             b[f"ob_{f}"] = np.round(ob[:, j], 1)
         own.append(b)
-        # no calibrations after the audiometer was taken out of use
-        rows.extend(o[o["date"] <= p1] for o in own)
+        rows.extend(own)
     df = pd.concat(rows, ignore_index=True)
     df = df[df["date"] <= end]
     df = df.sort_values(["audiometer_id", "date", "check"], kind="mergesort").drop_duplicates(

@@ -205,3 +205,10 @@ def test_methods_page_texts_start_with_overview_and_end_with_glossary() -> None:
     names = [t["name"] for t in method_texts()]
     assert names[0] == "overview" and names[-1] == "glossary"
     assert "| LEX,8h (daily noise exposure level) |" in method_texts()[-1]["markdown"]
+
+
+def test_readme_relative_links_resolve(readme: str) -> None:
+    links = re.findall(r"\]\(([^)#\s]+)(?:#[^)]*)?\)", readme)
+    local = [link for link in links if not re.match(r"[a-z]+:", link)]
+    missing = [link for link in local if not (ROOT / link).exists()]
+    assert not missing, f"README links to missing files: {missing}"
