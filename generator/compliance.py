@@ -23,6 +23,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from .hearing import LEFT_STATUS
 from .model import Programme
 from .rules import RuleSet, load_rule_set
 
@@ -819,14 +820,15 @@ def describe_changes(trends: pd.DataFrame) -> list[str]:
 def _first_record_year(programme: Programme) -> int | None:
     """Return the first calendar year the programme's records cover.
 
-    Noise measurements, training, protector issues and audiometer checks mark the years
-    the programme kept records; audiograms count only when none of those exist, because
-    baselines taken at hiring may date from decades before the records begin.
+    Noise measurements, training and protector issues mark the years the programme kept
+    records; audiograms count only when none of those exist, because baselines taken at
+    hiring may date from decades before the records begin. Audiometer checks never count:
+    an audiometer is calibrated before its first test, so its records predate the programme's.
     """
     def first(names: tuple[str, ...]) -> int | None:
         years = [int(d.min().year) for d in (_dates(_table(programme, n)).dropna() for n in names) if not d.empty]
         return min(years) if years else None
-    return first(("noise", "training", "protector_fits", "audiometers")) or first(("audiograms",))
+    return first(("noise", "training", "protector_fits")) or first(("audiograms",))
 
 
 def compute(programme: Programme, results: dict) -> ComplianceResult:
@@ -889,7 +891,16 @@ def compute(programme: Programme, results: dict) -> ComplianceResult:
         refits = refits.sort_values(["due_date", "person_id"], kind="mergesort").reset_index(drop=True)
     else:
         refits = _empty(ref_cols)
-    open_refits = refits[refits["done_date"].isna()] if not refits.empty else refits
+    if not refits.empty:
+        # no refit is due after the person left (the hearing stage marks these; the leave
+        # date is checked here too for follow-ups made without it)
+        left = _as_dates(refits["person_id"].astype(str).map(
+            inp.people.drop_duplicates("person_id").set_index("person_id")["leave_date"]))
+        gone = refits["status"].astype(str).eq(LEFT_STATUS) | (
+            left.notna() & (_as_dates(refits["due_date"]) > left) & refits["done_date"].isna())
+        refits.loc[gone.to_numpy(), "status"] = LEFT_STATUS
+    open_refits = refits[refits["done_date"].isna() & refits["status"].ne(LEFT_STATUS)] \
+        if not refits.empty else refits
     if not open_refits.empty:  # one item per person and shift, both ears together
         open_refits = open_refits.assign(
             ear=open_refits["ear"].astype(str).map({"L": "left ear", "R": "right ear"}).fillna("ear"),

@@ -6,9 +6,10 @@ Rules decided once here (content/methods/hearing.md explains them to readers):
   force for that ear on the test date.
 * **Baseline.** The first audiogram of kind ``baseline`` with numbers at 2000, 3000 and
   4000 Hz, else the first audiogram with those numbers. It is replaced only by a reviewer's
-  ``revise_baseline`` decision (reviews.csv), from the audiogram that decision names. The
-  program flags candidates for revision (persistent shift; marked improvement) and never
-  revises by itself.
+  ``revise_baseline`` decision (reviews.csv) naming an audiogram; the revised baseline applies
+  to the audiograms AFTER the named one, which (like its retest) stays compared with the
+  baseline in force before (1910.95(g)(9), 1904.10(b)(2)). The program flags candidates for
+  revision (persistent shift; marked improvement) and never revises by itself.
 * **NR (no response)** is a censored value: the threshold lies at or beyond the
   audiometer's limit, which the records do not give. An average or a shift that needs an
   NR frequency is not computed (NaN); the row keeps ``nr_any`` and is listed for review
@@ -20,7 +21,9 @@ Rules decided once here (content/methods/hearing.md explains them to readers):
   picks the one that drives actions (no correction where sex or age is unknown, flagged).
 * **Retest** (1910.95(g)(7)(ii), 1904.10(b)(4)): the next audiogram of the same ear within
   ``retest_days`` confirms (still a shift) or cancels (no shift) the first one; it is not
-  a new determination itself.
+  a new determination itself. It is judged against the flagged test's baseline.
+* **Leavers.** A retest or refit that falls due after the person's leave_date and is not on
+  record is ``not applicable (left)``; the written notice of a shift is still due.
 * **Reviewer decisions** ``confirm_shift``/``cancel_shift`` override the retest, the later
   decision wins; ``not_work_related`` removes a case from recordability and refits.
 * **Recordable** (29 CFR 1904.10): a shift in force (age correction allowed) whose current
@@ -90,6 +93,8 @@ FOLLOWUP_COLUMNS = ["person_id", "ear", "kind", "trigger_date", "due_date", "don
 ACTION_COLUMNS = ["subject", "subject_type", "kind", "detail", "due_date", "clause"]
 CASE_COLUMNS = ["person_id", "ear", "date", "avg_234", "shift", "year", "group"]
 EAR_NAMES = {"R": "right ear", "L": "left ear"}
+#: follow-up status of a retest or refit that fell due after the person left employment
+LEFT_STATUS = "not applicable (left)"
 
 
 @dataclass
@@ -442,12 +447,19 @@ def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
     ag = ag.copy()
     ag["_i"] = np.arange(len(ag))
     left = ag[["_i", "person_id", "ear", "date"]].sort_values("date", kind="mergesort")
-    right = events[["person_id", "ear", "baseline_date", "source"]].sort_values("baseline_date", kind="mergesort")
+    right = events[["person_id", "ear", "baseline_date", "source"]].copy()
+    # 29 CFR 1910.95(g)(9), 1904.10(b)(2): a revised baseline takes effect for the audiograms
+    # AFTER the one it names; that audiogram is still compared with the baseline before it.
+    # The first baseline of an ear applies to its own date (it is compared with itself).
+    first = ~right.duplicated(["person_id", "ear"], keep="first")
+    later = right["source"].eq("revised by review") & ~first
+    right["_eff"] = right["baseline_date"] + pd.to_timedelta(later.astype(np.int64).to_numpy(), unit="ns")
+    right = right.sort_values("_eff", kind="mergesort")
     if right.empty:
         ag["baseline_date"] = pd.Series(pd.NaT, index=ag.index, dtype="datetime64[ns]")
         ag["baseline_source"] = ""
     else:
-        m = pd.merge_asof(left, right, left_on="date", right_on="baseline_date", by=["person_id", "ear"],
+        m = pd.merge_asof(left, right, left_on="date", right_on="_eff", by=["person_id", "ear"],
                           direction="backward").set_index("_i").sort_index()
         ag["baseline_date"] = _dates(m["baseline_date"].to_numpy())
         ag["baseline_source"] = m["source"].fillna("").to_numpy()
@@ -488,18 +500,34 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
         ag["sts_basis"] = np.where(ag["osha_sts"].notna(), "not age corrected", "")
         ag["shift_driving"] = ag["shift_234"]
     ag["sts_computed"] = drive.astype("boolean")
-    # NIOSH: >= 15 dB at the same frequency on this and the next test of the ear
+    # the same comparisons against the baseline in force at the PREVIOUS test of the ear: a
+    # retest (or the next test) is judged against the flagged test's baseline, also when a
+    # revision naming the flagged test changed the baseline between them (1910.95(g)(9))
+    sp = ag["_same_prev"].to_numpy(bool)
     sn = ag["_same_next"].to_numpy(bool)
-    bd = ag["baseline_date"].to_numpy("datetime64[ns]")
-    same_next = sn & (_nxt(bd, sn, np.datetime64("NaT")) == bd)
+    prev_has = _prv(has_base.to_numpy(bool), sp, False).astype(bool)
+    pbase = {f: _prv(ag[f"base_hl_{f}"].to_numpy(float), sp, np.nan) for f in AUDIO_FREQS}
+    pdiffs = np.stack([ag[f"hl_{f}"].to_numpy(float) - pbase[f] for f in STS_FREQS], axis=1)
+    pcorr = np.stack([
+        norms.appf_correction(ag["age"].to_numpy(), f, ag["sex"].to_numpy(object))
+        - norms.appf_correction(_prv(ag["base_age"].to_numpy(float), sp, np.nan), f, ag["sex"].to_numpy(object))
+        for f in STS_FREQS], axis=1)
+    praw = pdiffs.mean(axis=1)
+    pcor = (pdiffs - pcorr).mean(axis=1)
+    raw_p = _nbool(_ge(praw, PARAMETERS["sts_db"]), np.isfinite(praw) & prev_has)
+    cor_p = _nbool(_ge(pcor, PARAMETERS["sts_db"]), np.isfinite(pcor) & prev_has)
+    ag["_sts_vs_prev_base"] = (cor_p.where(cor_p.notna(), raw_p) if age_correction else raw_p).set_axis(ag.index)
+    # NIOSH: >= 15 dB at the same frequency on this and the next test of the ear (the next
+    # test compared with this test's baseline)
     s15 = []
     conf = []
     for f in NIOSH_FREQS:
         d = (ag[f"hl_{f}"] - ag[f"base_hl_{f}"]).to_numpy()
         hit = _ge(d, PARAMETERS["niosh_db"]) & has_base.to_numpy()
-        nxt = _nxt(hit, sn, False).astype(bool)
+        hit_p = _ge(ag[f"hl_{f}"].to_numpy(float) - pbase[f], PARAMETERS["niosh_db"]) & prev_has
+        nxt = _nxt(hit_p, sn, False).astype(bool)
         s15.append(hit)
-        conf.append(hit & nxt & same_next)
+        conf.append(hit & nxt & sn)
     ag["niosh_15"] = np.any(np.stack(s15, axis=1), axis=1)
     ag["niosh_shift"] = np.any(np.stack(conf, axis=1), axis=1)
     ag["niosh_freqs"] = _freq_list(np.stack(conf, axis=1), NIOSH_FREQS)
@@ -520,22 +548,20 @@ def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
     sp = ag["_same_prev"].to_numpy(bool)
     sn = ag["_same_next"].to_numpy(bool)
     sts = ag["sts_computed"].fillna(False).to_numpy(bool)
-    sts_known = ag["sts_computed"].notna().to_numpy()
+    # the next test judged against this test's baseline (the one in force before a revision
+    # that names this test: 1910.95(g)(9), 1904.10(b)(2))
+    vs_prev = ag["_sts_vs_prev_base"]
     nat = np.datetime64("NaT")
     d = ag["date"].to_numpy("datetime64[ns]")
-    bd = ag["baseline_date"].to_numpy("datetime64[ns]")
     prev_date = pd.Series(_prv(d, sp, nat), index=ag.index)
     next_date = pd.Series(_nxt(d, sn, nat), index=ag.index)
     prev_sts = _prv(sts, sp, False).astype(bool)
-    next_sts = _nxt(sts, sn, False).astype(bool)
-    next_known = _nxt(sts_known, sn, False).astype(bool)
-    prev_base = pd.Series(_prv(bd, sp, nat), index=ag.index)
-    next_base = pd.Series(_nxt(bd, sn, nat), index=ag.index)
+    next_sts = _nxt(vs_prev.fillna(False).to_numpy(bool), sn, False).astype(bool)
+    next_known = _nxt(vs_prev.notna().to_numpy(bool), sn, False).astype(bool)
     window = pd.Timedelta(days=int(retest_days))
-    is_retest = (prev_sts & ((ag["date"] - prev_date) <= window).to_numpy()
-                 & (prev_base == ag["baseline_date"]).to_numpy())
+    is_retest = prev_sts & ((ag["date"] - prev_date) <= window).to_numpy()
     determination = sts & ~is_retest
-    has_retest = (((next_date - ag["date"]) <= window) & (next_base == ag["baseline_date"])).to_numpy()
+    has_retest = ((next_date - ag["date"]) <= window).to_numpy()
     status = np.where(~determination, "",
                       np.where(~has_retest | ~next_known, "no retest",
                                np.where(next_sts, "confirmed", "cancelled")))
@@ -747,6 +773,16 @@ def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
     for c in ("trigger_date", "due_date", "done_date"):
         fu[c] = _dates(fu[c])
     fu["status"] = _classify(fu["due_date"], fu["done_date"], as_of)
+    # after the leave date no retest or refit is due (there is no one left to retest or refit);
+    # the written notice of a shift, also one found on an exit audiogram, is still due
+    # (1910.95(g)(8)(i) applies to every determination)
+    people = programme.table("people")
+    leave = pd.Series(_dates(_col(people, "leave_date", pd.NaT)).to_numpy(),
+                      index=_col(people, "person_id", "").astype(str).to_numpy())
+    leave = leave[~leave.index.duplicated(keep="last")]
+    left = _dates(fu["person_id"].map(leave))
+    gone = fu["kind"].isin(["retest", "refit"]) & left.notna() & (fu["due_date"] > left) & fu["done_date"].isna()
+    fu.loc[gone, "status"] = LEFT_STATUS
     fu = fu[FOLLOWUP_COLUMNS].sort_values(["trigger_date", "person_id", "ear", "kind"], kind="mergesort")
     return fu.reset_index(drop=True)
 
@@ -1142,8 +1178,8 @@ def compute(programme: Programme, results: dict) -> HearingResult:
         notes.append("No audiograms (data/audiograms.csv): there are no shifts or recordable cases to show.")
 
     inper = (ag["date"] >= start) & (ag["date"] <= as_of)
-    fu_p = followups[(followups["due_date"] >= start) & (followups["due_date"] <= as_of)] \
-        if not followups.empty else followups
+    fu_p = followups[(followups["due_date"] >= start) & (followups["due_date"] <= as_of)
+                     & followups["status"].ne(LEFT_STATUS)] if not followups.empty else followups
     summary = {
         "people_tested": int(ag.loc[inper, "person_id"].nunique()),
         "audiograms": int(ag.loc[inper, ["person_id", "date"]].drop_duplicates().shape[0]),

@@ -574,3 +574,96 @@ def test_review_gathers_sections_in_print_order(small_site: tuple[Path, Path]) -
     assert ids == [f"review-{i}" for i in range(1, len(ids) + 1)]
     trends = (out / "trends.html").read_text(encoding="utf-8")
     assert "What changed since last year" in trends
+
+
+# ---------------------------------------------------------------------------------------
+# leavers, first record year, audiometer counts (small programme folders)
+
+HL10 = {f"hl_{f}": 10 for f in (500, 1000, 2000, 3000, 4000, 6000, 8000)}
+HL_SHIFT = {**HL10, "hl_2000": 25, "hl_3000": 25, "hl_4000": 30}  # mean shift 16.7 dB at 2/3/4 kHz
+
+
+def _stages(tmp_path: Path, files: dict, config: dict | None = None) -> tuple[Programme, dict]:
+    from generator.build import compute as run_stages
+    from generator.inputs.reader import load_programme
+    from tests.progkit import make_programme
+
+    root = make_programme(tmp_path / "p", files=files, config=config)
+    prog = load_programme(root, today=dt.date(2026, 1, 1))
+    assert not prog.findings.has_errors(), [f.format() for f in prog.findings.errors]
+    results, _ = run_stages(prog)
+    return prog, results
+
+
+def test_no_refit_action_for_a_leaver(tmp_path: Path) -> None:
+    # 29 CFR 1910.95(g)(8)(ii)(A): the refit is owed to an employee; E001 left on 2022-06-30
+    # after a shift on the exit audiogram, so no refit is due (and none overdue years later),
+    # while E002, still employed, owes one
+    people = [{"person_id": "E001", "group": "G1", "sex": "M", "birth_date": "1980-05-01",
+               "hire_date": "2010-01-01", "leave_date": "2022-06-30"},
+              {"person_id": "E002", "group": "G1", "sex": "M", "birth_date": "1980-05-01",
+               "hire_date": "2010-01-01"}]
+    auds = [{"person_id": p, "date": "2021-06-01", "ear": "R", "kind": "baseline", **HL10} for p in ("E001", "E002")]
+    auds += [{"person_id": "E001", "date": "2022-06-20", "ear": "R", "kind": "exit", **HL_SHIFT},
+             {"person_id": "E002", "date": "2025-03-03", "ear": "R", "kind": "periodic", **HL_SHIFT}]
+    _, results = _stages(tmp_path, {"people.csv": people, "audiograms.csv": auds},
+                         config={"audiometry": {"age_correction": False}})
+    comp = results["compliance"]
+    refits = comp.refits.set_index("person_id")
+    assert refits.loc["E001", "status"] == "not applicable (left)"
+    assert refits.loc["E002", "status"] == "missing"
+    acts = comp.actions
+    assert not (acts["subject"].eq("E001") & acts["kind"].isin(["refit", "retest missing", "retest due"])).any()
+    assert (acts["subject"].eq("E002") & acts["kind"].eq("refit")).any()
+    assert comp.summary["refits_open"] == 1
+
+
+def test_refit_after_leave_date_dropped_without_hearing_mark() -> None:
+    # 29 CFR 1910.95(g)(8)(ii)(A): the compliance stage checks the leave date itself too, for
+    # follow-ups handed to it without the hearing stage's mark
+    people = [{"person_id": "E1", "group": "G1", "hire_date": "2020-01-01", "leave_date": "2025-03-10"}]
+    fu = pd.DataFrame([{"person_id": "E1", "ear": "L", "kind": "refit", "trigger_date": D("2025-03-01"),
+                        "due_date": D("2025-03-22"), "done_date": pd.NaT, "status": "missing", "clause": ""}])
+    res = compliance.compute(make(people), {"exposure": exposed("2020-01-01"),
+                                            "hearing": SimpleNamespace(audiograms=pd.DataFrame(), followups=fu,
+                                                                       actions=pd.DataFrame(),
+                                                                       cases=pd.DataFrame())})
+    assert res.refits["status"].tolist() == ["not applicable (left)"]
+    assert not res.actions["kind"].eq("refit").any()
+
+
+def test_first_record_year_ignores_audiometer_checks(tmp_path: Path) -> None:
+    # common practice: an audiometer is calibrated before its first test, so its calibration
+    # records predate the programme's and do not start the yearly trends
+    people = [{"person_id": "E001", "group": "G1", "sex": "M", "birth_date": "1980-05-01",
+               "hire_date": "2010-01-01"}]
+    files = {"people.csv": people,
+             "training.csv": [{"person_id": "E001", "date": "2023-02-01"}],
+             "audiometers.csv": [{"audiometer_id": "AU1", "date": "2019-05-01", "check": "exhaustive",
+                                  "result": "pass"}],
+             "audiograms.csv": [{"person_id": "E001", "date": d, "ear": "R", "kind": k, "audiometer_id": "AU1",
+                                 **HL10} for d, k in (("2023-03-01", "baseline"), ("2025-03-01", "periodic"))]}
+    prog, results = _stages(tmp_path, files)
+    assert compliance._first_record_year(prog) == 2023
+    assert results["compliance"].trends["year"].tolist() == [2023, 2024, 2025]
+
+
+def test_programme_page_tells_missing_audiometer_from_invalid_check(tmp_path: Path) -> None:
+    # 29 CFR 1910.95(h)(5)(i): a functional check each day the audiometer is used; an audiogram
+    # naming no audiometer cannot be looked up, which is not the same as a missing check
+    from generator.build import make_context
+    from generator.pages import programme as programme_page
+
+    people = [{"person_id": "E001", "group": "G1", "sex": "M", "birth_date": "1980-05-01",
+               "hire_date": "2010-01-01"}]
+    auds = [{"person_id": "E001", "date": "2019-03-01", "ear": e, "kind": "baseline", **HL10} for e in "LR"]
+    auds += [{"person_id": "E001", "date": d, "ear": e, "kind": "periodic", "audiometer_id": "AU1", **HL10}
+             for d in ("2023-03-01", "2024-03-01", "2025-03-03") for e in "LR"]
+    meters = [{"audiometer_id": "AU1", "date": "2025-03-03", "check": "functional", "result": "pass"}]
+    prog, results = _stages(tmp_path, {"people.csv": people, "audiograms.csv": auds, "audiometers.csv": meters})
+    page = programme_page.build(make_context(prog, results))[0]
+    c = page.context
+    # before 2025, one per person and date: the 2019 test names no audiometer, the 2023 and
+    # 2024 tests name AU1 with no functional check those days
+    assert (c["n_flagged_before"], c["n_before_no_meter"], c["n_before_invalid"]) == (3, 1, 2)
+    assert c["n_flagged_no_meter"] == 0

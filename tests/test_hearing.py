@@ -513,3 +513,129 @@ def test_review_without_audiogram_date_and_unmatched(tmp_path):
     r = row(res, "RV", "2025-01-06", "R")
     assert r["review_decision"] == "cancel_shift" and not r["sts"] and r["shift_status"] == "cancelled by reviewer"
     assert [f.row for f in res.findings if f.key == "review-unmatched"] == [3]
+
+
+# ---------------------------------------------------------------------------------------
+# a revised baseline takes effect after the audiogram it names
+
+
+@pytest.mark.parametrize("named", ["2025-01-06", "2025-01-20"])
+def test_revised_baseline_applies_after_the_named_audiogram(tmp_path, named):
+    # 29 CFR 1910.95(g)(9) and 1904.10(b)(2): a persistent shift allows the reviewer to revise
+    # the baseline, and later audiograms are compared with the revised one; the audiogram that
+    # showed the shift (and its retest, 1910.95(g)(7)(ii)) is still judged against the
+    # baseline in force before the revision, so the shift, its follow-ups and its
+    # recordability (1904.10(a): 2/3/4 kHz average >= 25 dB HL) stay.
+    people = [person("RB", "M", "1990-01-01")]
+    auds = [ag("RB", "2023-01-10", "R", (10, 10, 10), kind="baseline"),
+            ag("RB", "2025-01-06", "R", (25, 25, 30)),  # shift (15 + 15 + 20) / 3 = 16.7 dB
+            ag("RB", "2025-01-20", "R", (24, 24, 29), kind="retest"),  # 15.7 dB vs the old baseline
+            ag("RB", "2025-11-03", "R", (26, 26, 31))]
+    reviews = [{"person_id": "RB", "ear": "R", "date": "2025-02-10", "decision": "revise_baseline",
+                "audiogram_date": named, "reviewer_role": "audiologist"}]
+    res = run(tmp_path, auds, people, config={"audiometry": {"age_correction": False}}, reviews=reviews)
+    a = row(res, "RB", "2025-01-06", "R")
+    assert a["baseline_date"] == pd.Timestamp("2023-01-10")
+    assert a["shift_234"] == pytest.approx(50 / 3)
+    assert a["sts"] and a["determination"] and a["retest_status"] == "confirmed"
+    assert a["shift_status"] == "confirmed by retest"
+    assert a["recordable"]
+    r = row(res, "RB", "2025-01-20", "R")
+    assert r["is_retest_of_shift"] and not r["determination"] and not r["sts"]
+    assert r["baseline_date"] == pd.Timestamp("2023-01-10" if named == "2025-01-20" else "2025-01-06")
+    # the next annual test compares with the revised baseline: (1 + 1 + 1) or (2 + 2 + 2) / 3 dB
+    n = row(res, "RB", "2025-11-03", "R")
+    assert n["baseline_date"] == pd.Timestamp(named)
+    assert n["shift_234"] == pytest.approx(1.0 if named == "2025-01-06" else 2.0)
+    assert not n["sts"]
+    assert res.cases["date"].tolist() == [pd.Timestamp("2025-01-06")]
+    fu = res.followups.set_index("kind")
+    assert {"retest", "notice", "refit"} <= set(fu.index)
+    assert fu.loc["retest", "done_date"] == pd.Timestamp("2025-01-20")
+    assert fu.loc["retest", "status"] == "on time"
+    assert res.baselines.iloc[0]["baseline_date"] == pd.Timestamp(named)
+
+
+def test_retest_against_old_baseline_can_cancel(tmp_path):
+    # 29 CFR 1910.95(g)(7)(ii), 1904.10(b)(4): the retest cancels the shift when it shows no
+    # shift against the baseline the flagged test was compared with (here 3.3 dB), even when
+    # the reviewer later revised the baseline to the flagged test
+    people = [person("RC", "M", "1990-01-01")]
+    auds = [ag("RC", "2023-01-10", "R", (10, 10, 10), kind="baseline"),
+            ag("RC", "2025-01-06", "R", (25, 25, 30)),
+            ag("RC", "2025-01-20", "R", (12, 14, 14), kind="retest")]
+    reviews = [{"person_id": "RC", "ear": "R", "date": "2025-02-10", "decision": "revise_baseline",
+                "audiogram_date": "2025-01-06", "reviewer_role": "audiologist"}]
+    res = run(tmp_path, auds, people, config={"audiometry": {"age_correction": False}}, reviews=reviews)
+    a = row(res, "RC", "2025-01-06", "R")
+    assert a["retest_status"] == "cancelled" and not a["sts"] and not a["recordable"]
+    assert row(res, "RC", "2025-01-20", "R")["is_retest_of_shift"]
+
+
+# ---------------------------------------------------------------------------------------
+# leavers
+
+
+def test_no_retest_or_refit_due_after_leaving_but_notice_still_due(tmp_path):
+    # 29 CFR 1910.95(g)(8)(i): the written notice follows every determination, an exit
+    # audiogram's too; the retest (1910.95(g)(7)(ii)) and the refit (1910.95(g)(8)(ii)) fall due
+    # only while the person is employed (after the leave date there is no one to retest or refit)
+    people = [dict(person("LV", "M", "1990-01-01"), leave_date="2025-06-30"),
+              person("ST", "M", "1990-01-01")]
+    auds = [ag(p, "2024-01-05", "R", (10, 10, 10), kind="baseline") for p in ("LV", "ST")] + [
+        ag("LV", "2025-06-20", "R", (25, 25, 30), kind="exit"),  # shift 16.7 dB on the exit audiogram
+        ag("ST", "2025-06-20", "R", (25, 25, 30))]
+    res = run(tmp_path, auds, people, config={"audiometry": {"age_correction": False}})
+    fu = res.followups.set_index(["person_id", "kind"])
+    assert fu.loc[("LV", "retest"), "status"] == hearing.LEFT_STATUS  # due 2025-07-20, after leaving
+    assert fu.loc[("LV", "refit"), "status"] == hearing.LEFT_STATUS  # due 2025-07-11, after leaving
+    assert fu.loc[("LV", "notice"), "status"] == "missing"  # still due 21 days after the determination
+    assert fu.loc[("ST", "retest"), "status"] == "missing"
+    assert fu.loc[("ST", "refit"), "status"] == "missing"
+    acts = res.actions
+    lv = set(acts.loc[acts["subject"] == "LV", "kind"])
+    assert lv == {"notice missing"}
+    assert "retest missing" in set(acts.loc[acts["subject"] == "ST", "kind"])
+    # due in the period: LV's notice, ST's notice, retest and refit
+    assert res.summary["followups_due"] == 4
+    assert res.summary["followups_late_or_missing"] == 4
+    # the shift and the case stay: leaving changes what is due, not what was found
+    assert row(res, "LV", "2025-06-20", "R")["recordable"]
+
+
+def test_retest_done_before_leaving_still_counts(tmp_path):
+    # 29 CFR 1910.95(g)(7)(ii): a retest taken within the window before the leave date is on time
+    people = [dict(person("LW", "M", "1990-01-01"), leave_date="2025-06-30")]
+    auds = [ag("LW", "2024-01-05", "R", (10, 10, 10), kind="baseline"),
+            ag("LW", "2025-06-10", "R", (25, 25, 30)),
+            ag("LW", "2025-06-24", "R", (25, 25, 30), kind="exit")]
+    res = run(tmp_path, auds, people, config={"audiometry": {"age_correction": False}})
+    fu = res.followups.set_index(["person_id", "kind"])
+    assert fu.loc[("LW", "retest"), "status"] == "on time"
+    assert fu.loc[("LW", "refit"), "status"] == hearing.LEFT_STATUS
+
+
+def test_hearing_page_counts_cases_per_ear_and_people(tmp_path):
+    # 29 CFR 1904.10(a): a shift with a 2/3/4 kHz average of 25 dB HL or more in the same ear;
+    # both ears of one person meet it (2 cases counted per ear, 1 person)
+    from generator.build import compute as run_stages, make_context
+    from generator.pages import hearing as hearing_page
+
+    people = [person("P2", "M", "1990-01-01"), person("P1", "M", "1990-01-01")]
+    auds = [ag("P2", "2024-01-05", e, (10, 10, 10), kind="baseline") for e in "LR"] + [
+        ag("P2", "2025-03-03", e, (25, 25, 30)) for e in "LR"] + [
+        ag("P1", "2024-01-05", "R", (10, 10, 10), kind="baseline"), ag("P1", "2025-03-03", "R", (12, 12, 12))]
+    root = make_programme(tmp_path / "prog", {"audiograms.csv": auds, "people.csv": people},
+                          config={"audiometry": {"age_correction": False}})
+    prog = load_programme(root)
+    results, _ = run_stages(prog)
+    ctx = make_context(prog, results)
+    page = [p for p in hearing_page.build(ctx) if p.slug == "hearing"][0]
+    tile = [t for t in page.context["tiles"] if "recordable" in t["label"]][0]
+    assert tile["value"] == "2"
+    assert tile["label"] == "recordable cases (29 CFR 1904.10), counted per ear, in 1 person"
+    gt = page.context["group_table"]
+    col = gt.columns.index("People with a recordable case")
+    assert [r[col] for r in gt.rows] == ["1", "1"]  # G1 and all groups: one person
+    # the compliance summary behind the overview tile counts people too
+    assert results["compliance"].summary["recordables_this_period"] == 1

@@ -11,7 +11,7 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from .. import charts
-from ..hearing import EAR_NAMES, HearingResult
+from ..hearing import EAR_NAMES, LEFT_STATUS, HearingResult
 from ..inputs.spec import AUDIO_FREQS
 from .base import Chart, Page, SiteContext, Table
 
@@ -110,8 +110,9 @@ def per_year_chart(pop: pd.DataFrame, group: str, cid: str, label: str) -> Chart
     rows = [[str(r.year), str(r.n_tested), str(r.n_sts), _pct(r.sts_rate), _ci_text(r.sts_ci_low, r.sts_ci_high),
              str(r.n_recordable), _pct(r.recordable_rate), _ci_text(r.recordable_ci_low, r.recordable_ci_high)]
             for r in d.itertuples()]
-    table = Table(["Year", "Tested", "With STS", "STS rate", "95 % CI (exact)", "Recordable", "Recordable rate",
-                   "95 % CI (exact)"], rows, caption=f"People tested, with a standard threshold shift in force and "
+    table = Table(["Year", "People tested", "People with STS", "STS rate", "95 % CI (exact)",
+                   "People with a recordable case", "Recordable rate", "95 % CI (exact)"], rows,
+                  caption=f"People tested, with a standard threshold shift in force and "
                   f"with a recordable case per year ({label})", classes=["", "num", "num", "num", "", "num", "num", ""])
     if d.empty:
         summary = f"No audiograms for {label}."
@@ -284,7 +285,7 @@ def rate_by_group_chart(pg: pd.DataFrame, suppressed: frozenset[str], cid: str) 
             rows.append([r.group] + [SUPPRESSED] * 4)
         else:
             rows.append([r.group, str(int(r.n_tested)), str(int(r.n_sts)), _pct(r.rate), _ci_text(r.lo, r.hi)])
-    table = Table(["Group", "Tested", "With STS", "Rate", "95 % CI (exact)"], rows,
+    table = Table(["Group", "People tested", "People with STS", "Rate", "95 % CI (exact)"], rows,
                   caption="People with a standard threshold shift in the review period, per group",
                   classes=["", "num", "num", "num", ""])
     if shown.empty or shown["rate"].isna().all():
@@ -309,7 +310,7 @@ def shifts_table(a: pd.DataFrame, ctx: SiteContext) -> Table:
                      _num(r.shift_234_age_corrected), r.shift_status or BLANK, r.retest_status or BLANK,
                      _yes(r.recordable), _yes(r.niosh_shift)])
     return Table(["Person", "Ear", "Date", "2/3/4 kHz average, dB HL", "Shift, dB", "Shift age-corrected, dB",
-                  "Status", "Retest", "Recordable", "NIOSH shift"], rows[:MAX_ROWS],
+                  "Status", "Retest", "Recordable case (this ear)", "NIOSH shift"], rows[:MAX_ROWS],
                  caption="Audiograms with a shift or to review in the period (pseudonymous codes)" + _more(len(rows)),
                  classes=["", "", "", "num", "num", "num", "", "", "", ""])
 
@@ -344,8 +345,9 @@ def group_table(pg: pd.DataFrame, pop: pd.DataFrame, years: list[int], suppresse
             {"mean_avg_234": np.nan, "change_mean_avg": np.nan})
         rows.append([name, str(int(r.n_tested)), str(int(r.n_sts)), _ci_text(r.sts_ci_low, r.sts_ci_high),
                      str(int(r.n_recordable)), _num(m["mean_avg_234"]), _num(m["change_mean_avg"])])
-    return Table(["Group", "Tested", "With STS", "STS rate 95 % CI (exact)", "Recordable",
-                  "Mean 2/3/4 kHz average, dB HL", "Change from the year before, dB"], rows,
+    return Table(["Group", "People tested", "People with STS", "STS rate 95 % CI (exact)",
+                  "People with a recordable case", "Mean 2/3/4 kHz average, dB HL",
+                  "Change from the year before, dB"], rows,
                  caption="Review period per group (distinct people)",
                  classes=["", "num", "num", "", "num", "num", "num"])
 
@@ -354,15 +356,24 @@ def group_table(pg: pd.DataFrame, pop: pd.DataFrame, years: list[int], suppresse
 # pages
 
 
+def _people(n: int) -> str:
+    """Return 'person' or 'people' for a count."""
+    return "person" if n == 1 else "people"
+
+
 def _tiles(h: HearingResult, a: pd.DataFrame, fu: pd.DataFrame, cases: pd.DataFrame) -> list[dict[str, Any]]:
     tested = int(a["person_id"].nunique())
     sts = int(a.loc[a["sts"], "person_id"].nunique())
     niosh = int(a.loc[a["niosh_shift"], "person_id"].nunique())
     late = int(fu["status"].isin(["late", "missing"]).sum()) if not fu.empty else 0
+    n_case_people = int(cases["person_id"].nunique()) if not cases.empty else 0
+    # 29 CFR 1904.10 cases are counted per ear here (one per ear until its baseline is revised)
     tiles = [
         {"value": str(tested), "label": "people tested", "warn": False},
         {"value": str(sts), "label": "people with a standard threshold shift (OSHA)", "warn": False},
-        {"value": str(len(cases)), "label": "recordable cases (29 CFR 1904.10)", "warn": len(cases) > 0},
+        {"value": str(len(cases)),
+         "label": f"recordable cases (29 CFR 1904.10), counted per ear, in {n_case_people} "
+                  f"{_people(n_case_people)}", "warn": len(cases) > 0},
         {"value": str(niosh), "label": "people with a confirmed NIOSH 15 dB shift", "warn": False},
         {"value": str(late), "label": "follow-ups late or not on record", "warn": late > 0},
     ]
@@ -375,12 +386,18 @@ def _in_period(df: pd.DataFrame, col: str, start: pd.Timestamp, end: pd.Timestam
     return df[(df[col] >= start) & (df[col] <= end)]
 
 
+def _due_followups(fu: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:
+    """Return the follow-ups due in the period, leaving out retests and refits not due because the person left."""
+    d = _in_period(fu, "due_date", start, end)
+    return d[d["status"] != LEFT_STATUS] if not d.empty else d
+
+
 def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page:
     start, end = _period(ctx)
     years = _years(ctx)
     sup = ctx.suppressed_groups
     a = _in_period(h.audiograms, "date", start, end)
-    fu = _in_period(h.followups, "due_date", start, end)
+    fu = _due_followups(h.followups, start, end)
     cases = _in_period(h.cases, "date", start, end)
     shown_groups = [g for g in sorted(slugs) if g not in sup]
     page_charts = [
@@ -430,7 +447,7 @@ def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Pa
                              "followups_table": None, "group_name": group})
     a = _in_period(h.audiograms, "date", start, end)
     a = a[a["group"] == group]
-    fu = _in_period(h.followups, "due_date", start, end)
+    fu = _due_followups(h.followups, start, end)
     fu = fu[fu["person_id"].isin(set(h.audiograms.loc[h.audiograms["group"] == group, "person_id"]))]
     cases = _in_period(h.cases, "date", start, end)
     cases = cases[cases["group"] == group]

@@ -8,6 +8,7 @@ import pandas as pd
 
 from .. import charts
 from ..compliance import BOOTH_LIMITS
+from ..hearing import LEFT_STATUS
 from ..privacy import code_series
 from .base import Chart, Page, SiteContext, Table
 
@@ -155,9 +156,13 @@ def audiometer_chart(status: pd.DataFrame, slug: str = "programme") -> Chart | N
                                     {"audiometer_id": "Audiometer", "days": "Test days",
                                      "ok_days": "All checks valid", "not_ok": "Check missing or failed"},
                                     {"days": "d", "ok_days": "d", "not_ok": "d"})
-    summary = (f"In the review period, {int(g['sum'].sum())} of {int(g['size'].sum())} test days on {len(g)} "
-               f"audiometers had a functional check that day, calibrations in date and a booth within "
-               f"App. D Table D-1.")
+    named = g[g["audiometer_id"] != "not recorded"]
+    unnamed = int(g.loc[g["audiometer_id"] == "not recorded", "size"].sum())
+    summary = (f"In the review period, {int(named['sum'].sum())} of {int(named['size'].sum())} test days on "
+               f"{len(named)} named audiometers had a functional check that day, calibrations in date and a booth "
+               f"within App. D Table D-1."
+               + (f" On {unnamed} further test day{'s' if unnamed != 1 else ''} no audiometer is recorded, so the "
+                  "checks cannot be looked up." if unnamed else ""))
     return Chart(f"{slug}-3", fig, summary, table, title="Test days with valid audiometer checks")
 
 
@@ -181,9 +186,17 @@ def build(ctx: SiteContext) -> list[Page]:
                                                                                    meters["booth_detail"])]
     all_flagged = comp.audiograms_flagged
     flagged = all_flagged[pd.to_datetime(all_flagged["date"]) >= start].copy()
+    # counted once per person and test date (audiograms.csv has a row per ear)
+    earlier = all_flagged[pd.to_datetime(all_flagged["date"]) < start].drop_duplicates(["person_id", "date"])
+
+    def no_meter(df: pd.DataFrame) -> pd.Series:
+        return df["audiometer_id"].fillna("").astype(str).eq("")
+
     refits = comp.refits
     if len(refits):  # open ones, and those of shifts found in the period
-        refits = refits[refits["done_date"].isna() | (pd.to_datetime(refits["trigger_date"]) >= start)]
+        # a refit not due because the person left is shown only when its shift is in the period
+        still_due = refits["done_date"].isna() & refits["status"].astype(str).ne(LEFT_STATUS)
+        refits = refits[still_due | (pd.to_datetime(refits["trigger_date"]) >= start)]
     page_charts = [training_chart(comp.training_groups, sup), protector_chart(comp.protector_groups, sup)]
     st = comp.audiometer_status
     ac = audiometer_chart(st[pd.to_datetime(st["date"]) >= start] if len(st) else st)
@@ -233,7 +246,13 @@ def build(ctx: SiteContext) -> list[Page]:
                                       caption="Audiograms of the review period taken without valid checks or "
                                               "in a booth over the limits"),
         "n_flagged": int(len(flagged)),
-        "n_flagged_before": int(len(all_flagged) - len(flagged)),
+        # "no audiometer recorded" (older records) is told apart from "audiometer named but
+        # no valid check that day"
+        "n_flagged_no_meter": int(no_meter(flagged.drop_duplicates(["person_id", "date"])).sum()),
+        "n_flagged_tests": int(len(flagged.drop_duplicates(["person_id", "date"]))),
+        "n_flagged_before": int(len(earlier)),
+        "n_before_no_meter": int(no_meter(earlier).sum()),
+        "n_before_invalid": int((~no_meter(earlier)).sum()),
         "period_start": start.strftime("%Y-%m-%d"),
         "booth_limits": [{"band": f, "limit": v} for f, v in sorted(BOOTH_LIMITS.items())],
     }
