@@ -19,6 +19,7 @@ from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
 from typing import Any
 
+from . import clock
 from .config import CONFIG_FILE
 from .findings import Findings, HcpsiteError, UsageError
 from .model import Programme
@@ -66,13 +67,7 @@ class BuildReport:
 
 def validation_today() -> dt.date:
     """Return the date future dates are judged against: SOURCE_DATE_EPOCH (UTC) or the system date."""
-    raw = os.environ.get("SOURCE_DATE_EPOCH", "").strip()
-    if raw:
-        try:
-            return dt.datetime.fromtimestamp(int(raw), tz=dt.timezone.utc).date()
-        except (ValueError, OverflowError, OSError):
-            log.warning("SOURCE_DATE_EPOCH=%r is not a whole number of seconds; using the system date", raw)
-    return dt.date.today()
+    return clock.today()
 
 
 def module_available(name: str) -> bool:

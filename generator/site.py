@@ -7,10 +7,8 @@ works from ``file://``; no template loads anything from another host.
 """
 from __future__ import annotations
 
-import datetime as dt
 import logging
 import math
-import os
 import re
 from dataclasses import dataclass
 from functools import lru_cache
@@ -24,6 +22,7 @@ import nh3
 import plotly.io as pio
 from markupsafe import Markup
 
+from . import clock
 from . import __version__
 from .pages import NARRATIVE, SECTIONS, section_title
 from .pages.base import Chart, Page, SiteContext
@@ -144,16 +143,7 @@ def build_date() -> str:
     return day.isoformat() if day else "not stamped"
 
 
-def source_date() -> dt.date | None:
-    """Return the UTC date of SOURCE_DATE_EPOCH, or None when unset or unreadable."""
-    raw = os.environ.get("SOURCE_DATE_EPOCH", "").strip()
-    if not raw:
-        return None
-    try:
-        return dt.datetime.fromtimestamp(int(raw), tz=dt.timezone.utc).date()
-    except (ValueError, OverflowError, OSError):
-        log.warning("SOURCE_DATE_EPOCH=%r is not a whole number of seconds; ignored", raw)
-        return None
+source_date = clock.source_date
 
 
 def chart_html(chart: Chart) -> str:

@@ -27,6 +27,7 @@ import numpy as np
 import pandas as pd
 import yaml
 
+from .. import clock
 from ..config import CONFIG_FILE, Config, load_config
 from ..findings import ERROR, WARNING, Findings
 from ..model import NarrativePage, Programme
@@ -66,14 +67,7 @@ _TEXT_KINDS = ("id", "text")
 
 def build_date() -> dt.date:
     """Return the build date: SOURCE_DATE_EPOCH (UTC) when set, else the system date."""
-    epoch = os.environ.get("SOURCE_DATE_EPOCH", "").strip()
-    if epoch:
-        try:
-            return dt.datetime.fromtimestamp(int(epoch), tz=dt.timezone.utc).date()
-        except (ValueError, OverflowError, OSError):
-            log.warning("SOURCE_DATE_EPOCH=%r is not a whole number of seconds; using the system date",
-                        epoch)
-    return dt.date.today()
+    return clock.today()
 
 
 # ---------------------------------------------------------------------------------------
