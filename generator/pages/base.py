@@ -6,6 +6,7 @@ charts (plotly figures made by ``generator.charts``) and plain values for its te
 """
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 from typing import Any, Callable
 
@@ -71,3 +72,23 @@ class SiteContext:
     def headline(self) -> Any:
         """Return the headline rule set."""
         return next(iter(self.rules.values()))
+
+
+def group_slug(group: str) -> str:
+    """Return the page slug part of a group code (lower case, safe characters)."""
+    s = re.sub(r"[^a-z0-9]+", "-", str(group).lower()).strip("-")
+    return s or "group"
+
+
+def group_slugs(groups: list[str]) -> dict[str, str]:
+    """Return a unique slug per group code (a numeric suffix where two codes slug alike)."""
+    out: dict[str, str] = {}
+    used: set[str] = set()
+    for g in sorted(groups):
+        base = group_slug(g)
+        s, k = base, 2
+        while s in used:
+            s, k = f"{base}-{k}", k + 1
+        used.add(s)
+        out[g] = s
+    return out

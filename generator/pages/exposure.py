@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import logging
-import re
 from typing import Any
 
 import numpy as np
@@ -12,7 +11,7 @@ import plotly.graph_objects as go
 from .. import charts
 from ..exposure import PARAMETERS, ExposureResult, action_value, band_names
 from ..privacy import redactor
-from .base import Chart, Page, SiteContext, Table
+from .base import Chart, Page, SiteContext, Table, group_slugs
 
 log = logging.getLogger(__name__)
 
@@ -24,26 +23,6 @@ BASIS_TEXT = {
     "steady_level": "LAeq and run time only (3-dB figures exact; 5-dB figures assume a steady level)",
 }
 MAP_NOTE = "interpolated, for orientation only"
-
-
-def group_slug(group: str) -> str:
-    """Return the page slug part of a group code (lower case, safe characters)."""
-    s = re.sub(r"[^a-z0-9]+", "-", str(group).lower()).strip("-")
-    return s or "group"
-
-
-def group_slugs(groups: list[str]) -> dict[str, str]:
-    """Return a unique slug per group code, in sorted order of the codes."""
-    out: dict[str, str] = {}
-    used: set[str] = set()
-    for g in sorted(groups):
-        base = group_slug(g)
-        s, k = base, 2
-        while s in used:
-            s, k = f"{base}-{k}", k + 1
-        used.add(s)
-        out[g] = s
-    return out
 
 
 def _num(v: Any, digits: int = 1) -> str:

@@ -13,7 +13,7 @@ import plotly.graph_objects as go
 from .. import charts
 from ..hearing import EAR_NAMES, LEFT_STATUS, HearingResult
 from ..inputs.spec import AUDIO_FREQS
-from .base import Chart, Page, SiteContext, Table
+from .base import Chart, Page, SiteContext, Table, group_slugs
 
 log = logging.getLogger(__name__)
 
@@ -31,26 +31,6 @@ KIND_WORDS = {"notice": "written notice", "retest": "retest", "refit": "protecto
 BLANK = charts.BLANK
 #: rows shown in a listing on the overview and group pages (the export has them all)
 MAX_ROWS = 300
-
-
-def group_slug(group: str) -> str:
-    """Return a file-name-safe, lower-case slug for a group code."""
-    s = re.sub(r"[^a-z0-9]+", "-", str(group).lower()).strip("-")
-    return s or "group"
-
-
-def _group_slugs(groups: list[str]) -> dict[str, str]:
-    """Return group -> unique slug (a numeric suffix where two groups slug alike)."""
-    out: dict[str, str] = {}
-    used: set[str] = set()
-    for g in sorted(groups):
-        base = group_slug(g)
-        s, i = base, 2
-        while s in used:
-            s, i = f"{base}-{i}", i + 1
-        used.add(s)
-        out[g] = s
-    return out
 
 
 def _num(v: Any, digits: int = 1) -> str:
@@ -568,7 +548,7 @@ def build(ctx: SiteContext) -> list[Page]:
                      context={"has_data": False, "notes": ["The hearing stage did not run."], "tiles": [],
                               "group_links": [], "any_suppressed": False, "people_links": []}, in_nav=True)]
     groups = sorted(set(h.audiograms["group"].astype(str)) - {""}) if not h.audiograms.empty else []
-    slugs = _group_slugs(groups)
+    slugs = group_slugs(groups)
     pages = [_overview(ctx, h, slugs)]
     pages += [_group_page(ctx, h, g, slugs[g]) for g in groups]
     if ctx.restricted:
