@@ -438,7 +438,19 @@ def booth_judgement(checks: pd.DataFrame) -> pd.DataFrame:
 
 
 def audiometer_checks(programme: Programme, rule: RuleSet) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
-    """Return (audiometer_status, audiograms_flagged, audiometers) for every test day."""
+    """Return (audiometer_status, audiograms_flagged, audiometers) for every test day.
+
+    The hearing and compliance stages both need it; it is computed once per programme and
+    rule set (the programme's inputs never change during a build).
+    """
+    key = ("audiometer_checks", rule.id)
+    cached = programme.extra.get(key)
+    if cached is None:
+        cached = programme.extra[key] = _audiometer_checks(programme, rule)
+    return tuple(df.copy() for df in cached)  # type: ignore[return-value]
+
+
+def _audiometer_checks(programme: Programme, rule: RuleSet) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     aud = _table(programme, "audiograms")
     tests = pd.DataFrame({"person_id": _col(aud, "person_id", "").astype(str), "date": _dates(aud),
                           "ear": _col(aud, "ear", "").astype(str),

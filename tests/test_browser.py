@@ -6,7 +6,6 @@ printed review go to ``tests/artifacts/`` for a person to look at.
 """
 from __future__ import annotations
 
-import os
 import re
 import shutil
 from collections import deque
@@ -47,27 +46,19 @@ class Visit:
     plots_drawn: int = 0
     links: list[str] = field(default_factory=list)
     load_error: str = ""
-    overflow_px: int = 0
 
 
 def _site_from_fixture(request: pytest.FixtureRequest) -> Path | None:
     """Return the site folder of the shared ``built_example`` fixture, if there is one."""
     try:
-        value = request.getfixturevalue("built_example")
+        built = request.getfixturevalue("built_example")
     except pytest.FixtureLookupError:
         return None
     except pytest.skip.Exception as exc:  # the browser checks run whenever chromium is there
         pytest.fail(f"the shared built_example fixture skipped: {exc}")
-    for cand in (value, getattr(value, "out", None), getattr(value, "site", None)):
-        if isinstance(cand, (str, os.PathLike)) and (Path(cand) / "index.html").is_file():
-            return Path(cand)
-        if isinstance(cand, (str, os.PathLike)) and (Path(cand) / "_site" / "index.html").is_file():
-            return Path(cand) / "_site"
-    if isinstance(value, (tuple, list)):
-        for cand in value:
-            if isinstance(cand, (str, os.PathLike)) and (Path(cand) / "index.html").is_file():
-                return Path(cand)
-    return None
+    out = Path(built.out)
+    assert (out / "index.html").is_file(), f"built_example wrote no index.html into {out}"
+    return out
 
 
 @pytest.fixture(scope="module")

@@ -22,6 +22,7 @@ WHEEL_MUST_HOLD = (
     "generator/cli.py",
     "generator/build.py",
     "generator/templates/base.html",
+    "generator/templates/style.css",
     "generator/content/cautions/general.md",
     "generator/content/glossary.md",
     "generator/content/methods/overview.md",
@@ -111,6 +112,7 @@ def test_installed_console_script_builds_the_example(installed: dict) -> None:
     for page in ("index.html", "methods.html", "quality.html"):
         assert (out / page).is_file(), f"{page} missing from the installed build"
     assert (out / "index.html").stat().st_size > 1000
+    assert (out / "assets" / "style.css").is_file() and (out / "assets" / "plotly.min.js").is_file()
     assert not (prog / "_site").exists(), "--out was ignored"
     # python -m generator takes the same arguments
     help_proc = subprocess.run([str(installed["python"]), "-m", "generator", "--help"], capture_output=True,
