@@ -12,6 +12,7 @@ import hashlib
 import hmac
 import logging
 import re
+from functools import lru_cache, partial
 from typing import Callable, Iterable
 
 import pandas as pd
@@ -88,28 +89,77 @@ def small_groups(people: pd.DataFrame, min_size: int) -> frozenset[str]:
     return frozenset(str(g) for g in counts.index[counts < min_size])
 
 
+#: texts remembered by one redactor (repeated cells such as locations are redacted once)
+REDACT_CACHE_SIZE = 65536
+
+
+def trie_pattern(keys: Iterable[str]) -> str:
+    """Return a regex alternation of *keys* folded into a prefix tree (longest key preferred)."""
+    root: dict[str, dict] = {}
+    for k in keys:
+        node = root
+        for ch in k:
+            node = node.setdefault(ch, {})
+        node[""] = {}
+
+    def emit(node: dict[str, dict]) -> str:
+        end = "" in node
+        alts = [re.escape(ch) + emit(sub) for ch, sub in sorted(node.items()) if ch]
+        if not alts:
+            return ""
+        body = alts[0] if len(alts) == 1 else "(?:" + "|".join(alts) + ")"
+        if end:
+            # greedy: the longer key is tried first, the shorter one when the rest does not match
+            return (body if len(alts) > 1 else "(?:" + body + ")") + "?"
+        return body
+
+    return emit(root)
+
+
+#: a key made of word characters and hyphens only: matched whole exactly when it is a whole run of them
+_RUN = re.compile(r"[\w-]+")
+
+
+@lru_cache(maxsize=8)
+def _word_pattern(keys: tuple[str, ...]) -> re.Pattern[str]:
+    """Return the compiled pattern of whole *keys* containing other characters, or else of any run of [\\w-]."""
+    # keys such as ids and dates are whole runs of [\w-] and are looked up in a dict; only the others
+    # (names with spaces, ...) go into the prefix tree, tried first since they are longer at any position
+    tree = trie_pattern(keys)
+    return re.compile(r"(?<![\w-])(?:" + (tree + "|" if tree else "") + r"[\w-]+)(?![\w-])")
+
+
 def redactor(people: pd.DataFrame, code: Callable[[str], str]) -> Callable[[str], str]:
     """Return a function that replaces raw ids, names and birth dates in free text."""
     subs: dict[str, str] = {}
     if "person_id" in people.columns:
-        for pid in people["person_id"].astype(str):
-            if pid:
-                subs[pid] = code(pid)
+        ids = [p for p in pd.unique(people["person_id"].astype(str)) if p]
+        subs.update((p, code(p)) for p in ids)
     if "name" in people.columns:
-        for name in people["name"].astype(str):
+        for name in pd.unique(people["name"].astype(str)):
             if name.strip() and name not in subs:
                 subs[name] = "[name withheld]"
     if "birth_date" in people.columns:
         births = pd.to_datetime(people["birth_date"], errors="coerce").dropna()
-        for text in births.dt.strftime("%Y-%m-%d"):
+        for text in pd.unique(births.dt.strftime("%Y-%m-%d")):
             subs.setdefault(text, "[date withheld]")
     if not subs:
         return lambda text: text
-    keys = sorted(subs, key=lambda k: (-len(k), k))
-    pattern = re.compile(r"(?<![\w-])(" + "|".join(re.escape(k) for k in keys) + r")(?![\w-])")
+    # one compiled pattern: each position costs the depth of a prefix tree, not the number of keys
+    pattern = _word_pattern(tuple(sorted(k for k in subs if not _RUN.fullmatch(k))))
+
+    def swap(m: re.Match[str]) -> str:
+        g = m.group(0)
+        return subs.get(g, g)
+
+    replace = partial(pattern.sub, swap)
+
+    @lru_cache(maxsize=REDACT_CACHE_SIZE)
+    def _redact(text: str) -> str:
+        return replace(text)
 
     def redact(text: str) -> str:
         """Return *text* with every known id or name replaced."""
-        return pattern.sub(lambda m: subs[m.group(1)], str(text))
+        return _redact(str(text))
 
     return redact

@@ -517,3 +517,73 @@ def test_quiet_group_still_gives_people_a_source(tmp_path: Path) -> None:
     g = r.groups.set_index("group").loc["G1"]
     assert g["band_osha-1910.95"] == "below 85" and g["band_eu-2003-10"] == "below 80"
     assert r.measurements.iloc[0]["osha_dose_pct"] == 0.0
+
+
+def _group_page_programme(tmp_path: Path):
+    # 3 measurements in 2024 and 127 in 2025 in group G1; six 8-h logs at different steady levels
+    noise = [{"measurement_id": f"Y{i}", "date": f"2024-05-0{i + 1}", "kind": "personal", "person_id": "E001",
+              "duration_h": 8, "laeq": L} for i, L in enumerate([84.0, 88.0, 91.0])]
+    start = pd.Timestamp("2025-01-02")
+    noise += [{"measurement_id": f"M{i:03d}", "date": (start + pd.Timedelta(days=2 * i)).strftime("%Y-%m-%d"),
+               "kind": "personal", "person_id": "E002", "duration_h": 8, "laeq": 85.0} for i in range(127)]
+    files: dict[str, Any] = {"noise.csv": noise, "groups.csv": [{"group": "G1", "shift_hours": 8}]}
+    log_levels = {"M010": 100.0, "M020": 98.0, "M030": 96.0, "M040": 94.0, "M050": 92.0, "M060": 90.0}
+    for mid, L in log_levels.items():
+        day = noise[3 + int(mid[1:])]["date"]
+        files[f"noise_logs/{mid}.csv"] = _log_csv([L] * 479 + [L + 5.0], start=f"{day}T06:00:00")
+    return _load(tmp_path, files)
+
+
+def test_group_page_stays_small_and_aggregates(tmp_path: Path) -> None:
+    from generator import build, site
+    from generator.pages import exposure as pages
+
+    p = _group_page_programme(tmp_path)
+    ctx = build.make_context(p, {"exposure": ex.compute(p, {})})
+    built = {pg.slug: pg for pg in pages.build(ctx)}
+    pg = built["exposure/g1"]
+    c = pg.context
+    # the measurement table shows the most recent MEASUREMENT_ROWS rows, newest first
+    rows = c["measurement_table"].rows
+    assert len(rows) == pages.MEASUREMENT_ROWS == 100
+    assert rows[0][0] == "2025-09-11" and rows[0][1] == "M126" and rows[-1][1] == "M027"
+    assert c["n_measurements"] == 130
+    # at most HISTORY_CHARTS time histories: the logs with the highest OSHA dose, 100 dB first
+    titles = [ch.title for ch in pg.charts]
+    assert titles == ["Time history M010", "Time history M020", "Time history M030", "Time history M040"]
+    for ch in pg.charts:
+        assert len(ch.figure.data[0].x) <= pages.HISTORY_POINTS and len(ch.table.rows) <= pages.HISTORY_POINTS
+    # the other logs are listed: highest dose first, with the highest logged interval (the +5 dB minute)
+    lt = c["logged_table"]
+    assert [r[0] for r in lt.rows] == ["M050", "M060"]
+    assert lt.rows[0][-1] == "97.0" and lt.rows[1][-1] == "95.0"
+    # 29 CFR 1910.95 App. A: 8 h at 92 dB, T = 6.06 h -> 132 % (the last minute at 97 dB adds 0.48 %)
+    osha = lt.columns.index("OSHA dose, %")
+    assert float(lt.rows[0][osha]) == pytest.approx(100 * (479 / 60 / _t_osha(92) + 1 / 60 / _t_osha(97)), abs=0.5)
+    # per year: energy mean of the personal LEX,8h (ISO 9612:2009 energy average, 10 lg(1/N Σ 10^(0.1 L)));
+    # 84, 88, 91 dB -> 88.5 dB (by hand); OSHA action level 85 dB TWA (29 CFR 1910.95(c)(1)): 2 of 3
+    yt = {r[0]: r for r in c["yearly_table"].rows}
+    assert yt["2024"][1:] == ["3", "3", "88.5", "84.0", "91.0", "67"]
+    assert float(yt["2024"][3]) == pytest.approx(_leq([84, 88, 91]), abs=0.05)
+    assert yt["2025"][1] == "127"
+    env = site.make_environment(None)
+    html = site.render_page(env, pg, {"site": site.site_info(ctx), "cautions": site.cautions_for(ctx.rules)},
+                            list(built.values()))
+    assert "Showing the 100 most recent of 130 measurements" in html and "exposure_results.csv" in html
+    assert "The 4 with the highest OSHA dose are drawn below" in html
+
+
+def test_coarsened_history_keeps_energy_and_maximum() -> None:
+    from generator.pages.exposure import coarsen_history
+
+    rng = np.random.default_rng(7)
+    n = rng.integers(1, 5, 497)
+    h = pd.DataFrame({"start": pd.date_range("2025-03-10 06:00", periods=497, freq="min"),
+                      "laeq": np.round(rng.uniform(70, 105, 497), 1), "n": n})
+    h["lmax"] = h["laeq"] + rng.uniform(0, 6, 497)
+    c = coarsen_history(h, 300)
+    assert len(c) <= 300 and c["n"].sum() == n.sum()
+    # time-averaged level, IEC 61672-1:2013 3.9: weighting each point by its intervals keeps the LAeq
+    assert _leq(c["laeq"], c["n"]) == pytest.approx(_leq(h["laeq"], h["n"]), abs=1e-9)
+    assert c["lmax"].max() == pytest.approx(h["lmax"].max()) and c["start"].iloc[0] == h["start"].iloc[0]
+    assert coarsen_history(h.head(200), 300).equals(h.head(200))

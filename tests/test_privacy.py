@@ -82,6 +82,21 @@ def test_redactor_uses_word_boundaries() -> None:
     assert re.search(r"(?<![\w-])E1(?![\w-])", out) is None
 
 
+
+def test_redactor_prefers_the_longest_known_id_or_name() -> None:
+    # ids, names and dates that share prefixes: the longest whole word known is replaced (common practice)
+    people = pd.DataFrame({"person_id": ["E1", "E12", "E1-2", "AB"], "name": ["Ann", "Ann Example", "Anna", ""],
+                           "birth_date": pd.to_datetime(["1980-05-01", "1980-05-02", None, None])})
+    code, _ = make_coder(people, "k")
+    clean = redactor(people, code)
+    assert clean("E12, E1-2, E1 and E123") == f"{code('E12')}, {code('E1-2')}, {code('E1')} and E123"
+    assert clean("Ann Example met Anna and Ann Exam") == \
+        "[name withheld] met [name withheld] and [name withheld] Exam"
+    assert clean("1980-05-02/1980-05-01 not 1980-05-012") == "[date withheld]/[date withheld] not 1980-05-012"
+    assert clean("ABE AB-1 AB.") == f"ABE AB-1 {code('AB')}."
+    # the same text gives the same result from the cache, and non-text values are read as text
+    assert clean("E1") == clean("E1") == code("E1") and clean(12) == "12"
+
 def _people_rows(root: Path) -> list[dict[str, str]]:
     with open(root / "data" / "people.csv", encoding="utf-8-sig", newline="") as fh:
         return list(csv.DictReader(fh))

@@ -9,6 +9,7 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from .. import charts
+from .. import levels as lv
 from ..exposure import PARAMETERS, ExposureResult, action_value, band_names
 from ..privacy import redactor
 from .base import Chart, Page, SiteContext, Table, group_slugs
@@ -23,6 +24,16 @@ BASIS_TEXT = {
     "steady_level": "LAeq and run time only (3-dB figures exact; 5-dB figures assume a steady level)",
 }
 MAP_NOTE = "interpolated, for orientation only"
+#: rows of a group's measurement table (the most recent ones); the export has them all
+MEASUREMENT_ROWS = 100
+#: time-history charts per group page (the logged measurements with the highest headline dose)
+HISTORY_CHARTS = 4
+#: points per time-history chart at most (energy means of consecutive logged intervals)
+HISTORY_POINTS = 300
+#: rows of the list of the other logged measurements of a group (highest dose first)
+LOG_ROWS = 100
+#: rows of the overview's weekly, action and warning tables at most
+OVERVIEW_ROWS = 200
 
 
 def _num(v: Any, digits: int = 1) -> str:
@@ -187,37 +198,47 @@ def basis_table(res: ExposureResult) -> Table:
                  caption="What each measurement's dose rests on", classes=["", "", "num"])
 
 
-def weekly_table(res: ExposureResult, ctx: SiteContext) -> Table:
-    """Return weekly LEX,w by pseudonymous code (suppressed groups hidden)."""
+def weekly_table(res: ExposureResult, ctx: SiteContext, n: int = OVERVIEW_ROWS) -> Table:
+    """Return weekly LEX,w by pseudonymous code (suppressed groups hidden; the *n* highest when there are more)."""
+    w = res.weekly[~res.weekly["group"].isin(sorted(ctx.suppressed_groups))]
+    caption = "Weekly noise exposure level LEX,w (days not measured count as no exposure)"
+    if len(w) > n:
+        caption += f"; the {n:,} highest of {len(w):,} person-weeks"
+        w = w.sort_values(["lex_w", "week_start"], ascending=False, kind="stable").head(n)
     rows = []
-    for r in res.weekly.itertuples(index=False):
-        if r.group in ctx.suppressed_groups:
-            continue
+    for r in w.itertuples(index=False):
         rows.append([ctx.code(r.person_id), r.group, r.week_start.strftime("%Y-%m-%d"), str(int(r.n_days)),
                      _num(r.max_daily_lex), _num(r.lex_w), "yes" if r.complete else "no"])
     return Table(columns=["Person", "Group", "Week from", "Days measured", "Highest daily LEX,8h", "LEX,w",
                           "All working days measured"], rows=rows,
-                 caption="Weekly noise exposure level LEX,w (days not measured count as no exposure)",
+                 caption=caption,
                  classes=["", "", "", "num", "num", "num", ""])
 
 
-def actions_table(res: ExposureResult, ctx: SiteContext, redact: Any = str) -> Table:
-    """Return the exposure actions (group subjects; person subjects by code)."""
+def actions_table(res: ExposureResult, ctx: SiteContext, redact: Any = str, n: int = OVERVIEW_ROWS) -> Table:
+    """Return the first *n* exposure actions (group subjects; person subjects by code)."""
     rows = []
-    for r in res.actions.itertuples(index=False):
+    caption = "Exposure actions"
+    if len(res.actions) > n:
+        caption += f" (the first {n:,} of {len(res.actions):,}; hcpsite export writes all of them to actions.csv)"
+    for r in res.actions.head(n).itertuples(index=False):
         subj = ctx.code(r.subject) if r.subject_type == "person" else str(r.subject)
         due = r.due_date.strftime("%Y-%m-%d") if not pd.isna(r.due_date) else charts.BLANK
         rows.append([subj, r.kind, redact(r.detail), due, r.clause])
     return Table(columns=["Subject", "Action", "Detail", "Due", "Clause"], rows=rows,
-                 caption="Exposure actions", classes=["", "", "", "", ""])
+                 caption=caption, classes=["", "", "", "", ""])
 
 
-def findings_table(res: ExposureResult, suppressed: frozenset[str] = frozenset(), redact: Any = str) -> Table:
-    """Return the sampling and data warnings of the exposure stage (none about suppressed groups)."""
+def findings_table(res: ExposureResult, suppressed: frozenset[str] = frozenset(), redact: Any = str,
+                   n: int = OVERVIEW_ROWS) -> Table:
+    """Return the first *n* sampling and data warnings of the exposure stage (none about suppressed groups)."""
     hidden = tuple(f"group {g}{sep}" for g in sorted(suppressed) for sep in (":", ","))
-    rows = [[redact(f.path), "" if f.row is None else str(f.row), redact(f.message)] for f in res.findings
-            if not f.message.startswith(hidden)]
-    return Table(columns=["File", "Row", "Warning"], rows=rows, caption="Warnings about the exposure data",
+    shown = [f for f in res.findings if not f.message.startswith(hidden)]
+    caption = "Warnings about the exposure data"
+    if len(shown) > n:
+        caption += f" (the first {n:,} of {len(shown):,}; hcpsite check lists all of them)"
+    rows = [[redact(f.path), "" if f.row is None else str(f.row), redact(f.message)] for f in shown[:n]]
+    return Table(columns=["File", "Row", "Warning"], rows=rows, caption=caption,
                  classes=["", "num", ""])
 
 
@@ -225,24 +246,72 @@ def findings_table(res: ExposureResult, suppressed: frozenset[str] = frozenset()
 # group pages
 
 
-def measurement_table(m: pd.DataFrame, ctx: SiteContext, redact: Any = str) -> Table:
-    """Return one group's measurements with person codes (never raw ids)."""
+def recent_measurements(m: pd.DataFrame, n: int = MEASUREMENT_ROWS) -> pd.DataFrame:
+    """Return the *n* most recent measurements of *m*, newest first."""
+    return m.sort_values(["date", "measurement_id"], ascending=False, kind="stable").head(n)
+
+
+def measurement_table(m: pd.DataFrame, ctx: SiteContext, redact: Any = str, n: int = MEASUREMENT_ROWS) -> Table:
+    """Return the *n* most recent measurements of one group with person codes (never raw ids)."""
     hid = ctx.headline.id
     rows = []
     cols = ["date", "measurement_id", "person_id", "kind", "location", "duration_h", "laeq", "lex_8h",
             "osha_dose_pct", "osha_twa", "niosh_dose_pct", "niosh_twa", "lcpeak", "basis", f"band_{hid}"]
+    shown = recent_measurements(m, n)
     for (date, mid, pid, kind, loc, dur, laeq, lex, od, ot, nd, nt, pk, basis, band) in \
-            m[cols].itertuples(index=False, name=None):
+            shown[cols].itertuples(index=False, name=None):
         who = ctx.code(pid) if pid else "area"
         rows.append([date.strftime("%Y-%m-%d"), redact(mid), who, kind, redact(loc) or charts.BLANK, _num(dur, 2), _num(laeq),
                      _num(lex), _num(od, 0), _num(ot), _num(nd, 0), _num(nt), _num(pk), basis,
                      band or charts.BLANK])
+    which = (f"the {len(shown):,} most recent of {len(m):,}, newest first" if len(shown) < len(m)
+             else f"all {len(m):,}, newest first")
     return Table(columns=["Date", "Measurement", "Person", "Kind", "Location", "Run, h", "LAeq", "LEX,8h",
                           "OSHA dose, %", "OSHA TWA", "NIOSH dose, %", "NIOSH TWA", "LCpeak", "Basis",
                           f"Band ({ctx.headline.short})"], rows=rows,
-                 caption="Measurements of this group (levels in dB(A), peaks in dB(C); the dose counts the run "
-                         "time, LEX,8h the shift)",
+                 caption=f"Measurements of this group, {which} (levels in dB(A), peaks in dB(C); the dose "
+                         "counts the run time, LEX,8h the shift)",
                  classes=["", "", "", "", "", "num", "num", "num", "num", "num", "num", "num", "num", "", ""])
+
+
+def yearly_table(m: pd.DataFrame, ctx: SiteContext) -> Table:
+    """Return per calendar year the measurements of one group: counts, LEX,8h spread, share at the action value."""
+    head = ctx.headline
+    av = action_value(head)
+    personal = m["kind"].eq("personal").to_numpy() & m["lex_8h"].notna().to_numpy()
+    lex = m["lex_8h"].to_numpy(dtype=float)
+    judged = m[f"level_{head.id}"].to_numpy(dtype=float)
+    df = pd.DataFrame({"year": m["date"].dt.year.to_numpy(), "one": 1, "personal": personal.astype(int),
+                       "e": np.where(personal, lv.energy(np.where(personal, lex, 0.0)), 0.0),
+                       "lex": np.where(personal, lex, np.nan),
+                       "over": (personal & (judged >= av)).astype(int)})
+    a = df.groupby("year", sort=True).agg(n=("one", "sum"), n_p=("personal", "sum"), e=("e", "sum"),
+                                          lo=("lex", "min"), hi=("lex", "max"), over=("over", "sum"))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mean = np.where(a["n_p"] > 0, lv.level(a["e"] / a["n_p"].where(a["n_p"] > 0, 1)), np.nan)
+        share = np.where(a["n_p"] > 0, 100.0 * a["over"] / a["n_p"].where(a["n_p"] > 0, 1), np.nan)
+    rows = [[str(int(y)), f"{int(n):,}", f"{int(n_p):,}", _num(mu), _num(lo), _num(hi), _num(sh, 0)]
+            for y, n, n_p, mu, lo, hi, sh in zip(a.index, a["n"], a["n_p"], mean, a["lo"], a["hi"], share)]
+    how = "LEX,8h" if head.metric == "lex" else "shift TWA"
+    return Table(columns=["Year", "Measurements", "Personal", "Energy mean LEX,8h, dB(A)", "Lowest LEX,8h",
+                          "Highest LEX,8h", f"At or above {av:g} dB(A), %"], rows=rows,
+                 caption=(f"All measurements per year: LEX,8h over the personal ones; the share compares "
+                          f"each one's {how} with the {head.short} action value"),
+                 classes=["", "num", "num", "num", "num", "num", "num"])
+
+
+def logged_table(m: pd.DataFrame, lmax: pd.Series, ctx: SiteContext, redact: Any = str) -> Table:
+    """Return logged measurements of one group in a compact list: LAeq, dose per rule set, highest interval."""
+    cols = ["Measurement", "Date", "Person", "LAeq, dB(A)"] + [f"{r.short} dose, %" for r in ctx.rules.values()] \
+        + ["Highest interval, dB(A)"]
+    doses = [m[f"dose_{rid}"].to_numpy(dtype=float) for rid in ctx.rules]
+    rows = []
+    for i, (mid, date, pid, laeq) in enumerate(m[["measurement_id", "date", "person_id", "laeq"]]
+                                               .itertuples(index=False, name=None)):
+        rows.append([redact(mid), date.strftime("%Y-%m-%d"), ctx.code(pid) if pid else "area", _num(laeq)]
+                    + [_num(d[i], 0) for d in doses] + [_num(lmax.get(mid, np.nan))])
+    return Table(columns=cols, rows=rows, caption="Other logged measurements of this group (highest dose first)",
+                 classes=["", "", "", "num"] + ["num"] * len(doses) + ["num"])
 
 
 def task_table(t: pd.DataFrame) -> Table:
@@ -270,10 +339,26 @@ def task_chart(t: pd.DataFrame, slug: str) -> Chart:
     return Chart(id=_chart_id(slug, 1), figure=fig, summary=summary, table=table, title="Share of the daily dose")
 
 
+def coarsen_history(h: pd.DataFrame, points: int = HISTORY_POINTS) -> pd.DataFrame:
+    """Return *h* merged into at most *points* runs of consecutive bins (energy mean, highest level, first start)."""
+    if len(h) <= points:
+        return h
+    per = -(-len(h) // points)
+    b = np.arange(len(h)) // per
+    n = h["n"].to_numpy(dtype=float)
+    e = np.bincount(b, weights=lv.energy(h["laeq"].to_numpy(dtype=float)) * n)
+    c = np.bincount(b, weights=n)
+    firsts = np.flatnonzero(np.r_[True, b[1:] != b[:-1]])
+    return pd.DataFrame({"start": h["start"].to_numpy()[firsts], "laeq": lv.level(e / c),
+                         "lmax": np.maximum.reduceat(h["lmax"].to_numpy(dtype=float), firsts),
+                         "n": c.astype(np.int64)})
+
+
 def history_chart(mid: str, h: pd.DataFrame, ctx: SiteContext, slug: str, n: int, redact: Any = str) -> Chart:
     """Return a downsampled time history with the threshold and criterion lines of the headline rule."""
     head = ctx.headline
     mid = redact(mid)
+    h = coarsen_history(h, HISTORY_POINTS)
     x = h["start"].dt.strftime("%Y-%m-%dT%H:%M:%S").to_numpy(dtype=object)
     fig = go.Figure(go.Scatter(x=x, y=h["laeq"].round(1).to_numpy(), mode="lines",
                                name="LAeq per interval (energy mean)", line=dict(color=charts.PALETTE[0])))
@@ -340,7 +425,8 @@ def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str, 
     code = gr["group"]
     suppressed = code in ctx.suppressed_groups
     context: dict[str, Any] = {"group_code": code, "group_name": gr["name"], "suppressed": suppressed,
-                               "strategy": gr["strategy"], "rules_name": ctx.headline.name}
+                               "strategy": gr["strategy"], "rules_name": ctx.headline.name,
+                               "rules_short": ctx.headline.short}
     page_charts: list[Chart] = []
     if not suppressed:
         m = res.measurements[res.measurements["group"] == code]
@@ -351,6 +437,9 @@ def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str, 
                      "osha_twa": gr["osha_twa"], "niosh_twa": gr["niosh_twa"], "max_lcpeak": gr["max_lcpeak"],
                      "te_h": gr["te_h"], "stale": bool(gr["stale"]), "last_measured": gr["last_measured"]},
             measurement_table=measurement_table(m, ctx, redact),
+            yearly_table=yearly_table(m, ctx) if len(m) else None,
+            n_measurements=len(m), n_shown=min(len(m), MEASUREMENT_ROWS),
+            task_chart_id=None,
             task_table=task_table(t) if len(t) else None,
             budget_table=budget_table(gr, t),
             bands_table=bands_table(gr, ctx),
@@ -361,10 +450,23 @@ def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str, 
         n = 1
         if len(t):
             page_charts.append(task_chart(t, slug))
+            context["task_chart_id"] = page_charts[-1].id
             n += 1
-        for mid in sorted(set(m["measurement_id"]) & set(res.logs)):
+        logged = m[m["measurement_id"].isin(sorted(res.logs))]
+        hid = ctx.headline.id
+        logged = logged.sort_values([f"dose_{hid}", "date", "measurement_id"], ascending=False, kind="stable")
+        charted, rest = logged.head(HISTORY_CHARTS), logged.iloc[HISTORY_CHARTS:]
+        for mid in charted["measurement_id"]:
             page_charts.append(history_chart(mid, res.logs[mid], ctx, slug, n, redact))
             n += 1
+        listed = rest.head(LOG_ROWS)
+        lmax = pd.Series({mid: float(res.logs[mid]["lmax"].max()) for mid in listed["measurement_id"]}, dtype=float)
+        context.update(
+            history_ids=[c.id for c in page_charts[len(page_charts) - len(charted):]],
+            n_logged=len(logged), n_listed=len(listed), n_rest=len(rest),
+            logged_table=logged_table(listed, lmax, ctx, redact) if len(listed) else None,
+            history_points=HISTORY_POINTS,
+        )
     return Page(slug=slug, title=f"Exposure: {gr['name']}", template="exposure_group.html", section=SECTION,
                 context=context, charts=page_charts)
 
