@@ -667,3 +667,128 @@ def test_programme_page_tells_missing_audiometer_from_invalid_check(tmp_path: Pa
     # 2024 tests name AU1 with no functional check those days
     assert (c["n_flagged_before"], c["n_before_no_meter"], c["n_before_invalid"]) == (3, 1, 2)
     assert c["n_flagged_no_meter"] == 0
+
+
+# ---------------------------------------------------------------------------------------
+# long lists on the public pages: capped, most urgent first; counts, tiles and charts over every row
+
+
+def _many(n: int) -> tuple[Programme, compliance.ComplianceResult]:
+    """Return *n* exposed people, never tested, trained or given a protector, first exposed on n days."""
+    people = [{"person_id": f"E{i:04d}", "group": "G1", "hire_date": "2020-01-01"} for i in range(n)]
+    ex = exposure([{"person_id": f"E{i:04d}", "group": "G1", "exposed": True,
+                    "first_exposed_date": str(dt.date(2024, 1, 1) + dt.timedelta(days=i))} for i in range(n)])
+    prog = make(people)
+    return prog, compliance.compute(prog, {"exposure": ex})
+
+
+def _page_ctx(prog: Programme, res: compliance.ComplianceResult, restricted: bool = False):
+    from generator.pages.base import SiteContext
+    rule = load_rule_set("osha-1910.95")
+    return SiteContext(programme=prog, results={"compliance": res}, rules={rule.id: rule},
+                       code=lambda p: "P-" + p[1:] + "Q", suppressed_groups=frozenset(), restricted=restricted)
+
+
+def test_actions_page_lists_the_most_urgent_and_counts_all() -> None:
+    from generator.pages import actions as page
+    from generator.pages.programme import LIST_CAP
+
+    prog, res = _many(260)
+    a = res.actions
+    assert len(a) > LIST_CAP + 100  # baseline, training, enrolment and protector items per person
+    (pg,) = page.build(_page_ctx(prog, res))
+    c = pg.context
+    # the tiles and the chart count every action, not only the listed ones
+    assert c["n_actions"] == len(a) and c["n_overdue"] == int(a["status"].eq("overdue").sum())
+    assert sum(k["n"] for k in c["kind_counts"]) == len(a)
+    assert sum(int(r[3]) for r in pg.charts[0].table.rows) == len(a)
+    table = c["actions_table"]
+    assert len(table.rows) == LIST_CAP
+    assert f"Showing {LIST_CAP} of {len(a):,}" in table.caption and "actions.csv" in table.caption
+    # overdue first, by due date: the listed ones are the earliest overdue items
+    status = [r[1] for r in table.rows]
+    assert status == sorted(status, key=lambda s: s != "overdue")
+    shown_due = [r[0] for r in table.rows]
+    assert shown_due == sorted(shown_due)
+    overdue = a[a["status"].eq("overdue")].sort_values("due_date")
+    assert shown_due[-1] == f"{overdue['due_date'].iloc[LIST_CAP - 1]:%Y-%m-%d}"
+    # codes only, no raw id
+    assert all(r[2].startswith("P-") for r in table.rows)
+    assert not any("E0" in cell for r in table.rows for cell in map(str, r))
+    # the printable review gets the most urgent ones, with the total
+    top = c["print_actions_table"]
+    assert len(top.rows) == page.PRINT_TOP and top.rows == table.rows[:page.PRINT_TOP]
+    assert f"of {len(a):,}" in top.caption
+    # a restricted build lists every action
+    (full,) = page.build(_page_ctx(prog, res, restricted=True))
+    assert len(full.context["actions_table"].rows) == len(a) and "Showing" not in full.context["actions_table"].caption
+
+
+def test_urgent_first_orders_by_status_then_due_date() -> None:
+    from generator.pages.actions import urgent_first
+
+    a = pd.DataFrame({"status": ["open", "due_soon", "overdue", "overdue", "open"],
+                      "due_date": [pd.NaT, D("2026-01-20"), D("2025-06-01"), D("2024-03-01"), D("2025-01-01")],
+                      "subject": list("abcde")})
+    assert urgent_first(a)["subject"].tolist() == ["d", "c", "b", "e", "a"]  # blank due date last
+
+
+def test_programme_page_caps_person_lists_and_keeps_counts() -> None:
+    from generator.pages import programme as page
+
+    prog, res = _many(260)
+    (pg,) = page.build(_page_ctx(prog, res))
+    c = pg.context
+    overdue = res.due[res.due["status"].eq("overdue")]
+    assert c["n_overdue"] == len(overdue) > page.LIST_CAP
+    t = c["overdue_table"]
+    assert len(t.rows) == page.LIST_CAP
+    assert f"Showing {page.LIST_CAP} of {len(overdue):,}" in t.caption and "actions.csv" in t.caption
+    dates = [r[3] for r in t.rows]  # Person, Group, Due, Due date, Clause
+    assert dates == sorted(dates) and dates[0] == f"{overdue['due_date'].min():%Y-%m-%d}"
+    enrol = res.enrolment[res.enrolment["mismatch"].eq("exposed_no_records")]
+    assert len(c["enrolment_table"].rows) == min(len(enrol), page.LIST_CAP)
+    # the per-group counts stay complete
+    groups = {r[0]: r for r in c["enrolment_groups_table"].rows}
+    assert groups["G1"][4] == f"{len(enrol):,}"
+    (full,) = page.build(_page_ctx(prog, res, restricted=True))
+    assert len(full.context["overdue_table"].rows) == len(overdue)
+
+
+def test_review_collect_prints_summaries_and_names_the_lists_left_out() -> None:
+    from generator.pages import review
+    from generator.pages.base import Page, Table
+
+    per_group = Table(["Group", "People"], [[f"G{i}", str(i)] for i in range(3)], caption="People per group")
+    people = Table(["Person", "Group"], [["P-1", "G1"]] * 7, caption="People to look at")
+    capped = Table(["Person", "Group"], [["P-2", "G1"]] * 3, caption="Overdue. Showing 3 of 900; see actions.csv")
+    listed = Table(["Due", "Subject"], [["2025-01-01", "P-3"]] * 200, caption="All actions")
+    top = Table(["Due", "Subject"], [["2025-01-01", "P-3"]] * 50, caption="Most urgent")
+    long = Table(["Year", "n"], [[str(y), "1"] for y in range(100)], caption="Per year")
+    pg = Page(slug="x", title="X", template="x.html", section="programme",
+              context={"per_group": per_group, "people": people, "capped": capped, "info_list": people,
+                       "actions_table": listed, "print_actions_table": top, "long": long,
+                       "tiles": [{"label": "a", "value": "1"}], "notes": ["a note"]})
+    out = review.collect(pg)
+    printed = [t.caption.split(".")[0] for t in out["tables"]]
+    assert printed == ["People per group", "Most urgent", "Per year"]
+    assert out["tables"][1].rows == top.rows  # the page's own print version, whole
+    assert len(out["tables"][2].rows) == review.TABLE_ROWS and "first 40 of 100 rows" in out["tables"][2].caption
+    assert out["left_out"] == ["People to look at (7 rows)", "Overdue. Showing 3 of 900; see actions.csv",
+                               "People to look at (7 rows)"]
+    assert out["tiles"] == [{"label": "a", "value": "1", "note": ""}] and out["sentences"] == ["a note"]
+
+
+def test_review_prints_no_per_person_list(small_site: tuple[Path, Path]) -> None:
+    import re
+
+    _, out = small_site
+    html = (out / "review.html").read_text(encoding="utf-8")
+    headers = re.findall(r"<thead><tr>(.*?)</tr></thead>", html, flags=re.S)
+    assert not [h for h in headers if '>Person</th>' in h]
+    with_subject = [h for h in headers if '>Subject</th>' in h]
+    assert len(with_subject) == 1  # the most urgent actions, and no other listing
+    body = html.split('id="review-actions"')[1]
+    rows = re.search(r"<tbody>(.*?)</tbody>", body.split(">Subject</th>")[1], flags=re.S).group(1)
+    assert 1 <= rows.count("<tr>") <= 50
+    assert "Not printed here" in html

@@ -639,3 +639,44 @@ def test_hearing_page_counts_cases_per_ear_and_people(tmp_path):
     assert [r[col] for r in gt.rows] == ["1", "1"]  # G1 and all groups: one person
     # the compliance summary behind the overview tile counts people too
     assert results["compliance"].summary["recordables_this_period"] == 1
+
+
+def _listing_ctx(restricted: bool = False):
+    from types import SimpleNamespace
+
+    # only ctx.code and ctx.restricted are read by the listing tables
+    return SimpleNamespace(code=lambda p: "P-" + p[1:] + "Q", restricted=restricted)
+
+
+def test_shift_listing_puts_recordable_cases_first_and_is_capped():
+    from generator.pages import hearing as page
+
+    n = page.MAX_ROWS + 50
+    dates = pd.date_range("2025-01-01", periods=n, freq="D")
+    a = pd.DataFrame({"person_id": [f"E{i:04d}" for i in range(n)], "ear": "R", "date": dates,
+                      "avg_234": 20.0, "shift_234": 11.0, "shift_234_age_corrected": 10.5,
+                      "shift_status": ["shift" if i % 2 else "cancelled by retest" for i in range(n)],
+                      "retest_status": "", "recordable": [i in (3, n - 1) for i in range(n)],
+                      "niosh_shift": False})
+    t = page.shifts_table(a, _listing_ctx())
+    assert len(t.rows) == page.MAX_ROWS
+    assert f"Showing {page.MAX_ROWS} of {n:,}" in t.caption and "hearing_results.csv" in t.caption
+    # recordable cases first (latest first), then shifts in force before cancelled ones
+    assert [r[0] for r in t.rows[:2]] == [f"P-{n - 1:04d}Q", "P-0003Q"]
+    status = [r[6] for r in t.rows[2:]]
+    assert status == sorted(status, key=lambda s: s != "shift")
+    assert len(page.shifts_table(a, _listing_ctx(restricted=True)).rows) == n
+
+
+def test_followup_listing_puts_missing_first():
+    from generator.pages import hearing as page
+
+    fu = pd.DataFrame({"person_id": ["E1", "E2", "E3", "E4"], "ear": "R",
+                       "kind": ["notice", "retest", "notice", "referral"],
+                       "trigger_date": pd.Timestamp("2025-01-01"),
+                       "due_date": pd.to_datetime(["2025-02-01", "2025-03-01", "2025-01-15", "2025-01-10"]),
+                       "done_date": pd.to_datetime(["2025-02-10", None, None, "2025-01-09"]),
+                       "status": ["late", "missing", "missing", "on time"], "clause": "c"})
+    t = page.followups_table(fu, _listing_ctx())
+    assert [r[0] for r in t.rows] == ["P-3Q", "P-2Q", "P-1Q"]  # missing by due date, then late; on time left out
+    assert "Showing" not in t.caption

@@ -447,3 +447,26 @@ def test_page_without_protector_files_says_so():
     assert pg.charts == [] and pg.context["has_data"] is False
     assert page.build(SiteContext(programme=prog, results={}, rules={OSHA.id: OSHA}, code=str,
                                   suppressed_groups=frozenset())) == []
+
+
+def test_page_lists_the_furthest_above_target_first_and_caps_the_list():
+    from generator.pages import protection as page
+    from generator.pages.programme import LIST_CAP
+
+    n = LIST_CAP + 5
+    people = pd.DataFrame({
+        "person_id": [f"E{i:04d}" for i in range(n + 2)], "group": "G1", "protector_id": "PLUG-P",
+        "method": "nrr", "exposure_level": 100.0, "target": 90.0,
+        # insufficient ones 90.5 .. 90.5 + 0.1 (n - 1) dB(A); two over-protected at 68 and 65 dB(A)
+        "protected_level": [90.5 + 0.1 * i for i in range(n)] + [68.0, 65.0],
+        "adequacy": ["insufficient"] * n + ["over-protected"] * 2})
+    ctx = SimpleNamespace(code=lambda p: "P-" + p[1:] + "Q", restricted=False, suppressed_groups=frozenset())
+    t = page.people_table(people, ctx)
+    assert len(t.rows) == LIST_CAP
+    assert f"Showing {LIST_CAP} of {n + 2:,}" in t.caption and "restricted build" in t.caption
+    assert t.rows[0][0] == f"P-{n - 1:04d}Q"  # the furthest above the target
+    ctx.restricted = True
+    t = page.people_table(people, ctx)
+    assert len(t.rows) == n + 2 and "Showing" not in t.caption
+    # the over-protected come after every insufficient one, lowest level first
+    assert [r[0] for r in t.rows[-2:]] == [f"P-{n + 1:04d}Q", f"P-{n:04d}Q"]

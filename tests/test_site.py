@@ -297,3 +297,24 @@ def test_overview_headline_shows_the_compliance_summary(built_example) -> None:
     assert tiles["People in the programme&#39;s scope"] == f"{summary['in_scope']:,}"
     assert tiles["Open actions"] == f"{summary['open_actions_total']:,}"
     assert tiles["People in the records"] == f"{len(built_example.context.programme.table('people')):,}"
+
+
+def test_quality_page_caps_the_groups_and_keeps_the_counts(tmp_path: Path) -> None:
+    from generator.pages import quality
+    root = make_programme(tmp_path / "p")
+    with env(HCPSITE_ID_KEY=TEST_KEY):
+        ctx, _ = prepare(root)
+    n = quality.GROUPS_SHOWN + 30
+    before = len(list(ctx.programme.findings))
+    for i in range(n):  # distinct messages without a key: one group each
+        ctx.programme.findings.warning("data/noise.csv", i + 2, f"col{i}", f"odd value {i}")
+    ctx.programme.findings.error("data/people.csv", 3, "sex", "not one of M, F")
+    (page,) = quality.build(ctx)
+    table = page.context["findings_table"]
+    assert len(table.rows) == quality.GROUPS_SHOWN and table.rows[0][0] == "error"  # errors first
+    assert f"Showing {quality.GROUPS_SHOWN:,} of" in table.caption
+    counts = {r[0]: r for r in page.context["counts_table"].rows}
+    assert counts["data/noise.csv"][2] >= n and page.context["n_warnings"] + page.context["n_errors"] == before + n + 1
+    ctx.restricted = True
+    (page,) = quality.build(ctx)
+    assert len(page.context["findings_table"].rows) >= n + 1

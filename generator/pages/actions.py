@@ -1,4 +1,4 @@
-"""The actions page: every open item of every stage in one list, sorted by due date."""
+"""The actions page: every open item of every stage in one list, overdue first by due date."""
 from __future__ import annotations
 
 import logging
@@ -8,24 +8,44 @@ import pandas as pd
 from .. import charts
 from ..privacy import redactor
 from .base import Chart, Page, SiteContext, Table
+from .programme import IN_ACTIONS_CSV, LIST_CAP, cap_caption, cap_rows
 
 log = logging.getLogger(__name__)
 
 STATUS_LABELS = {"overdue": "overdue", "due_soon": "due soon", "open": "open"}
 SOURCE_LABELS = {"compliance": "programme", "exposure": "exposure", "protection": "protection",
                  "hearing": "hearing"}
+#: listing order of the statuses (overdue first); any other status comes after these
+STATUS_ORDER = ("overdue", "due_soon", "open")
+#: actions the printable review lists (the most urgent ones; the counts are complete)
+PRINT_TOP = 50
+
+
+def label_actions(actions: pd.DataFrame) -> pd.DataFrame:
+    """Return the action list with status, section and kind as the page words them (no redaction)."""
+    a = actions.copy()
+    a["status"] = a["status"].map(STATUS_LABELS).fillna(a["status"])
+    a["source"] = a["source"].map(SOURCE_LABELS).fillna(a["source"])
+    a["kind_label"] = a["kind"].astype(str).str.replace("_", " ", regex=False)
+    return a
+
+
+def urgent_first(actions: pd.DataFrame) -> pd.DataFrame:
+    """Return the actions overdue first, then due soon, then open, each by due date (blank last)."""
+    rank = actions["status"].map({s: i for i, s in enumerate(STATUS_ORDER)}).fillna(len(STATUS_ORDER))
+    due = pd.to_datetime(actions["due_date"], errors="coerce")
+    order = pd.DataFrame({"rank": rank.to_numpy(), "due": due.to_numpy(), "pos": range(len(actions))})
+    order = order.sort_values(["rank", "due", "pos"], kind="mergesort", na_position="last")
+    return actions.iloc[order["pos"].to_numpy()]
 
 
 def public_actions(actions: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
     """Return the action list with person subjects coded and ids or names in the text withheld."""
-    a = actions.copy()
+    a = label_actions(actions)
     redact = redactor(ctx.programme.table("people"), ctx.code)
     person = a["subject_type"].astype(str).eq("person")
     a["subject_shown"] = [ctx.code(s) if p else str(s) for s, p in zip(a["subject"], person)]
     a["detail"] = [redact(str(d)) for d in a["detail"]]
-    a["status"] = a["status"].map(STATUS_LABELS).fillna(a["status"])
-    a["source"] = a["source"].map(SOURCE_LABELS).fillna(a["source"])
-    a["kind_label"] = a["kind"].astype(str).str.replace("_", " ", regex=False)
     return a
 
 
@@ -34,6 +54,19 @@ def action_table(a: pd.DataFrame, caption: str = "") -> Table:
     return charts.table_from_frame(a, {"due_date": "Due", "status": "Status", "subject_shown": "Subject",
                                        "kind_label": "Kind", "detail": "Detail",
                                        "clause": "Clause", "source": "Section"}, caption=caption)
+
+
+def listings(actions: pd.DataFrame, ctx: SiteContext, caption: str, print_caption: str) -> tuple[Table, Table]:
+    """Return the page's listing (LIST_CAP most urgent; all in a restricted build) and the PRINT_TOP one.
+
+    Both captions say how many actions there are and where the full list is; only the
+    listed rows are coded and redacted.
+    """
+    ordered = urgent_first(actions)
+    shown = public_actions(cap_rows(ordered, ctx, max(LIST_CAP, PRINT_TOP)), ctx)
+    top = shown.iloc[:PRINT_TOP]
+    return (action_table(shown, cap_caption(caption, len(shown), len(ordered), IN_ACTIONS_CSV)),
+            action_table(top, cap_caption(print_caption, len(top), len(ordered), IN_ACTIONS_CSV)))
 
 
 def kind_chart(a: pd.DataFrame, slug: str = "actions") -> Chart:
@@ -65,16 +98,21 @@ def build(ctx: SiteContext) -> list[Page]:
     if comp is None:
         return [Page(slug="actions", title="Actions", template="actions.html", section="actions", in_nav=True,
                      context={"available": False})]
-    a = public_actions(comp.actions, ctx)
-    counts = a.groupby("kind_label", sort=True).size()
+    labelled = label_actions(comp.actions)
+    counts = labelled.groupby("kind_label", sort=True).size()
+    as_of = f"{comp.as_of:%Y-%m-%d}"
+    listing, top = listings(comp.actions, ctx, f"Open actions as of {as_of}: overdue first, then due soon, then "
+                            "open, each by due date", f"The most urgent open actions as of {as_of}")
     context = {
         "available": True,
-        "as_of": comp.as_of.strftime("%Y-%m-%d"),
-        "n_actions": int(len(a)),
-        "n_overdue": int(a["status"].eq("overdue").sum()),
-        "n_soon": int(a["status"].eq("due soon").sum()),
+        "as_of": as_of,
+        "n_actions": int(len(labelled)),
+        "n_overdue": int(labelled["status"].eq("overdue").sum()),
+        "n_soon": int(labelled["status"].eq("due soon").sum()),
         "kind_counts": [{"kind": k, "n": int(n)} for k, n in counts.items()],
-        "actions_table": action_table(a, caption=f"Open actions as of {comp.as_of:%Y-%m-%d}, by due date"),
+        "actions_table": listing,
+        # the printable review lists the most urgent ones only (its own key, left out of the screen page)
+        "print_actions_table": top,
     }
     return [Page(slug="actions", title="Actions", template="actions.html", section="actions", in_nav=True,
-                 context=context, charts=[kind_chart(a)] if len(a) else [])]
+                 context=context, charts=[kind_chart(labelled)] if len(labelled) else [])]

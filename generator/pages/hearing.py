@@ -14,6 +14,7 @@ from .. import charts
 from ..hearing import EAR_NAMES, LEFT_STATUS, HearingResult
 from ..inputs.spec import AUDIO_FREQS
 from .base import Chart, Page, SiteContext, Table, group_slugs
+from .programme import LIST_CAP, cap_caption, cap_rows
 
 log = logging.getLogger(__name__)
 
@@ -29,8 +30,8 @@ EAR_STYLE = {"R": dict(color="#c0392b", symbol="circle-open"), "L": dict(color="
 ROLE_DASH = {"baseline": "dot", "previous": "dash", "latest": "solid"}
 KIND_WORDS = {"notice": "written notice", "retest": "retest", "refit": "protector refit", "referral": "referral"}
 BLANK = charts.BLANK
-#: rows shown in a listing on the overview and group pages (the export has them all)
-MAX_ROWS = 300
+#: rows shown in a listing on the overview and group pages of a public build (the counts use every row)
+MAX_ROWS = LIST_CAP
 
 
 def _num(v: Any, digits: int = 1) -> str:
@@ -281,34 +282,57 @@ def rate_by_group_chart(pg: pd.DataFrame, suppressed: frozenset[str], cid: str) 
 # tables
 
 
+#: listing order of the shift statuses (the ones the reviewer must act on first)
+SHIFT_ORDER = ("shift", "confirmed by retest", "confirmed by reviewer", "not computed (NR)", "not work-related",
+               "cancelled by retest", "cancelled by reviewer")
+#: listing order of the follow-up statuses
+FOLLOWUP_ORDER = ("missing", "late", "not yet due")
+SHIFTS_WHERE = "hcpsite export writes every audiogram with its shift and recordable flags to hearing_results.csv"
+FOLLOWUPS_WHERE = ("the counts in the follow-up chart are complete; hcpsite export writes the open ones to "
+                   "actions.csv")
+
+
+def _rank(values: pd.Series, order: tuple[str, ...]) -> np.ndarray:
+    """Return the position of each value in *order* (unknown values after the known ones)."""
+    return values.map({v: i for i, v in enumerate(order)}).fillna(len(order)).to_numpy()
+
+
 def shifts_table(a: pd.DataFrame, ctx: SiteContext) -> Table:
-    """Return the audiograms with a shift, a recordable case or an NR to review (codes only)."""
-    d = a.assign(pcode=[ctx.code(p) for p in a["person_id"]]).sort_values(["date", "pcode", "ear"])
-    rows = []
-    for r in d.itertuples():
-        rows.append([r.pcode, EAR_NAMES.get(r.ear, r.ear), _date(r.date), _num(r.avg_234), _num(r.shift_234),
-                     _num(r.shift_234_age_corrected), r.shift_status or BLANK, r.retest_status or BLANK,
-                     _yes(r.recordable), _yes(r.niosh_shift)])
+    """Return the audiograms with a shift, a recordable case or an NR to review (codes only).
+
+    Recordable cases come first, then by shift status and latest test first; a public page
+    lists the first MAX_ROWS and says how many there are.
+    """
+    order = pd.DataFrame({"rec": ~a["recordable"].astype(bool).to_numpy(), "st": _rank(a["shift_status"], SHIFT_ORDER),
+                          "date": pd.to_datetime(a["date"]).to_numpy(), "pos": np.arange(len(a))})
+    order = order.sort_values(["rec", "st", "date", "pos"], ascending=[True, True, False, True], kind="mergesort")
+    d = cap_rows(a.iloc[order["pos"].to_numpy()], ctx, MAX_ROWS)
+    d = d.assign(pcode=[ctx.code(p) for p in d["person_id"]])
+    rows = [[r.pcode, EAR_NAMES.get(r.ear, r.ear), _date(r.date), _num(r.avg_234), _num(r.shift_234),
+             _num(r.shift_234_age_corrected), r.shift_status or BLANK, r.retest_status or BLANK,
+             _yes(r.recordable), _yes(r.niosh_shift)] for r in d.itertuples()]
     return Table(["Person", "Ear", "Date", "2/3/4 kHz average, dB HL", "Shift, dB", "Shift age-corrected, dB",
-                  "Status", "Retest", "Recordable case (this ear)", "NIOSH shift"], rows[:MAX_ROWS],
-                 caption="Audiograms with a shift or to review in the period (pseudonymous codes)" + _more(len(rows)),
+                  "Status", "Retest", "Recordable case (this ear)", "NIOSH shift"], rows,
+                 caption=cap_caption("Audiograms with a shift or to review in the period (pseudonymous codes), "
+                                     "recordable cases first, then by status, latest first",
+                                     len(rows), len(a), SHIFTS_WHERE),
                  classes=["", "", "", "num", "num", "num", "", "", "", ""])
 
 
 def followups_table(fu: pd.DataFrame, ctx: SiteContext) -> Table:
-    """Return follow-ups that were late, are missing or are due (codes only)."""
+    """Return follow-ups that were late, are missing or are due (codes only), missing ones first by due date."""
     d = fu[fu["status"] != "on time"]
-    d = d.assign(pcode=[ctx.code(p) for p in d["person_id"]]).sort_values(["due_date", "pcode", "ear", "kind"])
+    order = pd.DataFrame({"st": _rank(d["status"], FOLLOWUP_ORDER), "due": pd.to_datetime(d["due_date"]).to_numpy(),
+                          "pos": np.arange(len(d))})
+    order = order.sort_values(["st", "due", "pos"], kind="mergesort", na_position="last")
+    shown = cap_rows(d.iloc[order["pos"].to_numpy()], ctx, MAX_ROWS)
+    shown = shown.assign(pcode=[ctx.code(p) for p in shown["person_id"]])
     rows = [[r.pcode, EAR_NAMES.get(r.ear, r.ear), KIND_WORDS.get(r.kind, r.kind),
              _date(r.trigger_date), _date(r.due_date), _date(r.done_date), r.status, r.clause]
-            for r in d.itertuples()]
-    return Table(["Person", "Ear", "Follow-up", "Shift or decision", "Due", "Done", "Status", "Clause"],
-                 rows[:MAX_ROWS], caption="Follow-ups not done on time (pseudonymous codes)" + _more(len(rows)))
-
-
-def _more(n: int) -> str:
-    """Return the caption tail of a listing cut at MAX_ROWS."""
-    return "" if n <= MAX_ROWS else f"; the first {MAX_ROWS} of {n} (all are in hearing_results.csv and actions.csv)"
+            for r in shown.itertuples()]
+    return Table(["Person", "Ear", "Follow-up", "Shift or decision", "Due", "Done", "Status", "Clause"], rows,
+                 caption=cap_caption("Follow-ups not done on time (pseudonymous codes), missing ones first, by due "
+                                     "date", len(rows), len(d), FOLLOWUPS_WHERE))
 
 
 def group_table(pg: pd.DataFrame, pop: pd.DataFrame, years: list[int], suppressed: frozenset[str]) -> Table:

@@ -23,6 +23,12 @@ STATUS_LABELS = {"overdue": "overdue", "due_soon": "due soon", "open": "open", "
                  "not_required": "not required"}
 MISMATCH_LABELS = {"exposed_no_records": "exposed, no audiometry or training records",
                    "records_not_exposed": "records, but not judged exposed (information only)"}
+#: rows of a per-person or per-item listing shown on a public page; counts, tiles and charts use every row
+LIST_CAP = 200
+#: where the rows left out of a capped listing can be found
+IN_ACTIONS_CSV = "hcpsite export writes the full list to actions.csv"
+IN_RESTRICTED = ("the counts above are complete and the full list is in the restricted build "
+                 "(hcpsite build --restricted)")
 
 
 def pct(value: Any) -> str:
@@ -42,10 +48,28 @@ def coded(df: pd.DataFrame, ctx: SiteContext, column: str = "person_id") -> pd.S
     return code_series(df[column], ctx.code) if len(df) else pd.Series(dtype=object)
 
 
+def cap_rows(df: pd.DataFrame, ctx: SiteContext, cap: int = LIST_CAP) -> pd.DataFrame:
+    """Return the first *cap* rows of an already sorted listing (every row in a restricted build)."""
+    return df if ctx.restricted else df.iloc[:cap]
+
+
+def cap_caption(caption: str, shown: int, total: int, where: str) -> str:
+    """Return *caption* followed by 'showing N of M; <where>' when a listing was cut."""
+    if shown >= total:
+        return caption
+    return f"{caption}. Showing {shown:,} of {total:,}; {where}."
+
+
 def person_table(df: pd.DataFrame, ctx: SiteContext, columns: dict[str, str],
-                 formats: dict[str, Any] | None = None, caption: str = "") -> Table:
-    """Return a table of person rows with codes instead of ids and small groups suppressed."""
-    d = df.copy()
+                 formats: dict[str, Any] | None = None, caption: str = "", where: str = IN_RESTRICTED,
+                 cap: int = LIST_CAP) -> Table:
+    """Return a table of person rows with codes instead of ids and small groups suppressed.
+
+    On a public page only the first *cap* rows of *df* (already sorted by what matters
+    most) are listed; the caption then says how many there are and *where* the rest are.
+    """
+    d = cap_rows(df, ctx, cap).copy()
+    caption = cap_caption(caption, len(d), len(df), where)
     d["code"] = coded(d, ctx)
     if "group" in d.columns:
         d["group"] = [group_label(g, ctx.suppressed_groups) for g in d["group"]]
@@ -197,6 +221,16 @@ def build(ctx: SiteContext) -> list[Page]:
         # a refit not due because the person left is shown only when its shift is in the period
         still_due = refits["done_date"].isna() & refits["status"].astype(str).ne(LEFT_STATUS)
         refits = refits[still_due | (pd.to_datetime(refits["trigger_date"]) >= start)]
+        # open refits first (by due date), then the done ones of the period, latest shift first
+        still_due = refits["done_date"].isna() & refits["status"].astype(str).ne(LEFT_STATUS)
+        refits = refits.assign(_open=(~still_due).astype(int).to_numpy(),
+                               _t=pd.to_datetime(refits["trigger_date"]))
+        refits = refits.sort_values(["_open", "due_date", "_t"], ascending=[True, True, False], kind="mergesort")
+        refits = refits.drop(columns=["_open", "_t"])
+    flagged = flagged.sort_values("date", ascending=False, kind="mergesort")
+    enrol_mm = comp.enrolment["mismatch"]
+    exposed_no_records = enrol[enrol_mm.eq("exposed_no_records").to_numpy()]
+    info = enrol[enrol_mm.eq("records_not_exposed").to_numpy()]
     page_charts = [training_chart(comp.training_groups, sup), protector_chart(comp.protector_groups, sup)]
     st = comp.audiometer_status
     ac = audiometer_chart(st[pd.to_datetime(st["date"]) >= start] if len(st) else st)
@@ -213,28 +247,35 @@ def build(ctx: SiteContext) -> list[Page]:
         "n_overdue": int(len(overdue)),
         "n_soon": int(len(soon)),
         "enrolment_groups_table": enrolment_group_table(comp.enrolment_groups, sup),
-        "enrolment_table": person_table(enrol[comp.enrolment["mismatch"].eq("exposed_no_records")], ctx,
-                                        {"group": "Group"},
+        "enrolment_table": person_table(exposed_no_records, ctx, {"group": "Group"},
                                         caption="Exposed at or above the action value, without audiometry or "
-                                                "training records"),
-        "info_table": person_table(enrol[comp.enrolment["mismatch"].eq("records_not_exposed")], ctx,
-                                   {"group": "Group"},
-                                   caption="With records, but not judged exposed (information only)"),
+                                                "training records",
+                                        where="the counts per group above are complete; hcpsite export writes "
+                                              "the open enrolment items to actions.csv"),
+        "info_table": person_table(info, ctx, {"group": "Group"},
+                                   caption="With records, but not judged exposed (information only)",
+                                   where="the counts per group above are complete and the full list is in the "
+                                         "restricted build (hcpsite build --restricted)"),
+        "n_info": int(len(info)),
         "overdue_table": person_table(overdue, ctx, {"group": "Group", "kind": "Due", "due_date": "Due date",
                                                      "clause": "Clause"},
-                                      caption=f"Overdue at {comp.as_of:%Y-%m-%d}"),
+                                      caption=f"Overdue at {comp.as_of:%Y-%m-%d}, oldest due date first",
+                                      where=IN_ACTIONS_CSV),
         "soon_table": person_table(soon, ctx, {"group": "Group", "kind": "Due", "due_date": "Due date",
                                                "clause": "Clause"},
-                                   caption="Due within the next 60 days"),
+                                   caption="Due within the next 60 days, earliest first", where=IN_ACTIONS_CSV),
         "late_table": person_table(late, ctx, {"group": "Group", "first_exposed_date": "First exposure",
                                                "baseline_due": "Baseline due by",
                                                "first_audiogram": "First audiogram"},
                                    caption="Baselines taken after the time limit (information)"),
+        "n_late": int(len(late)),
         "refit_table": person_table(refits, ctx, {"ear": "Ear", "trigger_date": "Shift found",
                                                   "due_date": "Due", "done_date": "Done", "status": "Status",
                                                   "clause": "Clause"},
-                                    caption="Protector refits after a standard threshold shift: open ones and "
-                                            "those of shifts found in the period"),
+                                    caption="Protector refits after a standard threshold shift: open ones (by due "
+                                            "date) first, then those of shifts found in the period",
+                                    where="hcpsite export writes the open ones to actions.csv and the full list "
+                                          "is in the restricted build (hcpsite build --restricted)"),
         "audiometer_table": charts.table_from_frame(meters, {
             "audiometer_id": "Audiometer", "last_used": "Last used", "last_functional": "Last functional check",
             "last_acoustic": "Last acoustic calibration", "acoustic_due": "Acoustic due",
@@ -244,7 +285,9 @@ def build(ctx: SiteContext) -> list[Page]:
         "flagged_table": person_table(flagged, ctx, {"date": "Test date", "ear": "Ear",
                                                      "audiometer_id": "Audiometer", "reason": "Why flagged"},
                                       caption="Audiograms of the review period taken without valid checks or "
-                                              "in a booth over the limits"),
+                                              "in a booth over the limits, latest first",
+                                      where="the counts below are complete; hcpsite export writes one item per "
+                                            "person and test date to actions.csv"),
         "n_flagged": int(len(flagged)),
         # "no audiometer recorded" (older records) is told apart from "audiometer named but
         # no valid check that day"

@@ -11,6 +11,7 @@ from .. import charts
 from ..protection import (ADEQUACY, EN458_ACTION_LEVEL, METHOD_LABELS, OVERPROTECTION_BELOW,
                           ProtectionResult)
 from .base import Chart, Page, SiteContext, Table
+from .programme import cap_caption, cap_rows
 
 log = logging.getLogger(__name__)
 
@@ -120,18 +121,31 @@ def coverage_chart(groups: pd.DataFrame, suppressed: frozenset[str]) -> Chart:
 
 
 def people_table(people: pd.DataFrame, ctx: SiteContext) -> Table:
-    """Return the people with too little or too much protection, by pseudonymous code."""
-    sel = people[people["adequacy"].isin(["insufficient", "over-protected"])].copy()
+    """Return the people with too little or too much protection, by pseudonymous code.
+
+    Those above the target come first, the furthest above first; then the over-protected,
+    lowest level first. A public page lists the first LIST_CAP rows and says how many there are.
+    """
+    sel = people[people["adequacy"].isin(["insufficient", "over-protected"])]
     sel = _visible(sel, ctx.suppressed_groups)
-    sel["code"] = [ctx.code(p) for p in sel["person_id"]]
-    sel["method_label"] = sel["method"].map(METHOD_LABELS).fillna("")
-    sel = sel.sort_values(["adequacy", "group", "code"], kind="stable")
+    level = pd.to_numeric(sel["protected_level"], errors="coerce")
+    over_target = level - pd.to_numeric(sel["target"], errors="coerce")
+    # one key for both classes: larger means more urgent (furthest above the target, or lowest level)
+    urgency = np.where(sel["adequacy"].eq("insufficient"), over_target, -level)
+    order = pd.DataFrame({"cls": sel["adequacy"].ne("insufficient").to_numpy(), "u": -urgency,
+                          "pos": np.arange(len(sel))})
+    order = order.sort_values(["cls", "u", "pos"], kind="mergesort", na_position="last")
+    shown = cap_rows(sel.iloc[order["pos"].to_numpy()], ctx).copy()
+    shown["code"] = [ctx.code(p) for p in shown["person_id"]]
+    shown["method_label"] = shown["method"].map(METHOD_LABELS).fillna("")
     cols = {"code": "Person", "group": "Group", "protector_id": "Protector", "method_label": "Method",
             "exposure_level": "Exposure, dB(A)", "protected_level": "Under the protector, dB(A)",
             "target": "Target, dB(A)", "adequacy": "Assessment"}
-    return charts.table_from_frame(sel, cols, {"target": "g"},
-                                   caption="People whose estimated level under the protector is above the "
-                                           "target or below the over-protection band")
+    caption = cap_caption("People whose estimated level under the protector is above the target (furthest above "
+                          "first) or below the over-protection band", len(shown), len(sel),
+                          "the counts per group in the adequacy chart are complete and the full list is in the "
+                          "restricted build (hcpsite build --restricted)")
+    return charts.table_from_frame(shown, cols, {"target": "g"}, caption=caption)
 
 
 def methods_table(res: ProtectionResult, visible_ids: set[str]) -> Table:

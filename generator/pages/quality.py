@@ -11,6 +11,8 @@ log = logging.getLogger(__name__)
 
 #: rows of one group listed by number before the rest are counted.
 ROWS_SHOWN = 20
+#: groups of findings listed on a public page (errors first); the counts by file are complete
+GROUPS_SHOWN = 200
 
 
 def _rows_text(rows: list[int]) -> str:
@@ -27,12 +29,18 @@ def build(ctx: SiteContext) -> list[Page]:
     clean = (lambda t: t) if ctx.restricted else redactor(ctx.programme.table("people"), ctx.code)
     groups = sorted(findings.groups(), key=lambda g: (g.level != ERROR, g.path, g.column or "",
                                                       g.items[0].row or 0))
+    n_groups = len(groups)
+    shown = groups if ctx.restricted else groups[:GROUPS_SHOWN]
+    caption = "Findings, repeats of one problem in one file and column grouped"
+    if len(shown) < n_groups:
+        caption += (f". Showing {len(shown):,} of {n_groups:,} groups, errors first; the counts by file above are "
+                    "complete and hcpsite check prints every group")
     table = Table(
         columns=["level", "file", "column", "problem", "rows", "count"],
         rows=[[g.level, g.path, g.column or "", clean(g.items[0].message)
                + (" (and similar)" if len({f.message for f in g.items}) > 1 else ""),
-               _rows_text(g.rows), g.count] for g in groups],
-        caption="Findings, repeats of one problem in one file and column grouped",
+               _rows_text(g.rows), g.count] for g in shown],
+        caption=caption,
         classes=["", "", "", "", "", "num"],
     )
     by_file: dict[str, dict[str, int]] = {}
