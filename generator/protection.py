@@ -560,11 +560,11 @@ def _actions(people: pd.DataFrame, rules: RuleSet) -> pd.DataFrame:
     tgt = p["target"].map(lambda v: f"{v:g}")
     meth = p["method"].map(METHOD_LABELS).fillna("")
     kinds = {
-        "insufficient": ("protector-insufficient",
+        "insufficient": ("protection insufficient",
                          "estimated " + lvl + " dB(A) under " + p["protector_id"] + " (" + meth
                          + ") is above the target of " + tgt + " dB(A); review the protector and its fit",
                          clause),
-        "over-protected": ("protector-overprotection",
+        "over-protected": ("possible over-protection",
                            "estimated " + lvl + " dB(A) under " + p["protector_id"] + " (" + meth
                            + ") is below " + f"{OVERPROTECTION_BELOW:g}"
                            + " dB(A): consider a protector with less attenuation (EN 458 band, "

@@ -246,7 +246,7 @@ def test_nrr_only_person_and_adequacy_boundaries():
     assert list(res.people.columns[:10]) == P.PEOPLE_COLUMNS
     kinds = dict(zip(res.actions["subject"], res.actions["kind"]))
     # no protector at all is the compliance stage's action (coverage), not repeated here
-    assert kinds == {"A91": "protector-insufficient", "LOW": "protector-overprotection"}
+    assert kinds == {"A91": "protection insufficient", "LOW": "possible over-protection"}
     assert res.actions.set_index("subject").loc["A91", "clause"] == "29 CFR 1910.95(j)(2)"
     assert [f.key for f in res.findings] == ["protector without rating"]
     g = res.groups.set_index("group").loc["G1"]
