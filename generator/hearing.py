@@ -871,6 +871,14 @@ def _with_all(df: pd.DataFrame) -> pd.DataFrame:
     return pd.concat([df, df.assign(group="all")], ignore_index=True)
 
 
+def _add_rates(p: pd.DataFrame) -> None:
+    """Add STS and recordable rates with exact (Clopper-Pearson) intervals to a count table."""
+    level = PARAMETERS["ci_level"]
+    for what in ("sts", "recordable"):
+        p[f"{what}_rate"] = p[f"n_{what}"] / p["n_tested"]
+        p[f"{what}_ci_low"], p[f"{what}_ci_high"] = clopper_pearson(p[f"n_{what}"], p["n_tested"], level)
+
+
 def _population(py: pd.DataFrame) -> pd.DataFrame:
     """Return per group and year: counts, rates with exact 95 % CIs, mean average and change."""
     cols = ["group", "year", "n_tested", "n_sts", "n_recordable", "sts_rate", "sts_ci_low", "sts_ci_high",
@@ -885,11 +893,7 @@ def _population(py: pd.DataFrame) -> pd.DataFrame:
         mean_within_change=("within_change", "mean"), n_within=("within_change", "count")).reset_index()
     for c in ("n_tested", "n_sts", "n_recordable", "n_avg", "n_nr_excluded", "n_within"):
         p[c] = p[c].astype(int)
-    level = PARAMETERS["ci_level"]
-    p["sts_rate"] = p["n_sts"] / p["n_tested"]
-    p["sts_ci_low"], p["sts_ci_high"] = clopper_pearson(p["n_sts"], p["n_tested"], level)
-    p["recordable_rate"] = p["n_recordable"] / p["n_tested"]
-    p["recordable_ci_low"], p["recordable_ci_high"] = clopper_pearson(p["n_recordable"], p["n_tested"], level)
+    _add_rates(p)
     prev = p.groupby("group", sort=False)["mean_avg_234"].shift(1)
     prev_year = p.groupby("group", sort=False)["year"].shift(1)
     p["change_mean_avg"] = (p["mean_avg_234"] - prev).where(prev_year == p["year"] - 1)
@@ -909,11 +913,7 @@ def _period_groups(py: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp) -> 
                                                         n_recordable=("recordable", "sum")).reset_index()
     for c in ("n_tested", "n_sts", "n_recordable"):
         p[c] = p[c].astype(int)
-    level = PARAMETERS["ci_level"]
-    p["sts_rate"] = p["n_sts"] / p["n_tested"]
-    p["sts_ci_low"], p["sts_ci_high"] = clopper_pearson(p["n_sts"], p["n_tested"], level)
-    p["recordable_rate"] = p["n_recordable"] / p["n_tested"]
-    p["recordable_ci_low"], p["recordable_ci_high"] = clopper_pearson(p["n_recordable"], p["n_tested"], level)
+    _add_rates(p)
     return p[cols]
 
 
