@@ -16,6 +16,7 @@ import sys
 from pathlib import Path
 from typing import Any, Callable
 
+from .inputs.docs import _cell
 from .config import iter_options
 from .inputs.spec import FILES, NOISE_LOG, Column, FileSpec
 
@@ -44,11 +45,6 @@ _KIND_WORDS = {
     "hl": "hearing level, dB HL",
     "hours": "hours",
 }
-
-
-def _cell(text: Any) -> str:
-    """Return *text* safe for one markdown table cell."""
-    return str(text).replace("|", "\\|").replace("\n", " ")
 
 
 def _yaml_value(value: Any) -> str:
