@@ -19,6 +19,7 @@ import numpy as np
 import pandas as pd
 
 from .findings import HcpsiteError
+from .pipeline import Results
 from .pages.base import SiteContext
 from .privacy import redactor
 
@@ -62,11 +63,9 @@ EXPORTS: tuple[ExportSpec, ...] = (
 PERSON_COLUMNS = ("person_id",)
 
 
-def stage_frame(results: dict[str, Any], spec: ExportSpec) -> pd.DataFrame | None:
-    """Return the DataFrame a stage result holds for *spec*, or None when the stage did not run."""
-    res = results.get(spec.stage)
-    if res is None:
-        return None
+def stage_frame(results: Results, spec: ExportSpec) -> pd.DataFrame | None:
+    """Return the DataFrame a stage result holds for *spec*."""
+    res = getattr(results, spec.stage)
     for attr in spec.attributes:
         frame = getattr(res, attr, None)
         if callable(frame) and not isinstance(frame, pd.DataFrame):
@@ -185,7 +184,7 @@ def _json_ready(v: Any) -> Any:
 def summary_json(ctx: SiteContext) -> bytes:
     """Return the headline figures of the overview as sorted JSON."""
     prog = ctx.programme
-    comp = ctx.results.get("compliance")
+    comp = ctx.results.compliance
     data: dict[str, Any] = {
         "title": prog.config.title,
         "organisation": prog.config.organisation,
@@ -241,7 +240,7 @@ def export_results(root: Path, to: Path, *, restricted: bool = False, strict: bo
         raise HcpsiteError(f"{to}: the export folder cannot be the programme folder")
     if to.exists() and not to.is_dir():
         raise HcpsiteError(f"{to}: exists and is not a folder")
-    ctx, _ = prepare(root, strict=strict, restricted=restricted)
+    ctx = prepare(root, strict=strict, restricted=restricted)
     files = export_files(ctx)
     to.mkdir(parents=True, exist_ok=True)
     written = []
