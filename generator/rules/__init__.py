@@ -236,3 +236,8 @@ def _resolve(v: Any, cfg: Config) -> str:
     if isinstance(v, dict) and "own" in v:
         return setting(v["own"], v.get("unit", ""))
     raise ValueError(f"clause entry {v!r}: a text, {{setting: ...}} or {{own: ...}}")
+
+
+def rule_sets_for(config: Config) -> dict[str, RuleSet]:
+    """Return the headline and comparison rule sets of a programme, headline first."""
+    return {r: load_rule_set(r, config) for r in config.all_rules}
