@@ -218,7 +218,7 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
         notes.append(f"{rule.short} sets no interval between audiograms: periodic audiograms are not "
                      "judged as due.")
     if training is None:
-        notes.append(f"{rule.short} sets no training interval: training is not judged as due.")
+        notes.append(f"{rule.short} sets no training interval: only a first training is judged as due.")
     return ComplianceInputs(p, a, t, f, rule, baseline, interval, training), notes
 
 
@@ -294,7 +294,8 @@ def person_status(inp: ComplianceInputs, as_of: pd.Timestamp, start: pd.Timestam
     s["next_training_due"] = add_months(s["last_training"], inp.training_months).where(
         has_tr, s["first_exposed_date"].where(s["first_exposed_date"].notna(), as_of))
     left_before = s["leave_date"].notna() & (s["leave_date"] <= s["next_training_due"])
-    train_req = s["training_duty"] & (inp.training_months is not None) & ~left_before
+    # a first training is owed whatever the interval; a rule set with no interval asks for no repeat
+    train_req = s["training_duty"] & ((inp.training_months is not None) | ~has_tr) & ~left_before
     s["training_status"] = _classify(s["next_training_due"], as_of, train_req,
                                      pd.Series(False, index=s.index))
     s.loc[s["training_status"].eq("scheduled"), "training_status"] = "current"
