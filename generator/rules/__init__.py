@@ -133,6 +133,10 @@ class RuleSet:
             return self.duties[key].clause
         return self.clauses[key]
 
+    def all_clauses(self) -> dict[str, str]:
+        """Return every clause the rule set cites, duties included, by key."""
+        return {**{k: self.clauses[k] for k in CLAUSE_KEYS}, **{k: d.clause for k, d in self.duties.items()}}
+
     def duty_values(self, key: str) -> tuple[float | None, float | None]:
         """Return (level, peak) at which duty *key* starts ((None, None): no such duty)."""
         d = self.duties.get(key)
