@@ -262,3 +262,62 @@ def test_the_osha_rule_set_ignores_peaks_below_its_action_level(tmp_path: Path) 
     res = compute(load_programme(_eu_programme(tmp_path / "p", rules="osha-1910.95")))
     g = res.exposure.groups.set_index("group")
     assert not bool(g.loc["PK", "exposed"]) and not bool(g.loc["LO", "exposed"])
+
+
+# ---------------------------------------------------------------------------------------
+# built sites
+
+
+def test_no_public_page_says_from_memory_or_unverified(built_example) -> None:
+    pages = [p for p in built_example.files() if p.suffix in (".html", ".json", ".csv", ".md", ".txt")]
+    assert pages
+    for p in pages:
+        text = p.read_text(encoding="utf-8", errors="replace").lower()
+        assert "from memory" not in text and "unverified" not in text, p
+
+
+def _hearing_programme(root: Path, rules: str) -> Path:
+    hl = (500, 1000, 2000, 3000, 4000, 6000, 8000)
+
+    def audiogram(pid: str, date: str, kind: str, high: float) -> list[dict]:
+        levels = {f"hl_{f}": (high if f in (2000, 3000, 4000) else 10) for f in hl}
+        return [{"person_id": pid, "date": date, "ear": ear, "kind": kind, "quiet_hours": 10, **levels}
+                for ear in "LR"]
+
+    people = [{"person_id": p, "group": "G1", "sex": "M", "birth_date": "1985-01-01", "hire_date": "2015-01-01"}
+              for p in ("S1", "S2")]
+    # S1: a 30-dB shift at 2/3/4 kHz in 2025 (notice, retest and refit follow), S2 unchanged
+    audios = (audiogram("S1", "2018-03-01", "baseline", 10) + audiogram("S1", "2025-03-01", "periodic", 40)
+              + audiogram("S2", "2018-03-01", "baseline", 10) + audiogram("S2", "2024-01-01", "periodic", 10))
+    noise = [{"measurement_id": f"M{i}", "date": "2025-02-01", "kind": "personal", "person_id": p, "group": "G1",
+              "duration_h": 8, "laeq": 99.0, "lcpeak": 141.0} for i, p in enumerate(("S1", "S2"))]
+    noise.append({"measurement_id": "A1", "date": "2025-02-01", "kind": "area", "group": "G1", "duration_h": 0.25,
+                  "laeq": 87.0})
+    protectors = [{"protector_id": "PLUG", "type": "premolded_plug", "nrr": 20}]
+    fits = [{"person_id": "S1", "protector_id": "PLUG", "date": "2025-01-10"}]
+    return make_programme(root, files={"people.csv": people, "audiograms.csv": audios, "noise.csv": noise,
+                                       "groups.csv": [{"group": "G1"}], "protectors.csv": protectors,
+                                       "protector_fits.csv": fits},
+                          config={"rules": rules, "compare_rules": []})
+
+
+@pytest.mark.parametrize("rules", ["eu-2003-10", "custom"])
+def test_eu_and_custom_builds_never_cite_the_osha_standard(tmp_path: Path, rules: str) -> None:
+    from tests.conftest import build_fixed
+    out = tmp_path / "site"
+    report = build_fixed(_hearing_programme(tmp_path / "p", rules), out)
+    res = report.context.results
+    # the programme has duties and follow-ups to cite: actions of every stage exist
+    kinds = set(res.compliance.actions["kind"])
+    assert {"notice missing", "training"} <= kinds or {"notice due", "training"} <= kinds, kinds
+    for frame in (res.compliance.actions, res.compliance.due, res.hearing.followups, res.exposure.actions,
+                  res.protection.actions):
+        if "clause" in frame:
+            assert not frame["clause"].astype(str).str.contains("1910.95").any()
+    for page in sorted(out.rglob("*.html")):
+        text = page.read_text(encoding="utf-8")
+        if page.name == "methods.html":
+            # the methods page names the source of every method (the osha_* export columns follow
+            # 29 CFR 1910.95 App. A whatever the rule set); its rule-set tables cite none of it
+            text = text[text.index("Rule sets"):text.index("Parameters of the calculations")]
+        assert "1910.95" not in text, page.name
