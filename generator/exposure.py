@@ -914,9 +914,15 @@ def _actions(g: pd.DataFrame, head: RuleSet, cfg: Any, end: pd.Timestamp, m: pd.
     """Return the exposure actions: surveys due, controls, peaks."""
     rows: list[dict[str, Any]] = []
     years = cfg.exposure.stale_after_years
-    mon = head.clauses.get("monitoring", "")
-    ctl = head.clauses.get("controls", "")
+    mon = head.clause("monitoring")
+    measures_at = head.duties["programme_of_measures"].starts_at if "programme_of_measures" in head.duties else None
+    m_level, m_peak = head.duty_values("programme_of_measures")
+    # the programme of measures is the limit value's controls, or starts below the limit (EU: upper values)
+    ctl = head.clause("programme_of_measures") if measures_at == "limit" else head.clause("limit_value")
     limit_band = band_names(head)[-1] if head.limit_value is not None else None
+    names = band_names(head)
+    edges = band_edges(head)
+    from_band = edges.index(m_level) + 1 if m_level is not None and m_level in edges else None
     for r in g.sort_values("group").itertuples(index=False):
         if pd.isna(r.last_measured):
             rows.append(dict(subject=r.group, subject_type="group", kind="exposure survey",
@@ -936,16 +942,21 @@ def _actions(g: pd.DataFrame, head: RuleSet, cfg: Any, end: pd.Timestamp, m: pd.
                           "administrative controls")
             rows.append(dict(subject=r.group, subject_type="group", kind="noise controls", detail=detail,
                              due_date=pd.NaT, clause=ctl))
-        elif head.lower_action_value is not None and head.upper_action_value is not None and \
-                r.band in band_names(head)[2:]:
+        elif measures_at not in (None, "limit") and (
+                (from_band is not None and r.band in names[from_band:])
+                or (m_peak is not None and m_peak != head.peak_limit and not pd.isna(r.max_lcpeak)
+                    and r.max_lcpeak >= m_peak)):
+            what = f"group level at or above {m_level:g} dB(A)" if m_level is not None else "group level"
+            if m_peak is not None:
+                what += f" or highest LCpeak at or above {m_peak:g} dB(C)"
             rows.append(dict(subject=r.group, subject_type="group", kind="noise control programme",
-                             detail=f"group level at or above the upper action value {head.upper_action_value:g} "
-                                    "dB(A): programme of technical and organisational measures",
-                             due_date=pd.NaT, clause=ctl))
+                             detail=f"{what} (the {measures_at} action value): programme of technical and "
+                                    "organisational measures",
+                             due_date=pd.NaT, clause=head.clause("programme_of_measures")))
         if head.peak_limit is not None and not pd.isna(r.max_lcpeak) and r.max_lcpeak >= head.peak_limit:
             rows.append(dict(subject=r.group, subject_type="group", kind="peak level",
                              detail=f"highest LCpeak {r.max_lcpeak:.1f} dB(C) at or above {head.peak_limit:g} dB(C)",
-                             due_date=pd.NaT, clause=head.clauses.get("peak_limit", "")))
+                             due_date=pd.NaT, clause=head.clause("peak_limit")))
     if m.empty:
         rows.append(dict(subject="programme", subject_type="programme", kind="exposure survey",
                          detail="no noise measurements in the records", due_date=end.normalize(), clause=mon))

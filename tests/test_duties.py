@@ -213,7 +213,7 @@ def test_area_readings_carry_levels_never_personal_doses(tmp_path: Path) -> None
 
 def _eu_programme(root: Path, rules: str = "eu-2003-10") -> Path:
     people = [{"person_id": p, "group": g, "sex": "M", "birth_date": "1985-01-01", "hire_date": "2015-01-01"}
-              for p, g in (("P1", "PK"), ("P2", "PK"), ("L1", "LO"), ("L2", "LO"), ("Q1", "QU"))]
+              for p, g in (("P1", "PK"), ("P2", "PK"), ("L1", "LO"), ("L2", "LO"), ("Q1", "QU"), ("H1", "HP"))]
     noise = (
         # PK: a quiet LEX,8h with impulses of 136 dB(C): exposed by its peak alone (135 <= 136 < 137)
         [{"measurement_id": f"K{i}", "date": f"2025-02-0{i + 1}", "kind": "personal", "person_id": p,
@@ -221,10 +221,13 @@ def _eu_programme(root: Path, rules: str = "eu-2003-10") -> Path:
         # LO: 82 dB(A), between the lower and the upper action value, peaks low
         + [{"measurement_id": f"L{i}", "date": f"2025-02-0{i + 1}", "kind": "personal", "person_id": p,
             "duration_h": 8, "laeq": 82.0, "lcpeak": 110.0, "instrument_class": 1} for i, p in enumerate(("L1", "L2"))]
+        # HP: quiet level, impulses of 138 dB(C): at the upper peak action value (137 dB(C))
+        + [{"measurement_id": "H0", "date": "2025-02-01", "kind": "personal", "person_id": "H1", "duration_h": 8,
+            "laeq": 74.0, "lcpeak": 138.0, "instrument_class": 1}]
         # QU: quiet
         + [{"measurement_id": "Q0", "date": "2025-02-01", "kind": "personal", "person_id": "Q1", "duration_h": 8,
             "laeq": 70.0, "lcpeak": 110.0, "instrument_class": 1}])
-    groups = [{"group": g} for g in ("PK", "LO", "QU")]
+    groups = [{"group": g} for g in ("PK", "LO", "QU", "HP")]
     return make_programme(root, files={"people.csv": people, "noise.csv": noise, "groups.csv": groups},
                           config={"rules": rules, "compare_rules": []})
 
@@ -255,6 +258,10 @@ def test_a_group_exposed_only_by_its_peak_gets_the_eu_duties(tmp_path: Path) -> 
     assert "Art. 8" in clauses["training"]
     assert "Art. 6(1)(a)" in clauses["protector"]
     assert not acts["clause"].str.contains("1910.95").any()
+    # Art. 5(2): a programme of measures above the upper action values, here reached by the peak alone
+    assert bool(g.loc["HP", "exposed_programme_of_measures"]) and bool(g.loc["HP", "exposed_protectors_worn"])
+    prog = res.exposure.actions[res.exposure.actions["kind"] == "noise control programme"]
+    assert prog["subject"].tolist() == ["HP"] and "Art. 5(2)" in prog["clause"].iloc[0]
 
 
 def test_the_osha_rule_set_ignores_peaks_below_its_action_level(tmp_path: Path) -> None:
