@@ -94,8 +94,11 @@ def cmd_serve(args: argparse.Namespace) -> int:
 def cmd_demo(args: argparse.Namespace) -> int:
     """Write a synthetic programme of an invented workplace."""
     from .demo import write_demo
-    write_demo(args.dir, people=args.people, years=args.years, seed=args.seed)
-    _err(f"wrote a demo programme ({args.people} people, {args.years} years, seed {args.seed}) into {args.dir}")
+    n = write_demo(args.dir, people=args.people, years=args.years, seed=args.seed)
+    _err(f"wrote a demo programme of an invented workplace into {args.dir}: {n['headcount']} people at a "
+         f"time, {n['people']} over {n['years']} years with turnover, {n['audiograms']} audiograms, "
+         f"{n['noise']} noise measurements ({n['noise_logs']} with time histories), {n['files']} files "
+         f"(seed {args.seed})")
     return 0
 
 
