@@ -14,6 +14,7 @@ import logging
 import os
 import re
 import shutil
+import stat
 import time
 from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
@@ -191,32 +192,44 @@ def _inside(path: Path, folder: Path) -> bool:
         return False
 
 
-def check_output(root: Path, out: Path) -> None:
-    """Raise HcpsiteError unless *out* is a folder the tool may replace."""
+def check_output(root: Path, out: Path, *, marker: str = MARKER, what: str = "output") -> None:
+    """Raise HcpsiteError unless *out* is a folder the tool may replace (new, empty or carrying *marker*)."""
+    given = Path(out).absolute()
     root, out = Path(root).resolve(), Path(out).resolve()
     if out == root:
-        raise HcpsiteError(f"{out}: the output folder cannot be the programme folder")
+        raise HcpsiteError(f"{out}: the {what} folder cannot be the programme folder")
     if _inside(root, out):
-        raise HcpsiteError(f"{out}: the output folder cannot contain the programme folder")
+        raise HcpsiteError(f"{out}: the {what} folder cannot contain the programme folder")
     for name in INPUT_FOLDERS:
         if _inside(out, root / name):
-            raise HcpsiteError(f"{out}: the output folder cannot lie inside the programme's {name}/ folder")
+            raise HcpsiteError(f"{out}: the {what} folder cannot lie inside the programme's {name}/ folder")
+    if given.is_symlink():
+        raise HcpsiteError(f"{given}: is a symbolic link; name the folder itself")
+    for parent in out.parents:
+        if parent.exists() and not parent.is_dir():
+            raise HcpsiteError(f"{out}: cannot be made, {parent} is a file and not a folder")
     if out.exists() or out.is_symlink():
         if not out.is_dir() or out.is_symlink():
             raise HcpsiteError(f"{out}: exists and is not a folder")
         if (out / CONFIG_FILE).exists() or (out / "data").exists():
             raise HcpsiteError(f"{out}: looks like a programme folder (has programme.yaml or data/); "
-                               f"choose another output folder")
-        if not (out / MARKER).is_file() and any(out.iterdir()):
-            raise HcpsiteError(f"{out}: exists and was not made by hcpsite (no {MARKER} file); "
-                               f"remove it or choose another output folder")
+                               f"choose another {what} folder")
+        if not (out / marker).is_file() and any(out.iterdir()):
+            raise HcpsiteError(f"{out}: exists and was not made by hcpsite (no {marker} file); "
+                               f"remove it or choose another {what} folder")
+
+
+#: modes of a restricted build or export: readable by the user only
+PRIVATE_DIR_MODE = 0o700
+PRIVATE_FILE_MODE = 0o600
 
 
 class SiteWriter:
-    """Write files below one folder only, each path at most once."""
+    """Write files below one folder only, each path at most once (user-only modes when *private*)."""
 
-    def __init__(self, folder: Path) -> None:
+    def __init__(self, folder: Path, private: bool = False) -> None:
         self.folder = Path(folder)
+        self.private = private
         self.written: set[str] = set()
         self.bytes = 0
 
@@ -232,8 +245,16 @@ class SiteWriter:
         target = self.folder.joinpath(*pure.parts)
         if not _inside(target.resolve().parent, self.folder.resolve()):
             raise ValueError(f"refusing to write {rel!r}: outside the output folder")
-        target.parent.mkdir(parents=True, exist_ok=True)
-        with open(target, "xb") as fh:
+        folder = self.folder
+        if not folder.is_dir():
+            folder.mkdir(parents=True, mode=PRIVATE_DIR_MODE if self.private else 0o777)
+        for part in pure.parts[:-1]:
+            folder = folder / part
+            if not folder.is_dir():
+                folder.mkdir(mode=PRIVATE_DIR_MODE if self.private else 0o777)
+        flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_BINARY", 0)
+        fd = os.open(target, flags, PRIVATE_FILE_MODE if self.private else 0o666)
+        with os.fdopen(fd, "wb") as fh:
             fh.write(data)
         self.written.add(rel)
         self.bytes += len(data)
@@ -255,22 +276,57 @@ def _alive(pid: int) -> bool:
     return True
 
 
-def clean_stale(out: Path) -> None:
+def _make_writable(folder: Path) -> None:
+    """Give the user write and search rights on *folder* and every folder below it (links not followed)."""
+    st = os.lstat(folder)
+    if not stat.S_ISDIR(st.st_mode):
+        return
+    want = stat.S_IMODE(st.st_mode) | stat.S_IRWXU
+    if want != stat.S_IMODE(st.st_mode):
+        os.chmod(folder, want)
+    with os.scandir(folder) as it:
+        subdirs = [Path(e.path) for e in it if e.is_dir(follow_symlinks=False)]
+    for sub in subdirs:
+        _make_writable(sub)
+
+
+def remove_tool_folder(folder: Path, marker: str = MARKER) -> None:
+    """Remove *folder*, a folder the tool made (it carries *marker*), even when it was made read-only.
+
+    A folder without the marker is left alone. Failures are logged, not raised: the next
+    build tries again.
+    """
+    folder = Path(folder)
+    if folder.is_symlink() or not folder.is_dir() or not (folder / marker).is_file():
+        return
+    try:
+        shutil.rmtree(folder)
+        return
+    except OSError:
+        pass
+    try:
+        _make_writable(folder)
+        shutil.rmtree(folder)
+    except OSError as exc:
+        log.warning("%s: could not be removed (%s); remove it by hand", folder, exc.strerror or exc)
+
+
+def clean_stale(out: Path, marker: str = MARKER) -> None:
     """Remove temporary folders of dead builds beside *out*; restore a site left aside by a killed swap."""
     parent, prefix = out.parent, f"{TMP_PREFIX}{out.name}-"
     if not parent.is_dir():
         return
     for entry in sorted(parent.iterdir()):
-        if not entry.name.startswith(prefix) or not entry.is_dir():
+        if not entry.name.startswith(prefix) or not entry.is_dir() or entry.is_symlink():
             continue
         m = _TMP_NAME.match(entry.name[len(prefix):])
-        if not m or _alive(int(m.group("pid"))) or not (entry / MARKER).is_file():
+        if not m or _alive(int(m.group("pid"))) or not (entry / marker).is_file():
             continue
         if m.group("old") and not out.exists():
             log.warning("restoring the previous site from %s", entry)
             os.rename(entry, out)
             continue
-        shutil.rmtree(entry, ignore_errors=True)
+        remove_tool_folder(entry, marker)
 
 
 def _pause_seconds() -> float:
@@ -281,40 +337,91 @@ def _pause_seconds() -> float:
         return 0.0
 
 
-def write_site(files: dict[str, bytes], out: Path) -> int:
-    """Write *files* into a temporary sibling of *out* and swap it in; return bytes written."""
-    out = Path(out).resolve()
-    out.parent.mkdir(parents=True, exist_ok=True)
-    clean_stale(out)
+def _with_path(exc: OSError, path: Path) -> OSError:
+    """Return *exc* naming *path* when it names no file (so the message says where it happened)."""
+    if exc.filename is None and exc.errno is not None:
+        return type(exc)(exc.errno, exc.strerror or os.strerror(exc.errno), str(path))
+    return exc
+
+
+def _fill_empty(tmp: Path, out: Path, marker: str) -> None:
+    """Move the entries of *tmp* into the existing empty folder *out* (marker first); undo on failure."""
+    names = [marker] + sorted(n for n in os.listdir(tmp) if n != marker)
+    moved: list[str] = []
+    try:
+        for name in names:
+            os.rename(tmp / name, out / name)
+            moved.append(name)
+    except BaseException:
+        for name in reversed(moved):
+            try:
+                os.rename(out / name, tmp / name)
+            except OSError:
+                pass
+        raise
+    os.rmdir(tmp)
+
+
+def write_site(files: dict[str, bytes], out: Path, *, private: bool = False, marker: str = MARKER,
+               marker_text: bytes = MARKER_TEXT) -> int:
+    """Write *files* into a temporary sibling of *out* and swap it in; return bytes written.
+
+    *private* writes folders 0700 and files 0600 (a restricted build or export). An
+    existing empty *out* folder is kept (with its permissions) and filled, not replaced.
+    """
+    out = Path(out).absolute()
+    if out.is_symlink():
+        raise HcpsiteError(f"{out}: is a symbolic link; name the folder itself")
+    out = out.resolve()
+    try:
+        out.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise _with_path(exc, out.parent) from exc
+    clean_stale(out, marker)
     pid = os.getpid()
     tmp = out.parent / f"{TMP_PREFIX}{out.name}-{pid}"
     aside = out.parent / f"{TMP_PREFIX}{out.name}-{pid}-old"
     for p in (tmp, aside):
-        if p.exists():
-            shutil.rmtree(p)
-    tmp.mkdir()
+        if p.exists() or p.is_symlink():
+            if not (p / marker).is_file():
+                raise HcpsiteError(f"{p}: is in the way and was not made by hcpsite; remove it")
+            remove_tool_folder(p, marker)
     try:
-        writer = SiteWriter(tmp)
-        writer.write_file(MARKER, MARKER_TEXT)
+        tmp.mkdir(mode=PRIVATE_DIR_MODE if private else 0o777)
+    except OSError as exc:
+        raise _with_path(exc, tmp) from exc
+    empty = out.is_dir() and not out.is_symlink() and not any(out.iterdir())
+    try:
+        writer = SiteWriter(tmp, private=private)
+        writer.write_file(marker, marker_text)
         names = sorted(files)
         pause = _pause_seconds()
         for i, rel in enumerate(names):
             if pause and i == len(names) // 2:
                 log.info("pausing %.1f s halfway through writing (%s)", pause, PAUSE_ENV)
                 time.sleep(pause)
-            writer.write_file(rel, files[rel])
-        if out.exists():
-            os.rename(out, aside)
-        try:
-            os.rename(tmp, out)
-        except OSError:
-            if aside.exists() and not out.exists():
-                os.rename(aside, out)
-            raise
+            try:
+                writer.write_file(rel, files[rel])
+            except OSError as exc:
+                raise _with_path(exc, out) from exc
+        if empty:
+            _fill_empty(tmp, out, marker)
+        else:
+            if out.exists():
+                os.rename(out, aside)
+            try:
+                os.rename(tmp, out)
+            except OSError:
+                if aside.exists() and not out.exists():
+                    os.rename(aside, out)
+                raise
     except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
+        if tmp.exists():
+            remove_tool_folder(tmp, marker)
+            if tmp.exists():
+                shutil.rmtree(tmp, ignore_errors=True)
         raise
-    shutil.rmtree(aside, ignore_errors=True)
+    remove_tool_folder(aside, marker)
     return writer.bytes
 
 
@@ -330,7 +437,7 @@ def build_site(root: Path, out: Path | None = None, *, strict: bool = False,
     skipped_sections = build_pages(ctx)
     files = render_site(ctx)
     files.update(narrative_images(root, set(files)))
-    size = write_site(files, out)
+    size = write_site(files, out, private=restricted)
     pages = sorted(p.slug for p in ctx.pages if restricted or not p.restricted)
     log.info("built %d pages (%d files, %d bytes) into %s", len(pages), len(files) + 1, size, out)
     return BuildReport(out=out.resolve(), pages=pages, files=len(files) + 1, bytes=size,

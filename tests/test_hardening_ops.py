@@ -122,3 +122,270 @@ def test_site_example_carries_the_demo_manifest() -> None:
     for line in text.splitlines():
         digest, rel = line.split("  ", 1)
         assert _sha((root / rel).read_bytes()) == digest, rel
+
+
+# ---------------------------------------------------------------------------------------
+# restricted output is readable by the user only; an empty --out folder is kept
+
+
+def _prog(tmp_path: Path) -> Path:
+    from tests.progkit import make_programme
+    return make_programme(tmp_path / "prog", pages={"about.md": "---\ntitle: About\n---\nabout text\n"})
+
+
+def _modes(root: Path) -> dict[str, int]:
+    return {p.relative_to(root).as_posix(): stat.S_IMODE(p.lstat().st_mode) for p in root.rglob("*")}
+
+
+@pytest.fixture
+def umask_022():
+    old = os.umask(0o022)
+    try:
+        yield
+    finally:
+        os.umask(old)
+
+
+def test_restricted_build_and_export_are_readable_by_the_user_only(tmp_path: Path, umask_022: None) -> None:
+    root = _prog(tmp_path)
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["build", str(root), "--out", str(tmp_path / "site"), "--restricted"]) == 0
+        assert main(["export", str(root), "--to", str(tmp_path / "export"), "--restricted"]) == 0
+        assert main(["build", str(root), "--out", str(tmp_path / "public")]) == 0
+    for name in ("site", "export"):
+        folder = tmp_path / name
+        modes = _modes(folder)
+        assert len(modes) > 3
+        assert stat.S_IMODE(folder.stat().st_mode) & 0o077 == 0, name
+        assert {rel: m for rel, m in modes.items() if m & 0o077} == {}, name
+    # a public build keeps the ordinary rights (umask 022: others may read)
+    assert stat.S_IMODE((tmp_path / "public" / "index.html").stat().st_mode) == 0o644
+
+
+def test_existing_empty_out_folder_keeps_its_permissions(tmp_path: Path, umask_022: None) -> None:
+    root = _prog(tmp_path)
+    out = tmp_path / "chosen"
+    out.mkdir(mode=0o750)
+    os.chmod(out, 0o750)
+    ino = out.stat().st_ino
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["build", str(root), "--out", str(out), "--restricted"]) == 0
+    assert out.stat().st_ino == ino
+    assert stat.S_IMODE(out.stat().st_mode) == 0o750
+    assert (out / "index.html").is_file()
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".hcpsite-tmp-")]
+
+
+# ---------------------------------------------------------------------------------------
+# export: written as the site is, never through a link, never over a foreign folder
+
+
+def test_export_never_writes_through_a_symlink_or_into_a_foreign_folder(tmp_path: Path,
+                                                                        capsys: pytest.CaptureFixture[str]) -> None:
+    root = _prog(tmp_path)
+    outside = tmp_path / "outside.txt"
+    outside.write_text("precious\n", encoding="utf-8")
+    # a folder holding a link named like an export file
+    trap = tmp_path / "trap"
+    trap.mkdir()
+    (trap / "summary.json").symlink_to(outside)
+    # a folder of the user holding a same-named file
+    mine = tmp_path / "mine"
+    mine.mkdir()
+    (mine / "actions.csv").write_text("my own actions\n", encoding="utf-8")
+    # the export folder itself a link to a folder elsewhere
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    (tmp_path / "link").symlink_to(elsewhere, target_is_directory=True)
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+        for to in (trap, mine, tmp_path / "link"):
+            assert main(["export", str(root), "--to", str(to)]) == 1, to
+            err = capsys.readouterr().err
+            assert "internal error" not in err and str(to.name) in err, err
+    assert outside.read_text(encoding="utf-8") == "precious\n"
+    assert (mine / "actions.csv").read_text(encoding="utf-8") == "my own actions\n"
+    assert sorted(p.name for p in mine.iterdir()) == ["actions.csv"]
+    assert list(elsewhere.iterdir()) == []
+
+
+def test_export_replaces_its_own_folder_whole(tmp_path: Path) -> None:
+    from generator.export import EXPORT_MARKER
+    root = _prog(tmp_path)
+    to = tmp_path / "exp"
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["export", str(root), "--to", str(to)]) == 0
+        first = _tree(to)
+        (to / "old.csv").write_text("left by an older version\n", encoding="utf-8")
+        assert main(["export", str(root), "--to", str(to)]) == 0
+    assert EXPORT_MARKER in first and _tree(to) == first
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".hcpsite-tmp-")]
+
+
+# ---------------------------------------------------------------------------------------
+# errors of the machine get a message naming the path, exit 1, never "internal error"
+
+
+def _clean_failure(err: str, *words: str) -> None:
+    assert "internal error" not in err and "fault in hcpsite" not in err and "Traceback" not in err, err
+    for w in words:
+        assert w in err, (w, err)
+
+
+def test_out_under_a_regular_file(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    root = _prog(tmp_path)
+    (tmp_path / "afile").write_text("x", encoding="utf-8")
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["build", str(root), "--out", str(tmp_path / "afile" / "site")]) == 1
+        _clean_failure(capsys.readouterr().err, str(tmp_path / "afile"))
+        assert main(["export", str(root), "--to", str(tmp_path / "afile" / "exp")]) == 1
+        _clean_failure(capsys.readouterr().err, str(tmp_path / "afile"))
+    assert (tmp_path / "afile").read_text() == "x"
+
+
+def test_read_only_parent(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                          monkeypatch: pytest.MonkeyPatch) -> None:
+    root = _prog(tmp_path)
+    locked = tmp_path / "locked"
+    locked.mkdir()
+    os.chmod(locked, 0o555)
+    if os.geteuid() == 0:  # root ignores the mode: refuse as the kernel would for a user
+        real_mkdir = os.mkdir
+
+        def mkdir(path, *a, **kw):  # type: ignore[no-untyped-def]
+            if Path(path).parent == locked:
+                raise PermissionError(errno.EACCES, os.strerror(errno.EACCES), str(path))
+            return real_mkdir(path, *a, **kw)
+        monkeypatch.setattr(os, "mkdir", mkdir)
+    try:
+        with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+            assert main(["build", str(root), "--out", str(locked / "site")]) == 1
+        _clean_failure(capsys.readouterr().err, str(locked), "Permission denied")
+        assert list(locked.iterdir()) == []
+    finally:
+        os.chmod(locked, 0o755)
+
+
+def test_full_disk_keeps_the_previous_site(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                           monkeypatch: pytest.MonkeyPatch) -> None:
+    from generator.build import SiteWriter
+    root = _prog(tmp_path)
+    out = tmp_path / "site"
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["build", str(root), "--out", str(out)]) == 0
+        before = _tree(out)
+        real = SiteWriter.write_file
+        calls = {"n": 0}
+
+        def full(self: SiteWriter, rel: str, data: bytes) -> Path:
+            calls["n"] += 1
+            if calls["n"] > 3:
+                raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+            return real(self, rel, data)
+        monkeypatch.setattr(SiteWriter, "write_file", full)
+        assert main(["build", str(root), "--out", str(out)]) == 1
+        _clean_failure(capsys.readouterr().err, str(out), "No space left on device")
+        calls["n"] = 0
+        assert main(["export", str(root), "--to", str(tmp_path / "exp")]) == 1
+        _clean_failure(capsys.readouterr().err, str(tmp_path / "exp"), "No space left on device")
+    assert _tree(out) == before
+    assert not (tmp_path / "exp").exists()
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".hcpsite-tmp-")]
+
+
+def test_genuine_faults_stay_internal_errors(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                             monkeypatch: pytest.MonkeyPatch) -> None:
+    import generator.build as build
+    root = _prog(tmp_path)
+
+    def broken(*a, **kw):  # type: ignore[no-untyped-def]
+        raise OSError(errno.EBADF, os.strerror(errno.EBADF))
+    monkeypatch.setattr(build, "write_site", broken)
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY, HCPSITE_DEBUG=None):
+        assert main(["build", str(root), "--out", str(tmp_path / "site")]) == 1
+    assert "internal error" in capsys.readouterr().err
+
+
+def _listening_socket() -> socket.socket:
+    sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
+    sock.bind(("127.0.0.1", 0))
+    sock.listen(1)
+    return sock
+
+
+def test_port_in_use_is_found_before_building(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    root = _prog(tmp_path)
+    sock = _listening_socket()
+    port = sock.getsockname()[1]
+    try:
+        started = time.monotonic()
+        with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+            assert main(["serve", str(root), "--port", str(port)]) == 1
+        assert time.monotonic() - started < 30
+    finally:
+        sock.close()
+    _clean_failure(capsys.readouterr().err, f"127.0.0.1:{port}", "--port")
+    assert not (root / "_site").exists()  # nothing was built
+
+
+# ---------------------------------------------------------------------------------------
+# a read-only previous site leaves nothing behind
+
+
+def _deny_in_read_only_folders(monkeypatch: pytest.MonkeyPatch) -> None:
+    """Make unlink/rmdir fail in a folder without user write permission, as they do for a user (not root)."""
+    def guard(fn):  # type: ignore[no-untyped-def]
+        def wrapped(path, *a, dir_fd=None, **kw):  # type: ignore[no-untyped-def]
+            if dir_fd is not None:
+                mode = os.fstat(dir_fd).st_mode
+            else:
+                mode = os.stat(os.path.dirname(os.path.abspath(path))).st_mode
+            if not mode & stat.S_IWUSR:
+                raise PermissionError(errno.EACCES, os.strerror(errno.EACCES), str(path))
+            return fn(path, *a, dir_fd=dir_fd, **kw)
+        return wrapped
+    monkeypatch.setattr(os, "unlink", guard(os.unlink))
+    monkeypatch.setattr(os, "rmdir", guard(os.rmdir))
+    monkeypatch.setattr(os, "remove", guard(os.remove))
+
+
+def _chmod_tree(root: Path, remove: int) -> None:
+    for p in sorted(root.rglob("*"), reverse=True) + [root]:
+        if not p.is_symlink():
+            os.chmod(p, stat.S_IMODE(p.lstat().st_mode) & ~remove)
+
+
+def test_read_only_previous_site_is_replaced_without_leftovers(tmp_path: Path,
+                                                               monkeypatch: pytest.MonkeyPatch) -> None:
+    from tests.conftest import build_fixed
+    root = _prog(tmp_path)
+    out = tmp_path / "site"
+    build_fixed(root, out)
+    (root / "pages" / "about.md").write_text("---\ntitle: About\n---\nsecond text\n", encoding="utf-8")
+    _chmod_tree(out, stat.S_IWUSR | stat.S_IWGRP | stat.S_IWOTH)  # chmod -R a-w
+    _deny_in_read_only_folders(monkeypatch)
+    build_fixed(root, out)
+    assert "second text" in (out / "about.html").read_text(encoding="utf-8")
+    assert not [p.name for p in tmp_path.iterdir() if p.name.startswith(".hcpsite-tmp-")]
+
+
+def test_stale_read_only_leftover_is_removed_but_foreign_folders_are_not(tmp_path: Path,
+                                                                        monkeypatch: pytest.MonkeyPatch) -> None:
+    from generator.build import MARKER
+    from tests.conftest import build_fixed
+    root = _prog(tmp_path)
+    out = tmp_path / "site"
+    build_fixed(root, out)
+    # a site set aside by a build that died (pid 0 is never a live build), then made read-only
+    dead = tmp_path / ".hcpsite-tmp-site-999999999-old"
+    shutil.copytree(out, dead)
+    (dead / "sub").mkdir()
+    (dead / "sub" / "x.html").write_text("x", encoding="utf-8")
+    _chmod_tree(dead, stat.S_IWUSR | stat.S_IWGRP | stat.S_IWOTH)
+    # a folder of the same shape without the marker is not the tool's: left alone
+    foreign = tmp_path / ".hcpsite-tmp-site-999999998"
+    foreign.mkdir()
+    (foreign / "mine.txt").write_text("mine", encoding="utf-8")
+    _deny_in_read_only_folders(monkeypatch)
+    build_fixed(root, out)
+    assert not dead.exists()
+    assert (foreign / "mine.txt").read_text(encoding="utf-8") == "mine" and not (foreign / MARKER).exists()
