@@ -305,6 +305,12 @@ def test_genuine_faults_stay_internal_errors(tmp_path: Path, capsys: pytest.Capt
     assert "internal error" in capsys.readouterr().err
 
 
+def _free_port() -> int:
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as sock:
+        sock.bind(("127.0.0.1", 0))
+        return int(sock.getsockname()[1])
+
+
 def _listening_socket() -> socket.socket:
     sock = socket.socket(socket.AF_INET, socket.SOCK_STREAM)
     sock.bind(("127.0.0.1", 0))
@@ -389,3 +395,86 @@ def test_stale_read_only_leftover_is_removed_but_foreign_folders_are_not(tmp_pat
     build_fixed(root, out)
     assert not dead.exists()
     assert (foreign / "mine.txt").read_text(encoding="utf-8") == "mine" and not (foreign / MARKER).exists()
+
+
+# ---------------------------------------------------------------------------------------
+# serve: vanishing folders, honest messages, reload after a rebuild
+
+
+def test_input_state_survives_a_folder_vanishing_while_it_is_read(tmp_path: Path,
+                                                                 monkeypatch: pytest.MonkeyPatch) -> None:
+    from generator import serve
+    root = _prog(tmp_path)
+    sub = root / "data" / "noise_logs" / "batch"
+    sub.mkdir(parents=True)
+    for i in range(3):
+        (sub / f"M{i}.csv").write_text("start,laeq\n", encoding="utf-8")
+    real_is_file = Path.is_file
+
+    def vanishing(self: Path) -> bool:  # the folder is removed right after its first file is seen
+        result = real_is_file(self)
+        if sub in self.parents and sub.exists():
+            shutil.rmtree(sub)
+        return result
+    monkeypatch.setattr(Path, "is_file", vanishing)
+    state = serve.input_state(root)
+    assert any(rel == "programme.yaml" for rel, _, _ in state)
+
+
+def _get(url: str) -> str:
+    with urllib.request.urlopen(url, timeout=10) as resp:
+        return resp.read().decode("utf-8")
+
+
+def test_serve_reloads_pages_after_a_rebuild_and_survives_vanishing_folders(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from generator import serve
+    root = _prog(tmp_path)
+    extra = root / "data" / "noise_logs" / "batch"
+    extra.mkdir(parents=True)
+    ready: list[int] = []
+    stop = threading.Event()
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+        t = threading.Thread(target=serve.serve, kwargs=dict(root=root, port=0, on_ready=ready.append,
+                                                            stop=stop, max_polls=90), daemon=True)
+        t.start()
+        try:
+            deadline = time.monotonic() + 60
+            while not ready and time.monotonic() < deadline:
+                time.sleep(0.1)
+            assert ready, "server did not start"
+            base = f"http://127.0.0.1:{ready[0]}"
+            page = _get(base + "/about.html")
+            assert "about text" in page
+            # the served page carries the reload script, which asks this server only
+            script = re.search(r"<script data-hcpsite-serve>(.*?)</script>", page, re.S)
+            assert script and page.index(script.group(0)) < page.rindex("</body>")
+            urls = re.findall(r"https?://|//[a-z0-9]", script.group(1))
+            assert urls == [] and serve.BUILD_ENDPOINT in script.group(1)
+            first = _get(base + serve.BUILD_ENDPOINT)
+            assert re.search(r'var b="(\d+)"', script.group(1)).group(1) == first
+            # the written site does not carry it
+            assert "data-hcpsite-serve" not in (root / "_site" / "about.html").read_text(encoding="utf-8")
+            # a folder vanishes between two polls, then a page changes: the server goes on
+            shutil.rmtree(extra)
+            time.sleep(1.2)
+            (root / "pages" / "about.md").write_text("---\ntitle: About\n---\nsecond text\n", encoding="utf-8")
+            while time.monotonic() < deadline and _get(base + serve.BUILD_ENDPOINT) == first:
+                time.sleep(0.2)
+            assert _get(base + serve.BUILD_ENDPOINT) != first, "no rebuild counted"
+            assert "second text" in _get(base + "/about.html")
+            assert t.is_alive()
+        finally:
+            stop.set()
+            t.join(timeout=30)
+    assert not t.is_alive()
+
+
+def test_serve_does_not_claim_a_previous_site_when_there_is_none(tmp_path: Path,
+                                                                 capsys: pytest.CaptureFixture[str]) -> None:
+    root = _prog(tmp_path)
+    (root / "data" / "people.csv").write_text("person_id,group\nE1,\n", encoding="utf-8")
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["serve", str(root), "--port", str(_free_port())]) == 1
+    err = capsys.readouterr().err
+    assert "previous site" not in err and "no site to serve" in err, err
