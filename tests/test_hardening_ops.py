@@ -478,3 +478,66 @@ def test_serve_does_not_claim_a_previous_site_when_there_is_none(tmp_path: Path,
         assert main(["serve", str(root), "--port", str(_free_port())]) == 1
     err = capsys.readouterr().err
     assert "previous site" not in err and "no site to serve" in err, err
+
+
+# ---------------------------------------------------------------------------------------
+# markdown: images only from the site; links to anchors, site files or web pages
+# (WHATWG URL Standard, "special" schemes: a backslash reads as "/", tab and newline are
+# removed and leading C0 controls or spaces are stripped, so "/\host" is "//host")
+
+OFF_SITE = ["/\\host/a.png", "\\\\host/a.png", "//host/a.png", "/a.png", " /\\host/a.png", "/\t/host/a.png",
+            "\\/host/a.png", "https://host/a.png", "http:/\\host/a.png", "data:image/png;base64,AAAA",
+            "../outside.png", "pics/../../outside.png", "pics\\..\\..\\outside.png", "file:///etc/passwd",
+            "javascript:alert(1)", "java\nscript:alert(1)"]
+
+
+@pytest.mark.parametrize("src", OFF_SITE)
+def test_images_from_outside_the_site_are_dropped(src: str) -> None:
+    from generator.site import render_markdown, sanitise_html
+    import html as htmllib
+    for html in (sanitise_html(f'<img src="{htmllib.escape(src)}" alt="a">'),
+                 render_markdown(f"<img src=\"{htmllib.escape(src)}\">"),
+                 render_markdown(f"![x]({src})") if "\n" not in src and " " not in src else ""):
+        for value in re.findall(r'src="([^"]*)"', html):
+            assert not _off_site(htmllib.unescape(value)), (src, html)
+
+
+def _off_site(value: str) -> bool:
+    """True when a browser would fetch *value* from outside the site (see the note above)."""
+    url = re.sub(r"[\t\n\r]", "", value).strip("".join(map(chr, range(0x21)))).replace("\\", "/")
+    path = url.split("#", 1)[0].split("?", 1)[0]
+    return (url.startswith("/") or bool(re.match(r"^[A-Za-z][A-Za-z0-9+.-]*:", url))
+            or ".." in path.split("/"))
+
+
+@pytest.mark.parametrize("href", ["/\\host/p", "//host/p", "\\\\host", "/p.html", "../p.html",
+                                  "javascript:alert(1)", "vbscript:x", "data:text/html,x"])
+def test_links_off_the_site_without_a_web_scheme_are_dropped(href: str) -> None:
+    from generator.site import sanitise_html
+    import html as htmllib
+    out = sanitise_html(f'<a href="{htmllib.escape(href)}">x</a>')
+    assert "href" not in out, (href, out)
+
+
+def test_site_files_anchors_and_web_pages_stay() -> None:
+    from generator.site import render_markdown, sanitise_html
+    html = render_markdown("![p](pic.png) [a](#top) [b](exposure.html#g01) [c](https://example.org/info) "
+                           "[d](mailto:x@example.org)")
+    for kept in ('src="pic.png"', 'href="#top"', 'href="exposure.html#g01"', 'href="https://example.org/info"',
+                 'href="mailto:x@example.org"'):
+        assert kept in html, (kept, html)
+    out = sanitise_html('<img src="pic.png" srcset="//host/a.png 2x" style="background:url(//host/b.png)">')
+    assert out == '<img src="pic.png">'
+
+
+def test_narrative_page_with_hostile_references_builds_without_them(tmp_path: Path) -> None:
+    from tests.conftest import build_fixed
+    from tests.progkit import make_programme
+    page = ("---\ntitle: Notes\n---\n![x](/\\host/a.png)\n\n<img src=\"/\\host/b.png\">\n\n"
+            "[ok](https://example.org/info) ![pic](pic.png)\n")
+    root = make_programme(tmp_path / "prog", pages={"notes.md": page})
+    out = tmp_path / "site"
+    build_fixed(root, out)
+    text = (out / "notes.html").read_text(encoding="utf-8")
+    assert "host/" not in text.replace("https://example.org/info", "")
+    assert 'src="pic.png"' in text and 'href="https://example.org/info"' in text
