@@ -22,7 +22,7 @@ import nh3
 import plotly.io as pio
 from markupsafe import Markup
 
-from . import clock
+from . import charts, clock
 from . import __version__
 from .pages import NARRATIVE, SECTIONS, section_title
 from .pages.base import Chart, Page, SiteContext
@@ -172,8 +172,7 @@ source_date = clock.source_date
 
 def chart_html(chart: Chart) -> str:
     """Return the plot div and its script for *chart* (plotly.js is loaded by the page)."""
-    return pio.to_html(chart.figure, include_plotlyjs=False, full_html=False, div_id=chart.id,
-                       default_height=chart.height, config=CHART_CONFIG)
+    return charts.figure_html(chart.figure, chart.id, chart.height, CHART_CONFIG)
 
 
 @dataclass

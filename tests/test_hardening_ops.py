@@ -541,3 +541,84 @@ def test_narrative_page_with_hostile_references_builds_without_them(tmp_path: Pa
     text = (out / "notes.html").read_text(encoding="utf-8")
     assert "host/" not in text.replace("https://example.org/info", "")
     assert 'src="pic.png"' in text and 'href="https://example.org/info"' in text
+
+
+# ---------------------------------------------------------------------------------------
+# charts: every text handed to plotly is escaped (plotly renders <b>, <a href> ... in labels)
+
+MARKUP = ('<b>bold</b>', '<a href="https://evil.example/">link</a>', '<i>it</i><br>')
+
+
+def _chart_specs(page_text: str) -> list[object]:
+    """Return the decoded figure JSON of every Plotly.newPlot call on a page."""
+    decoder = json.JSONDecoder()
+    specs = []
+    for m in re.finditer(r"Plotly\.newPlot\(\s*\"[^\"]+\",\s*", page_text):
+        data, end = decoder.raw_decode(page_text, m.end())
+        rest = page_text[end:].lstrip()
+        assert rest.startswith(",")
+        layout, _ = decoder.raw_decode(rest[1:].lstrip())
+        specs.append({"data": data, "layout": layout})
+    return specs
+
+
+def _strings(value: object) -> list[str]:
+    if isinstance(value, str):
+        return [value]
+    if isinstance(value, dict):
+        return [s for k, v in value.items() if k not in ("hovertemplate", "texttemplate", "template")
+                for s in _strings(v)]
+    if isinstance(value, list):
+        return [s for v in value for s in _strings(v)]
+    return []
+
+
+@pytest.mark.parametrize("restricted", [False, True])
+def test_markup_in_labels_is_not_live_inside_charts(tmp_path: Path, restricted: bool) -> None:
+    import pandas as pd
+    from tests.conftest import build_fixed
+    root = tmp_path / "prog"
+    demo.write_demo(root, **SMALL)
+    cfg = root / "programme.yaml"  # small groups shown, so that their task charts exist
+    cfg.write_text(re.sub(r"(?m)^(\s*min_group_size:\s*)\d+", r"\g<1>2", cfg.read_text(encoding="utf-8")),
+                   encoding="utf-8")
+    for name, col in (("groups.csv", "name"), ("tasks.csv", "task"), ("protectors.csv", "name"),
+                      ("noise.csv", "location")):
+        path = root / "data" / name
+        df = pd.read_csv(path, dtype=str, keep_default_na=False)
+        df[col] = [f"{MARKUP[i % len(MARKUP)]} {v}" for i, v in enumerate(df[col])]
+        df.to_csv(path, index=False, lineterminator="\n")
+    out = tmp_path / "site"
+    build_fixed(root, out, restricted=restricted)
+    seen = 0
+    for page in sorted(out.rglob("*.html")):
+        for spec in _chart_specs(page.read_text(encoding="utf-8")):
+            for text in _strings(spec):
+                assert not re.search(r"<\s*(b|a|i|br)\b", text, re.I), (page.name, text)
+                seen += text.count("&lt;b&gt;bold&lt;/b&gt;") + text.count("&lt;a href=")
+            for trace in spec["data"]:  # numbers stay numbers
+                for axis in ("x", "y"):
+                    vals = trace.get(axis)
+                    if isinstance(vals, list) and vals and all(isinstance(v, (int, float)) for v in vals[:1]):
+                        assert all(v is None or isinstance(v, (int, float)) for v in vals)
+    assert seen > 0, "the labels should still be shown in the charts, escaped"
+
+
+def test_finalise_escapes_text_and_keeps_numbers_and_templates() -> None:
+    import numpy as np
+    import plotly.graph_objects as go
+    from generator.charts import finalise
+    fig = go.Figure(go.Bar(x=np.array(["<b>A</b>", "B&C"], dtype=object), y=[1.5, 2], name="<a href='x'>n</a>",
+                           text=["<i>t</i>", "u"], customdata=[["<b>c</b>"], ["d"]],
+                           hovertemplate="%{x}<br>%{y}<extra></extra>"))
+    fig.update_layout(title="<b>T</b>", xaxis=dict(tickvals=["<b>A</b>"], ticktext=["<b>A</b>"]),
+                      annotations=[dict(text="<a href='//h'>x</a>", x=0, y=0)])
+    d = finalise(fig)
+    tr = d["data"][0]
+    assert list(tr["x"]) == ["&lt;b&gt;A&lt;/b&gt;", "B&amp;C"] and list(tr["y"]) == [1.5, 2]
+    assert tr["name"] == "&lt;a href='x'&gt;n&lt;/a&gt;" and list(tr["text"])[0] == "&lt;i&gt;t&lt;/i&gt;"
+    assert [list(r) for r in tr["customdata"]][0] == ["&lt;b&gt;c&lt;/b&gt;"]
+    assert tr["hovertemplate"] == "%{x}<br>%{y}<extra></extra>"
+    assert d["layout"]["title"]["text"] == "&lt;b&gt;T&lt;/b&gt;"
+    assert list(d["layout"]["xaxis"]["ticktext"]) == list(d["layout"]["xaxis"]["tickvals"]) == ["&lt;b&gt;A&lt;/b&gt;"]
+    assert d["layout"]["annotations"][0]["text"].startswith("&lt;a ")
