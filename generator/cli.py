@@ -14,6 +14,8 @@ import sys
 from pathlib import Path
 from typing import Callable, Sequence
 
+from jinja2.exceptions import SecurityError
+
 from . import __version__
 from .findings import Findings, HcpsiteError, UsageError
 
@@ -224,6 +226,10 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         _err("interrupted")
         return 130
+    except SecurityError as exc:
+        _err(f"error: a template of the programme's templates/ folder tried an operation the template "
+             f"sandbox forbids ({exc}); review the programme's templates before building it")
+        return 1
     except OSError as exc:
         if exc.errno not in ENVIRONMENT_ERRNOS or os.environ.get("HCPSITE_DEBUG"):
             return _internal(exc)

@@ -17,6 +17,7 @@ from typing import Any, Iterable
 from urllib.parse import urlsplit
 
 import jinja2
+from jinja2.sandbox import SandboxedEnvironment
 import markdown as md
 import nh3
 import plotly.io as pio
@@ -147,7 +148,7 @@ def make_environment(template_dir: Path | None = None) -> jinja2.Environment:
     if template_dir is not None and Path(template_dir).is_dir():
         loaders.append(jinja2.FileSystemLoader(str(template_dir)))
     loaders.append(jinja2.FileSystemLoader(str(templates_dir())))
-    env = jinja2.Environment(
+    env = SandboxedEnvironment(
         loader=jinja2.ChoiceLoader(loaders),
         autoescape=jinja2.select_autoescape(default=True, default_for_string=True),
         undefined=jinja2.StrictUndefined,

@@ -622,3 +622,22 @@ def test_finalise_escapes_text_and_keeps_numbers_and_templates() -> None:
     assert d["layout"]["title"]["text"] == "&lt;b&gt;T&lt;/b&gt;"
     assert list(d["layout"]["xaxis"]["ticktext"]) == list(d["layout"]["xaxis"]["tickvals"]) == ["&lt;b&gt;A&lt;/b&gt;"]
     assert d["layout"]["annotations"][0]["text"].startswith("&lt;a ")
+
+
+# ---------------------------------------------------------------------------------------
+# a programme's templates run sandboxed: no way out to Python objects (jinja2 sandbox docs)
+
+
+def test_programme_template_cannot_reach_python_internals(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    from tests.progkit import make_programme
+    root = make_programme(tmp_path / "prog")
+    stock = (REPO / "templates" / "_caution.html").read_text(encoding="utf-8")
+    (root / "templates").mkdir()
+    (root / "templates" / "_caution.html").write_text(
+        "{{ ''.__class__.__mro__[1].__subclasses__() }}\n" + stock, encoding="utf-8")
+    out = tmp_path / "site"
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["build", str(root), "--out", str(out)]) == 1
+    err = capsys.readouterr().err
+    assert "internal error" not in err and "templates" in err, err
+    assert not out.exists()
