@@ -1397,8 +1397,17 @@ class _DemoWriter:
         """Write *data* to the new file *rel* (never over an existing file)."""
         path = self.folder.joinpath(*rel.split("/"))
         path.parent.mkdir(parents=True, exist_ok=True)
-        with open(path, "xb") as fh:
-            fh.write(data)
+        try:
+            with open(path, "xb") as fh:
+                try:
+                    fh.write(data)
+                except BaseException:
+                    path.unlink(missing_ok=True)  # made by this call: a partial file is not left behind
+                    raise
+        except OSError as exc:
+            if exc.filename is None and exc.errno is not None:  # e.g. a full disk: say where
+                raise OSError(exc.errno, exc.strerror or os.strerror(exc.errno), str(path)) from exc
+            raise
         self.digests[rel] = hashlib.sha256(data).hexdigest()
 
     def write_manifest(self) -> None:

@@ -641,3 +641,38 @@ def test_programme_template_cannot_reach_python_internals(tmp_path: Path, capsys
     err = capsys.readouterr().err
     assert "internal error" not in err and "templates" in err, err
     assert not out.exists()
+
+
+def test_demo_on_a_full_disk_names_the_file_and_stays_rewritable(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                                                 monkeypatch: pytest.MonkeyPatch) -> None:
+    import builtins
+    real_open = builtins.open
+    calls = {"n": 0}
+
+    class Full:
+        def __init__(self, fh):  # type: ignore[no-untyped-def]
+            self.fh = fh
+
+        def __enter__(self):  # type: ignore[no-untyped-def]
+            return self
+
+        def __exit__(self, *exc):  # type: ignore[no-untyped-def]
+            self.fh.close()
+
+        def write(self, data):  # type: ignore[no-untyped-def]
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    def fake_open(file, mode="r", *a, **kw):  # type: ignore[no-untyped-def]
+        fh = real_open(file, mode, *a, **kw)
+        if mode == "xb" and str(tmp_path) in str(file):
+            calls["n"] += 1
+            if calls["n"] == 4:
+                return Full(fh)
+        return fh
+    monkeypatch.setattr(demo, "open", fake_open, raising=False)
+    root = tmp_path / "prog"
+    assert main(["demo", str(root), "--people", "40", "--years", "2"]) == 1
+    _clean_failure(capsys.readouterr().err, str(root / "data"), "No space left on device")
+    monkeypatch.undo()
+    # what was written is listed, so the next demo may replace it
+    assert main(["demo", str(root), "--people", "40", "--years", "2"]) == 0
