@@ -344,22 +344,34 @@ def _with_path(exc: OSError, path: Path) -> OSError:
     return exc
 
 
-def _fill_empty(tmp: Path, out: Path, marker: str) -> None:
-    """Move the entries of *tmp* into the existing empty folder *out* (marker first); undo on failure."""
-    names = [marker] + sorted(n for n in os.listdir(tmp) if n != marker)
-    moved: list[str] = []
+def _write_into_empty(files: dict[str, bytes], out: Path, private: bool, marker: str,
+                      marker_text: bytes) -> int:
+    """Write *files* straight into the existing empty folder *out* (kept with its permissions).
+
+    There is no previous site to keep, so no swap: on failure everything written is
+    removed again and *out* is left empty, as it was.
+    """
+    before = {p for p in out.iterdir()}
+    writer = SiteWriter(out, private=private)
     try:
-        for name in names:
-            os.rename(tmp / name, out / name)
-            moved.append(name)
-    except BaseException:
-        for name in reversed(moved):
+        writer.write_file(marker, marker_text)
+        for rel in sorted(files):
             try:
-                os.rename(out / name, tmp / name)
+                writer.write_file(rel, files[rel])
+            except OSError as exc:
+                raise _with_path(exc, out) from exc
+    except BaseException:
+        for rel in sorted(writer.written, reverse=True):
+            out.joinpath(*rel.split("/")).unlink(missing_ok=True)
+        made = sorted((p for p in out.rglob("*") if p.is_dir() and not p.is_symlink() and p not in before),
+                      key=lambda p: len(p.parts), reverse=True)
+        for p in made:
+            try:
+                p.rmdir()
             except OSError:
                 pass
         raise
-    os.rmdir(tmp)
+    return writer.bytes
 
 
 def write_site(files: dict[str, bytes], out: Path, *, private: bool = False, marker: str = MARKER,
@@ -367,7 +379,7 @@ def write_site(files: dict[str, bytes], out: Path, *, private: bool = False, mar
     """Write *files* into a temporary sibling of *out* and swap it in; return bytes written.
 
     *private* writes folders 0700 and files 0600 (a restricted build or export). An
-    existing empty *out* folder is kept (with its permissions) and filled, not replaced.
+    existing empty *out* folder is kept (with its permissions) and written into directly.
     """
     out = Path(out).absolute()
     if out.is_symlink():
@@ -381,16 +393,20 @@ def write_site(files: dict[str, bytes], out: Path, *, private: bool = False, mar
     pid = os.getpid()
     tmp = out.parent / f"{TMP_PREFIX}{out.name}-{pid}"
     aside = out.parent / f"{TMP_PREFIX}{out.name}-{pid}-old"
+    if out.is_dir() and not any(out.iterdir()):
+        return _write_into_empty(files, out, private, marker, marker_text)
     for p in (tmp, aside):
         if p.exists() or p.is_symlink():
-            if not (p / marker).is_file():
+            if p.is_dir() and not p.is_symlink() and not any(p.iterdir()):
+                p.rmdir()  # an empty folder of an earlier process with this id
+            elif not (p / marker).is_file():
                 raise HcpsiteError(f"{p}: is in the way and was not made by hcpsite; remove it")
-            remove_tool_folder(p, marker)
+            else:
+                remove_tool_folder(p, marker)
     try:
         tmp.mkdir(mode=PRIVATE_DIR_MODE if private else 0o777)
     except OSError as exc:
         raise _with_path(exc, tmp) from exc
-    empty = out.is_dir() and not out.is_symlink() and not any(out.iterdir())
     try:
         writer = SiteWriter(tmp, private=private)
         writer.write_file(marker, marker_text)
@@ -404,17 +420,14 @@ def write_site(files: dict[str, bytes], out: Path, *, private: bool = False, mar
                 writer.write_file(rel, files[rel])
             except OSError as exc:
                 raise _with_path(exc, out) from exc
-        if empty:
-            _fill_empty(tmp, out, marker)
-        else:
-            if out.exists():
-                os.rename(out, aside)
-            try:
-                os.rename(tmp, out)
-            except OSError:
-                if aside.exists() and not out.exists():
-                    os.rename(aside, out)
-                raise
+        if out.exists():
+            os.rename(out, aside)
+        try:
+            os.rename(tmp, out)
+        except OSError:
+            if aside.exists() and not out.exists():
+                os.rename(aside, out)
+            raise
     except BaseException:
         if tmp.exists():
             remove_tool_folder(tmp, marker)

@@ -676,3 +676,25 @@ def test_demo_on_a_full_disk_names_the_file_and_stays_rewritable(tmp_path: Path,
     monkeypatch.undo()
     # what was written is listed, so the next demo may replace it
     assert main(["demo", str(root), "--people", "40", "--years", "2"]) == 0
+
+
+def test_failed_build_into_an_empty_folder_leaves_it_empty(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                                           monkeypatch: pytest.MonkeyPatch) -> None:
+    from generator.build import SiteWriter
+    root = _prog(tmp_path)
+    out = tmp_path / "chosen"
+    out.mkdir()
+    os.chmod(out, 0o710)
+    real = SiteWriter.write_file
+    calls = {"n": 0}
+
+    def full(self: SiteWriter, rel: str, data: bytes) -> Path:
+        calls["n"] += 1
+        if calls["n"] > 5:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        return real(self, rel, data)
+    monkeypatch.setattr(SiteWriter, "write_file", full)
+    with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
+        assert main(["build", str(root), "--out", str(out)]) == 1
+    _clean_failure(capsys.readouterr().err, str(out), "No space left on device")
+    assert list(out.iterdir()) == [] and stat.S_IMODE(out.stat().st_mode) == 0o710
