@@ -8,8 +8,6 @@ a folder that carries its marker.
 from __future__ import annotations
 
 import datetime as dt
-import importlib
-import importlib.util
 import logging
 import os
 import re
@@ -24,20 +22,14 @@ from . import clock
 from .config import CONFIG_FILE
 from .findings import Findings, HcpsiteError, UsageError
 from .model import Programme
-from .pages import NARRATIVE, SECTIONS, module_name
+from . import pipeline
+from .pages import page_builders
 from .pages.base import Page, SiteContext
+from .pipeline import STAGE_NAMES, Results
 from .privacy import make_coder, small_groups
 from .rules import rule_sets_for
 
 log = logging.getLogger(__name__)
-
-#: Compute stages in order: (result name, module exposing compute(programme, results)).
-STAGES: tuple[tuple[str, str], ...] = (
-    ("exposure", "generator.exposure"),
-    ("protection", "generator.protection"),
-    ("hearing", "generator.hearing"),
-    ("compliance", "generator.compliance"),
-)
 
 MARKER = ".hcpsite-site"
 MARKER_TEXT = b"This folder was made by hcpsite and is replaced as a whole by each build.\n"
@@ -59,8 +51,6 @@ class BuildReport:
     bytes: int
     findings: Findings
     stages: list[str] = field(default_factory=list)
-    skipped_stages: list[str] = field(default_factory=list)
-    skipped_sections: list[str] = field(default_factory=list)
     restricted: bool = False
     #: the SiteContext of the build (programme, results, rule sets, coder), for tests and tools
     context: Any = field(default=None, repr=False)
@@ -69,14 +59,6 @@ class BuildReport:
 def validation_today() -> dt.date:
     """Return the date future dates are judged against: SOURCE_DATE_EPOCH (UTC) or the system date."""
     return clock.today()
-
-
-def module_available(name: str) -> bool:
-    """True when module *name* exists (a missing module during development is skipped)."""
-    try:
-        return importlib.util.find_spec(name) is not None
-    except ModuleNotFoundError:
-        return False
 
 
 def load(root: Path, strict: bool = False) -> Programme:
@@ -97,41 +79,31 @@ def _stop_if_failed(root: Path, findings: Findings, strict: bool) -> None:
         raise HcpsiteError(f"{root}: {findings.summary()}{why}", findings)
 
 
-def compute(programme: Programme) -> tuple[dict[str, Any], list[str]]:
-    """Run the compute stages in order; add their findings to the programme's. Return (results, skipped)."""
-    results: dict[str, Any] = {}
-    skipped: list[str] = []
-    for name, module in STAGES:
-        if not module_available(module):
-            log.warning("stage %s (%s) is not available; skipped", name, module)
-            skipped.append(name)
-            continue
-        mod = importlib.import_module(module)
-        result = mod.compute(programme, results)
-        results[name] = result
-        programme.findings.extend(sorted(getattr(result, "findings", None) or []))
-    return results, skipped
+def compute(programme: Programme) -> Results:
+    """Run the compute pipeline (generator/pipeline.py) with the programme's rule sets."""
+    return pipeline.run(programme, rule_sets_for(programme.config))
 
 
-def make_context(programme: Programme, results: dict[str, Any], restricted: bool = False) -> SiteContext:
+def make_context(programme: Programme, results: Results, restricted: bool = False) -> SiteContext:
     """Return the SiteContext: rule sets, person codes and suppressed groups; adds the no-key warning."""
     cfg = programme.config
     people = programme.table("people")
     code, warning = make_coder(people, os.environ.get(cfg.privacy.id_key_env) or None, cfg.privacy.id_key_env)
     if warning is not None:
         programme.findings.extend([warning])
-    return SiteContext(programme=programme, results=results, rules=rule_sets_for(cfg), code=code,
+    return SiteContext(programme=programme, results=results, rules=results.rules, code=code,
                        suppressed_groups=small_groups(people, cfg.privacy.min_group_size),
                        restricted=restricted)
 
 
-def prepare(root: Path, *, strict: bool = False, restricted: bool = False) -> tuple[SiteContext, list[str]]:
-    """Load, validate and compute; return the context and skipped stages. Raise HcpsiteError on failure."""
+def prepare(root: Path, *, strict: bool = False, restricted: bool = False) -> SiteContext:
+    """Load, validate and compute; return the site context. Raise HcpsiteError on failure."""
     programme = load(root, strict)
-    results, skipped = compute(programme)
+    results = compute(programme)
+    programme.findings.extend(results.findings())
     ctx = make_context(programme, results, restricted)
     _stop_if_failed(root, programme.findings, strict)
-    return ctx, skipped
+    return ctx
 
 
 def _add_pages(ctx: SiteContext, pages: list[Page]) -> None:
@@ -139,20 +111,10 @@ def _add_pages(ctx: SiteContext, pages: list[Page]) -> None:
     ctx.pages.extend(p for p in pages if id(p) not in known)
 
 
-def build_pages(ctx: SiteContext) -> list[str]:
-    """Run the page builders in SECTIONS order (narrative pages after the overview); return skipped sections."""
-    skipped: list[str] = []
-    order = [s for s, _ in SECTIONS]
-    order.insert(order.index("index") + 1, NARRATIVE)
-    for section in order:
-        module = module_name(section)
-        if not module_available(module):
-            log.warning("section %s (%s) is not available; skipped", section, module)
-            skipped.append(section)
-            continue
-        mod = importlib.import_module(module)
-        _add_pages(ctx, list(mod.build(ctx)))
-    return skipped
+def build_pages(ctx: SiteContext) -> None:
+    """Run the page builders in navigation order (narrative pages right after the overview)."""
+    for builder in page_builders():
+        _add_pages(ctx, list(builder(ctx)))
 
 
 #: image files beside the narrative pages that are copied into the site (no SVG: it can carry script).
@@ -446,14 +408,13 @@ def build_site(root: Path, out: Path | None = None, *, strict: bool = False,
     out = Path(out) if out is not None else root / DEFAULT_OUT
     check_output(root, out)
     clean_stale(Path(out).resolve())
-    ctx, skipped_stages = prepare(root, strict=strict, restricted=restricted)
-    skipped_sections = build_pages(ctx)
+    ctx = prepare(root, strict=strict, restricted=restricted)
+    build_pages(ctx)
     files = render_site(ctx)
     files.update(narrative_images(root, set(files)))
     size = write_site(files, out, private=restricted)
     pages = sorted(p.slug for p in ctx.pages if restricted or not p.restricted)
     log.info("built %d pages (%d files, %d bytes) into %s", len(pages), len(files) + 1, size, out)
     return BuildReport(out=out.resolve(), pages=pages, files=len(files) + 1, bytes=size,
-                       findings=ctx.programme.findings, stages=list(ctx.results),
-                       skipped_stages=skipped_stages, skipped_sections=skipped_sections,
+                       findings=ctx.programme.findings, stages=list(STAGE_NAMES),
                        restricted=restricted, context=ctx)

@@ -84,7 +84,7 @@ def cmd_new(args: argparse.Namespace) -> int:
 def cmd_check(args: argparse.Namespace) -> int:
     """Load, validate and compute without writing anything."""
     from .build import prepare
-    ctx, _ = prepare(args.dir, strict=args.strict)
+    ctx = prepare(args.dir, strict=args.strict)
     findings = ctx.programme.findings
     _print_findings(findings)
     _err(f"{args.dir}: {findings.summary()}; ok")

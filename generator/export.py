@@ -18,6 +18,7 @@ from typing import Any, Callable
 import numpy as np
 import pandas as pd
 
+from .pipeline import Results
 from .pages.base import SiteContext
 from .privacy import redactor
 
@@ -61,11 +62,9 @@ EXPORTS: tuple[ExportSpec, ...] = (
 PERSON_COLUMNS = ("person_id",)
 
 
-def stage_frame(results: dict[str, Any], spec: ExportSpec) -> pd.DataFrame | None:
-    """Return the DataFrame a stage result holds for *spec*, or None when the stage did not run."""
-    res = results.get(spec.stage)
-    if res is None:
-        return None
+def stage_frame(results: Results, spec: ExportSpec) -> pd.DataFrame | None:
+    """Return the DataFrame a stage result holds for *spec*."""
+    res = getattr(results, spec.stage)
     for attr in spec.attributes:
         frame = getattr(res, attr, None)
         if callable(frame) and not isinstance(frame, pd.DataFrame):
@@ -184,7 +183,7 @@ def _json_ready(v: Any) -> Any:
 def summary_json(ctx: SiteContext) -> bytes:
     """Return the headline figures of the overview as sorted JSON."""
     prog = ctx.programme
-    comp = ctx.results.get("compliance")
+    comp = ctx.results.compliance
     data: dict[str, Any] = {
         "title": prog.config.title,
         "organisation": prog.config.organisation,
@@ -241,7 +240,7 @@ def export_results(root: Path, to: Path, *, restricted: bool = False, strict: bo
     to = Path(to)
     check_output(root, to, marker=EXPORT_MARKER, what="export")
     clean_stale(to.resolve(), EXPORT_MARKER)
-    ctx, _ = prepare(root, strict=strict, restricted=restricted)
+    ctx = prepare(root, strict=strict, restricted=restricted)
     files = export_files(ctx)
     write_site(files, to, private=restricted, marker=EXPORT_MARKER, marker_text=EXPORT_MARKER_TEXT)
     written = [to / name for name in sorted(files)]

@@ -17,7 +17,7 @@ import sys
 import threading
 import time
 from pathlib import Path
-from typing import Callable
+from typing import BinaryIO, Callable
 
 from .findings import HcpsiteError
 
@@ -131,7 +131,7 @@ class _Handler(http.server.SimpleHTTPRequestHandler):
         self.end_headers()
         return io.BytesIO(data)
 
-    def send_head(self):  # type: ignore[no-untyped-def] - stdlib signature
+    def send_head(self) -> io.BytesIO | BinaryIO | None:
         """Return the build counter, a page with the reload script, or any other file unchanged."""
         path = self.path.split("?", 1)[0].split("#", 1)[0]
         if path == BUILD_ENDPOINT:

@@ -566,7 +566,7 @@ def _person_pages(ctx: SiteContext, h: HearingResult) -> list[Page]:
 
 def build(ctx: SiteContext) -> list[Page]:
     """Return the hearing pages (person pages only in a restricted build)."""
-    h = ctx.results.get("hearing")
+    h = ctx.results.hearing
     if h is None:
         return [Page(slug="hearing", title="Hearing", template="hearing.html", section="hearing",
                      context={"has_data": False, "notes": ["The hearing stage did not run."], "tiles": [],
