@@ -24,6 +24,7 @@ from .findings import Findings, HcpsiteError, UsageError
 from .model import Programme
 from . import pipeline
 from .pages import page_builders
+from .pages.people import link_person_codes
 from .pages.base import Page, SiteContext
 from .pipeline import STAGE_NAMES, Results
 from .privacy import make_coder, small_groups
@@ -115,6 +116,7 @@ def build_pages(ctx: SiteContext) -> None:
     """Run the page builders in navigation order (narrative pages right after the overview)."""
     for builder in page_builders():
         _add_pages(ctx, list(builder(ctx)))
+    link_person_codes(ctx, ctx.pages)
 
 
 #: image files beside the narrative pages that are copied into the site (no SVG: it can carry script).
