@@ -375,16 +375,31 @@ def _prepare(programme: Programme) -> pd.DataFrame:
         "birth_date": _dates(_col(people, "birth_date", pd.NaT)),
         "hire_date": _dates(_col(people, "hire_date", pd.NaT)),
     }).drop_duplicates("person_id")
-    ag = ag.merge(pp, on="person_id", how="left")
-    ag["group"] = ag["group"].fillna("")
-    ag["sex"] = ag["sex"].fillna("")
-    ag = ag.sort_values(["person_id", "ear", "date"], kind="mergesort").reset_index(drop=True)
+    # person ids become integers once (codes in sorted id order); every later step keys,
+    # sorts and groups on them, never on the id text
+    codes, uniques = pd.factorize(ag["person_id"], sort=True)
+    pid = codes.astype(np.int64)
+    right = ag["ear"].eq("R").to_numpy()
+    order = np.lexsort((ag["date"].to_numpy("datetime64[ns]"), right, pid))
+    ag = ag.take(order).reset_index(drop=True)
+    pid = pid[order]
+    # people's attributes joined by position (one hash of the ids, no frame merge)
+    at = pd.Index(pp["person_id"]).get_indexer(pd.Index(uniques))[pid]
+    found = at >= 0
+    at0 = np.where(found, at, 0)
+    for c, empty in (("group", ""), ("sex", ""), ("birth_date", pd.NaT), ("hire_date", pd.NaT)):
+        src = pp[c].to_numpy()
+        vals = src[at0] if len(src) else np.full(len(at0), empty, dtype=object)
+        if c.endswith("_date"):
+            ag[c] = _dates(pd.Series(np.where(found, vals, np.datetime64("NaT")), dtype="datetime64[ns]"))
+        else:
+            ag[c] = pd.Series(np.where(found, vals, empty), dtype=object).astype(str)
     ag["year"] = ag["date"].dt.year.astype(int)
     ag["age"] = age_at(ag["birth_date"], ag["date"])
     ag["nr_any"] = ag[[f"nr_{f}" for f in AUDIO_FREQS]].any(axis=1)
     ag["nr_234"] = ag[[f"nr_{f}" for f in STS_FREQS]].any(axis=1)
-    ag["_pid"] = pd.factorize(ag["person_id"], sort=True)[0].astype(np.int64)
-    key = ag["_pid"].to_numpy() * 2 + ag["ear"].eq("R").to_numpy()
+    ag["_pid"] = pid
+    key = pid * 2 + ag["ear"].eq("R").to_numpy()
     same = np.zeros(len(ag), dtype=bool)
     if len(ag) > 1:
         same[1:] = key[1:] == key[:-1]
@@ -461,32 +476,74 @@ def _baseline_events(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
     return ev
 
 
+def _ear_key(ag: pd.DataFrame) -> np.ndarray:
+    """Return the integer key of each row's person and ear (non-decreasing in the sorted frame)."""
+    return ag["_pid"].to_numpy(np.int64) * 2 + ag["ear"].eq("R").to_numpy()
+
+
+def _row_of(ag: pd.DataFrame, person_id: Any, ear: Any, date: Any) -> np.ndarray:
+    """Return the position in *ag* of each (person_id, ear, date), -1 where there is none."""
+    if not len(ag):
+        return np.full(len(np.asarray(person_id)), -1, dtype=np.int64)
+    key = _ear_key(ag)
+    first = np.r_[True, ag["_pid"].to_numpy()[1:] != ag["_pid"].to_numpy()[:-1]]
+    pid = pd.Index(ag["person_id"].to_numpy()[first]).get_indexer(pd.Index(np.asarray(person_id, dtype=object)))
+    k = np.where(pid >= 0, pid.astype(np.int64) * 2 + (np.asarray(ear, dtype=object) == "R"), -1)
+    index = pd.MultiIndex.from_arrays([key, ag["date"].to_numpy("datetime64[ns]")])
+    pos = index.get_indexer(pd.MultiIndex.from_arrays([k, _dates(pd.Series(date)).to_numpy("datetime64[ns]")]))
+    return np.where(pid >= 0, pos, -1).astype(np.int64)
+
+
 def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
-    """Add baseline_date, baseline_source and the baseline thresholds to each audiogram row."""
-    ag = ag.copy()
-    ag["_i"] = np.arange(len(ag))
-    left = ag[["_i", "person_id", "ear", "date"]].sort_values("date", kind="mergesort")
-    right = events[["person_id", "ear", "baseline_date", "source"]].copy()
+    """Add baseline_date, baseline_source and the baseline thresholds to each audiogram row.
+
+    One pass over integer keys: the event in force for each row is found by one stable sort
+    of rows and events together; the baseline's thresholds are taken by position.
+    """
+    n = len(ag)
+    key = _ear_key(ag)
+    ev_pos = _row_of(ag, events["person_id"].to_numpy(object), events["ear"].to_numpy(object),
+                     events["baseline_date"])
+    ev_key = np.where(ev_pos >= 0, key[np.clip(ev_pos, 0, max(n - 1, 0))] if n else -1, -1)
     # 29 CFR 1910.95(g)(9), 1904.10(b)(2): a revised baseline takes effect for the audiograms
     # AFTER the one it names; that audiogram is still compared with the baseline before it.
     # The first baseline of an ear applies to its own date (it is compared with itself).
-    first = ~right.duplicated(["person_id", "ear"], keep="first")
-    later = right["source"].eq("revised by review") & ~first
-    right["_eff"] = right["baseline_date"] + pd.to_timedelta(later.astype(np.int64).to_numpy(), unit="ns")
-    right = right.sort_values("_eff", kind="mergesort")
-    if right.empty:
-        ag["baseline_date"] = pd.Series(pd.NaT, index=ag.index, dtype="datetime64[ns]")
-        ag["baseline_source"] = ""
-    else:
-        m = pd.merge_asof(left, right, left_on="date", right_on="_eff", by=["person_id", "ear"],
-                          direction="backward").set_index("_i").sort_index()
-        ag["baseline_date"] = _dates(m["baseline_date"].to_numpy())
-        ag["baseline_source"] = m["source"].fillna("").to_numpy()
+    first = ~events.duplicated(["person_id", "ear"], keep="first").to_numpy()
+    later = events["source"].eq("revised by review").to_numpy() & ~first
+    eff = _dates(events["baseline_date"]).to_numpy("datetime64[ns]").view(np.int64)
+    # rows and events in one order: by key, then time; at equal time an event that takes
+    # effect on the day (not a later revision) comes before the row
+    m = len(events)
+    t_all = np.r_[eff, ag["date"].to_numpy("datetime64[ns]").view(np.int64)]
+    k_all = np.r_[ev_key, key]
+    kind = np.r_[np.where(later, 2, 0), np.ones(n, dtype=np.int64)]
+    order = np.lexsort((kind, t_all, k_all))
+    is_ev = order < m
+    last_ev = np.where(is_ev, np.arange(len(order)), -1)
+    last_ev = np.maximum.accumulate(last_ev) if len(order) else last_ev
+    rows = ~is_ev
+    cand = last_ev[rows]
+    ev_of = np.where(cand >= 0, order[np.clip(cand, 0, None)], -1)
+    row_at = order[rows] - m
+    in_force = np.full(n, -1, dtype=np.int64)
+    ok = (ev_of >= 0)
+    ok[ok] = ev_key[ev_of[ok]] == key[row_at[ok]]
+    in_force[row_at[ok]] = ev_of[ok]
+    has = in_force >= 0
+    ev_i = np.clip(in_force, 0, None)
+    bdate = _dates(events["baseline_date"]).to_numpy("datetime64[ns]")
+    src = events["source"].astype(object).to_numpy()
+    ag["baseline_date"] = pd.Series(np.where(has, bdate[ev_i] if m else np.datetime64("NaT"),
+                                             np.datetime64("NaT")), dtype="datetime64[ns]")
+    ag["baseline_source"] = pd.Series(np.where(has, src[ev_i] if m else "", ""), dtype=object).astype(str) \
+        if m else ""
+    bpos = np.where(has, ev_pos[ev_i] if m else -1, -1)
+    has_b = bpos >= 0
+    bi = np.clip(bpos, 0, None)
     base_cols = [f"hl_{f}" for f in AUDIO_FREQS] + ["age", "avg_234"]
-    base = ag[["person_id", "ear", "date"] + base_cols].rename(
-        columns={c: f"base_{c}" for c in base_cols} | {"date": "baseline_date"})
-    ag = ag.merge(base, on=["person_id", "ear", "baseline_date"], how="left")
-    ag = ag.sort_values("_i", kind="mergesort").drop(columns="_i").reset_index(drop=True)
+    for c in base_cols:
+        v = ag[c].to_numpy(float)
+        ag[f"base_{c}"] = np.where(has_b, v[bi] if n else np.nan, np.nan)
     return ag
 
 
@@ -495,10 +552,11 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     has_base = ag["baseline_date"].notna()
     diffs = np.stack([(ag[f"hl_{f}"] - ag[f"base_hl_{f}"]).to_numpy() for f in STS_FREQS], axis=1)
     ag["shift_234"] = diffs.mean(axis=1)
-    corr = np.stack([
-        norms.appf_correction(ag["age"].to_numpy(), f, ag["sex"].to_numpy(object))
-        - norms.appf_correction(ag["base_age"].to_numpy(), f, ag["sex"].to_numpy(object))
-        for f in STS_FREQS], axis=1)
+    # the App. F table is indexed once per row for the test age and once for the baseline age
+    sex = ag["sex"].to_numpy(object)
+    age_c = _appf(ag["age"].to_numpy(float), sex)
+    base_c = _appf(ag["base_age"].to_numpy(float), sex)
+    corr = age_c - base_c
     for j, f in enumerate(STS_FREQS):
         ag[f"shift_{f}"] = diffs[:, j]
         ag[f"shift_{f}_age_corrected"] = diffs[:, j] - corr[:, j]
@@ -527,10 +585,10 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     prev_has = _prv(has_base.to_numpy(bool), sp, False).astype(bool)
     pbase = {f: _prv(ag[f"base_hl_{f}"].to_numpy(float), sp, np.nan) for f in AUDIO_FREQS}
     pdiffs = np.stack([ag[f"hl_{f}"].to_numpy(float) - pbase[f] for f in STS_FREQS], axis=1)
-    pcorr = np.stack([
-        norms.appf_correction(ag["age"].to_numpy(), f, ag["sex"].to_numpy(object))
-        - norms.appf_correction(_prv(ag["base_age"].to_numpy(float), sp, np.nan), f, ag["sex"].to_numpy(object))
-        for f in STS_FREQS], axis=1)
+    # the previous row is the same person (same sex): its baseline's correction, shifted down
+    pbase_c = np.where(sp[:, None], np.vstack([np.full((1, len(STS_FREQS)), np.nan), base_c[:-1]]), np.nan) \
+        if len(ag) else base_c
+    pcorr = age_c - pbase_c
     praw = pdiffs.mean(axis=1)
     pcor = (pdiffs - pcorr).mean(axis=1)
     raw_p = _nbool(_ge(praw, SETTINGS["sts_db"]), np.isfinite(praw) & prev_has)
@@ -551,6 +609,22 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     ag["niosh_shift"] = np.any(np.stack(conf, axis=1), axis=1)
     ag["niosh_freqs"] = _freq_list(np.stack(conf, axis=1), NIOSH_FREQS)
     return ag
+
+
+def _appf(age: np.ndarray, sex: np.ndarray) -> np.ndarray:
+    """Return the App. F age correction at 2000, 3000 and 4000 Hz per row, shape (n, 3).
+
+    The same values as ``norms.appf_correction`` (Tables F-1/F-2), with the table looked up
+    once for all three frequencies.
+    """
+    cols = [norms.APPF_FREQS.index(f) for f in STS_FREQS]
+    male, female = norms._sex_codes(sex)
+    a_ok = np.isfinite(age)
+    row = (np.clip(np.floor(np.where(a_ok, age, 20.0)), 20, 60) - 20).astype(int)
+    m = norms._APPF_MALE[:, cols][row].astype(float)
+    f = norms._APPF_FEMALE[:, cols][row].astype(float)
+    out = np.where(male[:, None], m, np.where(female[:, None], f, np.nan))
+    return np.where(a_ok[:, None], out, np.nan)
 
 
 def _freq_list(mask: np.ndarray, freqs: tuple[int, ...]) -> np.ndarray:
@@ -636,7 +710,7 @@ def _status_and_cases(ag: pd.DataFrame) -> pd.DataFrame:
     ag["shift_status"] = status
     crit = active & ~nwr & _ge(ag["avg_234"], SETTINGS["recordable_db"])
     ag["recordable_criteria"] = crit
-    first = pd.Series(crit).groupby([ag["person_id"], ag["ear"], ag["baseline_date"]], sort=False,
+    first = pd.Series(crit).groupby([_ear_key(ag), ag["baseline_date"].to_numpy()], sort=False,
                                     dropna=False).cumsum()
     ag["recordable"] = crit & (first.to_numpy() == 1)
     # determination date: the retest when it confirmed, else the audiogram
@@ -678,7 +752,8 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
     q = cur["quiet_hours"]
     cur["quiet_ok"] = _nbool(_ge(q, min_quiet), q.notna())
     # candidates among rows compared with the baseline now in force
-    rows = ag.merge(cur[["person_id", "ear", "baseline_date"]], on=["person_id", "ear", "baseline_date"])
+    rows = ag[["person_id", "ear", "baseline_date", "sts", "retest_status", "sts_computed", "shift_234", "date"]] \
+        .merge(cur[["person_id", "ear", "baseline_date"]], on=["person_id", "ear", "baseline_date"])
     def keys(df: pd.DataFrame) -> pd.Series:
         return df["person_id"].astype(str) + "\x1f" + df["ear"].astype(str)
 
@@ -856,13 +931,15 @@ def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start:
 
 def _last_per_year(ag: pd.DataFrame) -> pd.DataFrame:
     """Return the latest audiogram per person, ear and year, retests of a shift left out."""
-    main = ag[~ag["is_retest_of_shift"].to_numpy(bool)]
-    key = main["_pid"].to_numpy() * 2 + main["ear"].eq("R").to_numpy()
-    yr = main["year"].to_numpy()
-    last = np.ones(len(main), dtype=bool)
-    if len(main) > 1:
+    pos = np.flatnonzero(~ag["is_retest_of_shift"].to_numpy(bool))
+    key = _ear_key(ag)[pos]
+    yr = ag["year"].to_numpy()[pos]
+    last = np.ones(len(pos), dtype=bool)
+    if len(pos) > 1:
         last[:-1] = (key[1:] != key[:-1]) | (yr[1:] != yr[:-1])
-    return main[last]
+    # only the columns the population views read: no copy of the wide frame
+    cols = ["_pid", "year", "ear", "avg_234", "nr_234"] + [f"hl_{f}" for f in NIOSH_FREQS]
+    return ag[cols].take(pos[last])
 
 
 def _per_person_year(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
@@ -978,8 +1055,10 @@ def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
 
 def _latest_per_ear(ag: pd.DataFrame, as_of: pd.Timestamp) -> pd.DataFrame:
     """Return the latest audiogram per person and ear on or before *as_of*."""
-    a = ag[(ag["date"] <= as_of)]
-    return a.drop_duplicates(["person_id", "ear"], keep="last")
+    pos = np.flatnonzero((ag["date"] <= as_of).to_numpy(bool))
+    key = _ear_key(ag)[pos]
+    last = np.r_[key[1:] != key[:-1], True] if len(pos) else np.zeros(0, dtype=bool)
+    return ag.take(pos[last])
 
 
 def _age_norms(ag: pd.DataFrame, as_of: pd.Timestamp) -> pd.DataFrame:
@@ -1095,10 +1174,15 @@ def _findings(programme: Programme, ag: pd.DataFrame, baselines: pd.DataFrame, m
     out: list[Finding] = []
     path = _path(programme, "audiograms")
 
-    def add(mask: pd.Series | np.ndarray, column: str, message: str | pd.Series, key: str) -> None:
-        rows = ag.loc[np.asarray(mask, dtype=bool)]
-        msgs = message.loc[rows.index] if isinstance(message, pd.Series) else [message] * len(rows)
-        for r, m in zip(rows["_row"].to_numpy(), msgs):
+    src_rows = ag["_row"].to_numpy()
+
+    def add(mask: pd.Series | np.ndarray, column: str, message: Any, key: str) -> None:
+        """Add one finding per flagged row; *message* is text or a function of the flagged positions."""
+        pos = np.flatnonzero(np.asarray(mask, dtype=bool))
+        if not len(pos):
+            return
+        msgs = message(pos) if callable(message) else [message] * len(pos)
+        for r, m in zip(src_rows[pos], msgs):
             out.append(Finding(path, None if pd.isna(r) else int(r), column, WARNING, str(m), key=key))
 
     for f in AUDIO_FREQS:
@@ -1109,20 +1193,22 @@ def _findings(programme: Programme, ag: pd.DataFrame, baselines: pd.DataFrame, m
         add(ag[f"hl_{f}"].isna() & ~ag[f"nr_{f}"], f"hl_{f}",
             f"{f} Hz not tested: the 2000/3000/4000 Hz average and the STS cannot be computed", key=f"blank-{f}")
     if not baselines.empty:
-        b = ag.merge(baselines[["person_id", "ear", "baseline_date"]], left_on=["person_id", "ear", "date"],
-                     right_on=["person_id", "ear", "baseline_date"], how="left", indicator=True)["_merge"].eq("both")
-        b = b.to_numpy()
+        b = np.zeros(len(ag), dtype=bool)
+        at = _row_of(ag, baselines["person_id"].to_numpy(object), baselines["ear"].to_numpy(object),
+                     baselines["baseline_date"])
+        b[at[at >= 0]] = True
         q = ag["quiet_hours"]
         add(b & q.notna().to_numpy() & ~_ge(q, min_quiet), "quiet_hours",
-            "baseline audiogram after " + q.round(1).astype(str) + f" h without workplace noise (the programme asks "
-            f"for at least {min_quiet:g} h: {cl['quiet']}); the reviewer may want a new baseline",
+            lambda pos: "baseline audiogram after " + q.iloc[pos].round(1).astype(str)
+            + f" h without workplace noise (the programme asks for at least {min_quiet:g} h: {cl['quiet']}); "
+              "the reviewer may want a new baseline",
             key="baseline-quiet")
         add(b & q.isna().to_numpy(), "quiet_hours", "baseline audiogram: the quiet period before the test is not "
             "recorded", key="baseline-quiet-missing")
     vc = ag["valid_check"]
     bad = vc.notna() & ~vc.fillna(True).astype(bool)
-    add(bad, "audiometer_id", "audiogram on a day without a valid audiometer check: "
-        + ag["check_reason"].fillna("").astype(str), key="audiometer-check")
+    add(bad, "audiometer_id", lambda pos: "audiogram on a day without a valid audiometer check: "
+        + ag["check_reason"].iloc[pos].fillna("").astype(str), key="audiometer-check")
     no_sex = ag["sex"].eq("") & ag["baseline_date"].notna()
     if no_sex.any():
         ppath = _path(programme, "people")
