@@ -553,7 +553,7 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     diffs = np.stack([(ag[f"hl_{f}"] - ag[f"base_hl_{f}"]).to_numpy() for f in STS_FREQS], axis=1)
     ag["shift_234"] = diffs.mean(axis=1)
     # the App. F table is indexed once per row for the test age and once for the baseline age
-    sex = ag["sex"].to_numpy(object)
+    sex = norms._sex_codes(ag["sex"].to_numpy(object))
     age_c = _appf(ag["age"].to_numpy(float), sex)
     base_c = _appf(ag["base_age"].to_numpy(float), sex)
     corr = age_c - base_c
@@ -568,13 +568,13 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     ag["osha_sts_age_corrected"] = _nbool(_ge(ag["shift_234_age_corrected"], SETTINGS["sts_db"]), known_c)
     if age_correction:
         drive = ag["osha_sts_age_corrected"].where(ag["osha_sts_age_corrected"].notna(), ag["osha_sts"])
-        ag["sts_basis"] = np.where(ag["osha_sts_age_corrected"].notna(), "age corrected",
-                                   np.where(ag["osha_sts"].notna(), "not age corrected (sex or age unknown)", ""))
+        basis = np.array(["", "not age corrected (sex or age unknown)", "age corrected"], dtype=object)
+        ag["sts_basis"] = basis[np.where(known_c, 2, known.astype(np.int64))]
         ag["shift_driving"] = ag["shift_234_age_corrected"].where(
             ag["shift_234_age_corrected"].notna(), ag["shift_234"])
     else:
         drive = ag["osha_sts"]
-        ag["sts_basis"] = np.where(ag["osha_sts"].notna(), "not age corrected", "")
+        ag["sts_basis"] = np.array(["", "not age corrected"], dtype=object)[known.astype(np.int64)]
         ag["shift_driving"] = ag["shift_234"]
     ag["sts_computed"] = drive.astype("boolean")
     # the same comparisons against the baseline in force at the PREVIOUS test of the ear: a
@@ -611,14 +611,14 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     return ag
 
 
-def _appf(age: np.ndarray, sex: np.ndarray) -> np.ndarray:
+def _appf(age: np.ndarray, sex: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
     """Return the App. F age correction at 2000, 3000 and 4000 Hz per row, shape (n, 3).
 
     The same values as ``norms.appf_correction`` (Tables F-1/F-2), with the table looked up
     once for all three frequencies.
     """
     cols = [norms.APPF_FREQS.index(f) for f in STS_FREQS]
-    male, female = norms._sex_codes(sex)
+    male, female = sex  # masks from norms._sex_codes
     a_ok = np.isfinite(age)
     row = (np.clip(np.floor(np.where(a_ok, age, 20.0)), 20, 60) - 20).astype(int)
     m = norms._APPF_MALE[:, cols][row].astype(float)
@@ -630,9 +630,12 @@ def _appf(age: np.ndarray, sex: np.ndarray) -> np.ndarray:
 def _freq_list(mask: np.ndarray, freqs: tuple[int, ...]) -> np.ndarray:
     """Return, per row, the frequencies where *mask* is True as text like '4000, 6000'."""
     out = np.full(mask.shape[0], "", dtype=object)
+    hit = np.flatnonzero(mask.any(axis=1))  # text only for the rows with a frequency
+    sub = out[hit]
     for j, f in enumerate(freqs):
-        add = mask[:, j]
-        out = np.where(add & (out == ""), str(f), np.where(add, out + f", {f}", out))
+        add = mask[hit, j]
+        sub = np.where(add & (sub == ""), str(f), np.where(add, sub + f", {f}", sub))
+    out[hit] = sub
     return out
 
 
