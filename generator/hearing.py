@@ -391,7 +391,7 @@ def _prepare(programme: Programme) -> pd.DataFrame:
         src = pp[c].to_numpy()
         vals = src[at0] if len(src) else np.full(len(at0), empty, dtype=object)
         if c.endswith("_date"):
-            ag[c] = _dates(pd.Series(np.where(found, vals, np.datetime64("NaT")), dtype="datetime64[ns]"))
+            ag[c] = _dates(pd.Series(np.where(found, vals, np.datetime64("NaT", "ns")), dtype="datetime64[ns]"))
         else:
             ag[c] = pd.Series(np.where(found, vals, empty), dtype=object).astype(str)
     ag["year"] = ag["date"].dt.year.astype(int)
@@ -533,8 +533,8 @@ def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
     ev_i = np.clip(in_force, 0, None)
     bdate = _dates(events["baseline_date"]).to_numpy("datetime64[ns]")
     src = events["source"].astype(object).to_numpy()
-    ag["baseline_date"] = pd.Series(np.where(has, bdate[ev_i] if m else np.datetime64("NaT"),
-                                             np.datetime64("NaT")), dtype="datetime64[ns]")
+    ag["baseline_date"] = pd.Series(np.where(has, bdate[ev_i] if m else np.datetime64("NaT", "ns"),
+                                             np.datetime64("NaT", "ns")), dtype="datetime64[ns]")
     ag["baseline_source"] = pd.Series(np.where(has, src[ev_i] if m else "", ""), dtype=object).astype(str) \
         if m else ""
     bpos = np.where(has, ev_pos[ev_i] if m else -1, -1)
@@ -647,7 +647,7 @@ def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
     # the next test judged against this test's baseline (the one in force before a revision
     # that names this test: 1910.95(g)(9), 1904.10(b)(2))
     vs_prev = ag["_sts_vs_prev_base"]
-    nat = np.datetime64("NaT")
+    nat = np.datetime64("NaT", "ns")
     d = ag["date"].to_numpy("datetime64[ns]")
     prev_date = pd.Series(_prv(d, sp, nat), index=ag.index)
     next_date = pd.Series(_nxt(d, sn, nat), index=ag.index)
