@@ -20,7 +20,6 @@ import pandas as pd
 
 from .pipeline import Results
 from .pages.base import SiteContext
-from .privacy import redactor
 
 log = logging.getLogger(__name__)
 
@@ -216,7 +215,7 @@ def export_files(ctx: SiteContext) -> dict[str, bytes]:
             else:
                 table = pseudonymise(table, ctx.code, ids)
             if "detail" in table.columns:
-                clean = redactor(people, ctx.code)
+                clean = ctx.redact
                 texts = table["detail"].astype("string").fillna("")
                 table["detail"] = texts.map({t: clean(t) for t in sorted(set(texts.tolist()))}).astype(object)
         files[spec.file] = frame_to_csv(table)

@@ -6,7 +6,6 @@ import logging
 import pandas as pd
 
 from .. import charts
-from ..privacy import redactor
 from .base import Chart, Page, SiteContext, Table
 from .programme import IN_ACTIONS_CSV, LIST_CAP, cap_caption, cap_rows
 
@@ -42,7 +41,7 @@ def urgent_first(actions: pd.DataFrame) -> pd.DataFrame:
 def public_actions(actions: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
     """Return the action list with person subjects coded and ids or names in the text withheld."""
     a = label_actions(actions)
-    redact = redactor(ctx.programme.table("people"), ctx.code)
+    redact = ctx.redact
     person = a["subject_type"].astype(str).eq("person")
     a["subject_shown"] = [ctx.code(s) if p else str(s) for s, p in zip(a["subject"], person)]
     a["detail"] = [redact(str(d)) for d in a["detail"]]

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass, field
+from functools import cached_property
 from typing import TYPE_CHECKING, Any, Callable
 
 from ..model import Programme
@@ -82,6 +83,12 @@ class SiteContext:
     restricted: bool = False
     #: pages built so far (the printable review reads them)
     pages: list[Page] = field(default_factory=list)
+
+    @cached_property
+    def redact(self) -> Callable[[str], str]:
+        """Return the free-text redactor of this build (raw ids, names, birth dates), built once."""
+        from ..privacy import redactor
+        return redactor(self.programme.table("people"), self.code)
 
     @property
     def headline(self) -> RuleSet:

@@ -13,7 +13,6 @@ import plotly.graph_objects as go
 from .. import charts
 from .. import levels as lv
 from ..exposure import BASIS_LABELS, PARAMETERS, ExposureResult, action_value, band_names
-from ..privacy import redactor
 from .base import Chart, Page, SiteContext, Table, group_slugs
 
 log = logging.getLogger(__name__)
@@ -520,7 +519,7 @@ def build(ctx: SiteContext) -> list[Page]:
     if res is None:
         return []
     head = ctx.headline
-    redact = redactor(ctx.programme.table("people"), ctx.code)
+    redact = ctx.redact
     codes = res.groups["group"].tolist()
     slugs = group_slugs(codes)
     m = res.measurements

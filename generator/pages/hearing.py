@@ -442,10 +442,10 @@ def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Pa
         return Page(slug=full, title=f"Hearing: {group}", template="hearing_group.html", section="hearing",
                     context={"group": group, "suppressed": True, "tiles": [], "shifts_table": None,
                              "followups_table": None, "group_name": group})
-    a = _in_period(h.audiograms, "date", start, end)
-    a = a[a["group"] == group]
+    in_group = (h.audiograms["group"] == group).to_numpy(bool)
+    a = _in_period(h.audiograms[in_group], "date", start, end)
     fu = _due_followups(h.followups, start, end)
-    fu = fu[fu["person_id"].isin(set(h.audiograms.loc[h.audiograms["group"] == group, "person_id"]))]
+    fu = fu[fu["person_id"].isin(h.audiograms.loc[in_group, "person_id"].unique())]
     cases = _in_period(h.cases, "date", start, end)
     cases = cases[cases["group"] == group]
     page_charts = [
@@ -469,7 +469,7 @@ def build(ctx: SiteContext) -> list[Page]:
         return [Page(slug="hearing", title="Hearing", template="hearing.html", section="hearing",
                      context={"has_data": False, "notes": ["The hearing stage did not run."], "tiles": [],
                               "group_links": [], "any_suppressed": False, "people_index": ctx.restricted}, in_nav=True)]
-    groups = sorted(set(h.audiograms["group"].astype(str)) - {""}) if not h.audiograms.empty else []
+    groups = sorted(set(h.audiograms["group"].astype(str).unique()) - {""}) if not h.audiograms.empty else []
     slugs = group_slugs(groups)
     pages = [_overview(ctx, h, slugs)]
     pages += [_group_page(ctx, h, g, slugs[g]) for g in groups]

@@ -4,7 +4,6 @@ from __future__ import annotations
 import logging
 
 from ..findings import ERROR, WARNING
-from ..privacy import redactor
 from .base import Page, SiteContext, Table
 
 log = logging.getLogger(__name__)
@@ -26,7 +25,7 @@ def _rows_text(rows: list[int]) -> str:
 def build(ctx: SiteContext) -> list[Page]:
     """Return the data-quality page."""
     findings = ctx.programme.findings
-    clean = (lambda t: t) if ctx.restricted else redactor(ctx.programme.table("people"), ctx.code)
+    clean = (lambda t: t) if ctx.restricted else ctx.redact
     groups = sorted(findings.groups(), key=lambda g: (g.level != ERROR, g.path, g.column or "",
                                                       g.items[0].row or 0))
     n_groups = len(groups)
