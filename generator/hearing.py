@@ -476,6 +476,12 @@ def _baseline_events(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
     return ev
 
 
+def _person_rows(ag: pd.DataFrame) -> np.ndarray:
+    """Return the position of each person's first row, indexed by the person code ``_pid``."""
+    pid = ag["_pid"].to_numpy()
+    return np.flatnonzero(np.r_[True, pid[1:] != pid[:-1]]) if len(pid) else np.zeros(0, dtype=np.int64)
+
+
 def _ear_key(ag: pd.DataFrame) -> np.ndarray:
     """Return the integer key of each row's person and ear (non-decreasing in the sorted frame)."""
     return ag["_pid"].to_numpy(np.int64) * 2 + ag["ear"].eq("R").to_numpy()
@@ -486,8 +492,7 @@ def _row_of(ag: pd.DataFrame, person_id: Any, ear: Any, date: Any) -> np.ndarray
     if not len(ag):
         return np.full(len(np.asarray(person_id)), -1, dtype=np.int64)
     key = _ear_key(ag)
-    first = np.r_[True, ag["_pid"].to_numpy()[1:] != ag["_pid"].to_numpy()[:-1]]
-    pid = pd.Index(ag["person_id"].to_numpy()[first]).get_indexer(pd.Index(np.asarray(person_id, dtype=object)))
+    pid = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)]).get_indexer(pd.Index(np.asarray(person_id, dtype=object)))
     k = np.where(pid >= 0, pid.astype(np.int64) * 2 + (np.asarray(ear, dtype=object) == "R"), -1)
     index = pd.MultiIndex.from_arrays([key, ag["date"].to_numpy("datetime64[ns]")])
     pos = index.get_indexer(pd.MultiIndex.from_arrays([k, _dates(pd.Series(date)).to_numpy("datetime64[ns]")]))
@@ -1021,25 +1026,25 @@ def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     for j, ear in enumerate(("L", "R")):
         sel = last["ear"].eq(ear).to_numpy()
         vals[np.searchsorted(uk, k[sel]), j * len(hl):(j + 1) * len(hl)] = last.loc[sel, hl].to_numpy(float)
-    pid_of = pd.Series(ag["person_id"].to_numpy(), index=ag["_pid"].to_numpy())
-    pid_of = pid_of[~pid_of.index.duplicated()]
-    persons = pid_of.reindex(uk // 10000).to_numpy(object)
+    firsts = _person_rows(ag)  # person code -> first row of that person
+    pids = uk // 10000
+    persons = ag["person_id"].to_numpy(object)[firsts][pids]
     years = uk % 10000
     # sequential annual pairs: the same person's test of the previous calendar year
-    same = np.r_[False, (persons[1:] == persons[:-1]) & (years[1:] == years[:-1] + 1)]
+    same = np.r_[False, (pids[1:] == pids[:-1]) & (years[1:] == years[:-1] + 1)]
     prev = np.vstack([np.full((1, vals.shape[1]), np.nan), vals[:-1]])
     diff = vals - prev
     complete = np.isfinite(diff).all(axis=1)
     lim = SETTINGS["indicator_db"]
     worse = (np.round(diff, 6) >= lim).any(axis=1)
     bw = (np.round(np.abs(diff), 6) >= lim).any(axis=1)
-    groups = ag.drop_duplicates("person_id").set_index("person_id")["group"]
+    group_of = ag["group"].to_numpy(object)[firsts][pids]  # one group per person (people.csv)
     pairs = pd.DataFrame({"person_id": persons, "year": years, "pair": same, "complete": same & complete,
-                          "worse": same & complete & worse, "bw": same & complete & bw})
+                          "worse": same & complete & worse, "bw": same & complete & bw, "group": group_of})
     pairs = pairs[pairs["pair"]]
     if pairs.empty:
         return pd.DataFrame(columns=cols)
-    pairs["group"] = pairs["person_id"].map(groups).fillna("")
+    pairs["group"] = pairs["group"].fillna("")
     pairs = _with_all(pairs)
     out = pairs.groupby(["group", "year"], sort=True).agg(n_pairs=("complete", "sum"), n_worse=("worse", "sum"),
                                                           n_better_or_worse=("bw", "sum"),
