@@ -8,10 +8,10 @@ then runs, each in its own subprocess so that time and peak memory are its own:
   build    hcpsite build DIR --out OUT
   build2x  hcpsite build DIR2X --out OUT2X
 
-and checks the targets: build <= 2 x floor, time(2x) / time(1x) <= 2.1 (both on CPU time,
-which other load on a shared machine does not inflate; wall times are printed too), peak
-RSS <= 2 GB, every page <= 500 KB (assets/plotly.min.js excluded). Exit status 1 when a
-target is missed.
+and checks the targets: build <= 3 x floor (goal 2 x), time(2x) / time(1x) <= 2.0 (both on
+CPU time, which other load on a shared machine does not inflate; wall times are printed
+too), peak RSS <= 1 GB at twice the people, every page <= 500 KB (assets/plotly.min.js
+excluded). Exit status 1 when a target is missed.
 
     python bench/bench_build.py --people 20000 --years 15
     python bench/bench_build.py --people 2000 --years 6 --profile /tmp/build.prof
@@ -34,9 +34,11 @@ from pathlib import Path
 log = logging.getLogger("bench")
 
 #: Targets (see bench/README.md).
-MAX_BUILD_OVER_FLOOR = 2.0
-MAX_SCALING_2X = 2.1
-MAX_RSS_BYTES = 2 * 1024 ** 3
+MAX_BUILD_OVER_FLOOR = 3.0
+GOAL_BUILD_OVER_FLOOR = 2.0
+MAX_SCALING_2X = 2.0
+#: judged on the largest run (the 2x build when it runs: 40,000 people for --people 20000)
+MAX_RSS_BYTES = 1024 ** 3
 MAX_PAGE_BYTES = 500 * 1024
 PLOTLY_ASSET = "assets/plotly.min.js"
 
@@ -183,8 +185,8 @@ def main(argv: list[str] | None = None) -> int:
         over_floor = by["build"].cpu_seconds / max(by["floor"].cpu_seconds, 1e-9)
         wall_over_floor = by["build"].seconds / max(by["floor"].seconds, 1e-9)
         result["build_over_floor"] = {"cpu": over_floor, "wall": wall_over_floor}
-        targets[f"build <= {MAX_BUILD_OVER_FLOOR:g} x floor (CPU {over_floor:.2f}, wall {wall_over_floor:.2f})"] = \
-            over_floor <= MAX_BUILD_OVER_FLOOR
+        targets[f"build <= {MAX_BUILD_OVER_FLOOR:g} x floor, goal {GOAL_BUILD_OVER_FLOOR:g} x "
+                f"(CPU {over_floor:.2f}, wall {wall_over_floor:.2f})"] = over_floor <= MAX_BUILD_OVER_FLOOR
         if "build2x" in by:
             scaling = by["build2x"].cpu_seconds / max(by["build"].cpu_seconds, 1e-9)
             wall_scaling = by["build2x"].seconds / max(by["build"].seconds, 1e-9)
@@ -192,17 +194,24 @@ def main(argv: list[str] | None = None) -> int:
             targets[f"time(2x)/time(1x) <= {MAX_SCALING_2X:g} (CPU {scaling:.2f}, wall {wall_scaling:.2f})"] = \
                 scaling <= MAX_SCALING_2X
         peak = max(s.peak_rss_bytes for s in steps)
-        targets[f"peak RSS <= 2 GB ({peak / 2 ** 20:.0f} MiB)"] = peak <= MAX_RSS_BYTES
-        targets[f"every page <= 500 KB ({len(oversized)} over)"] = not oversized
+        peak_at = max(steps, key=lambda s: s.peak_rss_bytes).name
+        result["peak_rss_bytes"] = peak
+        targets[f"peak RSS <= 1 GB at the largest run ({peak / 2 ** 20:.0f} MiB, {peak_at})"] = \
+            peak <= MAX_RSS_BYTES
+        largest = max([b for _, b in result["largest"]] + [b for _, b in result.get("largest_2x", [])], default=0)
+        result["largest_page_bytes"] = largest
+        targets[f"every page <= 500 KB (largest {largest / 1024:.0f} KB, {len(oversized)} over)"] = not oversized
         result["targets"] = targets
 
         print(f"\nhcpsite benchmark: {args.people} people, {args.years} years, seed {args.seed}, "
               f"{result['cpus']} CPUs; inputs {result['inputs_1x']['files']} files, "
               f"{result['inputs_1x']['bytes'] / 2 ** 20:.1f} MiB")
-        print("\n| step | wall s | CPU s | peak RSS (MiB) | exit |\n| --- | ---: | ---: | ---: | ---: |")
+        print("\n| step | wall s | CPU s | CPU / floor | peak RSS (MiB) | exit |\n"
+              "| --- | ---: | ---: | ---: | ---: | ---: |")
+        floor_cpu = max(by["floor"].cpu_seconds, 1e-9)
         for s in steps:
-            print(f"| {s.name} | {s.seconds:.2f} | {s.cpu_seconds:.2f} | {s.peak_rss_bytes / 2 ** 20:.0f} "
-                  f"| {s.exit_code} |")
+            print(f"| {s.name} | {s.seconds:.2f} | {s.cpu_seconds:.2f} | {s.cpu_seconds / floor_cpu:.2f} "
+                  f"| {s.peak_rss_bytes / 2 ** 20:.0f} | {s.exit_code} |")
         print(f"\nsite: {result['site_pages']} pages, {result['site_bytes'] / 2 ** 20:.1f} MiB; largest files "
               f"(plotly.min.js excluded): " + ", ".join(f"{n} {b / 1024:.0f} KB" for n, b in result["largest"]))
         if oversized:
