@@ -1,0 +1,110 @@
+"""The hearing stage's integer-keyed joins checked against pandas' own merges as the oracle.
+
+The stage sorts and joins on integer person codes and takes baseline thresholds by position;
+these tests recompute the same joins with pandas ``merge_asof`` and ``merge`` on the id
+text (the general-purpose library as an independent implementation) and ask for identical
+values, on the built example and on small hand-made cases.
+"""
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+
+from generator import hearing, norms
+from generator.inputs.spec import AUDIO_FREQS
+
+
+def _oracle_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
+    """Return baseline_date, baseline_source and base_* per row by pandas merges on the id text."""
+    left = ag[["person_id", "ear", "date"]].assign(_i=np.arange(len(ag))).sort_values("date", kind="mergesort")
+    right = events[["person_id", "ear", "baseline_date", "source"]].copy()
+    first = ~right.duplicated(["person_id", "ear"], keep="first")
+    later = right["source"].eq("revised by review") & ~first
+    # 29 CFR 1910.95(g)(9): a revision applies to the audiograms after the one it names
+    right["_eff"] = right["baseline_date"] + pd.to_timedelta(later.astype(np.int64).to_numpy(), unit="ns")
+    right = right.sort_values("_eff", kind="mergesort")
+    m = pd.merge_asof(left, right, left_on="date", right_on="_eff", by=["person_id", "ear"],
+                      direction="backward").set_index("_i").sort_index()
+    out = pd.DataFrame({"person_id": ag["person_id"].to_numpy(), "ear": ag["ear"].to_numpy(),
+                        "baseline_date": pd.to_datetime(m["baseline_date"].to_numpy()).astype("datetime64[ns]"),
+                        "baseline_source": m["source"].fillna("").astype(str).to_numpy()})
+    cols = [f"hl_{f}" for f in AUDIO_FREQS] + ["age", "avg_234"]
+    base = ag[["person_id", "ear", "date"] + cols].rename(
+        columns={c: f"base_{c}" for c in cols} | {"date": "baseline_date"})
+    return out.merge(base, on=["person_id", "ear", "baseline_date"], how="left")
+
+
+def _check_attach(ag: pd.DataFrame, events: pd.DataFrame) -> None:
+    got = hearing._attach_baseline(ag.copy(), events)
+    want = _oracle_baseline(ag, events)
+    assert len(got) == len(ag)
+    for c in want.columns:
+        pd.testing.assert_series_equal(got[c].reset_index(drop=True), want[c].reset_index(drop=True),
+                                       check_names=False, check_dtype=False, obj=c)
+
+
+def test_baseline_attach_matches_merge_on_example(built_example):
+    """Every audiogram row of the example gets the same baseline as the pandas merges give."""
+    h = built_example.context.results.hearing
+    prog = built_example.context.programme
+    ag = hearing._prepare(prog)
+    assert len(ag) == len(h.audiograms) > 100
+    events = h.baseline_history
+    assert not events.empty
+    _check_attach(ag, events)
+
+
+def _frame(rows: list[tuple[str, str, str, float]]) -> pd.DataFrame:
+    ag = pd.DataFrame(rows, columns=["person_id", "ear", "date", "hl"])
+    ag["date"] = pd.to_datetime(ag["date"]).astype("datetime64[ns]")
+    ag = ag.sort_values(["person_id", "ear", "date"], kind="mergesort").reset_index(drop=True)
+    for f in AUDIO_FREQS:
+        ag[f"hl_{f}"] = ag["hl"] + f / 1000.0
+    ag["age"] = np.arange(len(ag), dtype=float) + 30
+    ag["avg_234"] = ag["hl"]
+    ag["_pid"] = pd.factorize(ag["person_id"], sort=True)[0].astype(np.int64)
+    return ag.drop(columns="hl")
+
+
+def test_revision_applies_after_the_audiogram_it_names():
+    """A revised baseline takes effect after its own audiogram; earlier ones keep the first (1910.95(g)(9))."""
+    ag = _frame([("p1", "L", "2020-01-01", 5), ("p1", "L", "2021-01-01", 20), ("p1", "L", "2022-01-01", 22),
+                 ("p1", "R", "2020-01-01", 0), ("p1", "R", "2022-01-01", 10), ("p2", "L", "2019-06-01", 15),
+                 ("p10", "L", "2018-01-01", 7)])
+    d = pd.to_datetime
+    events = pd.DataFrame({
+        "person_id": ["p1", "p1", "p1", "p10", "p2"], "ear": ["L", "L", "R", "L", "L"],
+        "baseline_date": d(["2020-01-01", "2021-01-01", "2020-01-01", "2018-01-01", "2019-06-01"]).astype(
+            "datetime64[ns]"),
+        "source": ["baseline kind", "revised by review", "first", "first", "baseline kind"],
+        "decided": pd.Series(pd.NaT, index=range(5), dtype="datetime64[ns]")})
+    _check_attach(ag, events)
+    got = hearing._attach_baseline(ag.copy(), events)
+    # p1 left ear: the 2021 test is still compared with the 2020 baseline, the 2022 test with 2021
+    p1l = got[(got["person_id"] == "p1") & (got["ear"] == "L")]
+    assert p1l["baseline_date"].dt.year.tolist() == [2020, 2020, 2021]
+
+
+def test_baseline_attach_without_events():
+    """No baseline event: every row has no baseline and no baseline thresholds."""
+    ag = _frame([("p1", "L", "2020-01-01", 5), ("p2", "R", "2021-01-01", 20)])
+    events = pd.DataFrame({"person_id": pd.Series([], dtype=str), "ear": pd.Series([], dtype=str),
+                           "baseline_date": pd.Series([], dtype="datetime64[ns]"),
+                           "source": pd.Series([], dtype=str),
+                           "decided": pd.Series([], dtype="datetime64[ns]")})
+    got = hearing._attach_baseline(ag.copy(), events)
+    assert got["baseline_date"].isna().all()
+    assert got["base_hl_4000"].isna().all()
+
+
+def test_appf_rows_match_the_table_function():
+    """The once-indexed App. F lookup gives norms.appf_correction's values (Tables F-1/F-2) at 2/3/4 kHz."""
+    rng = np.random.default_rng(7)
+    age = rng.uniform(10, 75, 500)
+    age[::17] = np.nan
+    sex = rng.choice(np.array(["M", "F", "m", "f", "", "X"], dtype=object), 500)
+    got = hearing._appf(age, norms._sex_codes(sex))
+    for j, f in enumerate(hearing.STS_FREQS):
+        np.testing.assert_array_equal(got[:, j], norms.appf_correction(age, f, sex))
+    # 29 CFR 1910.95 App. F Table F-1 (males), age 40, 4000 Hz: 14 dB (as 30 CFR 62 Table 62-3)
+    assert hearing._appf(np.array([40.0]), norms._sex_codes(np.array(["M"], dtype=object)))[0, 2] == 14
