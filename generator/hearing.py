@@ -212,6 +212,16 @@ def _prv(values: Any, same_prev: np.ndarray, fill: Any) -> np.ndarray:
     return np.where(same_prev, out, fill) if len(v) else out
 
 
+def _upper(s: pd.Series) -> pd.Series:
+    """Return ``s.str.upper()``, folding each distinct value once (a handful of codes, many rows)."""
+    codes, uniques = pd.factorize(s)
+    if len(uniques) * 4 > len(s):
+        return s.str.upper()
+    up = pd.Series(uniques, dtype=s.dtype).str.upper().to_numpy(object)
+    out = np.where(codes >= 0, up[np.clip(codes, 0, None)] if len(up) else None, None)
+    return pd.Series(out, index=s.index, dtype=object).astype(s.dtype).where(codes >= 0, s)
+
+
 def _path(programme: Programme, name: str) -> str:
     """Return the path of data file *name* as the user named it."""
     return programme.present.get(name, f"data/{name}.csv")
@@ -355,7 +365,7 @@ def _prepare(programme: Programme) -> pd.DataFrame:
     people = programme.table("people")
     ag = pd.DataFrame({
         "person_id": _col(raw, "person_id", "").astype(str),
-        "ear": _col(raw, "ear", "").astype(str).str.upper(),
+        "ear": _upper(_col(raw, "ear", "").astype(str)),
         "date": _dates(_col(raw, "date", pd.NaT)),
         "kind": _col(raw, "kind", "").astype(str).replace("", "periodic"),
         "quiet_hours": pd.to_numeric(_col(raw, "quiet_hours"), errors="coerce"),
