@@ -466,8 +466,24 @@ def _as_text(s: pd.Series, strip: bool = True) -> pd.Series:
 
 
 def _to_float(s: pd.Series, blank: np.ndarray) -> np.ndarray:
-    """Convert stripped text to float64 (NaN where blank or not a number)."""
-    arr = s.to_numpy(dtype=object).copy()
+    """Convert stripped text to float64 (NaN where blank or not a number).
+
+    Each distinct text is converted once: levels, hours and counts repeat a few hundred
+    values over many rows. *blank* must depend on the text only (as it does: '' or NR).
+    """
+    arr = s.to_numpy(dtype=object)
+    if len(arr) > 64:
+        codes, uniques = pd.factorize(arr)
+        if len(uniques) * 4 <= len(arr) and (codes >= 0).all():
+            u_blank = np.zeros(len(uniques), dtype=bool)
+            u_blank[codes[np.asarray(blank, dtype=bool)]] = True
+            return _to_float_each(np.asarray(uniques, dtype=object), u_blank)[codes]
+    return _to_float_each(arr, blank)
+
+
+def _to_float_each(values: np.ndarray, blank: np.ndarray) -> np.ndarray:
+    """Convert every text of *values* to float64 (NaN where blank or not a number)."""
+    arr = values.copy()
     arr[blank] = "nan"
     try:
         return arr.astype("float64")
