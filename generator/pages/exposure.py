@@ -14,6 +14,7 @@ from .. import charts
 from .. import levels as lv
 from ..exposure import PARAMETERS, ExposureResult, action_value, band_names
 from ..privacy import redactor
+from . import figure_tiles
 from .base import Chart, Page, SiteContext, Table, group_slugs
 
 log = logging.getLogger(__name__)
@@ -538,7 +539,8 @@ def build(ctx: SiteContext) -> list[Page]:
                       {"label": "groups", "value": f"{len(res.groups):,}"},
                       {"label": f"groups at or above {action_value(head):g} dB(A)",
                        "value": f"{int(visible['exposed'].sum()):,}"},
-                      {"label": "groups needing a survey", "value": f"{int(res.groups['stale'].sum()):,}"}],
+                      {"label": "groups needing a survey", "value": f"{int(res.groups['stale'].sum()):,}"},
+                      figure_tiles.tile(ctx, "exposed_top_band", note="")],
             "group_links": [{"code": c, "name": n, "href": f"exposure/{slugs[c]}.html"}
                             for c, n in zip(res.groups["group"], res.groups["name"])],
             "groups_table": groups_table(res, ctx, slugs),
