@@ -140,10 +140,11 @@ def top_edge(rule: RuleSet) -> float | None:
 def judged_levels(snap: Snapshot) -> pd.Series:
     """Return the headline level each in-scope person is judged on (NaN: not measured), aligned with status."""
     ep = snap.exposure_people
-    if ep is None or ep.empty or "person_id" not in ep.columns:
+    col = next((c for c in ("judged_level", "twa") if ep is not None and c in ep.columns), None)
+    if ep is None or ep.empty or "person_id" not in ep.columns or col is None:
         return pd.Series(np.nan, index=snap.status.index)
-    col = "judged_level" if "judged_level" in ep.columns else "twa"
-    lv = ep.drop_duplicates("person_id").set_index(ep.drop_duplicates("person_id")["person_id"].astype(str))[col]
+    ep = ep.drop_duplicates("person_id")
+    lv = pd.Series(ep[col].to_numpy(), index=ep["person_id"].astype(str).to_numpy())
     out = pd.to_numeric(snap.status["person_id"].astype(str).map(lv), errors="coerce")
     # nobody is counted as exposed before their first exposure (as the programme's duties start then)
     first = snap.status["first_exposed_date"]

@@ -310,13 +310,3 @@ def appf_correction(age: Any, freq: Any, sex: Any) -> np.ndarray:
     out = np.where(male, _APPF_MALE[row, fidx], np.where(female, _APPF_FEMALE[row, fidx], np.nan))
     return np.where(ok & a_ok, out, np.nan)
 
-
-def iso1999_combine(age_part: Any, noise_part: Any) -> np.ndarray:
-    """Return the hearing threshold level associated with age and noise, ISO 1999:2013 Formula (1).
-
-    H' = H + N - H*N/120, with H the age-related part (ISO 7029) and N the noise-induced
-    permanent threshold shift, in dB; applied to corresponding fractiles of both.
-    """
-    h = np.asarray(age_part, dtype=float)
-    n = np.asarray(noise_part, dtype=float)
-    return h + n - h * n / 120.0

@@ -208,7 +208,7 @@ def noise_chart(ne: pd.DataFrame, groups: list[str], cid: str, freqs: tuple[int,
                                     "observed": shown["observed_change"].tolist()},
                              yaxis_title="mean change since baseline, dB")
     tol = float(SETTINGS["expected_tolerance_db"])
-    verdict = expected_verdict(d["observed_change"], d["expected_change"], tol) if len(d) else []
+    verdict: list[str] = list(expected_verdict(d["observed_change"], d["expected_change"], tol)) if len(d) else []
     words = {"above": f"above by more than {tol:g} dB", "within": f"within {tol:g} dB",
              "below": f"below by more than {tol:g} dB", "": BLANK}
     rows = [[r.group, str(int(r.freq)), _num(r.lex_8h), _num(r.mean_years), _num(r.nipts_at_mean_years),

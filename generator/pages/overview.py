@@ -102,13 +102,12 @@ def answers(ctx: SiteContext) -> list[list[dict[str, str]]]:
                                                 + ("was " if figs["recordable_cases"].value == 1 else "were ")),
             _fig(ctx, "recordable_cases"),
             _part(" recordable hearing-loss case" + ("" if figs["recordable_cases"].value == 1 else "s")
-                  + " (29 CFR 1904.10, one per person whatever the number of ears)"
                   + _was(prev, "recordable_cases"))]
     if rate is not None and rate.known:
-        sent += [_part(": "), _fig(ctx, "recordable_rate"), _part(" per 200,000 hours worked")]
-        before = _was(prev, "recordable_rate")
-        if before:
-            sent.append(_part(before))
+        sent += [_part(", "), _fig(ctx, "recordable_rate"), _part(" per 200,000 hours worked")]
+        was_rate = _was(prev, "recordable_rate")
+        if was_rate:
+            sent.append(_part(was_rate))
         elif prev is not None:
             sent.append(_part(f"; the rate of {prev[0]} is not known, as hours worked are recorded for the review "
                               "period only"))
