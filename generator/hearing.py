@@ -881,7 +881,7 @@ def _per_person_year(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     """Return one row per person and year: group, tested, sts, recordable, mean 2/3/4 kHz average."""
     avg = last.groupby(["_pid", "year"], sort=True).agg(avg_234=("avg_234", "mean"), n_nr=("nr_234", "sum"))
     flags = ag.groupby(["_pid", "year"], sort=True).agg(person_id=("person_id", "first"), group=("group", "first"),
-                                                        sts=("sts", "any"), recordable=("recordable", "any"))
+                                                        sts=("sts", "any"), recordable=("case", "any"))
     py = flags.join(avg).reset_index()
     py["prev_avg"] = py.groupby("_pid", sort=False)["avg_234"].shift(1)
     py["prev_year"] = py.groupby("_pid", sort=False)["year"].shift(1)
@@ -1240,6 +1240,10 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
 
     baselines = _baselines(ag, events, cfg.audiometry.min_quiet_hours)
     cases = person_cases(ag)
+    # the ear rows that make a person's case (the population counts people with a case)
+    made = pd.MultiIndex.from_frame(cases[["person_id", "date"]].astype({"person_id": str}))
+    ag["case"] = ag["recordable"].astype(bool).to_numpy() & pd.MultiIndex.from_frame(
+        ag[["person_id", "date"]].astype({"person_id": str})).isin(made)
     incidence, period_cases, period_rate = _incidence(cases, sorted(ag["year"].unique().tolist()),
                                                       cfg.hours_worked, start, as_of)
     followups = _followups(programme, ag, decisions, as_of)

@@ -72,6 +72,19 @@ def figure_rows(t: pd.DataFrame, labels: dict[str, str], period_year: int) -> di
     return {"years": years, "rows": rows}
 
 
+def definitions_table(ctx: SiteContext) -> Table:
+    """Return how each headline figure is defined: population, period, denominator, rule set and source."""
+    figs = ctx.results.figures
+    rows = []
+    for f in F.FIGURES:
+        d = f.described(ctx.headline)
+        rows.append([figs.labels[f.name], d["population"], d["period"], d["denominator"] or "(a count)",
+                     d["rules"], figs.sources[f.name], "every year end" if f.yearly else "review period only"])
+    return Table(["Figure", "Who or what is counted", "Period", "Share or rate of", "Rule set", "Answers to",
+                  "On this page"], rows, caption="How each headline figure of this review is defined (the same "
+                  "definition on every page, in the printable review and in summary.json)")
+
+
 def build(ctx: SiteContext) -> list[Page]:
     """Return the trends page."""
     trends = ctx.results.trends
@@ -106,6 +119,7 @@ def build(ctx: SiteContext) -> list[Page]:
         "last_year": last,
         "table": trend_table(t, labels),
         "figure_table": figure_rows(t, labels, last),
+        "definitions_table": definitions_table(ctx),
     }
     return [Page(slug="trends", title="Trends", template="trends.html", section="trends", in_nav=True,
                  context=context, charts=page_charts)]
