@@ -155,7 +155,9 @@ def band_counts(res: ExposureResult, ctx: SiteContext) -> tuple[Chart, Table]:
     hc = _judged_band_col(head)
     top = band_names(head)[-1]
     n_top = int(g.loc[g[hc] == top, "n_people"].sum())
-    summary = (f"Under {head.short}, {n_top} people work in groups in the band '{top}' dB(A); the same "
+    summary = (f"Under {head.short}, {n_top} people in scope work in groups whose group level is in the band "
+               f"'{top}' dB(A); judged on their own measurements where they have them, else their group's, "
+               f"{figure_tiles.text(ctx, 'exposed_top_band')} people in scope are in it (the tile above). The same "
                f"groups are shown under {', '.join(r.short for r in list(ctx.rules.values())[1:]) or 'no other rule set'}"
                " for comparison.")
     return Chart(id="exposure-2", figure=fig, summary=summary, table=table, title="Bands for every rule set"), table
