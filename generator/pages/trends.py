@@ -50,14 +50,12 @@ def _last(t: pd.DataFrame, name: str) -> str:
 
 
 def trend_table(t: pd.DataFrame, labels: dict[str, str]) -> Table:
-    """Return the full table of yearly figures (one column per figure definition)."""
+    """Return the yearly figures as a table: one row per figure definition, one column per year."""
     names = [f.name for f in F.yearly() if f.name in t.columns]
-    rows = [[str(int(r.year)), pd.Timestamp(r.as_of).strftime("%Y-%m-%d")] for r in t.itertuples()]
-    for n in names:
-        for row, cell in zip(rows, _cells(t, n)):
-            row.append(cell)
-    return Table(["Year", "As of"] + [labels[n] for n in names], rows, caption="Headline figures per year",
-                 classes=["", ""] + ["num"] * len(names))
+    years = _years(t)
+    rows = [[labels[n]] + _cells(t, n) for n in names]
+    return Table(["Figure"] + years, rows, caption="Headline figures per year, each as of 31 December (the last year: "
+                 "the review period)", classes=[""] + ["num"] * len(years))
 
 
 def figure_rows(t: pd.DataFrame, labels: dict[str, str], period_year: int) -> dict[str, object]:
