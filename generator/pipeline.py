@@ -11,7 +11,8 @@ name and type; each returns a frozen result. Nothing here reads or writes HTML.
                         │                                 │
                         └──────────► compliance ◄─────────┘
                                         │
-                                      trends
+                                      trends (the headline figures of generator/figures.py,
+                                              for the period and at each year end)
 """
 from __future__ import annotations
 
