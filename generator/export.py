@@ -180,8 +180,22 @@ def _json_ready(v: Any) -> Any:
     return v
 
 
+def figures_json(ctx: SiteContext) -> dict[str, Any]:
+    """Return every headline figure (generator/figures.py) with its value and its definition."""
+    from . import figures as F
+    figs = ctx.results.figures
+    out: dict[str, Any] = {}
+    for fig in F.FIGURES:
+        fv = figs.values[fig.name]
+        out[fig.name] = {**fig.described(ctx.headline), "label": figs.labels[fig.name],
+                         "source": figs.sources[fig.name], "value": fv.value, "numerator": fv.numerator,
+                         "denominator": fv.denominator,
+                         "as_of": figs.as_of.strftime("%Y-%m-%d"), "from": figs.start.strftime("%Y-%m-%d")}
+    return out
+
+
 def summary_json(ctx: SiteContext) -> bytes:
-    """Return the headline figures of the overview as sorted JSON."""
+    """Return the headline figures of the overview (``figures``: one entry per definition) as sorted JSON."""
     prog = ctx.programme
     comp = ctx.results.compliance
     data: dict[str, Any] = {
@@ -194,6 +208,7 @@ def summary_json(ctx: SiteContext) -> bytes:
         "files_present": sorted(prog.present),
         "findings": {"errors": len(prog.findings.errors), "warnings": len(prog.findings.warnings)},
         "summary": dict(getattr(comp, "summary", None) or {}),
+        "figures": figures_json(ctx),
     }
     return (json.dumps(_json_ready(data), sort_keys=True, indent=2, ensure_ascii=False) + "\n").encode("utf-8")
 

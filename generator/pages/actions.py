@@ -106,8 +106,9 @@ def build(ctx: SiteContext) -> list[Page]:
     context = {
         "available": True,
         "as_of": as_of,
-        "n_actions": int(len(labelled)),
-        "n_overdue": int(labelled["status"].eq("overdue").sum()),
+        # the headline figures (generator/figures.py): the same numbers as on the overview
+        "n_actions": int(ctx.results.figures["open_actions"].value or 0),
+        "n_overdue": int(ctx.results.figures["overdue_actions"].value or 0),
         "n_soon": int(labelled["status"].eq("due soon").sum()),
         "kind_counts": [{"kind": k, "n": int(n)} for k, n in counts.items()],
         "actions_table": listing,

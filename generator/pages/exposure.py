@@ -14,6 +14,7 @@ from .. import charts
 from .. import levels as lv
 from ..exposure import BASIS_LABELS, PARAMETERS, ExposureResult, action_value, band_names
 from ..privacy import redactor
+from . import figure_tiles
 from .base import Chart, Page, SiteContext, Table, group_slugs
 
 log = logging.getLogger(__name__)
@@ -155,7 +156,9 @@ def band_counts(res: ExposureResult, ctx: SiteContext) -> tuple[Chart, Table]:
     hc = _judged_band_col(head)
     top = band_names(head)[-1]
     n_top = int(g.loc[g[hc] == top, "n_people"].sum())
-    summary = (f"Under {head.short}, {n_top} people work in groups in the band '{top}' dB(A); the same "
+    summary = (f"Under {head.short}, {n_top} people in scope work in groups whose group level is in the band "
+               f"'{top}' dB(A); judged on their own measurements where they have them, else their group's, "
+               f"{figure_tiles.text(ctx, 'exposed_top_band')} people in scope are in it (the tile above). The same "
                f"groups are shown under {', '.join(r.short for r in list(ctx.rules.values())[1:]) or 'no other rule set'}"
                " for comparison.")
     return Chart(id="exposure-2", figure=fig, summary=summary, table=table, title="Bands for every rule set"), table
@@ -540,7 +543,8 @@ def build(ctx: SiteContext) -> list[Page]:
                       {"label": "groups", "value": f"{len(res.groups):,}"},
                       {"label": f"groups at or above {action_value(head):g} dB(A)",
                        "value": f"{int(visible['exposed'].sum()):,}"},
-                      {"label": "groups needing a survey", "value": f"{int(res.groups['stale'].sum()):,}"}],
+                      {"label": "groups needing a survey", "value": f"{int(res.groups['stale'].sum()):,}"},
+                      figure_tiles.tile(ctx, "exposed_top_band", note="")],
             "group_links": [{"code": c, "name": n, "href": f"exposure/{slugs[c]}.html"}
                             for c, n in zip(res.groups["group"], res.groups["name"])],
             "groups_table": groups_table(res, ctx, slugs),

@@ -10,7 +10,8 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from .. import charts
-from ..hearing import EAR_NAMES, LEFT_STATUS, HearingResult
+from ..hearing import EAR_NAMES, LEFT_STATUS, SETTINGS, HearingResult, expected_verdict
+from . import figure_tiles
 from .base import Chart, Page, SiteContext, Table, group_slugs
 from .programme import LIST_CAP, cap_caption, cap_rows
 
@@ -151,38 +152,74 @@ def indicators_chart(ind: pd.DataFrame, group: str, cid: str, label: str) -> Cha
     return Chart(cid, fig, summary, table, title="Sequential-pair indicators")
 
 
+def expected_sentence(shown: pd.DataFrame, where: list[str], tolerance: float) -> str:
+    """Return the sentence on observed against expected change, chosen from the numbers.
+
+    Each group (and frequency) shown is above, within or below the expected combined change
+    (ISO 1999:2013 Formula (1)) by more than *tolerance* dB; the sentence says how many are
+    which and names the largest excess.
+    """
+    if shown.empty:
+        return "No group has both an exposure level and audiograms after a baseline."
+    verdict = expected_verdict(shown["observed_change"], shown["expected_change"], tolerance)
+    diff = (shown["observed_change"] - shown["expected_change"]).to_numpy(float)
+    known = verdict != ""
+    if not known.any():
+        return "The observed and expected changes could not both be computed for any group shown."
+    n = int(known.sum())
+    above, within, below = (int((verdict == v).sum()) for v in ("above", "within", "below"))
+    tol = f"{tolerance:g} dB"
+    if above:
+        i = int(np.nanargmax(np.where(verdict == "above", diff, -np.inf)))
+        r = shown.iloc[i]
+        lead = (f"The observed mean change since baseline is larger than the change age and noise together would "
+                f"lead one to expect (ISO 1999:2013 Formula (1)) by more than {tol} in {above} of {n} shown, most in "
+                f"{where[i]}: {float(r['observed_change']):.1f} dB observed against "
+                f"{float(r['expected_change']):.1f} dB expected.")
+        rest = []
+        if within:
+            rest.append(f"{within} within {tol}")
+        if below:
+            rest.append(f"{below} below by more than {tol}")
+        return lead + (f" Of the others, {' and '.join(rest)}." if rest else "")
+    if within == n:
+        return (f"In every one of the {n} shown the observed mean change since baseline is within {tol} of the "
+                "change age and noise together would lead one to expect (ISO 1999:2013 Formula (1)).")
+    return (f"In {below} of the {n} shown the observed mean change since baseline is smaller than the change age "
+            f"and noise together would lead one to expect (ISO 1999:2013 Formula (1)) by more than {tol}"
+            + (f", and within {tol} in {within}." if within else "."))
+
+
 def noise_chart(ne: pd.DataFrame, groups: list[str], cid: str, freqs: tuple[int, ...] = (4000,)) -> Chart:
-    """Return expected (ISO 1999 + ISO 7029) vs observed change since baseline per group."""
+    """Return expected (ISO 7029, ISO 1999 and both combined) vs observed change since baseline per group."""
     d = ne[ne["group"].isin(groups)].sort_values(["group", "freq"])
     shown = d[d["freq"].isin(freqs)]
     cats = [f"{g} {f // 1000} kHz" if len(freqs) > 1 else g for g, f in zip(shown["group"], shown["freq"])]
-    fig = charts.grouped_bar(cats, {"expected from noise (ISO 1999:2013)": shown["expected_noise_change"].tolist(),
-                                    "expected from age (ISO 7029:2017)": shown["expected_age_change"].tolist(),
+    fig = charts.grouped_bar(cats, {"expected from age (ISO 7029:2017)": shown["expected_age_change"].tolist(),
+                                    "expected from noise (ISO 1999:2013)": shown["expected_noise_change"].tolist(),
+                                    "expected from age and noise (ISO 1999 Formula 1)":
+                                        shown["expected_change"].tolist(),
                                     "observed": shown["observed_change"].tolist()},
                              yaxis_title="mean change since baseline, dB")
+    tol = float(SETTINGS["expected_tolerance_db"])
+    verdict: list[str] = list(expected_verdict(d["observed_change"], d["expected_change"], tol)) if len(d) else []
+    words = {"above": f"above by more than {tol:g} dB", "within": f"within {tol:g} dB",
+             "below": f"below by more than {tol:g} dB", "": BLANK}
     rows = [[r.group, str(int(r.freq)), _num(r.lex_8h), _num(r.mean_years), _num(r.nipts_at_mean_years),
              _num(r.expected_noise_change), _num(r.expected_age_change), _num(r.expected_change),
-             _num(r.observed_change), str(int(r.n_ears)), str(int(r.n_nr_excluded))] for r in d.itertuples()]
+             _num(r.observed_change), words[v], str(int(r.n_ears)), str(int(r.n_nr_excluded))]
+            for r, v in zip(d.itertuples(), verdict)]
     table = Table(["Group", "Hz", "LEX,8h, dB(A)", "Mean years exposed", "Median NIPTS at mean years, dB",
-                   "Expected noise change, dB", "Expected age change, dB", "Expected total, dB",
-                   "Observed change, dB", "Ears", "Ears left out (NR)"], rows,
-                  caption="Expected and observed change since each ear's baseline (latest test of each ear)",
-                  classes=["", "num"] + ["num"] * 9)
-    if shown.empty:
-        summary = "No group has both an exposure level and audiograms after a baseline."
-    else:
-        diff = (shown["observed_change"] - shown["expected_change"]).to_numpy(float)
-        i = int(np.nanargmax(diff)) if np.isfinite(diff).any() else 0
-        r = shown.iloc[i]
-        where = f"{r['group']} {int(r['freq'])} Hz" if len(freqs) > 1 else str(r["group"])
-        if np.isfinite(diff[i]) and diff[i] > 0:
-            summary = (f"The observed change since baseline exceeds the change noise and age would lead one to "
-                       f"expect most in {where}: {float(r['observed_change']):.1f} dB observed against "
-                       f"{float(r['expected_change']):.1f} dB expected.")
-        else:
-            summary = ("In every group shown the observed mean change since baseline is no larger than the "
-                       "change noise and age would lead one to expect.")
-    return Chart(cid, fig, summary, table, title="Expected and observed change at 4 kHz")
+                   "Expected noise change, dB", "Expected age change, dB",
+                   "Expected age and noise (ISO 1999 Formula 1), dB", "Observed change, dB",
+                   "Observed against expected", "Ears", "Ears left out (NR)"], rows,
+                  caption="Expected and observed change since each ear's baseline (latest test of each ear); the "
+                          "expected change combines age H and noise N as H + N - H·N/120 (ISO 1999:2013 Formula 1)",
+                  classes=["", "num"] + ["num"] * 7 + ["", "num", "num"])
+    where = [f"{g} at {int(f)} Hz" if len(freqs) > 1 else str(g) for g, f in zip(shown["group"], shown["freq"])]
+    summary = expected_sentence(shown, where, tol)
+    title = "Expected and observed change at 4 kHz" if freqs == (4000,) else "Expected and observed change"
+    return Chart(cid, fig, summary, table, title=title)
 
 
 def age_chart(an: pd.DataFrame, cid: str, freq: int = 4000) -> Chart:
@@ -360,22 +397,38 @@ def _people(n: int) -> str:
 
 
 def _tiles(h: HearingResult, a: pd.DataFrame, fu: pd.DataFrame, cases: pd.DataFrame) -> list[dict[str, Any]]:
+    """Return the tiles of a group page (the hearing overview shows the headline figures instead)."""
     tested = int(a["person_id"].nunique())
     sts = int(a.loc[a["sts"], "person_id"].nunique())
     niosh = int(a.loc[a["niosh_shift"], "person_id"].nunique())
     late = int(fu["status"].isin(["late", "missing"]).sum()) if not fu.empty else 0
-    n_case_people = int(cases["person_id"].nunique()) if not cases.empty else 0
-    # 29 CFR 1904.10 cases are counted per ear here (one per ear until its baseline is revised)
     tiles = [
         {"value": str(tested), "label": "people tested", "warn": False},
         {"value": str(sts), "label": "people with a standard threshold shift (OSHA)", "warn": False},
-        {"value": str(len(cases)),
-         "label": f"recordable cases (29 CFR 1904.10), counted per ear, in {n_case_people} "
-                  f"{_people(n_case_people)}", "warn": len(cases) > 0},
+        {"value": str(len(cases)), "label": CASES_LABEL, "warn": len(cases) > 0},
         {"value": str(niosh), "label": "people with a confirmed NIOSH 15 dB shift", "warn": False},
         {"value": str(late), "label": "follow-ups late or not on record", "warn": late > 0},
     ]
     return tiles
+
+
+#: 29 CFR 1904.10(a): a shift "in one or both ears" is one case of the person
+CASES_LABEL = "recordable cases (29 CFR 1904.10), one per person and audiogram whatever the number of ears"
+
+
+def _headline_tiles(ctx: SiteContext, a: pd.DataFrame, fu: pd.DataFrame) -> list[dict[str, Any]]:
+    """Return the hearing overview's tiles: the headline figures (generator/figures.py) and the page's own."""
+    t = figure_tiles.tile
+    niosh = int(a.loc[a["niosh_shift"], "person_id"].nunique())
+    late = int(fu["status"].isin(["late", "missing"]).sum()) if not fu.empty else 0
+    return [
+        t(ctx, "people_tested", label="people tested"),
+        t(ctx, "people_with_sts", label="people with a standard threshold shift (OSHA)"),
+        t(ctx, "recordable_cases", label=CASES_LABEL),
+        t(ctx, "recordable_rate", label="recordable cases per 200,000 hours worked (29 CFR 1904)"),
+        {"value": str(niosh), "label": "people with a confirmed NIOSH 15 dB shift", "warn": False},
+        {"value": str(late), "label": "follow-ups late or not on record", "warn": late > 0},
+    ]
 
 
 def _in_period(df: pd.DataFrame, col: str, start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:
@@ -413,9 +466,7 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
     flagged = a_vis[(a_vis["shift_status"] != "") | a_vis["recordable"]]
     context = {
         "has_data": not h.audiograms.empty,
-        "tiles": _tiles(h, a, fu, cases),
-        "rate_text": (None if h.summary.get("recordable_rate_per_200k") is None
-                      else f"{h.summary['recordable_rate_per_200k']:.2f}"),
+        "tiles": _headline_tiles(ctx, a, fu),
         "age_correction": ctx.programme.config.audiometry.age_correction,
         "retest_days": ctx.programme.config.audiometry.retest_days,
         "notice_days": ctx.programme.config.audiometry.notice_days,
