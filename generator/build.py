@@ -25,7 +25,7 @@ from . import pipeline
 from .pages import page_builders
 from .pages.base import Page, SiteContext
 from .pipeline import STAGE_NAMES, Results
-from .privacy import make_coder, small_groups
+from .privacy import Suppressor, make_coder, redactor
 from .rules import rule_sets_for
 
 log = logging.getLogger(__name__)
@@ -90,9 +90,12 @@ def make_context(programme: Programme, results: Results, restricted: bool = Fals
     code, warning = make_coder(people, os.environ.get(cfg.privacy.id_key_env) or None, cfg.privacy.id_key_env)
     if warning is not None:
         programme.findings.extend([warning])
+    # built once per build: every public aggregate and every free text passes through these two
+    suppress = Suppressor(people, cfg.privacy.min_group_size, cfg.period.start, cfg.period.end, restricted)
+    redact = str if restricted else redactor(people, code)
     return SiteContext(programme=programme, results=results, rules=results.rules, code=code,
-                       suppressed_groups=small_groups(people, cfg.privacy.min_group_size),
-                       restricted=restricted)
+                       suppressed_groups=suppress.groups, restricted=restricted, suppress=suppress,
+                       redact=redact)
 
 
 def prepare(root: Path, *, strict: bool = False, restricted: bool = False) -> SiteContext:
