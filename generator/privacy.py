@@ -187,6 +187,14 @@ def people_in_period(people: pd.DataFrame, start: Any, end: Any) -> pd.DataFrame
     return people[keep.to_numpy()]
 
 
+#: kind and text shown for an action about a group whose figures are withheld
+WITHHELD_KIND = "withheld (small group)"
+WITHHELD_DETAIL = ("a group of fewer than {n} people: its figures and the actions that tell them are shown in "
+                   "the restricted build only")
+#: what a public page shows instead of a finding about a withheld group
+WITHHELD_FINDING = "a finding about a group of fewer than {n} people (shown in the restricted build only)"
+
+
 class Suppressor:
     """Small-cell suppression for public output, built once per build.
 
@@ -239,6 +247,13 @@ class Suppressor:
         """Return True when *person_id* belongs to a withheld group."""
         return bool(self.groups) and self.person_group.get(str(person_id), "") in self.groups
 
+    def hides_text(self, text: Any) -> bool:
+        """Return True when *text* (a finding, a sentence) is about a withheld group ("group G" in it)."""
+        if not self.groups:
+            return False
+        return re.search(r"(?<![\w-])group (?:" + "|".join(re.escape(g) for g in sorted(self.groups))
+                         + r")(?![\w-])", str(text)) is not None
+
     def group_n(self, group: Any) -> int:
         """Return the number of people a figure of *group* rests on (0 for a withheld group)."""
         g = str(group)
@@ -287,7 +302,9 @@ class Suppressor:
             if c not in out.columns:
                 continue
             col = out[c]
-            if pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
+            if pd.api.types.is_integer_dtype(col):
+                out[c] = col.astype("Int64").where(~hide, pd.NA)
+            elif pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
                 out[c] = col.astype(float).where(~hide, np.nan)
             elif pd.api.types.is_datetime64_any_dtype(col):
                 out[c] = col.where(~hide, pd.NaT)

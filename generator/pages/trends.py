@@ -64,8 +64,23 @@ def shift_chart(t: pd.DataFrame, slug: str) -> Chart:
     return Chart(f"{slug}-3", fig, summary, table, title="Threshold shifts and recordables per year")
 
 
+def public_bands(t: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
+    """Return *t* with band counts of 1 to min_group_size - 1 people left blank while a group is withheld.
+
+    The counts include the people of withheld groups: a small count next to the shown
+    groups' counts would tell a withheld group's band.
+    """
+    bands = [c for c in t.columns if c.startswith("band: ")]
+    if not bands or not ctx.sup.groups:
+        return t
+    t = t.copy()
+    for c in bands:
+        t[c] = [None if (n and ctx.sup.hides(n)) else n for n in t[c]]
+    return t
+
+
 def band_chart(t: pd.DataFrame, slug: str) -> Chart | None:
-    """Return the stacked bar of people per exposure band per year."""
+    """Return the stacked bar of people per exposure band per year (blank: suppressed)."""
     bands = [c for c in t.columns if c.startswith("band: ")]
     if not bands:
         return None
@@ -75,9 +90,9 @@ def band_chart(t: pd.DataFrame, slug: str) -> Chart | None:
     table = charts.table_from_frame(t.assign(y=_years(t)), {"y": "Year", **{c: c[6:] for c in bands}},
                                     {c: "d" for c in bands})
     last = t.iloc[-1]
-    top = max(bands, key=lambda c: (int(last[c]), c))
+    top = max(bands, key=lambda c: (int(last[c] or 0), c))
     summary = (f"People by the exposure band of their latest measurement (or their group's) up to each year's "
-               f"end; in {int(last['year'])} the largest band is {top[6:]} with {int(last[top])} people.")
+               f"end; in {int(last['year'])} the largest band is {top[6:]} with {int(last[top] or 0)} people.")
     return Chart(f"{slug}-4", fig, summary, table, title="People per exposure band (dB) per year")
 
 
@@ -101,7 +116,7 @@ def build(ctx: SiteContext) -> list[Page]:
         return [Page(slug="trends", title="Trends", template="trends.html", section="trends", in_nav=True,
                      context={"available": False, "changes": [], "table": None})]
     page_charts = [share_chart(t, "trends"), people_chart(t, "trends"), shift_chart(t, "trends")]
-    bc = band_chart(t, "trends")
+    bc = band_chart(public_bands(t, ctx), "trends")
     if bc is not None:
         page_charts.append(bc)
     context = {
