@@ -90,9 +90,13 @@ def band_chart(t: pd.DataFrame, slug: str) -> Chart | None:
     table = charts.table_from_frame(t.assign(y=_years(t)), {"y": "Year", **{c: c[6:] for c in bands}},
                                     {c: "d" for c in bands})
     last = t.iloc[-1]
-    top = max(bands, key=lambda c: (int(last[c] or 0), c))
+
+    def n(v: object) -> int:
+        return 0 if pd.isna(v) else int(v)  # type: ignore[call-overload]
+
+    top = max(bands, key=lambda c: (n(last[c]), c))
     summary = (f"People by the exposure band of their latest measurement (or their group's) up to each year's "
-               f"end; in {int(last['year'])} the largest band is {top[6:]} with {int(last[top] or 0)} people.")
+               f"end; in {int(last['year'])} the largest band is {top[6:]} with {n(last[top])} people.")
     return Chart(f"{slug}-4", fig, summary, table, title="People per exposure band (dB) per year")
 
 
