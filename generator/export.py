@@ -8,6 +8,7 @@ keys are sorted, so two exports of the same inputs are byte-identical.
 """
 from __future__ import annotations
 
+import datetime as dt
 import json
 import logging
 import math
@@ -299,9 +300,8 @@ def _cell_texts(frame: pd.DataFrame) -> list[list[str]]:
     return list(csv.reader(io.StringIO(frame_to_csv(frame).decode("utf-8"))))
 
 
-def workbook_stamp(ctx: SiteContext) -> "dt.datetime":
+def workbook_stamp(ctx: SiteContext) -> dt.datetime:
     """Return the fixed time written into the workbook: SOURCE_DATE_EPOCH, else the end of the review period."""
-    import datetime as dt
     raw = os.environ.get("SOURCE_DATE_EPOCH", "").strip()
     try:
         if raw:
