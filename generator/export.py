@@ -24,6 +24,7 @@ import pandas as pd
 from .findings import HcpsiteError
 from .pipeline import Results
 from .pages.base import SiteContext
+from .privacy import SUPPRESSED
 
 log = logging.getLogger(__name__)
 
@@ -280,8 +281,24 @@ def export_files(ctx: SiteContext) -> dict[str, bytes]:
     tables = export_tables(ctx)
     files = {name: frame_to_csv(t) for name, t in tables.items()}
     files[WORKBOOK] = workbook_bytes(tables, ctx)
-    files["summary.json"] = summary_json(ctx)
+    files["summary.json"] = public_summary(summary_json(ctx), ctx)
     return files
+
+
+def public_summary(raw: bytes, ctx: SiteContext) -> bytes:
+    """Return summary.json with the headline counts the overview suppresses replaced by "suppressed"."""
+    from .pages.overview import HEADLINE, public_headline
+    data = json.loads(raw)
+    summary = data.get("summary")
+    if ctx.restricted or not isinstance(summary, dict):
+        return raw
+    labels = dict(HEADLINE)
+    tiles = [{"label": labels[k], "value": v, "key": k} for k, v in summary.items() if k in labels]
+    hidden = [t["key"] for t in public_headline(ctx, summary, tiles) if t["value"] == SUPPRESSED]
+    if not hidden:
+        return raw
+    data["summary"] = {**summary, **{k: SUPPRESSED for k in hidden}}
+    return (json.dumps(data, sort_keys=True, indent=2, ensure_ascii=False) + "\n").encode("utf-8")
 
 
 # ---------------------------------------------------------------------------------------

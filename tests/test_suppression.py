@@ -120,6 +120,25 @@ def test_no_public_byte_shows_a_figure_of_the_small_group(small: Path, tmp_path:
     assert _hits(texts, figures) == []
 
 
+def test_counts_resting_on_the_one_tested_person_are_suppressed(small: Path, tmp_path: Path) -> None:
+    import json
+    build_fixed(small, tmp_path / "site")
+    tiles = lambda slug: dict((label, value) for value, label in re.findall(  # noqa: E731
+        r'<span class="tile-value">([^<]+)</span><span class="tile-label">([^<]+)</span>',
+        (tmp_path / "site" / f"{slug}.html").read_text(encoding="utf-8")))
+    index = tiles("index")
+    # one person tested in the period: shift and recordable counts rest on that person
+    assert index["People with a threshold shift (STS) this period"] == SUPPRESSED
+    assert index["Exposed at or above the action level"] == SUPPRESSED
+    assert index["People in the programme&#39;s scope"] == "7"
+    hearing = tiles("hearing")
+    assert set(hearing.values()) == {SUPPRESSED}
+    assert not any(re.search(r"in \d+ (?:person|people)", label) for label in hearing)
+    summary = json.loads(_export(small, False)["summary.json"])["summary"]
+    assert summary["sts_this_period"] == SUPPRESSED and summary["must_be_enrolled"] == SUPPRESSED
+    assert json.loads(_export(small, True)["summary.json"])["summary"]["sts_this_period"] == 1
+
+
 def test_the_restricted_build_and_export_show_the_small_group(small: Path, tmp_path: Path) -> None:
     # the scan above can fail: the figures are there to be found when nothing is withheld
     build_fixed(small, tmp_path / "site", restricted=True)

@@ -390,7 +390,9 @@ def _public_tiles(ctx: SiteContext, tiles: list[dict[str, Any]], a: pd.DataFrame
     n = int(a["person_id"].nunique()) if not a.empty else 0
     if n == 0 or not ctx.sup.hides(n):
         return tiles
-    return [dict(t, value=ctx.sup.suppress(t["value"], n), warn=False) for t in tiles]
+    # a label that carries a count of its own ("..., in 1 person") loses it too
+    return [dict(t, value=ctx.sup.suppress(t["value"], n), warn=False,
+                 label=re.sub(r",? in \d[\d,]* (?:person|people)$", "", t["label"])) for t in tiles]
 
 
 def _in_period(df: pd.DataFrame, col: str, start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:

@@ -107,6 +107,33 @@ def summary_tiles(summary: dict[str, Any], limit: int = 15) -> list[dict[str, An
     return tiles[:limit]
 
 
+#: headline counts resting on the people tested in the period
+TESTED_COUNTS = ("sts_this_period", "recordables_this_period")
+#: headline counts of exposed people: a small one beside the shown groups tells a withheld group's category
+EXPOSED_COUNTS = ("must_be_enrolled", "not_enrolled")
+
+
+def public_headline(ctx: SiteContext, summary: dict[str, Any], tiles: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Return the headline tiles with the counts resting on too few people suppressed (public builds)."""
+    sup = ctx.sup
+    h = getattr(ctx.results, "hearing", None)
+    pg = getattr(h, "period_groups", None)
+    n_tested = 0
+    if pg is not None and len(pg):
+        tested = pg.loc[pg["group"] == "all", "n_tested"]
+        n_tested = int(tested.iloc[0]) if len(tested) else 0
+    labels = dict(HEADLINE)
+    hide: set[str] = set()
+    for key in TESTED_COUNTS:
+        if key in summary and n_tested and sup.hides(n_tested):
+            hide.add(labels[key])
+    for key in EXPOSED_COUNTS:
+        v = summary.get(key)
+        if sup.groups and isinstance(v, (int, float)) and 0 < v and sup.hides(v):
+            hide.add(labels[key])
+    return [dict(t, value=sup.suppress(t["value"], 0), warn=False) if t["label"] in hide else t for t in tiles]
+
+
 def count_tiles(ctx: SiteContext) -> list[dict[str, str]]:
     """Return tiles counting the records read."""
     prog = ctx.programme
@@ -194,7 +221,7 @@ def build(ctx: SiteContext) -> list[Page]:
     results = ctx.results
     comp = results.compliance
     summary = getattr(comp, "summary", None) if comp is not None else None
-    headline = summary_tiles(summary) if isinstance(summary, dict) else []
+    headline = public_headline(ctx, summary, summary_tiles(summary)) if isinstance(summary, dict) else []
     actions = all_actions(results)
     files = file_rows(ctx)
     missing = [f for f in files if not f["present"]]
