@@ -91,7 +91,9 @@ def make_context(programme: Programme, results: Results, restricted: bool = Fals
     if warning is not None:
         programme.findings.extend([warning])
     # built once per build: every public aggregate and every free text passes through these two
-    suppress = Suppressor(people, cfg.privacy.min_group_size, cfg.period.start, cfg.period.end, restricted)
+    groups = programme.table("groups")
+    suppress = Suppressor(people, cfg.privacy.min_group_size, cfg.period.start, cfg.period.end, restricted,
+                          groups=groups["group"].astype(str).tolist() if "group" in groups.columns else ())
     redact = str if restricted else redactor(people, code)
     return SiteContext(programme=programme, results=results, rules=results.rules, code=code,
                        suppressed_groups=suppress.groups, restricted=restricted, suppress=suppress,

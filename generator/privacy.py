@@ -206,7 +206,7 @@ class Suppressor:
     """
 
     def __init__(self, people: pd.DataFrame, min_size: int, start: Any = None, end: Any = None,
-                 restricted: bool = False) -> None:
+                 restricted: bool = False, groups: Iterable[str] = ()) -> None:
         self.min_size = int(min_size)
         self.restricted = bool(restricted)
         inp = people if start is None or end is None else people_in_period(people, start, end)
@@ -216,7 +216,9 @@ class Suppressor:
             counts = inp.groupby(inp["group"].astype(str))["person_id"].nunique()
         #: group -> distinct people of the group employed in the period
         self.group_people: dict[str, int] = {str(g): int(n) for g, n in sorted(counts.items())}
-        known = sorted({str(g) for g in people["group"].astype(str)}) if "group" in people.columns else []
+        # every group of the people table and of the groups table (*groups*): one with nobody in it is withheld too
+        known = sorted(({str(g) for g in people["group"].astype(str)} if "group" in people.columns else set())
+                       | {str(g) for g in groups if str(g)})
         #: groups whose figures are withheld on public output (empty in a restricted build)
         self.groups: frozenset[str] = frozenset() if self.restricted else frozenset(
             g for g in known if self.group_people.get(g, 0) < self.min_size)

@@ -190,6 +190,8 @@ def test_group_sizes_count_people_employed_in_the_period() -> None:
     sup4 = Suppressor(_people(), 4, "2025-01-01", "2025-12-31")
     assert sup4.groups == frozenset({"G1", "G2"})
     assert Suppressor(_people(), 4, "2025-01-01", "2025-12-31", restricted=True).groups == frozenset()
+    # a group of the groups table with nobody in it has no figure to show either
+    assert Suppressor(_people(), 3, "2025-01-01", "2025-12-31", groups=["G1", "G3"]).groups == frozenset({"G3"})
 
 
 def test_suppress_and_suppress_frame() -> None:
