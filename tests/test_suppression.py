@@ -297,3 +297,26 @@ def test_workbook_holds_every_table_and_is_byte_identical(small: Path) -> None:
         # 1767225600 s after the epoch is 2026-01-01T00:00:00Z
         assert core.count("2026-01-01T00:00:00Z") == 2
         assert {i.date_time for i in z.infolist()} == {(2026, 1, 1, 0, 0, 0)}
+
+
+def test_example_hearing_figures_rest_on_enough_people(built_example) -> None:
+    # site_example has group-years with one to four people tested (early years, small groups):
+    # no public hearing table may show a mean, a rate or an indicator of those
+    pages = [p for p in built_example.context.pages if p.section == "hearing" and not p.restricted]
+    min_size = built_example.context.suppress.min_size
+    checked = 0
+    for page in pages:
+        for chart in page.charts:
+            cols = chart.table.columns
+            for head in ("People tested", "People", "Pairs"):
+                if head not in cols:
+                    continue
+                i = cols.index(head)
+                for row in chart.table.rows:
+                    if row[i] != SUPPRESSED:
+                        assert int(str(row[i]).replace(",", "")) >= min_size, (page.slug, chart.id, row)
+                        checked += 1
+            if "Ears" in cols:
+                i = cols.index("Ears")
+                assert all(int(r[i]) >= 2 * min_size - 1 for r in chart.table.rows), (page.slug, chart.id)
+    assert checked > 20

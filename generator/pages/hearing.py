@@ -434,6 +434,10 @@ def public_hearing(h: HearingResult, ctx: SiteContext) -> HearingResult:
 
     pop = keep(h.population, h.population["n_tested"]) if not h.population.empty else h.population
     if not pop.empty:
+        # a change from the year before rests on that year's people too (else it tells that year's mean)
+        before = h.population.assign(year=h.population["year"] + 1).set_index(["group", "year"])["n_avg"]
+        prev_n = pd.Series(list(zip(pop["group"], pop["year"])), index=pop.index).map(before)
+        pop = sup.suppress_frame(pop.assign(_n=prev_n.fillna(0)), "_n", ["change_mean_avg"])
         pop = sup.suppress_frame(pop.assign(_n=pop["n_avg"]), "_n", ["mean_avg_234", "change_mean_avg"])
         pop = sup.suppress_frame(pop.assign(_n=pop["n_within"]), "_n", ["mean_within_change"]).drop(columns="_n")
     return dataclasses.replace(
