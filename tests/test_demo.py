@@ -15,7 +15,7 @@ import pytest
 
 from generator import demo
 from generator.config import CONFIG_FILE, iter_options, load_config
-from generator.findings import Findings, UsageError
+from generator.findings import Findings, HcpsiteError, UsageError
 from generator.inputs.spec import AUDIO_FREQS, FILES, OCTAVE_BANDS
 
 REPO = Path(__file__).resolve().parents[1]
@@ -90,9 +90,17 @@ def test_rewrite_replaces_old_logs(tmp_path: Path) -> None:
     root = tmp_path / "prog"
     demo.write_demo(root, people=40, years=3, seed=1)
     stale = root / "data" / "noise_logs" / "NM-1999-99999.csv"
+    first = {p.name for p in (root / "data" / "noise_logs").glob("*.csv")}
+    demo.write_demo(root, people=40, years=2, seed=2)  # the first demo's logs are removed
+    logs = {p.name for p in (root / "data" / "noise_logs").glob("*.csv")}
+    assert first - logs, "the two demos should differ in their logs"
+    listed = (root / demo.MANIFEST).read_text(encoding="utf-8")
+    assert logs and all(f"data/noise_logs/{name}" in listed for name in logs)
+    # a log the demo did not write is kept and the demo refuses
     stale.write_text("start,laeq\n", encoding="utf-8")
-    demo.write_demo(root, people=40, years=3, seed=1)
-    assert not stale.exists()
+    with pytest.raises(HcpsiteError):
+        demo.write_demo(root, people=40, years=3, seed=1)
+    assert stale.read_text(encoding="utf-8") == "start,laeq\n"
 
 
 # ---------------------------------------------------------------------------------------
@@ -492,9 +500,9 @@ def test_never_overwrites_other_records(tmp_path: Path) -> None:
     (tmp_path / "real" / "data").mkdir(parents=True)
     people = tmp_path / "real" / "data" / "people.csv"
     people.write_text("person_id,group\nE1,G1\n", encoding="utf-8")
-    with pytest.raises(UsageError):
+    with pytest.raises(HcpsiteError):
         demo.write_demo(tmp_path / "real", people=40, years=2)
     assert people.read_text(encoding="utf-8") == "person_id,group\nE1,G1\n"
     (tmp_path / "file").write_text("x", encoding="utf-8")
-    with pytest.raises(UsageError):
+    with pytest.raises(HcpsiteError):
         demo.write_demo(tmp_path / "file", people=40, years=2)

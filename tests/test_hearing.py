@@ -446,8 +446,10 @@ def test_pages_public_and_restricted(tmp_path):
     people_pages = sorted(s for s in res.pages if s.startswith("people/"))
     assert people_pages == sorted(f"people/{res.context.code(p)}" for p in ("RAWID0", "RAWID1", "RAWID2", "RAWLONE"))
     over = (tmp_path / "res" / "hearing.html").read_text(encoding="utf-8")
-    assert f'href="{people_pages[0]}.html"' in over  # the restricted overview links the person pages
-    assert 'href="people/' not in html  # the public one does not
+    assert 'href="people.html"' in over  # the restricted overview links the index of person pages
+    # the shift listed by code links to the person's page
+    assert f'href="people/{res.context.code("RAWID0")}.html"' in over
+    assert 'href="people' not in html  # the public one does not
     page = (tmp_path / "res" / f"{people_pages[0]}.html").read_text(encoding="utf-8").replace(" ", "")
     assert '"type":"log"' in page and '"autorange":"reversed"' in page
 

@@ -39,7 +39,7 @@ def section_title(section: str) -> str:
 
 def page_builders() -> list:
     """Return the page builders in navigation order, the narrative pages right after the overview."""
-    from . import (actions, exposure, hearing, methods, narrative, overview, programme, protection, quality,
-                   review, trends)
-    return [overview.build, narrative.build, exposure.build, protection.build, hearing.build, programme.build,
-            actions.build, trends.build, review.build, methods.build, quality.build]
+    from . import (actions, exposure, hearing, methods, narrative, overview, people, programme, protection,
+                   quality, review, trends)
+    return [overview.build, narrative.build, exposure.build, protection.build, hearing.build, people.build,
+            programme.build, actions.build, trends.build, review.build, methods.build, quality.build]

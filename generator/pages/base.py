@@ -18,6 +18,17 @@ if TYPE_CHECKING:
     from ..pipeline import Results
 
 
+@dataclass(frozen=True)
+class Link:
+    """A table cell that links to another page of the site (href relative to the site root)."""
+
+    text: str
+    href: str
+
+    def __str__(self) -> str:
+        return self.text
+
+
 @dataclass
 class Table:
     """A table for a template: header labels and rows of already formatted cells."""
