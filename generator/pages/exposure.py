@@ -13,7 +13,7 @@ import plotly.graph_objects as go
 from .. import charts
 from .. import levels as lv
 from ..exposure import BASIS_LABELS, PARAMETERS, ExposureResult, action_value, band_names
-from ..privacy import redactor
+from ..privacy import WITHHELD_DETAIL, WITHHELD_KIND
 from . import figure_tiles
 from .base import Chart, Page, SiteContext, Table, group_slugs
 
@@ -230,6 +230,9 @@ def actions_table(res: ExposureResult, ctx: SiteContext, redact: Any = str, n: i
     for r in res.actions.head(n).itertuples(index=False):
         subj = ctx.code(r.subject) if r.subject_type == "person" else str(r.subject)
         due = r.due_date.strftime("%Y-%m-%d") if not pd.isna(r.due_date) else charts.BLANK
+        if r.subject_type == "group" and ctx.sup.hides_group(r.subject):
+            rows.append([SUPPRESSED, WITHHELD_KIND, WITHHELD_DETAIL.format(n=ctx.sup.min_size), due, ""])
+            continue
         rows.append([subj, r.kind, redact(r.detail), due, r.clause])
     return Table(columns=["Subject", "Action", "Detail", "Due", "Clause"], rows=rows,
                  caption=caption, classes=["", "", "", "", ""])
@@ -523,7 +526,7 @@ def build(ctx: SiteContext) -> list[Page]:
     if res is None:
         return []
     head = ctx.headline
-    redact = redactor(ctx.programme.table("people"), ctx.code)
+    redact = ctx.redact
     codes = res.groups["group"].tolist()
     slugs = group_slugs(codes)
     m = res.measurements

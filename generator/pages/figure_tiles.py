@@ -12,6 +12,32 @@ from ..figures import FigureSet, FigureValue
 from .base import SiteContext
 
 BLANK = "–"
+SUPPRESSED = "suppressed"
+#: figures resting on the people tested in the period: withheld when those are too few
+TESTED = ("people_with_sts", "recordable_cases", "recordable_rate")
+#: counts of exposed people: while a group is withheld, a small one beside the shown groups'
+#: figures would tell that group's category
+EXPOSED = ("must_be_enrolled", "not_enrolled", "exposed_top_band")
+
+
+def withheld(ctx: SiteContext) -> frozenset[str]:
+    """Return the headline figures a public build must not show (privacy.min_group_size).
+
+    The one place this is decided: tiles, sentences, summary.json and the exports ask here.
+    """
+    if ctx.restricted:
+        return frozenset()
+    vals, sup = figures(ctx).values, ctx.sup
+    out: set[str] = set()
+    tested = vals.get("people_tested")
+    if tested is not None and tested.known and tested.value and sup.hides(tested.value):
+        out.update(TESTED)
+    if sup.groups:
+        for name in EXPOSED:
+            v = vals.get(name)
+            if v is not None and v.known and v.value and sup.hides(v.value):
+                out.add(name)
+    return frozenset(out)
 
 
 def value_text(fv: FigureValue | None, unit: str) -> str:
@@ -45,6 +71,8 @@ def figures(ctx: SiteContext) -> FigureSet:
 def text(ctx: SiteContext, name: str) -> str:
     """Return the shown value of figure *name*."""
     fig = F.BY_NAME[name]
+    if name in withheld(ctx):
+        return SUPPRESSED
     return value_text(figures(ctx).values.get(name), fig.unit)
 
 
@@ -58,6 +86,8 @@ def tile(ctx: SiteContext, name: str, *, label: str | None = None, note: str | N
     warn = bool(fig.attention and fv is not None and fv.known and (
         (fig.unit == F.SHARE and float(fv.value or 0) < 1.0) or (fig.unit != F.SHARE and float(fv.value or 0) > 0)))
     basis = basis_text(fv, fig.unit)
+    if name in withheld(ctx):
+        value, basis, warn = SUPPRESSED, "", False
     return {"label": label if label is not None else figs.labels.get(name, fig.label), "value": value,
             "note": note if note is not None else basis, "warn": warn, "figure": name,
             "href": fig.explained if link else "", "source": figs.sources.get(name, "")}

@@ -2,7 +2,9 @@
 one page per person. Reads ``ctx.results["hearing"]``; computes nothing new."""
 from __future__ import annotations
 
+import dataclasses
 import logging
+import re
 from typing import Any
 
 import numpy as np
@@ -431,6 +433,16 @@ def _headline_tiles(ctx: SiteContext, a: pd.DataFrame, fu: pd.DataFrame) -> list
     ]
 
 
+def _public_tiles(ctx: SiteContext, tiles: list[dict[str, Any]], a: pd.DataFrame) -> list[dict[str, Any]]:
+    """Return the tiles, their counts suppressed when the people tested in the period are too few."""
+    n = int(a["person_id"].nunique()) if not a.empty else 0
+    if n == 0 or not ctx.sup.hides(n):
+        return tiles
+    # a label that carries a count of its own ("..., in 1 person") loses it too
+    return [dict(t, value=ctx.sup.suppress(t["value"], n), warn=False,
+                 label=re.sub(r",? in \d[\d,]* (?:person|people)$", "", t["label"])) for t in tiles]
+
+
 def _in_period(df: pd.DataFrame, col: str, start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:
     if df.empty:
         return df
@@ -443,17 +455,65 @@ def _due_followups(fu: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp) -> 
     return d[d["status"] != LEFT_STATUS] if not d.empty else d
 
 
+def _people_of_ears(n_ears: pd.Series) -> pd.Series:
+    """Return the fewest people *n_ears* ears can belong to (two ears a person): what a per-ear figure rests on."""
+    return np.ceil(pd.to_numeric(n_ears, errors="coerce") / 2)
+
+
+def public_hearing(h: HearingResult, ctx: SiteContext) -> HearingResult:
+    """Return *h* with every aggregate resting on fewer than min_group_size people left out (public builds).
+
+    Group-years, period rows (the "all" row too), sequential-pair indicators, age-band and
+    expected-change rows go through the build's suppressor with the people they rest on:
+    people tested, people with a 2/3/4 kHz average, pairs of the same person, and the
+    fewest people their ears can belong to.
+    """
+    sup = ctx.sup
+    if sup.restricted:
+        return h
+
+    def keep(df: pd.DataFrame, n: pd.Series) -> pd.DataFrame:
+        if df.empty:
+            return df
+        shown = ~n.map(sup.hides).to_numpy(bool)
+        if "group" in df.columns:
+            shown &= ~df["group"].astype(str).map(sup.hides_group).to_numpy(bool)
+        return df[shown]
+
+    pop = keep(h.population, h.population["n_tested"]) if not h.population.empty else h.population
+    if not pop.empty:
+        # a change from the year before rests on that year's people too (else it tells that year's mean)
+        before = h.population.assign(year=h.population["year"] + 1).set_index(["group", "year"])["n_avg"]
+        prev_n = pd.Series(list(zip(pop["group"], pop["year"])), index=pop.index).map(before)
+        pop = sup.suppress_frame(pop.assign(_n=prev_n.fillna(0)), "_n", ["change_mean_avg"])
+        pop = sup.suppress_frame(pop.assign(_n=pop["n_avg"]), "_n", ["mean_avg_234", "change_mean_avg"])
+        pop = sup.suppress_frame(pop.assign(_n=pop["n_within"]), "_n", ["mean_within_change"]).drop(columns="_n")
+    return dataclasses.replace(
+        h, population=pop,
+        indicators=keep(h.indicators, h.indicators["n_pairs"]) if not h.indicators.empty else h.indicators,
+        age_norms=keep(h.age_norms, _people_of_ears(h.age_norms["n_ears"])) if not h.age_norms.empty
+        else h.age_norms,
+        noise_expected=keep(h.noise_expected, _people_of_ears(h.noise_expected["n_ears"]))
+        if not h.noise_expected.empty else h.noise_expected)
+
+
+def _hidden_rows(ctx: SiteContext, pg: pd.DataFrame) -> frozenset[str]:
+    """Return the period rows (groups, "all") shown as suppressed: withheld groups and rows of too few people."""
+    few = [str(g) for g, n in zip(pg["group"], pg["n_tested"]) if ctx.sup.hides(n)] if not pg.empty else []
+    return frozenset(ctx.suppressed_groups) | frozenset(few)
+
+
 def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page:
     start, end = _period(ctx)
     years = _years(ctx)
     sup = ctx.suppressed_groups
+    hidden_rows = _hidden_rows(ctx, h.period_groups)
     a = _in_period(h.audiograms, "date", start, end)
     fu = _due_followups(h.followups, start, end)
-    cases = _in_period(h.cases, "date", start, end)
     shown_groups = [g for g in sorted(slugs) if g not in sup]
     page_charts = [
         per_year_chart(h.population, "all", "hearing-1", "all groups"),
-        rate_by_group_chart(h.period_groups, sup, "hearing-2"),
+        rate_by_group_chart(h.period_groups, hidden_rows, "hearing-2"),
         followup_chart(fu, "hearing-3"),
         indicators_chart(h.indicators, "all", "hearing-4", "all groups"),
         mean_average_chart(h.population, shown_groups, "hearing-5"),
@@ -466,11 +526,11 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
     flagged = a_vis[(a_vis["shift_status"] != "") | a_vis["recordable"]]
     context = {
         "has_data": not h.audiograms.empty,
-        "tiles": _headline_tiles(ctx, a, fu),
+        "tiles": _public_tiles(ctx, _headline_tiles(ctx, a, fu), a),
         "age_correction": ctx.programme.config.audiometry.age_correction,
         "retest_days": ctx.programme.config.audiometry.retest_days,
         "notice_days": ctx.programme.config.audiometry.notice_days,
-        "group_table": group_table(h.period_groups, h.population, years, sup),
+        "group_table": group_table(h.period_groups, h.population, years, hidden_rows),
         "group_links": [{"group": g, "href": f"hearing/{slugs[g]}.html", "suppressed": g in sup}
                         for g in sorted(slugs)],
         "shifts_table": shifts_table(flagged, ctx),
@@ -506,7 +566,7 @@ def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Pa
         noise_chart(h.noise_expected, [group], f"{cid}-4", freqs=(3000, 4000, 6000)),
     ]
     flagged = a[(a["shift_status"] != "") | a["recordable"]]
-    context = {"group": group, "suppressed": False, "tiles": _tiles(h, a, fu, cases),
+    context = {"group": group, "suppressed": False, "tiles": _public_tiles(ctx, _tiles(h, a, fu, cases), a),
                "shifts_table": shifts_table(flagged, ctx), "followups_table": followups_table(fu, ctx),
                "group_name": group}
     return Page(slug=full, title=f"Hearing: {group}", template="hearing_group.html", section="hearing",
@@ -522,6 +582,7 @@ def build(ctx: SiteContext) -> list[Page]:
                               "group_links": [], "any_suppressed": False, "people_index": ctx.restricted}, in_nav=True)]
     groups = sorted(set(h.audiograms["group"].astype(str)) - {""}) if not h.audiograms.empty else []
     slugs = group_slugs(groups)
+    h = public_hearing(h, ctx)
     pages = [_overview(ctx, h, slugs)]
     pages += [_group_page(ctx, h, g, slugs[g]) for g in groups]
     log.info("hearing pages: %d", len(pages))

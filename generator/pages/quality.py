@@ -4,7 +4,7 @@ from __future__ import annotations
 import logging
 
 from ..findings import ERROR, WARNING
-from ..privacy import redactor
+from ..privacy import WITHHELD_FINDING
 from .base import Page, SiteContext, Table
 from .overview import file_rows, stage_rows
 
@@ -27,7 +27,13 @@ def _rows_text(rows: list[int]) -> str:
 def build(ctx: SiteContext) -> list[Page]:
     """Return the data-quality page."""
     findings = ctx.programme.findings
-    clean = (lambda t: t) if ctx.restricted else redactor(ctx.programme.table("people"), ctx.code)
+    withheld = WITHHELD_FINDING.format(n=ctx.sup.min_size)
+
+    def clean(text: str) -> str:
+        if ctx.restricted:
+            return text
+        return withheld if ctx.sup.hides_text(text) else ctx.redact(text)
+
     groups = sorted(findings.groups(), key=lambda g: (g.level != ERROR, g.path, g.column or "",
                                                       g.items[0].row or 0))
     n_groups = len(groups)
