@@ -27,7 +27,7 @@ from .pages import page_builders
 from .pages.people import link_person_codes
 from .pages.base import Page, SiteContext
 from .pipeline import STAGE_NAMES, Results
-from .privacy import make_coder, small_groups
+from .privacy import Suppressor, make_coder, redactor
 from .rules import rule_sets_for
 
 log = logging.getLogger(__name__)
@@ -92,9 +92,14 @@ def make_context(programme: Programme, results: Results, restricted: bool = Fals
     code, warning = make_coder(people, os.environ.get(cfg.privacy.id_key_env) or None, cfg.privacy.id_key_env)
     if warning is not None:
         programme.findings.extend([warning])
+    # built once per build: every public aggregate and every free text passes through these two
+    groups = programme.table("groups")
+    suppress = Suppressor(people, cfg.privacy.min_group_size, cfg.period.start, cfg.period.end, restricted,
+                          groups=groups["group"].astype(str).tolist() if "group" in groups.columns else ())
+    redact = str if restricted else redactor(people, code)
     return SiteContext(programme=programme, results=results, rules=results.rules, code=code,
-                       suppressed_groups=small_groups(people, cfg.privacy.min_group_size),
-                       restricted=restricted)
+                       suppressed_groups=suppress.groups, restricted=restricted, suppress=suppress,
+                       redact=redact)
 
 
 def prepare(root: Path, *, strict: bool = False, restricted: bool = False) -> SiteContext:

@@ -453,8 +453,17 @@ def sort_actions(actions: pd.DataFrame) -> pd.DataFrame:
 # headline figures of one status table
 
 
+def _period_share(status: pd.DataFrame, start: pd.Timestamp, as_of: pd.Timestamp) -> float | None:
+    """Return the share of the period's test days with valid audiometer checks (None: no test day)."""
+    if status.empty:
+        return None
+    d = _dates(status)
+    inp = (d >= start) & (d <= as_of)
+    return _share((inp & _bool(status["ok"])).sum(), inp.sum())
+
+
 def _figures(s: pd.DataFrame, hearing: pd.DataFrame | None, year_start: pd.Timestamp,
-             as_of: pd.Timestamp) -> dict[str, Any]:
+             as_of: pd.Timestamp, cases: pd.DataFrame | None = None) -> dict[str, Any]:
     """Return the headline figures of one status table."""
     must = s["must_enrol"]
     # people still within their baseline time limit are not yet expected to have an audiogram
@@ -495,6 +504,9 @@ def _figures(s: pd.DataFrame, hearing: pd.DataFrame | None, year_start: pd.Times
                     sts = n
                 else:
                     rec = n
+    if cases is not None:  # 29 CFR 1904.10: cases of people, one per person and audiogram
+        d = _dates(cases)
+        rec = int(((d >= year_start) & (d <= as_of)).sum()) if not cases.empty else 0
     f["sts"] = sts
     f["recordables"] = rec
     return f
@@ -615,7 +627,8 @@ def compute(programme: Programme, *, rule: RuleSet | None = None, exposure: Expo
     ) if not a.empty]
     actions = sort_actions(pd.concat(parts, ignore_index=True)) if parts else _empty(ACTION_COLUMNS)
 
-    fig = _figures(s, None if hearing is None else hearing.audiograms, start, as_of)
+    fig = _figures(s, None if hearing is None else hearing.audiograms, start, as_of,
+                   getattr(hearing, "cases", None))
     by_kind = actions["kind"].value_counts().sort_index() if not actions.empty else pd.Series(dtype=int)
     summary: dict[str, Any] = {
         **{k: v for k, v in fig.items() if k not in ("sts", "recordables")},
@@ -629,7 +642,8 @@ def compute(programme: Programme, *, rule: RuleSet | None = None, exposure: Expo
         "overdue_training": fig["overdue_training"],
         "refits_open": int(len(open_refits)),
         "audiograms_flagged": int(len(flagged)),
-        "audiometer_days_ok_share": _share(status["ok"].sum(), len(status)) if not status.empty else None,
+        # test days of the review period (as the headline figure in generator/figures.py)
+        "audiometer_days_ok_share": _period_share(status, start, as_of),
     }
     summary = dict(sorted(summary.items()))
     log.info("compliance: %d people in scope, %d actions", len(s), len(actions))

@@ -8,9 +8,12 @@ keys are sorted, so two exports of the same inputs are byte-identical.
 """
 from __future__ import annotations
 
+import datetime as dt
 import json
 import logging
 import math
+import os
+import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable
@@ -20,6 +23,7 @@ import pandas as pd
 
 from .pipeline import Results
 from .pages.base import SiteContext
+from .privacy import SUPPRESSED
 
 log = logging.getLogger(__name__)
 
@@ -30,7 +34,7 @@ GROUP_COLUMNS = ["group", "n_people", "n_samples", "lex_8h", "u_expanded", "lex_
 HEARING_COLUMNS = ["person_id", "ear", "date", "kind", "baseline_date", "avg_234", "shift_234",
                    "shift_234_age_corrected", "osha_sts", "osha_sts_age_corrected", "niosh_shift",
                    "recordable"]
-ACTION_COLUMNS = ["subject", "kind", "detail", "due_date"]
+ACTION_COLUMNS = ["subject", "kind", "detail", "due_date", "status", "clause", "section"]
 #: decimals written for float columns
 FLOAT_DECIMALS = 2
 #: characters that make a spreadsheet treat a cell as a formula (OWASP "CSV injection").
@@ -179,8 +183,22 @@ def _json_ready(v: Any) -> Any:
     return v
 
 
+def figures_json(ctx: SiteContext) -> dict[str, Any]:
+    """Return every headline figure (generator/figures.py) with its value and its definition."""
+    from . import figures as F
+    figs = ctx.results.figures
+    out: dict[str, Any] = {}
+    for fig in F.FIGURES:
+        fv = figs.values[fig.name]
+        out[fig.name] = {**fig.described(ctx.headline), "label": figs.labels[fig.name],
+                         "source": figs.sources[fig.name], "value": fv.value, "numerator": fv.numerator,
+                         "denominator": fv.denominator,
+                         "as_of": figs.as_of.strftime("%Y-%m-%d"), "from": figs.start.strftime("%Y-%m-%d")}
+    return out
+
+
 def summary_json(ctx: SiteContext) -> bytes:
-    """Return the headline figures of the overview as sorted JSON."""
+    """Return the headline figures of the overview (``figures``: one entry per definition) as sorted JSON."""
     prog = ctx.programme
     comp = ctx.results.compliance
     data: dict[str, Any] = {
@@ -193,34 +211,196 @@ def summary_json(ctx: SiteContext) -> bytes:
         "files_present": sorted(prog.present),
         "findings": {"errors": len(prog.findings.errors), "warnings": len(prog.findings.warnings)},
         "summary": dict(getattr(comp, "summary", None) or {}),
+        "figures": figures_json(ctx),
     }
     return (json.dumps(_json_ready(data), sort_keys=True, indent=2, ensure_ascii=False) + "\n").encode("utf-8")
 
 
-def export_files(ctx: SiteContext) -> dict[str, bytes]:
-    """Return every export file as name -> bytes (tables of stages that did not run are left out)."""
+#: value columns of each record-level table withheld for the people of a small group
+RECORD_VALUES = {
+    "exposure_results.csv": ("measurement_id", "date", "duration_h", "laeq", "lex_8h", "osha_dose_pct", "osha_twa",
+                             "osha_pel_dose_pct", "niosh_dose_pct", "niosh_twa", "lcpeak", "basis"),
+    "hearing_results.csv": ("ear", "date", "kind", "baseline_date", "avg_234", "shift_234",
+                            "shift_234_age_corrected", "osha_sts", "osha_sts_age_corrected", "niosh_shift",
+                            "recordable"),
+}
+
+
+def category_columns(groups: pd.DataFrame, rules: dict[str, Any]) -> pd.DataFrame:
+    """Return per rule set the group's exposure category and the figure it rests on.
+
+    ``category_<rule>`` is the category the rule set judges (on the value plus U where the
+    rule set judges with the uncertainty and U is known, else on the value);
+    ``category_level_<rule>`` is that figure, dB(A); ``category_basis_<rule>`` says which
+    (``value`` or ``value + U``).
+    """
+    out = pd.DataFrame(index=groups.index)
+    for rid, rule in rules.items():
+        band, upper = f"band_{rid}", f"band_upper_{rid}"
+        if band not in groups.columns:
+            continue
+        level = groups.get(f"level_{rid}", pd.Series(np.nan, index=groups.index)).astype(float)
+        with_u = groups.get(upper, pd.Series("", index=groups.index)).astype("string").fillna("").ne("") \
+            if getattr(rule, "judge_with_uncertainty", False) else pd.Series(False, index=groups.index)
+        up = groups.get(f"level_upper_{rid}", level).astype(float)
+        out[f"category_{rid}"] = np.where(with_u, groups.get(upper, groups[band]).astype(object),
+                                          groups[band].astype(object))
+        out[f"category_level_{rid}"] = np.where(with_u, up, level)
+        out[f"category_basis_{rid}"] = np.where(with_u, "value + U", np.where(level.notna(), "value", ""))
+    return out
+
+
+def public_table(spec: ExportSpec, frame: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
+    """Return the rows and columns of one exported table (before pseudonyms and redaction)."""
+    if spec.file == "actions.csv":
+        # the same rows, order and words as the actions page
+        from .pages.actions import export_actions
+        return export_actions(frame, ctx)
+    table = select_columns(frame, spec)
+    sup = ctx.sup
+    if spec.file == "group_exposure.csv":
+        table = pd.concat([table, category_columns(frame.reset_index(drop=True), ctx.rules)], axis=1)
+        n = pd.Series([sup.group_n(g) for g in table["group"]], index=table.index, dtype=float)
+        values = [c for c in table.columns if c != "group"]
+        table = sup.suppress_frame(table.assign(_n=n), "_n", values).drop(columns="_n")
+    elif spec.file in RECORD_VALUES:
+        table = sup.withhold_groups(table, RECORD_VALUES[spec.file], person_col="person_id")
+    return table
+
+
+def export_tables(ctx: SiteContext) -> dict[str, pd.DataFrame]:
+    """Return every exported table as name -> frame, as the export writes it (coded, redacted, suppressed)."""
     people = ctx.programme.table("people")
     ids = set(people["person_id"].astype(str)) if "person_id" in people.columns else set()
-    files: dict[str, bytes] = {}
+    tables: dict[str, pd.DataFrame] = {}
     for spec in EXPORTS:
         frame = stage_frame(ctx.results, spec)
         if frame is None:
             log.warning("%s: stage %s did not run; not exported", spec.file, spec.stage)
             continue
-        table = select_columns(frame, spec)
+        table = public_table(spec, frame, ctx)
         if not ctx.restricted:
-            if "subject_type" in frame.columns and spec.file == "actions.csv":
-                table = pseudonymise(table.assign(subject_type=frame["subject_type"].to_numpy()), ctx.code, ids)
-                table = table.drop(columns=["subject_type"])
-            else:
-                table = pseudonymise(table, ctx.code, ids)
-            if "detail" in table.columns:
-                clean = ctx.redact
-                texts = table["detail"].astype("string").fillna("")
-                table["detail"] = texts.map({t: clean(t) for t in sorted(set(texts.tolist()))}).astype(object)
-        files[spec.file] = frame_to_csv(table)
-    files["summary.json"] = summary_json(ctx)
+            table = pseudonymise(table, ctx.code, ids)
+            for col in table.columns:
+                if col not in PERSON_COLUMNS and table[col].dtype == object and \
+                        all(isinstance(v, str) for v in table[col].dropna().tolist()):
+                    texts = table[col].astype("string").fillna("")
+                    table[col] = texts.map({t: ctx.redact(t) for t in sorted(set(texts.tolist()))}).astype(object)
+        tables[spec.file] = table.drop(columns=[c for c in ("subject_type",) if c in table.columns])
+    return tables
+
+
+def export_files(ctx: SiteContext) -> dict[str, bytes]:
+    """Return every export file as name -> bytes: the CSVs, the same tables as one workbook, the summary."""
+    tables = export_tables(ctx)
+    files = {name: frame_to_csv(t) for name, t in tables.items()}
+    files[WORKBOOK] = workbook_bytes(tables, ctx)
+    files["summary.json"] = public_summary(summary_json(ctx), ctx)
     return files
+
+
+#: summary.json keys that carry a headline figure (generator/figures.py) under another name
+SUMMARY_FIGURES = {"sts_this_period": "people_with_sts", "recordables_this_period": "recordable_cases",
+                   "recordable_rate_per_200k": "recordable_rate", "must_be_enrolled": "must_be_enrolled",
+                   "not_enrolled": "not_enrolled"}
+
+
+def public_summary(raw: bytes, ctx: SiteContext) -> bytes:
+    """Return summary.json with the figures the pages withhold (figure_tiles.withheld) replaced by "suppressed"."""
+    from .pages.figure_tiles import withheld
+    hidden = withheld(ctx)
+    if not hidden:
+        return raw
+    data = json.loads(raw)
+    summary = data.get("summary")
+    if isinstance(summary, dict):
+        data["summary"] = {k: (SUPPRESSED if SUMMARY_FIGURES.get(k) in hidden else v) for k, v in summary.items()}
+    figs = data.get("figures")
+    if isinstance(figs, dict):
+        for name in hidden:
+            if name in figs:
+                figs[name] = {**figs[name], "value": SUPPRESSED, "numerator": None, "denominator": None}
+    return (json.dumps(data, sort_keys=True, indent=2, ensure_ascii=False) + "\n").encode("utf-8")
+
+
+# ---------------------------------------------------------------------------------------
+# the workbook
+
+#: the workbook written beside the CSVs
+WORKBOOK = "results.xlsx"
+#: column width bounds, characters
+WIDTH_MIN, WIDTH_MAX = 8, 60
+
+
+def _cell_texts(frame: pd.DataFrame) -> list[list[str]]:
+    """Return the rows of *frame* as the CSV writes them (header first)."""
+    import csv
+    import io
+    return list(csv.reader(io.StringIO(frame_to_csv(frame).decode("utf-8"))))
+
+
+def workbook_stamp(ctx: SiteContext) -> dt.datetime:
+    """Return the fixed time written into the workbook: SOURCE_DATE_EPOCH, else the end of the review period."""
+    raw = os.environ.get("SOURCE_DATE_EPOCH", "").strip()
+    try:
+        if raw:
+            return dt.datetime.fromtimestamp(int(raw), tz=dt.timezone.utc).replace(tzinfo=None)
+    except (ValueError, OverflowError, OSError):
+        pass
+    end = ctx.programme.config.period.end
+    return dt.datetime(end.year, end.month, end.day)
+
+
+def workbook_bytes(tables: dict[str, pd.DataFrame], ctx: SiteContext) -> bytes:
+    """Return the tables as one .xlsx workbook: a sheet each, frozen header row, fitted column widths.
+
+    Numbers are written as numbers, everything else as the CSV's text (formula-like text
+    keeps its neutralising quote). The bytes are fixed: workbook times come from
+    :func:`workbook_stamp` and every zip entry carries that date.
+    """
+    import io
+    import zipfile
+    from openpyxl import Workbook
+    from openpyxl.utils import get_column_letter
+
+    wb = Workbook()
+    wb.remove(wb.active)
+    for name in sorted(tables):
+        rows = _cell_texts(tables[name])
+        ws = wb.create_sheet(title=name.rsplit(".", 1)[0][:31])
+        header, body = rows[0], rows[1:]
+        ws.append(header)
+        numeric = [pd.api.types.is_numeric_dtype(tables[name][c]) and not pd.api.types.is_bool_dtype(tables[name][c])
+                   for c in tables[name].columns]
+        for row in body:
+            ws.append([float(v) if num and v != "" and _is_number(v) else v
+                       for v, num in zip(row, numeric)])
+        ws.freeze_panes = "A2"
+        for i, col in enumerate(header, start=1):
+            longest = max([len(col)] + [len(r[i - 1]) for r in body[:1000] if len(r) >= i])
+            ws.column_dimensions[get_column_letter(i)].width = max(WIDTH_MIN, min(WIDTH_MAX, longest + 2))
+    stamp = workbook_stamp(ctx)
+    wb.properties.creator = "hcpsite"
+    wb.properties.created = stamp
+    raw = io.BytesIO()
+    wb.save(raw)
+    # openpyxl stamps the save time: write the fixed time instead, and fixed dates on every entry
+    when = stamp.strftime("%Y-%m-%dT%H:%M:%SZ")
+    out = io.BytesIO()
+    date_time = (max(1980, stamp.year), stamp.month, stamp.day, stamp.hour, stamp.minute, stamp.second)
+    with zipfile.ZipFile(raw) as src, zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
+        for info in src.infolist():
+            data = src.read(info.filename)
+            if info.filename == "docProps/core.xml":
+                text = data.decode("utf-8")
+                text = re.sub(r"(<dcterms:modified[^>]*>)[^<]*(</dcterms:modified>)", rf"\g<1>{when}\g<2>", text)
+                text = re.sub(r"(<dcterms:created[^>]*>)[^<]*(</dcterms:created>)", rf"\g<1>{when}\g<2>", text)
+                data = text.encode("utf-8")
+            entry = zipfile.ZipInfo(info.filename, date_time=date_time)
+            entry.compress_type = zipfile.ZIP_DEFLATED
+            entry.external_attr = 0o600 << 16
+            dst.writestr(entry, data)
+    return out.getvalue()
 
 
 #: marker file of an export folder: only a folder carrying it (or a new or empty one) is replaced.

@@ -394,6 +394,18 @@ def _lookup(keys: pd.Series, values: pd.Series) -> pd.Series:
     return pd.Series(values.reindex(keys.to_numpy()).to_numpy(), index=keys.index)
 
 
+def _in_scope(people: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:
+    """Return the people in scope during [start, end]: hired by its end and not gone before its start."""
+    keep = pd.Series(True, index=people.index)
+    if "hire_date" in people.columns:
+        hire = pd.to_datetime(people["hire_date"], errors="coerce")
+        keep &= hire.isna() | (hire <= end)
+    if "leave_date" in people.columns:
+        leave = pd.to_datetime(people["leave_date"], errors="coerce")
+        keep &= leave.isna() | (leave >= start)
+    return people.loc[keep]
+
+
 def _period_end(programme: Programme) -> pd.Timestamp:
     return pd.Timestamp(programme.config.period.end)
 
@@ -674,7 +686,10 @@ def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> Ex
                                   u2=("_u2", "max"), cum_hours=("duration_h", "sum"),
                                   _first_row=("_row", "min"))
     g = groups.set_index("group")
-    g["n_people"] = people.groupby("group").size().reindex(g.index).fillna(0).astype(int)
+    # headcount: people in the group in scope during the review period (hired on or before its
+    # end, not gone before its start); people who left earlier are not in the group any more
+    g["n_people"] = _in_scope(people, pd.Timestamp(cfg.period.start), end).groupby("group").size() \
+        .reindex(g.index).fillna(0).astype(int)
     job = jg.reindex(g.index)
     job_lex = lv.lex_8h(lv.level(job["_e"].to_numpy(float)), g["shift_hours"].to_numpy(float))
     c1u1 = c1u1_table(job["n_samples"].fillna(0).to_numpy(float), job["u1"].to_numpy(float))
@@ -877,6 +892,8 @@ def _people(people: pd.DataFrame, m: pd.DataFrame, g: pd.DataFrame, head: RuleSe
     for duty in DUTY_KEYS:
         p[f"exposed_{duty}"] = exposed_for(head, duty, judged, peak)
     p["exposed"] = p["exposed_audiometry"]
+    #: the level compared with the headline rule set's values (with U where it judges with U)
+    p["judged_level"] = np.where(np.isneginf(judged), np.nan, judged)
     # first exposure: first personal measurement at/above, else first group measurement at/above
     over = every[exposed_for(head, "audiometry", every[f"level_{hid}"], every["lcpeak"])]
     first_own = over.groupby("person_id")["date"].min()

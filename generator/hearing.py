@@ -28,7 +28,11 @@ Rules decided once here (content/methods/hearing.md explains them to readers):
   decision wins; ``not_work_related`` removes a case from recordability and refits.
 * **Recordable** (29 CFR 1904.10): a shift in force (age correction allowed) whose current
   2000/3000/4000 Hz average is 25 dB HL or more in the same ear (never age corrected),
-  not judged not work-related; one case per ear until that ear's baseline is revised.
+  not judged not work-related. An ear meets the criteria once until its baseline is
+  revised; a **case** is a person's, "in one or both ears" (1904.10(a)): one case per person
+  and audiogram whatever the number of ears, and a new case in that person only once a
+  baseline has been revised after the earlier case (1904.10(b)(2)(i)). The rate per 200,000
+  hours counts cases.
 * **NIOSH** (DHHS (NIOSH) 98-126): 15 dB or more worse than baseline at any of
   500-6000 Hz, confirmed at the same frequency on the next test of the same ear; never
   age corrected.
@@ -72,6 +76,7 @@ SETTINGS: dict[str, Any] = {
     "refit_days": 21,  # program choice: refit due with the written notice (1910.95(g)(8)(ii))
     "referral_days": 21,  # program choice
     "ci_level": 0.95,  # exact (Clopper-Pearson) binomial interval
+    "expected_tolerance_db": 3.0,  # program choice: observed vs expected change "within" this many dB
     "age_bands": (18, 30, 40, 50, 60, 200),
 }
 #: The rule-set clauses this stage cites (generator/rules CLAUSE_KEYS): the headline rule set's.
@@ -98,6 +103,8 @@ PARAMETERS: list[tuple[str, Any, str, str]] = [
      "the programme's own setting (written notice within 21 days: 29 CFR 1910.95(g)(8)(i))"),
     ("referral due after the shift is determined", SETTINGS["referral_days"], "days",
      "the programme's own setting"),
+    ("observed change counted as within the expected change when it differs by at most",
+     SETTINGS["expected_tolerance_db"], "dB", "the programme's own setting"),
     ("confidence level of the exact binomial intervals", SETTINGS["ci_level"], "", "Clopper-Pearson (1934)"),
     ("age bands compared with ISO 7029", ", ".join(str(a) for a in SETTINGS["age_bands"][:-1]) + " and over",
      "years", "ISO 7029:2017 (bands: the programme's own setting)"),
@@ -110,6 +117,7 @@ HEARING_RESULTS_COLUMNS = (
 )
 FOLLOWUP_COLUMNS = ["person_id", "ear", "kind", "trigger_date", "due_date", "done_date", "status", "clause"]
 ACTION_COLUMNS = ["subject", "subject_type", "kind", "detail", "due_date", "clause"]
+#: one row per case of a person: ``ear`` is "L", "R" or "L R" (both ears on the same audiogram)
 CASE_COLUMNS = ["person_id", "ear", "date", "avg_234", "shift", "year", "group"]
 EAR_NAMES = {"R": "right ear", "L": "left ear"}
 #: follow-up status of a retest or refit that fell due after the person left employment
@@ -964,7 +972,7 @@ def _per_person_year(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     """Return one row per person and year: group, tested, sts, recordable, mean 2/3/4 kHz average."""
     avg = last.groupby(["_pid", "year"], sort=True).agg(avg_234=("avg_234", "mean"), n_nr=("nr_234", "sum"))
     flags = ag.groupby(["_pid", "year"], sort=True).agg(person_id=("person_id", "first"), group=("group", "first"),
-                                                        sts=("sts", "any"), recordable=("recordable", "any"))
+                                                        sts=("sts", "any"), recordable=("case", "any"))
     py = flags.join(avg).reset_index()
     py["prev_avg"] = py.groupby("_pid", sort=False)["avg_234"].shift(1)
     py["prev_year"] = py.groupby("_pid", sort=False)["year"].shift(1)
@@ -1115,7 +1123,11 @@ def _age_norms(ag: pd.DataFrame, as_of: pd.Timestamp) -> pd.DataFrame:
 
 
 def _noise_expected(ag: pd.DataFrame, ex: ExposureResult | None, as_of: pd.Timestamp) -> tuple[pd.DataFrame, list[str]]:
-    """Return per group and frequency the ISO 1999:2013 expected change vs the observed change."""
+    """Return per group and frequency the ISO 1999:2013 expected change vs the observed change.
+
+    ``expected_change`` is the combined age and noise change (ISO 1999:2013 Formula (1) at
+    the test and at the baseline), not the sum of the two parts.
+    """
     cols = ["group", "freq", "lex_8h", "n_ears", "n_nr_excluded", "mean_years", "nipts_at_mean_years",
             "expected_noise_change", "expected_age_change", "expected_change", "observed_change"]
     notes: list[str] = []
@@ -1146,9 +1158,13 @@ def _noise_expected(ag: pd.DataFrame, ex: ExposureResult | None, as_of: pd.Times
         a_now = norms.iso7029_median(lat["age"].to_numpy(float), f, sex)
         a_base = norms.iso7029_median(lat["base_age"].to_numpy(float), f, sex)
         obs = (lat[f"hl_{f}"] - lat[f"base_hl_{f}"]).to_numpy(float)
+        # ISO 1999:2013 Formula (1) combines the age and noise parts at each date; the expected
+        # change is the combined level now less the combined level at the baseline
+        both = norms.iso1999_combine(a_now, n_now) - norms.iso1999_combine(a_base, n_base)
         frames.append(pd.DataFrame({"group": lat["group"].to_numpy(), "freq": f, "lex": lex.to_numpy(float),
                                     "years": yrs_now.to_numpy(float), "noise": n_now - n_base,
-                                    "age": a_now - a_base, "obs": obs, "nr": lat[f"nr_{f}"].to_numpy(bool)}))
+                                    "age": a_now - a_base, "both": both, "obs": obs,
+                                    "nr": lat[f"nr_{f}"].to_numpy(bool)}))
     d = pd.concat(frames, ignore_index=True)
     d = d[np.isfinite(d["lex"]) & np.isfinite(d["years"])]
     if d.empty:
@@ -1157,17 +1173,60 @@ def _noise_expected(ag: pd.DataFrame, ex: ExposureResult | None, as_of: pd.Times
     out = d.groupby(["group", "freq"], sort=True).agg(
         lex_8h=("lex", "mean"), n_ears=("obs", "count"), n_nr_excluded=("nr", "sum"), mean_years=("years", "mean"),
         expected_noise_change=("noise", "mean"), expected_age_change=("age", "mean"),
-        observed_change=("obs", "mean")).reset_index()
+        expected_change=("both", "mean"), observed_change=("obs", "mean")).reset_index()
     out["n_nr_excluded"] = out["n_nr_excluded"].astype(int)
     out["nipts_at_mean_years"] = norms.iso1999_nipts(out["freq"].to_numpy(float), out["lex_8h"].to_numpy(float),
                                                      out["mean_years"].to_numpy(float))
-    out["expected_change"] = out["expected_noise_change"] + out["expected_age_change"]
     return out[cols], notes
+
+
+def expected_verdict(observed: Any, expected: Any, tolerance: float | None = None) -> np.ndarray:
+    """Return "above", "within" or "below" per pair: the observed change against the expected one.
+
+    Within means |observed - expected| <= *tolerance* dB (default: the programme's setting);
+    "" where either is unknown.
+    """
+    tol = SETTINGS["expected_tolerance_db"] if tolerance is None else float(tolerance)
+    d = np.round(np.asarray(observed, dtype=float) - np.asarray(expected, dtype=float), 6)
+    out = np.where(d > tol, "above", np.where(d < -tol, "below", "within")).astype(object)
+    return np.where(np.isnan(d), "", out).astype(object)
+
+
+def person_cases(ag: pd.DataFrame) -> pd.DataFrame:
+    """Return the recordable cases of 29 CFR 1904.10, one row per case of a person (CASE_COLUMNS).
+
+    An ear meets the criteria (``recordable``) once per baseline. The case is the person's,
+    "in one or both ears" (1904.10(a)): the ears of one audiogram make one case, and a later
+    audiogram makes a new case only when it is compared with a baseline revised after the
+    earlier case (1904.10(b)(2)(i)); an ear still on its original baseline joins the person's
+    first case.
+    """
+    rec = ag.loc[ag["recordable"].astype(bool)] if "recordable" in ag.columns else ag.iloc[0:0]
+    if rec.empty:
+        return pd.DataFrame({c: pd.Series(dtype=object) for c in CASE_COLUMNS}).astype(
+            {"date": "datetime64[ns]", "avg_234": float, "shift": float})
+    src = rec["baseline_source"] if "baseline_source" in rec.columns else pd.Series("", index=rec.index)
+    revised = src.astype(str).eq("revised by review")
+    # the baseline epoch of each row: every original baseline of a person is one epoch
+    epoch = pd.to_datetime(rec["baseline_date"]).where(revised, pd.Timestamp.min)
+    r = rec.assign(_epoch=epoch.to_numpy()).sort_values(["person_id", "date", "ear"], kind="mergesort")
+    first = r.groupby(["person_id", "_epoch"], sort=False)["date"].transform("min")
+    r = r[r["date"].eq(first)]
+    shift = r["shift_driving"] if "shift_driving" in r.columns else r.get("shift_234")
+    r = r.assign(_shift=pd.to_numeric(shift, errors="coerce"))
+    out = r.groupby(["person_id", "date"], sort=True, as_index=False).agg(
+        ear=("ear", lambda e: " ".join(sorted(set(map(str, e))))), avg_234=("avg_234", "max"),
+        shift=("_shift", "max"), year=("year", "first"), group=("group", "first"))
+    return out[CASE_COLUMNS].sort_values(["date", "person_id"], kind="mergesort").reset_index(drop=True)
 
 
 def _incidence(cases: pd.DataFrame, years: list[int], hours: float | None, start: pd.Timestamp,
                end: pd.Timestamp) -> tuple[pd.DataFrame, int, float | None]:
-    """Return cases per year, rates per 200,000 h where hours_worked is given, and the period figures."""
+    """Return cases per year, rates per 200,000 h where hours_worked is given, and the period figures.
+
+    *cases* has one row per case of a person (person_cases); the rate is cases x 200,000 /
+    hours worked (29 CFR 1904; 200,000 h = 100 full-time workers x 40 h x 50 weeks).
+    """
     counts = cases.groupby("year").size() if not cases.empty else pd.Series(dtype=int)
     inc = pd.DataFrame({"year": sorted(set(years) | set(counts.index.tolist()))})
     inc["n_cases"] = inc["year"].map(counts).fillna(0).astype(int)
@@ -1285,8 +1344,11 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
         ag["check_reason"] = m["reason"].fillna("").to_numpy()
 
     baselines = _baselines(ag, events, cfg.audiometry.min_quiet_hours, cl)
-    cases = ag.loc[ag["recordable"], ["person_id", "ear", "date", "avg_234", "shift_driving", "year", "group"]] \
-        .rename(columns={"shift_driving": "shift"}).reset_index(drop=True)
+    cases = person_cases(ag)
+    # the ear rows that make a person's case (the population counts people with a case)
+    made = pd.MultiIndex.from_frame(cases[["person_id", "date"]].astype({"person_id": str}))
+    ag["case"] = ag["recordable"].astype(bool).to_numpy() & pd.MultiIndex.from_frame(
+        ag[["person_id", "date"]].astype({"person_id": str})).isin(made)
     incidence, period_cases, period_rate = _incidence(cases, sorted(ag["year"].unique().tolist()),
                                                       cfg.hours_worked, start, as_of)
     followups = _followups(programme, ag, decisions, as_of, cl)

@@ -309,3 +309,4 @@ def appf_correction(age: Any, freq: Any, sex: Any) -> np.ndarray:
     row = (np.clip(np.floor(np.where(a_ok, age_a, 20.0)), 20, 60) - 20).astype(int)
     out = np.where(male, _APPF_MALE[row, fidx], np.where(female, _APPF_FEMALE[row, fidx], np.nan))
     return np.where(ok & a_ok, out, np.nan)
+

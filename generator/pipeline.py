@@ -11,7 +11,8 @@ name and type; each returns a frozen result. Nothing here reads or writes HTML.
                         │                                 │
                         └──────────► compliance ◄─────────┘
                                         │
-                                      trends
+                                      trends (the headline figures of generator/figures.py,
+                                              for the period and at each year end)
 """
 from __future__ import annotations
 
@@ -23,6 +24,7 @@ from . import audiometers, compliance, exposure, hearing, protection, trends
 from .audiometers import AudiometerChecks
 from .compliance import ComplianceResult
 from .exposure import ExposureResult
+from .figures import FigureSet
 from .findings import Finding
 from .hearing import HearingResult
 from .model import Programme
@@ -46,6 +48,12 @@ class Results:
     protection: ProtectionResult
     compliance: ComplianceResult
     trends: TrendsResult
+
+    @property
+    def figures(self) -> FigureSet:
+        """Return the headline figures of the review period (each defined once in generator/figures.py)."""
+        assert self.trends.figures is not None
+        return self.trends.figures
 
     @property
     def headline(self) -> RuleSet:
@@ -80,7 +88,8 @@ def run(programme: Programme, rules: dict[str, RuleSet], on_step: StepHook | Non
         comp = compliance.compute(programme, rule=head, exposure=exp, hearing=hear, protection=prot,
                                   checks=checks)
     with clock("trends"):
-        trend = trends.compute(programme, compliance=comp, exposure=exp, hearing=hear)
+        # the headline figures (generator/figures.py) for the period and at each year end
+        trend = trends.compute(programme, compliance=comp, exposure=exp, hearing=hear, checks=checks)
     return Results(rules=rules, exposure=exp, checks=checks, hearing=hear, protection=prot,
                    compliance=comp, trends=trend)
 

@@ -8,13 +8,15 @@ the codes can then be linked across builds of any programme.
 from __future__ import annotations
 
 import base64
+import dataclasses
 import hashlib
 import hmac
 import logging
 import re
 from functools import lru_cache, partial
-from typing import Callable, Iterable
+from typing import Any, Callable, Iterable
 
+import numpy as np
 import pandas as pd
 
 from .findings import WARNING, Finding
@@ -163,3 +165,201 @@ def redactor(people: pd.DataFrame, code: Callable[[str], str]) -> Callable[[str]
         return _redact(str(text))
 
     return redact
+
+
+# ---------------------------------------------------------------------------------------
+# small-cell suppression: one object every public aggregate passes through
+
+#: what a public page or export shows instead of a figure resting on too few people
+SUPPRESSED = "suppressed"
+
+
+def people_in_period(people: pd.DataFrame, start: Any, end: Any) -> pd.DataFrame:
+    """Return the rows of *people* employed at some time between *start* and *end* (blank dates: employed)."""
+    if people.empty:
+        return people
+    s, e = pd.Timestamp(start), pd.Timestamp(end)
+    hire = pd.to_datetime(people["hire_date"], errors="coerce") if "hire_date" in people.columns \
+        else pd.Series(pd.NaT, index=people.index)
+    leave = pd.to_datetime(people["leave_date"], errors="coerce") if "leave_date" in people.columns \
+        else pd.Series(pd.NaT, index=people.index)
+    keep = (hire.isna() | (hire <= e)) & (leave.isna() | (leave >= s))
+    return people[keep.to_numpy()]
+
+
+#: kind and text shown for an action about a group whose figures are withheld
+WITHHELD_KIND = "withheld (small group)"
+WITHHELD_DETAIL = ("a group of fewer than {n} people: its figures and the actions that tell them are shown in "
+                   "the restricted build only")
+#: what a public page shows instead of a finding about a withheld group
+WITHHELD_FINDING = "a finding about a group of fewer than {n} people (shown in the restricted build only)"
+
+
+class Suppressor:
+    """Small-cell suppression for public output, built once per build.
+
+    Every public aggregate carries the number of distinct *people* it rests on (not rows,
+    ears or samples) and goes through :meth:`suppress` (one value) or :meth:`suppress_frame`
+    (a table of group-level figures). A figure resting on fewer than ``min_size`` people is
+    replaced by :data:`SUPPRESSED` (or blanked in a frame). Group figures rest on the
+    group's people employed in the review period; a restricted build suppresses nothing.
+    """
+
+    def __init__(self, people: pd.DataFrame, min_size: int, start: Any = None, end: Any = None,
+                 restricted: bool = False, groups: Iterable[str] = ()) -> None:
+        self.min_size = int(min_size)
+        self.restricted = bool(restricted)
+        inp = people if start is None or end is None else people_in_period(people, start, end)
+        if inp.empty or not {"group", "person_id"} <= set(inp.columns):
+            counts = pd.Series(dtype=int)
+        else:
+            counts = inp.groupby(inp["group"].astype(str))["person_id"].nunique()
+        #: group -> distinct people of the group employed in the period
+        self.group_people: dict[str, int] = {str(g): int(n) for g, n in sorted(counts.items())}
+        # every group of the people table and of the groups table (*groups*): one with nobody in it is withheld too
+        known = sorted(({str(g) for g in people["group"].astype(str)} if "group" in people.columns else set())
+                       | {str(g) for g in groups if str(g)})
+        #: groups whose figures are withheld on public output (empty in a restricted build)
+        self.groups: frozenset[str] = frozenset() if self.restricted else frozenset(
+            g for g in known if self.group_people.get(g, 0) < self.min_size)
+        #: person_id -> group (people of a withheld group are withheld too)
+        self.person_group: dict[str, str] = ({} if people.empty or "person_id" not in people.columns
+                                             else dict(zip(people["person_id"].astype(str),
+                                                           people["group"].astype(str))))
+
+    def hides(self, n: Any) -> bool:
+        """Return True when a figure resting on *n* people is withheld from public output."""
+        if self.restricted:
+            return False
+        try:
+            v = float(n)
+        except (TypeError, ValueError):
+            return True
+        return not (v >= self.min_size)
+
+    def suppress(self, value: Any, n: Any, shown: Any = SUPPRESSED) -> Any:
+        """Return *value*, or *shown* when it rests on fewer than ``min_size`` people."""
+        return shown if self.hides(n) else value
+
+    def hides_group(self, group: Any) -> bool:
+        """Return True when the figures of *group* are withheld."""
+        return str(group) in self.groups
+
+    def hides_person(self, person_id: Any) -> bool:
+        """Return True when *person_id* belongs to a withheld group."""
+        return bool(self.groups) and self.person_group.get(str(person_id), "") in self.groups
+
+    def hides_text(self, text: Any) -> bool:
+        """Return True when *text* (a finding, a sentence) is about a withheld group ("group G" in it)."""
+        if not self.groups:
+            return False
+        return re.search(r"(?<![\w-])group (?:" + "|".join(re.escape(g) for g in sorted(self.groups))
+                         + r")(?![\w-])", str(text)) is not None
+
+    def group_n(self, group: Any) -> int:
+        """Return the number of people a figure of *group* rests on (0 for a withheld group)."""
+        g = str(group)
+        return 0 if g in self.groups else self.group_people.get(g, 0)
+
+    def suppress_frame(self, df: pd.DataFrame, n_col: str, value_cols: Iterable[str]) -> pd.DataFrame:
+        """Return *df* with *value_cols* blanked on rows whose *n_col* people are too few (or whose group is withheld)."""
+        if self.restricted or df.empty:
+            return df
+        out = df.copy()
+        n = pd.to_numeric(out[n_col], errors="coerce") if n_col in out.columns \
+            else pd.Series(np.nan, index=out.index)
+        hide = ~(n >= self.min_size)
+        if "group" in out.columns:
+            hide = hide | out["group"].astype(str).isin(sorted(self.groups))
+        return self._blank(out, hide.to_numpy(bool), value_cols)
+
+    def withhold_groups(self, df: pd.DataFrame, value_cols: Iterable[str], group_col: str = "group",
+                        person_col: str | None = None) -> pd.DataFrame:
+        """Return record-level *df* with the rows of withheld groups (or their people) blanked.
+
+        The group becomes :data:`SUPPRESSED`, *value_cols* and the person column blank: a
+        record of a small group's person is a figure resting on fewer than ``min_size`` people.
+        """
+        if self.restricted or df.empty or not self.groups:
+            return df
+        out = df.copy()
+        hide = np.zeros(len(out), dtype=bool)
+        if group_col in out.columns:
+            hide |= out[group_col].astype(str).isin(sorted(self.groups)).to_numpy()
+        if person_col and person_col in out.columns:
+            hide |= out[person_col].astype(str).map(self.person_group).fillna("").isin(
+                sorted(self.groups)).to_numpy()
+        out = self._blank(out, hide, value_cols)
+        if group_col in out.columns:
+            out[group_col] = np.where(hide, SUPPRESSED, out[group_col].astype(object))
+        if person_col and person_col in out.columns:
+            out[person_col] = np.where(hide, "", out[person_col].astype(object))
+        return out
+
+    @staticmethod
+    def _blank(out: pd.DataFrame, hide: np.ndarray, value_cols: Iterable[str]) -> pd.DataFrame:
+        if not hide.any():
+            return out
+        for c in value_cols:
+            if c not in out.columns:
+                continue
+            col = out[c]
+            if pd.api.types.is_integer_dtype(col):
+                out[c] = col.astype("Int64").where(~hide, pd.NA)
+            elif pd.api.types.is_numeric_dtype(col) and not pd.api.types.is_bool_dtype(col):
+                out[c] = col.astype(float).where(~hide, np.nan)
+            elif pd.api.types.is_datetime64_any_dtype(col):
+                out[c] = col.where(~hide, pd.NaT)
+            else:
+                out[c] = np.where(hide, "", col.astype(object))
+        return out
+
+
+# ---------------------------------------------------------------------------------------
+# one path for free text on public output
+
+#: a cell that is only a number (counts, levels): never taken for an id
+_NUMBER_TEXT = re.compile(r"[\d\s.,%+\-–−]*")
+
+
+def redact_value(value: Any, redact: Callable[[str], str]) -> Any:
+    """Return *value* with every text inside it redacted (dicts, lists, tuples, tables, charts, figures)."""
+    from markupsafe import Markup
+    if isinstance(value, Markup):
+        return Markup(redact(str(value)))
+    if isinstance(value, str):
+        return value if _NUMBER_TEXT.fullmatch(value) else redact(value)
+    if isinstance(value, dict):
+        return {k: redact_value(v, redact) for k, v in value.items()}
+    if isinstance(value, list):
+        return [redact_value(v, redact) for v in value]
+    if isinstance(value, tuple):
+        return tuple(redact_value(v, redact) for v in value)
+    if isinstance(value, np.ndarray) and value.dtype == object:
+        return np.array([redact_value(v, redact) for v in value.tolist()], dtype=object)
+    if hasattr(value, "to_plotly_json") and hasattr(value, "data") and hasattr(value, "layout"):
+        import plotly.graph_objects as go
+        changed: list[bool] = []
+
+        def noting(text: str) -> str:
+            out = redact(text)
+            if out != text:
+                changed.append(True)
+            return out
+
+        clean = redact_value(value.to_plotly_json(), noting)
+        # rebuilt only when a text changed, so the figure's JSON keeps its order otherwise
+        return go.Figure(clean, skip_invalid=False) if changed else value
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        changes = {f.name: redact_value(getattr(value, f.name), redact) for f in dataclasses.fields(value)
+                   if f.init}
+        return dataclasses.replace(value, **changes)
+    return value
+
+
+def redact_pages(pages: list[Any], redact: Callable[[str], str]) -> None:
+    """Redact, in place, every text a public page shows: its title, context, tables and charts."""
+    for page in pages:
+        page.title = redact_value(page.title, redact)
+        page.context = redact_value(page.context, redact)
+        page.charts = [redact_value(c, redact) for c in page.charts]

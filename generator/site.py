@@ -29,6 +29,7 @@ from . import charts, clock
 from . import __version__
 from .pages import NARRATIVE, SECTIONS, section_title
 from .pages.base import Chart, Page, SiteContext
+from .privacy import redact_pages
 from .resources import content_dir, templates_dir
 
 log = logging.getLogger(__name__)
@@ -316,6 +317,8 @@ def render_site(ctx: SiteContext, pages: list[Page] | None = None) -> dict[str, 
         if dropped:
             log.info("public build: %d restricted pages left out", len(dropped))
         pages = [p for p in pages if not p.restricted]
+        # one path for free text: every text a public page shows loses ids, names and birth dates
+        redact_pages(pages, ctx.redact)
     check_pages(pages)
     env = make_environment(ctx.programme.template_dir)
     nav = navigation(pages)

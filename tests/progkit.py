@@ -82,3 +82,24 @@ def _merge(base: dict, over: dict) -> dict:
         else:
             out[k] = v
     return out
+
+
+def export_texts(files: Mapping[str, bytes]) -> dict[str, str]:
+    """Return the text of every export file; a workbook as the tab-separated text of its cells."""
+    import zipfile
+    out: dict[str, str] = {}
+    for name, data in files.items():
+        if name.endswith(".xlsx"):
+            from openpyxl import load_workbook
+            wb = load_workbook(io.BytesIO(data), read_only=True)
+            lines = []
+            for ws in wb.worksheets:
+                for row in ws.iter_rows(values_only=True):
+                    lines.append("\t".join("" if v is None else str(v) for v in row))
+            # the package parts too (properties, shared strings): every byte is checked
+            with zipfile.ZipFile(io.BytesIO(data)) as z:
+                lines.extend(z.read(n).decode("utf-8") for n in z.namelist())
+            out[name] = "\n".join(lines)
+        else:
+            out[name] = data.decode("utf-8")
+    return out

@@ -147,7 +147,8 @@ def test_export_writes_contract_files(tmp_path: Path) -> None:
     assert header("hearing_results.csv") == [
         "person_id", "ear", "date", "kind", "baseline_date", "avg_234", "shift_234", "shift_234_age_corrected",
         "osha_sts", "osha_sts_age_corrected", "niosh_shift", "recordable"]
-    assert header("actions.csv") == ["subject", "kind", "detail", "due_date"]
+    assert header("actions.csv") == ["subject", "kind", "detail", "due_date", "status", "clause", "section"]
+    assert "results.xlsx" in first
     rows = list(csv.DictReader(io.StringIO(first["exposure_results.csv"].decode())))
     assert [r["person_id"].startswith("P-") for r in rows] == [True, True]
     # 8 h at 88 dB(A): LEX,8h = LAeq + 10 lg(8/8) = 88.0 (ISO 9612:2009, formula (7))

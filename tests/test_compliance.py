@@ -456,11 +456,8 @@ def test_trends_per_year_and_changes() -> None:
     assert t.loc[2023, "current_audiogram_share"] == 1.0
     assert t.loc[2024, "current_audiogram_share"] == 0.5
     assert t.loc[2025, "current_audiogram_share"] == 1.0
-    assert t.loc[2025, "sts"] == 1 and t.loc[2024, "sts"] == 0
-    # bands from the measurements up to each year end: E2 takes the group's latest
-    assert t.loc[2024, "band: 85–90"] == 2
-    assert t.loc[2025, "band: at or above 90"] == 2
-    assert "Share with a current audiogram rose from 50 % in 2024 to 100 % in 2025." in tr.changes
+    assert t.loc[2025, "people_with_sts"] == 1 and t.loc[2024, "people_with_sts"] == 0
+    assert "With a current audiogram: rose from 50 % in 2024 to 100 % in 2025." in tr.changes
     assert res.summary["sts_this_period"] == 1
     assert res.summary["current_audiogram_share"] == t.loc[2025, "current_audiogram_share"]
 
@@ -688,7 +685,8 @@ def _many(n: int) -> tuple[Programme, compliance.ComplianceResult]:
 def _page_ctx(prog: Programme, res: compliance.ComplianceResult, restricted: bool = False):
     from generator.pages.base import SiteContext
     rule = load_rule_set("osha-1910.95")
-    return SiteContext(programme=prog, results=SimpleNamespace(compliance=res), rules={rule.id: rule},
+    figures = trends.compute(prog, compliance=res, exposure=None, hearing=None).figures
+    return SiteContext(programme=prog, results=SimpleNamespace(compliance=res, figures=figures), rules={rule.id: rule},
                        code=lambda p: "P-" + p[1:] + "Q", suppressed_groups=frozenset(), restricted=restricted)
 
 
@@ -779,7 +777,7 @@ def test_review_collect_prints_summaries_and_names_the_lists_left_out() -> None:
     assert len(out["tables"][2].rows) == review.TABLE_ROWS and "first 40 of 100 rows" in out["tables"][2].caption
     assert out["left_out"] == ["People to look at (7 rows)", "Overdue. Showing 3 of 900; see actions.csv",
                                "People to look at (7 rows)"]
-    assert out["tiles"] == [{"label": "a", "value": "1", "note": ""}] and out["sentences"] == ["a note"]
+    assert out["tiles"] == [{"label": "a", "value": "1", "note": "", "figure": ""}] and out["sentences"] == ["a note"]
 
 
 def test_review_prints_no_per_person_list(small_site: tuple[Path, Path]) -> None:

@@ -6,6 +6,7 @@ import logging
 import pandas as pd
 
 from .. import charts
+from ..privacy import SUPPRESSED, WITHHELD_DETAIL, WITHHELD_KIND
 from .base import Chart, Page, SiteContext, Table
 from .programme import IN_ACTIONS_CSV, LIST_CAP, cap_caption, cap_rows
 
@@ -29,9 +30,46 @@ def label_actions(actions: pd.DataFrame) -> pd.DataFrame:
     return a
 
 
+def withhold_small_groups(a: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
+    """Return the labelled actions with those about a withheld group reduced to 'withheld' (kind, text, clause)."""
+    hide = a["subject_type"].astype(str).eq("group") & a["subject"].astype(str).map(ctx.sup.hides_group)
+    if not hide.any():
+        return a
+    a = a.copy()
+    a.loc[hide, "subject"] = SUPPRESSED
+    a.loc[hide, "kind"] = WITHHELD_KIND
+    a.loc[hide, "kind_label"] = WITHHELD_KIND
+    a.loc[hide, "detail"] = WITHHELD_DETAIL.format(n=ctx.sup.min_size)
+    a.loc[hide, "clause"] = ""
+    return a
+
+
+def page_actions(actions: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
+    """Return the action list as the page and the export show it: labelled, small groups withheld, urgent first."""
+    return urgent_first(withhold_small_groups(label_actions(actions), ctx))
+
+
+def export_actions(actions: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
+    """Return the rows of actions.csv: the page's rows in the page's order, with its words.
+
+    Columns: subject, kind, detail, due_date, status, clause, section (subject_type is kept
+    for the pseudonyms and dropped before writing).
+    """
+    a = page_actions(actions, ctx)
+    out = pd.DataFrame({"subject": a["subject"].astype(str).to_numpy(), "kind": a["kind_label"].to_numpy(),
+                        "detail": a["detail"].astype(str).to_numpy(),
+                        "due_date": pd.to_datetime(a["due_date"]).to_numpy(),
+                        "status": a["status"].astype(str).to_numpy(), "clause": a["clause"].astype(str).to_numpy(),
+                        "section": a["source"].astype(str).to_numpy(),
+                        "subject_type": a["subject_type"].astype(str).to_numpy()})
+    return out
+
+
 def urgent_first(actions: pd.DataFrame) -> pd.DataFrame:
     """Return the actions overdue first, then due soon, then open, each by due date (blank last)."""
-    rank = actions["status"].map({s: i for i, s in enumerate(STATUS_ORDER)}).fillna(len(STATUS_ORDER))
+    order_of = {s: i for i, s in enumerate(STATUS_ORDER)}
+    order_of.update({STATUS_LABELS[s]: i for i, s in enumerate(STATUS_ORDER)})
+    rank = actions["status"].map(order_of).fillna(len(STATUS_ORDER))
     due = pd.to_datetime(actions["due_date"], errors="coerce")
     order = pd.DataFrame({"rank": rank.to_numpy(), "due": due.to_numpy(), "pos": range(len(actions))})
     order = order.sort_values(["rank", "due", "pos"], kind="mergesort", na_position="last")
@@ -39,12 +77,11 @@ def urgent_first(actions: pd.DataFrame) -> pd.DataFrame:
 
 
 def public_actions(actions: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
-    """Return the action list with person subjects coded and ids or names in the text withheld."""
-    a = label_actions(actions)
-    redact = ctx.redact
+    """Return the (already labelled) action list with person subjects coded and ids or names in the text withheld."""
+    a = actions.copy()
     person = a["subject_type"].astype(str).eq("person")
     a["subject_shown"] = [ctx.code(s) if p else str(s) for s, p in zip(a["subject"], person)]
-    a["detail"] = [redact(str(d)) for d in a["detail"]]
+    a["detail"] = [ctx.redact(str(d)) for d in a["detail"]]
     return a
 
 
@@ -61,7 +98,7 @@ def listings(actions: pd.DataFrame, ctx: SiteContext, caption: str, print_captio
     Both captions say how many actions there are and where the full list is; only the
     listed rows are coded and redacted.
     """
-    ordered = urgent_first(actions)
+    ordered = page_actions(actions, ctx)
     shown = public_actions(cap_rows(ordered, ctx, max(LIST_CAP, PRINT_TOP)), ctx)
     top = shown.iloc[:PRINT_TOP]
     return (action_table(shown, cap_caption(caption, len(shown), len(ordered), IN_ACTIONS_CSV)),
@@ -97,7 +134,7 @@ def build(ctx: SiteContext) -> list[Page]:
     if comp is None:
         return [Page(slug="actions", title="Actions", template="actions.html", section="actions", in_nav=True,
                      context={"available": False})]
-    labelled = label_actions(comp.actions)
+    labelled = withhold_small_groups(label_actions(comp.actions), ctx)
     counts = labelled.groupby("kind_label", sort=True).size()
     as_of = f"{comp.as_of:%Y-%m-%d}"
     listing, top = listings(comp.actions, ctx, f"Open actions as of {as_of}: overdue first, then due soon, then "
@@ -105,8 +142,9 @@ def build(ctx: SiteContext) -> list[Page]:
     context = {
         "available": True,
         "as_of": as_of,
-        "n_actions": int(len(labelled)),
-        "n_overdue": int(labelled["status"].eq("overdue").sum()),
+        # the headline figures (generator/figures.py): the same numbers as on the overview
+        "n_actions": int(ctx.results.figures["open_actions"].value or 0),
+        "n_overdue": int(ctx.results.figures["overdue_actions"].value or 0),
         "n_soon": int(labelled["status"].eq("due soon").sum()),
         "kind_counts": [{"kind": k, "n": int(n)} for k, n in counts.items()],
         "actions_table": listing,

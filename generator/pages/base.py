@@ -8,10 +8,10 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass, field
-from functools import cached_property
 from typing import TYPE_CHECKING, Any, Callable
 
 from ..model import Programme
+from ..privacy import Suppressor
 from ..rules import RuleSet
 
 if TYPE_CHECKING:
@@ -83,12 +83,25 @@ class SiteContext:
     restricted: bool = False
     #: pages built so far (the printable review reads them)
     pages: list[Page] = field(default_factory=list)
+    #: small-cell suppression every public aggregate passes through (built from the people table when not given)
+    suppress: Suppressor | None = None
+    #: free text -> text without ids, names or birth dates (identity in a restricted build)
+    redact: Callable[[str], str] = str
 
-    @cached_property
-    def redact(self) -> Callable[[str], str]:
-        """Return the free-text redactor of this build (raw ids, names, birth dates), built once."""
-        from ..privacy import redactor
-        return redactor(self.programme.table("people"), self.code)
+    def __post_init__(self) -> None:
+        if self.suppress is None:
+            cfg = self.programme.config
+            self.suppress = Suppressor(self.programme.table("people"), cfg.privacy.min_group_size,
+                                       cfg.period.start, cfg.period.end, self.restricted)
+            self.suppress.groups = frozenset(self.suppressed_groups)
+        else:
+            self.suppressed_groups = self.suppress.groups
+
+    @property
+    def sup(self) -> Suppressor:
+        """Return the build's suppressor."""
+        assert self.suppress is not None
+        return self.suppress
 
     @property
     def headline(self) -> RuleSet:

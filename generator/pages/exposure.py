@@ -13,6 +13,8 @@ import plotly.graph_objects as go
 from .. import charts
 from .. import levels as lv
 from ..exposure import BASIS_LABELS, PARAMETERS, ExposureResult, action_value, band_names
+from ..privacy import WITHHELD_DETAIL, WITHHELD_KIND
+from . import figure_tiles
 from .base import Chart, Page, SiteContext, Table, group_slugs
 
 log = logging.getLogger(__name__)
@@ -154,7 +156,9 @@ def band_counts(res: ExposureResult, ctx: SiteContext) -> tuple[Chart, Table]:
     hc = _judged_band_col(head)
     top = band_names(head)[-1]
     n_top = int(g.loc[g[hc] == top, "n_people"].sum())
-    summary = (f"Under {head.short}, {n_top} people work in groups in the band '{top}' dB(A); the same "
+    summary = (f"Under {head.short}, {n_top} people in scope work in groups whose group level is in the band "
+               f"'{top}' dB(A); judged on their own measurements where they have them, else their group's, "
+               f"{figure_tiles.text(ctx, 'exposed_top_band')} people in scope are in it (the tile above). The same "
                f"groups are shown under {', '.join(r.short for r in list(ctx.rules.values())[1:]) or 'no other rule set'}"
                " for comparison.")
     return Chart(id="exposure-2", figure=fig, summary=summary, table=table, title="Bands for every rule set"), table
@@ -226,6 +230,9 @@ def actions_table(res: ExposureResult, ctx: SiteContext, redact: Any = str, n: i
     for r in res.actions.head(n).itertuples(index=False):
         subj = ctx.code(r.subject) if r.subject_type == "person" else str(r.subject)
         due = r.due_date.strftime("%Y-%m-%d") if not pd.isna(r.due_date) else charts.BLANK
+        if r.subject_type == "group" and ctx.sup.hides_group(r.subject):
+            rows.append([SUPPRESSED, WITHHELD_KIND, WITHHELD_DETAIL.format(n=ctx.sup.min_size), due, ""])
+            continue
         rows.append([subj, r.kind, redact(r.detail), due, r.clause])
     return Table(columns=["Subject", "Action", "Detail", "Due", "Clause"], rows=rows,
                  caption=caption, classes=["", "", "", "", ""])
@@ -539,7 +546,8 @@ def build(ctx: SiteContext) -> list[Page]:
                       {"label": "groups", "value": f"{len(res.groups):,}"},
                       {"label": f"groups at or above {action_value(head):g} dB(A)",
                        "value": f"{int(visible['exposed'].sum()):,}"},
-                      {"label": "groups needing a survey", "value": f"{int(res.groups['stale'].sum()):,}"}],
+                      {"label": "groups needing a survey", "value": f"{int(res.groups['stale'].sum()):,}"},
+                      figure_tiles.tile(ctx, "exposed_top_band", note="")],
             "group_links": [{"code": c, "name": n, "href": f"exposure/{slugs[c]}.html"}
                             for c, n in zip(res.groups["group"], res.groups["name"])],
             "groups_table": groups_table(res, ctx, slugs),

@@ -2,7 +2,9 @@
 one page per person. Reads ``ctx.results["hearing"]``; computes nothing new."""
 from __future__ import annotations
 
+import dataclasses
 import logging
+import re
 from typing import Any
 
 import numpy as np
@@ -10,7 +12,8 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from .. import charts
-from ..hearing import EAR_NAMES, LEFT_STATUS, HearingResult
+from ..hearing import EAR_NAMES, LEFT_STATUS, SETTINGS, HearingResult, expected_verdict
+from . import figure_tiles
 from .base import Chart, Page, SiteContext, Table, group_slugs
 from .programme import LIST_CAP, cap_caption, cap_rows
 
@@ -151,38 +154,74 @@ def indicators_chart(ind: pd.DataFrame, group: str, cid: str, label: str) -> Cha
     return Chart(cid, fig, summary, table, title="Sequential-pair indicators")
 
 
+def expected_sentence(shown: pd.DataFrame, where: list[str], tolerance: float) -> str:
+    """Return the sentence on observed against expected change, chosen from the numbers.
+
+    Each group (and frequency) shown is above, within or below the expected combined change
+    (ISO 1999:2013 Formula (1)) by more than *tolerance* dB; the sentence says how many are
+    which and names the largest excess.
+    """
+    if shown.empty:
+        return "No group has both an exposure level and audiograms after a baseline."
+    verdict = expected_verdict(shown["observed_change"], shown["expected_change"], tolerance)
+    diff = (shown["observed_change"] - shown["expected_change"]).to_numpy(float)
+    known = verdict != ""
+    if not known.any():
+        return "The observed and expected changes could not both be computed for any group shown."
+    n = int(known.sum())
+    above, within, below = (int((verdict == v).sum()) for v in ("above", "within", "below"))
+    tol = f"{tolerance:g} dB"
+    if above:
+        i = int(np.nanargmax(np.where(verdict == "above", diff, -np.inf)))
+        r = shown.iloc[i]
+        lead = (f"The observed mean change since baseline is larger than the change age and noise together would "
+                f"lead one to expect (ISO 1999:2013 Formula (1)) by more than {tol} in {above} of {n} shown, most in "
+                f"{where[i]}: {float(r['observed_change']):.1f} dB observed against "
+                f"{float(r['expected_change']):.1f} dB expected.")
+        rest = []
+        if within:
+            rest.append(f"{within} within {tol}")
+        if below:
+            rest.append(f"{below} below by more than {tol}")
+        return lead + (f" Of the others, {' and '.join(rest)}." if rest else "")
+    if within == n:
+        return (f"In every one of the {n} shown the observed mean change since baseline is within {tol} of the "
+                "change age and noise together would lead one to expect (ISO 1999:2013 Formula (1)).")
+    return (f"In {below} of the {n} shown the observed mean change since baseline is smaller than the change age "
+            f"and noise together would lead one to expect (ISO 1999:2013 Formula (1)) by more than {tol}"
+            + (f", and within {tol} in {within}." if within else "."))
+
+
 def noise_chart(ne: pd.DataFrame, groups: list[str], cid: str, freqs: tuple[int, ...] = (4000,)) -> Chart:
-    """Return expected (ISO 1999 + ISO 7029) vs observed change since baseline per group."""
+    """Return expected (ISO 7029, ISO 1999 and both combined) vs observed change since baseline per group."""
     d = ne[ne["group"].isin(groups)].sort_values(["group", "freq"])
     shown = d[d["freq"].isin(freqs)]
     cats = [f"{g} {f // 1000} kHz" if len(freqs) > 1 else g for g, f in zip(shown["group"], shown["freq"])]
-    fig = charts.grouped_bar(cats, {"expected from noise (ISO 1999:2013)": shown["expected_noise_change"].tolist(),
-                                    "expected from age (ISO 7029:2017)": shown["expected_age_change"].tolist(),
+    fig = charts.grouped_bar(cats, {"expected from age (ISO 7029:2017)": shown["expected_age_change"].tolist(),
+                                    "expected from noise (ISO 1999:2013)": shown["expected_noise_change"].tolist(),
+                                    "expected from age and noise (ISO 1999 Formula 1)":
+                                        shown["expected_change"].tolist(),
                                     "observed": shown["observed_change"].tolist()},
                              yaxis_title="mean change since baseline, dB")
+    tol = float(SETTINGS["expected_tolerance_db"])
+    verdict: list[str] = list(expected_verdict(d["observed_change"], d["expected_change"], tol)) if len(d) else []
+    words = {"above": f"above by more than {tol:g} dB", "within": f"within {tol:g} dB",
+             "below": f"below by more than {tol:g} dB", "": BLANK}
     rows = [[r.group, str(int(r.freq)), _num(r.lex_8h), _num(r.mean_years), _num(r.nipts_at_mean_years),
              _num(r.expected_noise_change), _num(r.expected_age_change), _num(r.expected_change),
-             _num(r.observed_change), str(int(r.n_ears)), str(int(r.n_nr_excluded))] for r in d.itertuples()]
+             _num(r.observed_change), words[v], str(int(r.n_ears)), str(int(r.n_nr_excluded))]
+            for r, v in zip(d.itertuples(), verdict)]
     table = Table(["Group", "Hz", "LEX,8h, dB(A)", "Mean years exposed", "Median NIPTS at mean years, dB",
-                   "Expected noise change, dB", "Expected age change, dB", "Expected total, dB",
-                   "Observed change, dB", "Ears", "Ears left out (NR)"], rows,
-                  caption="Expected and observed change since each ear's baseline (latest test of each ear)",
-                  classes=["", "num"] + ["num"] * 9)
-    if shown.empty:
-        summary = "No group has both an exposure level and audiograms after a baseline."
-    else:
-        diff = (shown["observed_change"] - shown["expected_change"]).to_numpy(float)
-        i = int(np.nanargmax(diff)) if np.isfinite(diff).any() else 0
-        r = shown.iloc[i]
-        where = f"{r['group']} {int(r['freq'])} Hz" if len(freqs) > 1 else str(r["group"])
-        if np.isfinite(diff[i]) and diff[i] > 0:
-            summary = (f"The observed change since baseline exceeds the change noise and age would lead one to "
-                       f"expect most in {where}: {float(r['observed_change']):.1f} dB observed against "
-                       f"{float(r['expected_change']):.1f} dB expected.")
-        else:
-            summary = ("In every group shown the observed mean change since baseline is no larger than the "
-                       "change noise and age would lead one to expect.")
-    return Chart(cid, fig, summary, table, title="Expected and observed change at 4 kHz")
+                   "Expected noise change, dB", "Expected age change, dB",
+                   "Expected age and noise (ISO 1999 Formula 1), dB", "Observed change, dB",
+                   "Observed against expected", "Ears", "Ears left out (NR)"], rows,
+                  caption="Expected and observed change since each ear's baseline (latest test of each ear); the "
+                          "expected change combines age H and noise N as H + N - H·N/120 (ISO 1999:2013 Formula 1)",
+                  classes=["", "num"] + ["num"] * 7 + ["", "num", "num"])
+    where = [f"{g} at {int(f)} Hz" if len(freqs) > 1 else str(g) for g, f in zip(shown["group"], shown["freq"])]
+    summary = expected_sentence(shown, where, tol)
+    title = "Expected and observed change at 4 kHz" if freqs == (4000,) else "Expected and observed change"
+    return Chart(cid, fig, summary, table, title=title)
 
 
 def age_chart(an: pd.DataFrame, cid: str, freq: int = 4000) -> Chart:
@@ -360,22 +399,48 @@ def _people(n: int) -> str:
 
 
 def _tiles(h: HearingResult, a: pd.DataFrame, fu: pd.DataFrame, cases: pd.DataFrame) -> list[dict[str, Any]]:
+    """Return the tiles of a group page (the hearing overview shows the headline figures instead)."""
     tested = int(a["person_id"].nunique())
     sts = int(a.loc[a["sts"], "person_id"].nunique())
     niosh = int(a.loc[a["niosh_shift"], "person_id"].nunique())
     late = int(fu["status"].isin(["late", "missing"]).sum()) if not fu.empty else 0
-    n_case_people = int(cases["person_id"].nunique()) if not cases.empty else 0
-    # 29 CFR 1904.10 cases are counted per ear here (one per ear until its baseline is revised)
     tiles = [
         {"value": str(tested), "label": "people tested", "warn": False},
         {"value": str(sts), "label": "people with a standard threshold shift (OSHA)", "warn": False},
-        {"value": str(len(cases)),
-         "label": f"recordable cases (29 CFR 1904.10), counted per ear, in {n_case_people} "
-                  f"{_people(n_case_people)}", "warn": len(cases) > 0},
+        {"value": str(len(cases)), "label": CASES_LABEL, "warn": len(cases) > 0},
         {"value": str(niosh), "label": "people with a confirmed NIOSH 15 dB shift", "warn": False},
         {"value": str(late), "label": "follow-ups late or not on record", "warn": late > 0},
     ]
     return tiles
+
+
+#: 29 CFR 1904.10(a): a shift "in one or both ears" is one case of the person
+CASES_LABEL = "recordable cases (29 CFR 1904.10), one per person and audiogram whatever the number of ears"
+
+
+def _headline_tiles(ctx: SiteContext, a: pd.DataFrame, fu: pd.DataFrame) -> list[dict[str, Any]]:
+    """Return the hearing overview's tiles: the headline figures (generator/figures.py) and the page's own."""
+    t = figure_tiles.tile
+    niosh = int(a.loc[a["niosh_shift"], "person_id"].nunique())
+    late = int(fu["status"].isin(["late", "missing"]).sum()) if not fu.empty else 0
+    return [
+        t(ctx, "people_tested", label="people tested"),
+        t(ctx, "people_with_sts", label="people with a standard threshold shift (OSHA)"),
+        t(ctx, "recordable_cases", label=CASES_LABEL),
+        t(ctx, "recordable_rate", label="recordable cases per 200,000 hours worked (29 CFR 1904)"),
+        {"value": str(niosh), "label": "people with a confirmed NIOSH 15 dB shift", "warn": False},
+        {"value": str(late), "label": "follow-ups late or not on record", "warn": late > 0},
+    ]
+
+
+def _public_tiles(ctx: SiteContext, tiles: list[dict[str, Any]], a: pd.DataFrame) -> list[dict[str, Any]]:
+    """Return the tiles, their counts suppressed when the people tested in the period are too few."""
+    n = int(a["person_id"].nunique()) if not a.empty else 0
+    if n == 0 or not ctx.sup.hides(n):
+        return tiles
+    # a label that carries a count of its own ("..., in 1 person") loses it too
+    return [dict(t, value=ctx.sup.suppress(t["value"], n), warn=False,
+                 label=re.sub(r",? in \d[\d,]* (?:person|people)$", "", t["label"])) for t in tiles]
 
 
 def _in_period(df: pd.DataFrame, col: str, start: pd.Timestamp, end: pd.Timestamp) -> pd.DataFrame:
@@ -390,17 +455,65 @@ def _due_followups(fu: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp) -> 
     return d[d["status"] != LEFT_STATUS] if not d.empty else d
 
 
+def _people_of_ears(n_ears: pd.Series) -> pd.Series:
+    """Return the fewest people *n_ears* ears can belong to (two ears a person): what a per-ear figure rests on."""
+    return np.ceil(pd.to_numeric(n_ears, errors="coerce") / 2)
+
+
+def public_hearing(h: HearingResult, ctx: SiteContext) -> HearingResult:
+    """Return *h* with every aggregate resting on fewer than min_group_size people left out (public builds).
+
+    Group-years, period rows (the "all" row too), sequential-pair indicators, age-band and
+    expected-change rows go through the build's suppressor with the people they rest on:
+    people tested, people with a 2/3/4 kHz average, pairs of the same person, and the
+    fewest people their ears can belong to.
+    """
+    sup = ctx.sup
+    if sup.restricted:
+        return h
+
+    def keep(df: pd.DataFrame, n: pd.Series) -> pd.DataFrame:
+        if df.empty:
+            return df
+        shown = ~n.map(sup.hides).to_numpy(bool)
+        if "group" in df.columns:
+            shown &= ~df["group"].astype(str).map(sup.hides_group).to_numpy(bool)
+        return df[shown]
+
+    pop = keep(h.population, h.population["n_tested"]) if not h.population.empty else h.population
+    if not pop.empty:
+        # a change from the year before rests on that year's people too (else it tells that year's mean)
+        before = h.population.assign(year=h.population["year"] + 1).set_index(["group", "year"])["n_avg"]
+        prev_n = pd.Series(list(zip(pop["group"], pop["year"])), index=pop.index).map(before)
+        pop = sup.suppress_frame(pop.assign(_n=prev_n.fillna(0)), "_n", ["change_mean_avg"])
+        pop = sup.suppress_frame(pop.assign(_n=pop["n_avg"]), "_n", ["mean_avg_234", "change_mean_avg"])
+        pop = sup.suppress_frame(pop.assign(_n=pop["n_within"]), "_n", ["mean_within_change"]).drop(columns="_n")
+    return dataclasses.replace(
+        h, population=pop,
+        indicators=keep(h.indicators, h.indicators["n_pairs"]) if not h.indicators.empty else h.indicators,
+        age_norms=keep(h.age_norms, _people_of_ears(h.age_norms["n_ears"])) if not h.age_norms.empty
+        else h.age_norms,
+        noise_expected=keep(h.noise_expected, _people_of_ears(h.noise_expected["n_ears"]))
+        if not h.noise_expected.empty else h.noise_expected)
+
+
+def _hidden_rows(ctx: SiteContext, pg: pd.DataFrame) -> frozenset[str]:
+    """Return the period rows (groups, "all") shown as suppressed: withheld groups and rows of too few people."""
+    few = [str(g) for g, n in zip(pg["group"], pg["n_tested"]) if ctx.sup.hides(n)] if not pg.empty else []
+    return frozenset(ctx.suppressed_groups) | frozenset(few)
+
+
 def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page:
     start, end = _period(ctx)
     years = _years(ctx)
     sup = ctx.suppressed_groups
+    hidden_rows = _hidden_rows(ctx, h.period_groups)
     a = _in_period(h.audiograms, "date", start, end)
     fu = _due_followups(h.followups, start, end)
-    cases = _in_period(h.cases, "date", start, end)
     shown_groups = [g for g in sorted(slugs) if g not in sup]
     page_charts = [
         per_year_chart(h.population, "all", "hearing-1", "all groups"),
-        rate_by_group_chart(h.period_groups, sup, "hearing-2"),
+        rate_by_group_chart(h.period_groups, hidden_rows, "hearing-2"),
         followup_chart(fu, "hearing-3"),
         indicators_chart(h.indicators, "all", "hearing-4", "all groups"),
         mean_average_chart(h.population, shown_groups, "hearing-5"),
@@ -413,13 +526,11 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
     flagged = a_vis[(a_vis["shift_status"] != "") | a_vis["recordable"]]
     context = {
         "has_data": not h.audiograms.empty,
-        "tiles": _tiles(h, a, fu, cases),
-        "rate_text": (None if h.summary.get("recordable_rate_per_200k") is None
-                      else f"{h.summary['recordable_rate_per_200k']:.2f}"),
+        "tiles": _public_tiles(ctx, _headline_tiles(ctx, a, fu), a),
         "age_correction": ctx.programme.config.audiometry.age_correction,
         "retest_days": ctx.programme.config.audiometry.retest_days,
         "notice_days": ctx.programme.config.audiometry.notice_days,
-        "group_table": group_table(h.period_groups, h.population, years, sup),
+        "group_table": group_table(h.period_groups, h.population, years, hidden_rows),
         "group_links": [{"group": g, "href": f"hearing/{slugs[g]}.html", "suppressed": g in sup}
                         for g in sorted(slugs)],
         "shifts_table": shifts_table(flagged, ctx),
@@ -455,7 +566,7 @@ def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Pa
         noise_chart(h.noise_expected, [group], f"{cid}-4", freqs=(3000, 4000, 6000)),
     ]
     flagged = a[(a["shift_status"] != "") | a["recordable"]]
-    context = {"group": group, "suppressed": False, "tiles": _tiles(h, a, fu, cases),
+    context = {"group": group, "suppressed": False, "tiles": _public_tiles(ctx, _tiles(h, a, fu, cases), a),
                "shifts_table": shifts_table(flagged, ctx), "followups_table": followups_table(fu, ctx),
                "group_name": group}
     return Page(slug=full, title=f"Hearing: {group}", template="hearing_group.html", section="hearing",
@@ -471,6 +582,7 @@ def build(ctx: SiteContext) -> list[Page]:
                               "group_links": [], "any_suppressed": False, "people_index": ctx.restricted}, in_nav=True)]
     groups = sorted(set(h.audiograms["group"].astype(str).unique()) - {""}) if not h.audiograms.empty else []
     slugs = group_slugs(groups)
+    h = public_hearing(h, ctx)
     pages = [_overview(ctx, h, slugs)]
     pages += [_group_page(ctx, h, g, slugs[g]) for g in groups]
     log.info("hearing pages: %d", len(pages))

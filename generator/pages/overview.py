@@ -2,14 +2,16 @@
 from __future__ import annotations
 
 import logging
-import math
 from typing import Any
 
 import pandas as pd
 
 from .. import charts
+from .. import figures as F
+from ..exposure import action_value
 from ..inputs.spec import FILES
 from ..pipeline import Results
+from . import figure_tiles
 from .base import Chart, Page, SiteContext
 
 log = logging.getLogger(__name__)
@@ -43,68 +45,97 @@ BLURBS: dict[str, str] = {
 }
 
 
-def _scalar(v: Any) -> bool:
-    if isinstance(v, bool):
-        return True
-    if isinstance(v, (int, float, str)):
-        return not (isinstance(v, float) and math.isnan(v))
-    return hasattr(v, "item") and not hasattr(v, "__len__")
+#: headline figures on the overview, in order (names of generator/figures.py definitions)
+OVERVIEW_FIGURES: tuple[str, ...] = tuple(f.name for f in F.FIGURES if "index" in f.shown_on)
 
 
-def _label(key: str) -> str:
-    text = str(key).replace("_", " ").strip()
-    return text[:1].upper() + text[1:]
+def headline_tiles(ctx: SiteContext) -> list[dict[str, Any]]:
+    """Return one tile per headline figure, each linked to the page that explains it."""
+    return [figure_tiles.tile(ctx, name, link=True) for name in OVERVIEW_FIGURES]
 
 
-def _value(v: Any) -> str:
-    if hasattr(v, "item") and not isinstance(v, (str, bytes)):
-        v = v.item()
-    if isinstance(v, bool):
-        return "yes" if v else "no"
-    if isinstance(v, int):
-        return f"{v:,}"
-    if isinstance(v, float):
-        return f"{v:,.0f}" if float(v).is_integer() else f"{v:,.1f}"
-    return str(v)
+def _part(text: str, figure: str = "") -> dict[str, str]:
+    return {"text": text, "figure": figure}
 
 
-#: headline figures of the compliance summary shown first, with their labels.
-HEADLINE: tuple[tuple[str, str], ...] = (
-    ("in_scope", "People in the programme's scope"),
-    ("must_be_enrolled", "Exposed at or above the action level"),
-    ("not_enrolled", "Exposed but not enrolled"),
-    ("sts_this_period", "People with a threshold shift (STS) this period"),
-    ("recordables_this_period", "People with a recordable case (29 CFR 1904.10) this period"),
-    ("open_actions_total", "Open actions"),
-    ("overdue_actions", "Overdue actions"),
-    ("overdue_audiograms", "Overdue audiograms"),
-    ("overdue_baselines", "Overdue baselines"),
-    ("overdue_training", "Overdue training"),
-    ("current_audiogram_share", "With a current audiogram"),
-    ("trained_share", "Trained in the last interval"),
-    ("protector_share", "Issued a protector"),
-    ("fit_test_share", "Fit-tested"),
-    ("audiometer_days_ok_share", "Test days with valid audiometer checks"),
-)
-#: figures that call for attention when above zero.
-ATTENTION = frozenset({"not_enrolled", "overdue_actions", "overdue_audiograms", "overdue_baselines",
-                       "overdue_training", "late_baselines"})
+def _fig(ctx: SiteContext, name: str) -> dict[str, str]:
+    return _part(figure_tiles.text(ctx, name), name)
 
 
-def _tile(key: str, label: str, v: Any) -> dict[str, Any]:
-    share = key.endswith("_share") and isinstance(v, (int, float)) and not isinstance(v, bool)
-    value = f"{float(v) * 100:.0f} %" if share else _value(v)
-    warn = key in ATTENTION and isinstance(v, (int, float)) and v > 0
-    return {"label": label, "value": value, "note": "", "warn": bool(warn)}
+def _previous_year(ctx: SiteContext) -> tuple[int, dict[str, F.FigureValue]] | None:
+    """Return the year before the review period's last year and its figures (None: no such row)."""
+    years = ctx.results.trends.years
+    last = pd.Timestamp(ctx.programme.config.period.end).year
+    earlier = sorted(y for y in years if y < last)
+    return (earlier[-1], years[earlier[-1]]) if earlier else None
 
 
-def summary_tiles(summary: dict[str, Any], limit: int = 15) -> list[dict[str, Any]]:
-    """Return headline tiles from a stage summary: the known figures first, else its scalar entries."""
-    known = [(k, label) for k, label in HEADLINE if k in summary and _scalar(summary[k])]
-    if known:
-        return [_tile(k, label, summary[k]) for k, label in known][:limit]
-    tiles = [_tile(k, _label(k), v) for k, v in summary.items() if _scalar(v)]
-    return tiles[:limit]
+def _was(prev: tuple[int, dict[str, F.FigureValue]] | None, name: str) -> str:
+    """Return ' (2024: 135)' for figure *name* of the year before, '' when unknown."""
+    if prev is None or name not in prev[1]:
+        return ""
+    fv = prev[1][name]
+    if not fv.known:
+        return ""
+    return f" ({prev[0]}: {figure_tiles.value_text(fv, F.BY_NAME[name].unit)})"
+
+
+def answers(ctx: SiteContext) -> list[list[dict[str, str]]]:
+    """Return the plain sentences above the tiles, each a list of parts (text, and the figure it shows)."""
+    figs = ctx.results.figures
+    head = ctx.headline
+    prev = _previous_year(ctx)
+    act = action_value(head)
+    edge = F.top_edge(head)
+    out: list[list[dict[str, str]]] = []
+    out.append([_part("Of the "), _fig(ctx, "in_scope"), _part(" people in the programme's scope in the period, "),
+                _fig(ctx, "must_be_enrolled"),
+                _part(f" were exposed at or above the action value of {act:g} dB(A) under {head.short}, without "
+                      "protectors" + _was(prev, "must_be_enrolled") + ", and "),
+                _fig(ctx, "exposed_top_band"),
+                _part(f" at or above {edge:g} dB(A)" + _was(prev, "exposed_top_band") + "; ")
+                if edge is not None else _part(""),
+                _fig(ctx, "not_enrolled"), _part(" of the exposed have no audiometry or training records.")])
+    rate = figs.values.get("recordable_rate")
+    sent = [_fig(ctx, "people_with_sts"), _part(" people had a standard threshold shift in the period"
+                                                + _was(prev, "people_with_sts") + " and there "
+                                                + ("was " if figs["recordable_cases"].value == 1 else "were ")),
+            _fig(ctx, "recordable_cases"),
+            _part(" recordable hearing-loss case" + ("" if figs["recordable_cases"].value == 1 else "s")
+                  + _was(prev, "recordable_cases"))]
+    if rate is not None and rate.known:
+        sent += [_part(", "), _fig(ctx, "recordable_rate"), _part(" per 200,000 hours worked")]
+        was_rate = _was(prev, "recordable_rate")
+        if was_rate:
+            sent.append(_part(was_rate))
+        elif prev is not None:
+            sent.append(_part(f"; the rate of {prev[0]} is not known, as hours worked are recorded for the review "
+                              "period only"))
+    else:
+        sent.append(_part("; no rate per 200,000 hours, as hours worked are not recorded (hours_worked)"))
+    sent.append(_part("."))
+    out.append(sent)
+    out.append([_fig(ctx, "open_actions"), _part(" actions are open and "), _fig(ctx, "overdue_actions"),
+                _part(" of them overdue, among them "), _fig(ctx, "overdue_audiograms"),
+                _part(" audiograms" + _was(prev, "overdue_audiograms") + " and "), _fig(ctx, "overdue_training"),
+                _part(" people's training" + _was(prev, "overdue_training") + ".")])
+    if prev is not None:
+        moved: list[dict[str, str]] = []
+        for name in ("current_audiogram_share", "trained_share", "protector_share", "audiometer_days_ok_share"):
+            before, now = prev[1].get(name), figs.values.get(name)
+            if before is None or now is None or not before.known or not now.known:
+                continue
+            unit = F.BY_NAME[name].unit
+            a, b = figure_tiles.value_text(before, unit), figure_tiles.value_text(now, unit)
+            label = figs.labels[name][:1].lower() + figs.labels[name][1:]
+            if a == b:
+                how = "stayed at "
+            else:
+                how = ("rose" if float(now.value or 0) > float(before.value or 0) else "fell") + f" from {a} to "
+            moved += [_part(("; " if moved else "") + f"{label} {how}"), _fig(ctx, name)]
+        if moved:
+            out.append([_part(f"Since {prev[0]}: ")] + moved + [_part(".")])
+    return out
 
 
 def count_tiles(ctx: SiteContext) -> list[dict[str, str]]:
@@ -190,11 +221,8 @@ def overview_chart(actions: pd.DataFrame | None, files: list[dict[str, Any]]) ->
 
 
 def build(ctx: SiteContext) -> list[Page]:
-    """Return the overview page."""
+    """Return the overview page: plain answers first, then the headline figures and the records read."""
     results = ctx.results
-    comp = results.compliance
-    summary = getattr(comp, "summary", None) if comp is not None else None
-    headline = summary_tiles(summary) if isinstance(summary, dict) else []
     actions = all_actions(results)
     files = file_rows(ctx)
     missing = [f for f in files if not f["present"]]
@@ -202,13 +230,10 @@ def build(ctx: SiteContext) -> list[Page]:
     page = Page(
         slug="index", title="Overview", template="overview.html", section="index", in_nav=True,
         context={
-            "headline": headline,
-            "actions_in_headline": any(t["label"] == "Open actions" for t in headline),
+            "answers": answers(ctx),
+            "headline": headline_tiles(ctx),
             "counts": count_tiles(ctx),
-            "open_actions": None if actions is None else int(len(actions)),
-            "files": files,
             "missing": missing,
-            "stages": stage_rows(results),
             "blurbs": BLURBS,
             "n_errors": len(findings.errors),
             "n_warnings": len(findings.warnings),

@@ -10,6 +10,7 @@ from .. import charts
 from ..compliance import BOOTH_LIMITS
 from ..hearing import LEFT_STATUS
 from ..privacy import code_series
+from . import figure_tiles
 from .base import Chart, Page, SiteContext, Table
 
 log = logging.getLogger(__name__)
@@ -92,23 +93,25 @@ def enrolment_group_table(eg: pd.DataFrame, suppressed: frozenset[str]) -> Table
                  classes=["", "num", "num", "num", "num", "num"])
 
 
-def _tiles(summary: dict[str, Any]) -> list[dict[str, str]]:
+def _tiles(ctx: SiteContext, summary: dict[str, Any]) -> list[dict[str, Any]]:
+    """Return the page's tiles: the headline figures (generator/figures.py) and the items due soon."""
     def n(key: str) -> str:
         v = summary.get(key)
         return charts.BLANK if v is None else f"{int(v):,}"
+    t = figure_tiles.tile
     return [
-        {"label": "Must be in the programme", "value": n("must_be_enrolled"),
-         "note": "at or above the action value, without protectors"},
+        t(ctx, "must_be_enrolled", label="Must be in the programme",
+          note="at or above the action value, without protectors"),
         {"label": "Enrolled", "value": n("enrolled"), "note": "records, or in an exposed group"},
-        {"label": "Exposed without records", "value": n("not_enrolled"), "note": ""},
-        {"label": "Current audiogram", "value": pct(summary.get("current_audiogram_share")),
-         "note": "of those who must be in the programme"},
-        {"label": "Trained within 12 months", "value": pct(summary.get("trained_share")), "note": ""},
-        {"label": "Protector on record", "value": pct(summary.get("protector_share")), "note": ""},
-        {"label": "Fit-tested (PAR)", "value": pct(summary.get("fit_test_share")), "note": ""},
-        {"label": "Audiograms overdue", "value": n("overdue_audiograms"), "note": "baseline, annual or exit"},
+        t(ctx, "not_enrolled", label="Exposed without records", note=""),
+        t(ctx, "current_audiogram_share", label="Current audiogram"),
+        t(ctx, "trained_share", label="Trained within the interval"),
+        t(ctx, "protector_share", label="Protector on record"),
+        t(ctx, "fit_test_share", label="Fit-tested (PAR)"),
+        t(ctx, "overdue_audiograms", label="Audiograms overdue", note="baseline, annual or exit"),
         {"label": "Audiograms due soon", "value": n("due_soon_audiograms"), "note": "within 60 days"},
-        {"label": "Training overdue", "value": n("overdue_training"), "note": ""},
+        t(ctx, "overdue_training", label="Training overdue", note=""),
+        t(ctx, "audiometer_days_ok_share", label="Test days with valid audiometer checks", note=None),
     ]
 
 
@@ -242,7 +245,7 @@ def build(ctx: SiteContext) -> list[Page]:
         "available": True,
         "as_of": comp.as_of.strftime("%Y-%m-%d"),
         "rules_name": ctx.headline.name,
-        "tiles": _tiles(comp.summary),
+        "tiles": _tiles(ctx, comp.summary),
         "notes": list(comp.notes),
         "n_overdue": int(len(overdue)),
         "n_soon": int(len(soon)),

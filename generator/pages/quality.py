@@ -4,7 +4,9 @@ from __future__ import annotations
 import logging
 
 from ..findings import ERROR, WARNING
+from ..privacy import WITHHELD_FINDING
 from .base import Page, SiteContext, Table
+from .overview import file_rows, stage_rows
 
 log = logging.getLogger(__name__)
 
@@ -25,7 +27,13 @@ def _rows_text(rows: list[int]) -> str:
 def build(ctx: SiteContext) -> list[Page]:
     """Return the data-quality page."""
     findings = ctx.programme.findings
-    clean = (lambda t: t) if ctx.restricted else ctx.redact
+    withheld = WITHHELD_FINDING.format(n=ctx.sup.min_size)
+
+    def clean(text: str) -> str:
+        if ctx.restricted:
+            return text
+        return withheld if ctx.sup.hides_text(text) else ctx.redact(text)
+
     groups = sorted(findings.groups(), key=lambda g: (g.level != ERROR, g.path, g.column or "",
                                                       g.items[0].row or 0))
     n_groups = len(groups)
@@ -48,8 +56,20 @@ def build(ctx: SiteContext) -> list[Page]:
     counts = Table(columns=["file", "errors", "warnings"],
                    rows=[[path, c[ERROR], c[WARNING]] for path, c in sorted(by_file.items())],
                    caption="Findings by file and level", classes=["", "num", "num"])
+    files = file_rows(ctx)
+    files_table = Table(
+        columns=["File", "Status", "Rows", "Contents"],
+        rows=[[f["path"], "read" if f["present"] else ("missing (required)" if f["required"] else "not supplied"),
+               f"{f['rows']:,}" if f["present"] else "–", f["doc"]] for f in files],
+        caption="Data files read for this review", classes=["", "", "num", ""])
+    stages_table = Table(
+        columns=["Stage", "Findings about the data", "Actions raised"],
+        rows=[[r["stage"], r["findings"], r["actions"]] for r in stage_rows(ctx.results)],
+        caption="What each computation stage added", classes=["", "num", "num"])
     return [Page(
         slug="quality", title="Data quality", template="quality.html", section="quality", in_nav=True,
         context={"findings_table": table, "counts_table": counts,
-                 "n_errors": len(findings.errors), "n_warnings": len(findings.warnings)},
+                 "n_errors": len(findings.errors), "n_warnings": len(findings.warnings),
+                 "files_table": files_table, "stages_table": stages_table,
+                 "digest": ctx.programme.digest or ""},
     )]

@@ -111,8 +111,12 @@ def collect(page: Page) -> dict[str, Any]:
                 continue  # its printed version is added under its own key
             add(value)
         elif _is_tiles(value):
-            tiles.extend({"label": str(v["label"]), "value": str(v["value"]), "note": str(v.get("note", "") or "")}
-                         for v in value)
+            # a headline figure keeps its name (generator/figures.py): the print shows the same value
+            tiles.extend({"label": str(v["label"]), "value": str(v["value"]), "note": str(v.get("note", "") or ""),
+                          "figure": str(v.get("figure", "") or "")} for v in value)
+        elif key == "answers" and isinstance(value, list):  # the overview's sentences, made of parts
+            sentences.extend("".join(str(p.get("text", "")) for p in parts) for parts in value
+                             if isinstance(parts, list))
         elif key in SENTENCE_KEYS and isinstance(value, list):
             sentences.extend(str(v) for v in value if isinstance(v, str))
         elif isinstance(value, list):
@@ -197,14 +201,13 @@ def build(ctx: SiteContext) -> list[Page]:
                 long_tables[copy.id] = len(chart.table.rows)
         parts.append({"section": section, "heading": heading, "title": page.title, "slug": page.slug,
                       "chart_ids": ids, **collect(page)})
-    comp = ctx.results.compliance
     cfg = ctx.programme.config
     context = {
         "parts": parts,
         "long_tables": long_tables,
         "as_of": cfg.period.end.isoformat(),
-        "n_actions": None if comp is None else int(len(comp.actions)),
-        "n_overdue": None if comp is None else int(comp.actions["status"].eq("overdue").sum()),
+        "n_actions": ctx.results.figures["open_actions"].value,
+        "n_overdue": ctx.results.figures["overdue_actions"].value,
         "signoff": ["Programme manager", "Reviewing audiologist or physician", "Competent noise assessor"],
     }
     return [Page(slug="review", title="Annual review", template="review.html", section="review", in_nav=True,

@@ -1,4 +1,4 @@
-"""The trends page: the programme's headline figures per calendar year, and what changed."""
+"""The trends page: the headline figures (generator/figures.py) per calendar year, and what changed."""
 from __future__ import annotations
 
 import logging
@@ -6,91 +6,81 @@ import logging
 import pandas as pd
 
 from .. import charts
+from .. import figures as F
+from . import figure_tiles
 from .base import Chart, Page, SiteContext, Table
-from .programme import pct
 
 log = logging.getLogger(__name__)
 
-SHARES = {"current_audiogram_share": "current audiogram", "trained_share": "trained within 12 months",
-          "protector_share": "protector on record"}
-COUNTS = {"sts": "people with a standard threshold shift", "recordables": "people with a recordable hearing loss"}
-PEOPLE = {"must_be_enrolled": "must be in the programme", "enrolled": "enrolled",
-          "open_actions": "open compliance items at year end"}
+#: the charts of the page: (title, y-axis, figure names)
+SHARES = ("current_audiogram_share", "trained_share", "protector_share", "fit_test_share", "audiometer_days_ok_share")
+PEOPLE = ("in_scope", "must_be_enrolled", "exposed_top_band", "people_tested")
+SHIFTS = ("people_with_sts", "recordable_cases")
+OVERDUE = ("overdue_audiograms", "overdue_baselines", "overdue_training", "not_enrolled")
 
 
 def _years(t: pd.DataFrame) -> list[str]:
     return [str(int(y)) for y in t["year"]]
 
 
-def share_chart(t: pd.DataFrame, slug: str) -> Chart:
-    """Return the line chart of the programme shares per year."""
-    series = {label: (t[c] * 100).round(1) for c, label in SHARES.items() if c in t.columns}
-    fig = charts.line(_years(t), series, xaxis_title="year (figures as of 31 December)", yaxis_title="%")
-    fig.update_yaxes(range=[0, 105])
+def _cells(t: pd.DataFrame, name: str) -> list[str]:
+    unit = F.BY_NAME[name].unit
+    return [figure_tiles.value_text(F.FigureValue(name, None if pd.isna(v) else v), unit) for v in t[name]]
+
+
+def _series_chart(t: pd.DataFrame, names: tuple[str, ...], labels: dict[str, str], cid: str, title: str,
+                  yaxis: str, summary: str, share: bool = False) -> Chart:
+    names = tuple(n for n in names if n in t.columns)
+    years = _years(t)
+    if share:
+        series = {labels[n]: [None if pd.isna(v) else round(float(v) * 100, 1) for v in t[n]] for n in names}
+        fig = charts.line(years, series, xaxis_title="year (figures as of 31 December)", yaxis_title=yaxis)
+        fig.update_yaxes(range=[0, 105])
+    else:
+        series = {labels[n]: [None if pd.isna(v) else int(v) for v in t[n]] for n in names}
+        fig = charts.grouped_bar(years, series, xaxis_title="year (figures as of 31 December)", yaxis_title=yaxis)
     fig.update_xaxes(type="category")
-    rows = [[y] + [pct(t[c].iloc[i]) for c in SHARES if c in t.columns] for i, y in enumerate(_years(t))]
-    table = Table(["Year"] + [SHARES[c] for c in SHARES if c in t.columns], rows,
-                  classes=[""] + ["num"] * len(series))
-    last = t.iloc[-1]
-    summary = (f"In {int(last['year'])}, {pct(last['current_audiogram_share'])} of the people who must be in the "
-               f"programme had a current audiogram and {pct(last['trained_share'])} were trained within 12 "
-               f"months.")
-    return Chart(f"{slug}-1", fig, summary, table, title="Audiograms, training and protectors: shares per year")
+    rows = [[y] + [_cells(t, n)[i] for n in names] for i, y in enumerate(years)]
+    table = Table(["Year"] + [labels[n] for n in names], rows, classes=[""] + ["num"] * len(names))
+    return Chart(cid, fig, summary, table, title=title)
 
 
-def people_chart(t: pd.DataFrame, slug: str) -> Chart:
-    """Return the grouped bar of people in the programme and open items per year."""
-    series = {label: t[c] for c, label in PEOPLE.items()}
-    fig = charts.grouped_bar(_years(t), series, xaxis_title="year", yaxis_title="people or items")
-    fig.update_xaxes(type="category")
-    table = charts.table_from_frame(t.assign(y=_years(t)), {"y": "Year", **PEOPLE},
-                                    {c: "d" for c in PEOPLE})
-    last = t.iloc[-1]
-    summary = (f"In {int(last['year'])}, {int(last['enrolled'])} people were enrolled against "
-               f"{int(last['must_be_enrolled'])} who had to be, with {int(last['open_actions'])} compliance "
-               f"items open at the year's end.")
-    return Chart(f"{slug}-2", fig, summary, table, title="People in the programme per year")
+def _last(t: pd.DataFrame, name: str) -> str:
+    return _cells(t, name)[-1]
 
 
-def shift_chart(t: pd.DataFrame, slug: str) -> Chart:
-    """Return the grouped bar of threshold shifts and recordables per year."""
-    series = {label: t[c] for c, label in COUNTS.items()}
-    fig = charts.grouped_bar(_years(t), series, xaxis_title="year", yaxis_title="people")
-    fig.update_xaxes(type="category")
-    table = charts.table_from_frame(t.assign(y=_years(t)), {"y": "Year", **COUNTS}, {c: "d" for c in COUNTS})
-    summary = (f"Over {len(t)} years, {int(t['sts'].sum())} person-years with a standard threshold shift and "
-               f"{int(t['recordables'].sum())} with a recordable hearing loss; counts of shifts are not a "
-               f"judgement of any person's hearing.")
-    return Chart(f"{slug}-3", fig, summary, table, title="Threshold shifts and recordables per year")
+def trend_table(t: pd.DataFrame, labels: dict[str, str]) -> Table:
+    """Return the yearly figures as a table: one row per figure definition, one column per year."""
+    names = [f.name for f in F.yearly() if f.name in t.columns]
+    years = _years(t)
+    rows = [[labels[n]] + _cells(t, n) for n in names]
+    return Table(["Figure"] + years, rows, caption="Headline figures per year, each as of 31 December (the last year: "
+                 "the review period)", classes=[""] + ["num"] * len(years))
 
 
-def band_chart(t: pd.DataFrame, slug: str) -> Chart | None:
-    """Return the stacked bar of people per exposure band per year."""
-    bands = [c for c in t.columns if c.startswith("band: ")]
-    if not bands:
-        return None
-    series = {c[6:]: t[c] for c in bands}
-    fig = charts.stacked_bar(_years(t), series, xaxis_title="year", yaxis_title="people")
-    fig.update_xaxes(type="category")
-    table = charts.table_from_frame(t.assign(y=_years(t)), {"y": "Year", **{c: c[6:] for c in bands}},
-                                    {c: "d" for c in bands})
-    last = t.iloc[-1]
-    top = max(bands, key=lambda c: (int(last[c]), c))
-    summary = (f"People by the exposure band of their latest measurement (or their group's) up to each year's "
-               f"end; in {int(last['year'])} the largest band is {top[6:]} with {int(last[top])} people.")
-    return Chart(f"{slug}-4", fig, summary, table, title="People per exposure band (dB) per year")
+def figure_rows(t: pd.DataFrame, labels: dict[str, str], period_year: int) -> dict[str, object]:
+    """Return the screen table: one row per figure, one column per year; the period's cells carry the marker."""
+    names = [f.name for f in F.yearly() if f.name in t.columns]
+    years = [int(y) for y in t["year"]]
+    rows = []
+    for n in names:
+        cells = _cells(t, n)
+        rows.append({"label": labels[n], "href": F.BY_NAME[n].explained,
+                     "cells": [{"text": c, "figure": n if y == period_year else ""} for c, y in zip(cells, years)]})
+    return {"years": years, "rows": rows}
 
 
-def trend_table(t: pd.DataFrame) -> Table:
-    """Return the full table of yearly figures."""
-    d = t.copy()
-    for c in SHARES:
-        if c in d.columns:
-            d[c] = [pct(v) for v in d[c]]
-    d["y"] = _years(t)
-    cols = {"y": "Year", "as_of": "As of", "in_scope": "People in scope", **PEOPLE, **SHARES, **COUNTS}
-    ints = {c: "d" for c in ("in_scope", *PEOPLE, *COUNTS)}
-    return charts.table_from_frame(d, cols, ints, caption="Headline figures per year")
+def definitions_table(ctx: SiteContext) -> Table:
+    """Return how each headline figure is defined: population, period, denominator, rule set and source."""
+    figs = ctx.results.figures
+    rows = []
+    for f in F.FIGURES:
+        d = f.described(ctx.headline)
+        rows.append([figs.labels[f.name], d["population"], d["period"], d["denominator"] or "(a count)",
+                     d["rules"], figs.sources[f.name], "every year end" if f.yearly else "review period only"])
+    return Table(["Figure", "Who or what is counted", "Period", "Share or rate of", "Rule set", "Answers to",
+                  "On this page"], rows, caption="How each headline figure of this review is defined (the same "
+                  "definition on every page, in the printable review and in summary.json)")
 
 
 def build(ctx: SiteContext) -> list[Page]:
@@ -100,16 +90,34 @@ def build(ctx: SiteContext) -> list[Page]:
     if len(t) == 0:
         return [Page(slug="trends", title="Trends", template="trends.html", section="trends", in_nav=True,
                      context={"available": False, "changes": [], "table": None})]
-    page_charts = [share_chart(t, "trends"), people_chart(t, "trends"), shift_chart(t, "trends")]
-    bc = band_chart(t, "trends")
-    if bc is not None:
-        page_charts.append(bc)
+    labels = ctx.results.figures.labels
+    last = int(t["year"].iloc[-1])
+    page_charts = [
+        _series_chart(t, SHARES, labels, "trends-1", "Audiograms, training, protectors and audiometer checks: "
+                      "shares per year", "%",
+                      f"In {last}, {_last(t, 'current_audiogram_share')} of the people who must be in the programme "
+                      f"had a current audiogram and {_last(t, 'trained_share')} of those in it were trained within "
+                      "the interval.", share=True),
+        _series_chart(t, PEOPLE, labels, "trends-2", "People in scope and exposed per year", "people",
+                      f"In {last}, {_last(t, 'must_be_enrolled')} of {_last(t, 'in_scope')} people in scope were "
+                      f"exposed at or above the action value and {_last(t, 'exposed_top_band')} at or above the "
+                      "limit value."),
+        _series_chart(t, SHIFTS, labels, "trends-3", "Threshold shifts and recordable cases per year", "people or cases",
+                      f"Over {len(t)} years, {int(t['people_with_sts'].sum())} person-years with a standard threshold "
+                      f"shift and {int(t['recordable_cases'].sum())} recordable cases; counts of shifts are not a "
+                      "judgement of any person's hearing."),
+        _series_chart(t, OVERDUE, labels, "trends-4", "Overdue items at each year end", "people",
+                      f"At the end of {last}, {_last(t, 'overdue_audiograms')} audiograms and "
+                      f"{_last(t, 'overdue_training')} people's training were overdue."),
+    ]
     context = {
         "available": True,
         "changes": list(trends.changes),
         "first_year": int(t["year"].iloc[0]),
-        "last_year": int(t["year"].iloc[-1]),
-        "table": trend_table(t),
+        "last_year": last,
+        "table": trend_table(t, labels),
+        "figure_table": figure_rows(t, labels, last),
+        "definitions_table": definitions_table(ctx),
     }
     return [Page(slug="trends", title="Trends", template="trends.html", section="trends", in_nav=True,
                  context=context, charts=page_charts)]
