@@ -772,14 +772,26 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
     cur = events.drop_duplicates(["person_id", "ear"], keep="last").copy()
     cur["n_baselines"] = events.groupby(["person_id", "ear"], sort=False)["baseline_date"].transform("size") \
         .loc[cur.index].to_numpy()
-    info = ag[["person_id", "ear", "date", "group", "quiet_hours", "valid_check"]].rename(
-        columns={"date": "baseline_date"})
-    cur = cur.merge(info, on=["person_id", "ear", "baseline_date"], how="left")
+    # the baseline audiogram of each ear, by position (every event names an audiogram row)
+    pos = _row_of(ag, cur["person_id"].to_numpy(object), cur["ear"].to_numpy(object), cur["baseline_date"])
+    rcols = ["person_id", "ear", "baseline_date", "sts", "retest_status", "sts_computed", "shift_234", "date"]
+    if (pos >= 0).all():
+        cur = cur.reset_index(drop=True)
+        for c in ("group", "quiet_hours", "valid_check"):
+            cur[c] = ag[c].take(pos).reset_index(drop=True)
+        key = _ear_key(ag)
+        in_force = np.full(int(key.max()) + 1 if len(key) else 0, np.datetime64("NaT", "ns"), dtype="datetime64[ns]")
+        in_force[key[pos]] = cur["baseline_date"].to_numpy("datetime64[ns]")
+        # candidates among rows compared with the baseline now in force
+        now = ag["baseline_date"].to_numpy("datetime64[ns]") == in_force[key]
+        rows = ag.loc[now, rcols].reset_index(drop=True)
+    else:
+        info = ag[["person_id", "ear", "date", "group", "quiet_hours", "valid_check"]].rename(
+            columns={"date": "baseline_date"})
+        cur = cur.merge(info, on=["person_id", "ear", "baseline_date"], how="left")
+        rows = ag[rcols].merge(cur[["person_id", "ear", "baseline_date"]], on=["person_id", "ear", "baseline_date"])
     q = cur["quiet_hours"]
     cur["quiet_ok"] = _nbool(_ge(q, min_quiet), q.notna())
-    # candidates among rows compared with the baseline now in force
-    rows = ag[["person_id", "ear", "baseline_date", "sts", "retest_status", "sts_computed", "shift_234", "date"]] \
-        .merge(cur[["person_id", "ear", "baseline_date"]], on=["person_id", "ear", "baseline_date"])
     def keys(df: pd.DataFrame) -> pd.Series:
         return df["person_id"].astype(str) + "\x1f" + df["ear"].astype(str)
 
