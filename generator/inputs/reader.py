@@ -25,12 +25,13 @@ from typing import Any, Callable
 
 import numpy as np
 import pandas as pd
-import yaml
 
 from .. import clock
 from ..config import CONFIG_FILE, Config, load_config
 from ..findings import ERROR, WARNING, Findings
+from ..inputfile import InputFileError, read_regular, size_text
 from ..model import NarrativePage, Programme
+from ..yamltext import YamlError, load_yaml
 from .spec import FILES, GROUPS, NOISE_LOG, Column, FileSpec
 
 log = logging.getLogger(__name__)
@@ -56,6 +57,12 @@ LOG_INTERVAL_TOLERANCE_S = 1.0
 HIRE_AGE_MIN, HIRE_AGE_MAX = 14.0, 90.0
 #: Longest cell text quoted back in a message.
 SHOWN_CHARS = 40
+#: Largest data file read (CSV, xlsx, noise log); larger files are refused, not read in part.
+MAX_FILE_BYTES = 256 * 1024 * 1024
+#: Largest narrative page or template read.
+MAX_PAGE_BYTES = 4 * 1024 * 1024
+#: Unknown front-matter keys reported one by one in a page; the rest are counted in one line.
+UNKNOWN_SHOWN = 20
 
 _FORMULA = r"^[=+\-@][A-Za-z]"
 _TZ_SUFFIX = r"\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?\s*(?:Z|[+-]\d{2}:?\d{2})$"
@@ -191,11 +198,13 @@ class _Inputs:
         self.findings = findings
         self.read: dict[str, bytes] = {}
 
-    def get(self, path: Path, rel: str | None = None, folder_inside: bool = False) -> bytes | None:
+    def get(self, path: Path, rel: str | None = None, folder_inside: bool = False,
+            limit: int = MAX_FILE_BYTES) -> bytes | None:
         """Return the bytes of *path*, or None (with an error) when it may not or cannot be read.
 
         With *folder_inside* (the containing folder already resolved inside the programme),
-        only a symbolic link needs resolving.
+        only a symbolic link needs resolving. Only regular files of at most *limit* bytes are
+        read (a named pipe would block, a device never end).
         """
         rel = rel or _rel(self.root, path)
         if (not folder_inside or os.path.islink(path)) and _inside(self.root, path) is None:
@@ -203,10 +212,9 @@ class _Inputs:
                                 "not read")
             return None
         try:
-            with open(path, "rb") as fh:
-                data = fh.read()
-        except OSError as exc:
-            self.findings.error(rel, None, None, f"cannot be read: {exc.strerror or exc}")
+            data = read_regular(path, limit)
+        except InputFileError as exc:
+            self.findings.error(rel, None, None, str(exc))
             return None
         self.read[rel] = data
         return data
@@ -230,9 +238,12 @@ def _decode(raw: bytes, rel: str, findings: Findings) -> str | None:
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
-        line = raw[:exc.start].count(b"\n") + 1
-        findings.error(rel, line, None, f"not UTF-8 text: byte 0x{raw[exc.start]:02x} on line {line} "
-                       "cannot be decoded; save the file as UTF-8")
+        # the decoder counts from after a byte-order mark; positions here are in the whole file
+        start = exc.start + (3 if raw.startswith(b"\xef\xbb\xbf") else 0)
+        line = raw.count(b"\n", 0, start) + 1
+        col = start - (raw.rfind(b"\n", 0, start) + 1) + 1
+        findings.error(rel, line, None, f"not UTF-8 text: byte 0x{raw[start]:02x} on line {line} (byte {col} "
+                       f"of the line, {start + 1} of the file) cannot be decoded; save the file as UTF-8")
         return None
     if "\x00" in text:
         line = text[:text.index("\x00")].count("\n") + 1
@@ -1085,15 +1096,11 @@ def _front_matter(text: str, rel: str, findings: Findings) -> tuple[dict[str, An
     block = "".join(lines[1:end])
     body = "".join(lines[end + 1:])
     try:
-        meta = yaml.safe_load(block)
-    except yaml.MarkedYAMLError as exc:
-        mark = exc.problem_mark or exc.context_mark
-        line = mark.line + 2 if mark else 1
-        col = str(mark.column + 1) if mark else None
-        findings.error(rel, line, col, f"front matter YAML syntax: {exc.problem or exc.context}")
-        return {}, body
-    except yaml.YAMLError as exc:
-        findings.error(rel, 1, None, f"front matter YAML syntax: {exc}")
+        _node, meta = load_yaml(block)
+    except YamlError as exc:
+        for p in exc.problems:
+            findings.error(rel, 1 if p.line is None else p.line + 1, None if p.column is None else str(p.column),
+                           f"front matter {p.message}")
         return {}, body
     if meta is None:
         return {}, body
@@ -1115,16 +1122,20 @@ def _load_pages(root: Path, inputs: _Inputs, findings: Findings) -> list[Narrati
     taken: dict[str, str] = {}
     for p in sorted(folder.glob("*.md")):
         rel = _rel(root, p)
-        raw = inputs.get(p)
+        raw = inputs.get(p, limit=MAX_PAGE_BYTES)
         if raw is None:
             continue
         text = _decode(raw, rel, findings)
         if text is None:
             continue
         meta, body = _front_matter(text, rel, findings)
-        for k in sorted(set(map(str, meta)) - set(PAGE_KEYS)):
-            findings.warning(rel, None, k, f"unknown front-matter key '{k}' is ignored (known: "
+        unknown = sorted(set(map(str, meta)) - set(PAGE_KEYS))
+        for k in unknown[:UNKNOWN_SHOWN]:
+            findings.warning(rel, None, k, f"unknown front-matter key '{_short(k)}' is ignored (known: "
                              f"{', '.join(PAGE_KEYS)})", key="page: unknown key")
+        if len(unknown) > UNKNOWN_SHOWN:
+            findings.warning(rel, None, None, f"{len(unknown) - UNKNOWN_SHOWN:,} more unknown front-matter keys "
+                             "are ignored (not listed)", key="page: unknown keys counted")
         title = meta.get("title")
         if title is None:
             heading = next((ln[2:].strip() for ln in body.splitlines() if ln.startswith("# ")), "")
@@ -1134,7 +1145,7 @@ def _load_pages(root: Path, inputs: _Inputs, findings: Findings) -> list[Narrati
             title = p.stem
         order = meta.get("order", DEFAULT_PAGE_ORDER)
         if isinstance(order, bool) or not isinstance(order, int):
-            findings.error(rel, None, "order", f"order must be a whole number, not '{order}'")
+            findings.error(rel, None, "order", f"order must be a whole number, not '{_short(order)}'")
             order = DEFAULT_PAGE_ORDER
         slug = page_slug(p.stem)
         if slug in taken:
@@ -1164,7 +1175,7 @@ def _template_dir(root: Path, inputs: _Inputs, findings: Findings) -> Path | Non
             ok = False
             continue
         if p.is_file():
-            inputs.get(p)
+            inputs.get(p, limit=MAX_PAGE_BYTES)
     return real if ok else None
 
 
