@@ -61,6 +61,14 @@ SHOWN_CHARS = 40
 MAX_FILE_BYTES = 256 * 1024 * 1024
 #: Largest narrative page or template read.
 MAX_PAGE_BYTES = 4 * 1024 * 1024
+#: Longest line of a CSV file or noise log (a file holding a longer one is not read).
+MAX_LINE_BYTES = 1024 * 1024
+#: Most columns a data file may have (header cells, or cells of an xlsx row).
+MAX_COLUMNS = 1024
+#: Largest unpacked size of an xlsx workbook (all its parts; the sheet is read as it streams).
+MAX_XLSX_UNPACKED = 512 * 1024 * 1024
+#: Most cells (rows with data by columns) read from one xlsx sheet.
+MAX_XLSX_CELLS = 50_000_000
 #: Unknown front-matter keys reported one by one in a page; the rest are counted in one line.
 UNKNOWN_SHOWN = 20
 
@@ -230,8 +238,37 @@ class _Inputs:
         return h.hexdigest()
 
 
-def _decode(raw: bytes, rel: str, findings: Findings) -> str | None:
-    """Return UTF-8 text (BOM removed) or None with one error naming the first bad byte."""
+def _long_line(raw: bytes, limit: int) -> tuple[int, int] | None:
+    """Return (line number, length in bytes) of the first line longer than *limit*, or None."""
+    if len(raw) <= limit:
+        return None
+    arr = np.frombuffer(raw, dtype=np.uint8)
+    chunk = 16 * 1024 * 1024
+    line, last_end = 1, -1  # last_end: position of the newline ending the previous line
+    for a in range(0, arr.size, chunk):
+        nl = np.flatnonzero(arr[a:a + chunk] == 10) + a
+        ends = np.concatenate(([last_end], nl))
+        lengths = np.diff(ends) - 1
+        over = np.flatnonzero(lengths > limit)
+        if over.size:
+            return line + int(over[0]), int(lengths[over[0]])
+        line += nl.size
+        if nl.size:
+            last_end = int(nl[-1])
+    tail = arr.size - last_end - 1
+    return (line, tail) if tail > limit else None
+
+
+def _decode(raw: bytes, rel: str, findings: Findings, max_line: int | None = MAX_LINE_BYTES) -> str | None:
+    """Return UTF-8 text (BOM removed) or None with one error naming the first bad byte.
+
+    A file with a line longer than *max_line* bytes is refused before it is decoded.
+    """
+    long = _long_line(raw, max_line) if max_line else None
+    if long is not None:
+        findings.error(rel, long[0], None, f"line {long[0]} is {long[1]:,} bytes long, more than the "
+                       f"{size_text(max_line)} a line may have; the file is not read")  # type: ignore[arg-type]
+        return None
     if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
         findings.error(rel, 1, None, "looks like UTF-16 text (byte-order mark); save the file as UTF-8")
         return None
@@ -280,7 +317,8 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings) -> _Grid | No
     starts = np.concatenate(([0], nl[:-1] + 1))
     length = nl - starts
     cr = (length > 0) & (arr[np.minimum(nl - 1, arr.size - 1)] == 13)
-    blank = (length - cr) == 0
+    # an empty line, or a line of separators only (",,,,", which spreadsheets write), holds no data
+    blank = (length - cr) == fields - 1
     ncols = int(fields[0])
     bad = (fields != ncols) & ~blank
     bad[0] = False
@@ -319,6 +357,12 @@ def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
     if not records:
         return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
     lens = np.fromiter(map(len, records), dtype=np.int64, count=len(records))
+    ncols = int(lens[0])
+    if ncols > MAX_COLUMNS:
+        _too_wide(findings, rel, ncols)
+        return None
+    if lens.max() > ncols:  # rows longer than the header are not read: keep no more cells of them
+        records = [r[:ncols] for r in records]
     columns = list(itertools.zip_longest(*records, fillvalue=None))
     frame = pd.DataFrame({i: pd.Series(c, dtype=object) for i, c in enumerate(columns)},
                          index=pd.RangeIndex(len(records)))
@@ -327,11 +371,9 @@ def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
         breaks += frame[c].fillna("").astype(str).str.count("\n").to_numpy(dtype=np.int64)
     span = 1 + breaks
     start_line = np.concatenate(([1], 1 + np.cumsum(span)[:-1]))
-    ncols = int(lens[0])
     header = [str(x) for x in records[0]]
-    first_cell = frame[0].fillna("").to_numpy(dtype=object) if 0 in frame.columns \
-        else np.full(len(records), "", dtype=object)
-    blank = (lens == 0) | ((lens == 1) & (first_cell == ""))
+    # an empty record, or one whose every cell is empty (",,,,", which spreadsheets write)
+    blank = (lens == 0) | frame.fillna("").eq("").all(axis=1).to_numpy(dtype=bool)
     bad = (lens != ncols) & ~blank
     bad[0] = False
     if bad.any():
@@ -341,6 +383,12 @@ def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
     body = frame.loc[keep, list(range(min(ncols, frame.shape[1])))].fillna("")
     body = body.astype(str).reset_index(drop=True)
     return _Grid(header, body, start_line[keep], rel)
+
+
+def _too_wide(findings: Findings, rel: str, ncols: int) -> None:
+    """Record that a file has more columns than are read."""
+    findings.error(rel, 1, None, f"the header has {ncols:,} columns, more than the {MAX_COLUMNS:,} a data "
+                   "file may have; the file is not read")
 
 
 def _ragged(findings: Findings, rel: str, lines: np.ndarray, fields: np.ndarray, ncols: int) -> None:
@@ -360,6 +408,11 @@ def _parse_csv(raw: bytes, rel: str, findings: Findings) -> _Grid | None:
         return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
     body_raw = raw[3:] if raw.startswith(b"\xef\xbb\xbf") else raw
     if '"' not in text:
+        first = body_raw.find(b"\n")
+        ncols = body_raw.count(b",", 0, len(body_raw) if first < 0 else first) + 1
+        if ncols > MAX_COLUMNS:
+            _too_wide(findings, rel, ncols)
+            return None
         try:
             grid = _csv_fast(text, body_raw, rel, findings)
         except (pd.errors.ParserError, ValueError) as exc:
@@ -389,29 +442,153 @@ def _xlsx_cell_text(v: Any, date_only: bool = False) -> str:
     return str(v)
 
 
+class _Refused(Exception):
+    """A workbook that is not read (the reason is already a finding)."""
+
+
 def _parse_xlsx(raw: bytes, rel: str, findings: Findings, spec: FileSpec) -> _Grid | None:
     """Return the cells of the first sheet of an xlsx workbook, or None with an error."""
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            frame = pd.read_excel(io.BytesIO(raw), sheet_name=0, header=None, dtype=object,
-                                  engine="openpyxl", keep_default_na=False, na_filter=False)
+            return _read_sheet(raw, rel, findings, spec)
+    except _Refused:
+        return None
     except Exception as exc:  # openpyxl raises many kinds for a damaged workbook
         findings.error(rel, None, None, f"cannot be read as an Excel workbook (.xlsx): "
                        f"{type(exc).__name__}: {str(exc)[:120]}")
         return None
-    if frame.empty:
-        return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
+
+
+def _read_sheet(raw: bytes, rel: str, findings: Findings, spec: FileSpec) -> _Grid:
+    """Stream the first sheet cell by cell (openpyxl's sheet parser), within the caps.
+
+    Refuses a workbook that unpacks to more than MAX_XLSX_UNPACKED or whose sheet reaches
+    beyond column MAX_COLUMNS; reports merged header cells, and formulas without a saved
+    value and error values (#DIV/0!, #N/A ...) that are read as blank.
+    """
+    import zipfile
+
+    import openpyxl
+    from openpyxl.utils import get_column_letter
+    from openpyxl.utils.cell import range_boundaries
+    from openpyxl.worksheet._reader import FORMULA_TAG, VALUE_TAG, WorkSheetParser
+
+    unpacked = sum(i.file_size for i in zipfile.ZipFile(io.BytesIO(raw)).infolist())
+    if unpacked > MAX_XLSX_UNPACKED:
+        findings.error(rel, None, None, f"unpacks to {size_text(unpacked)}, more than the "
+                       f"{size_text(MAX_XLSX_UNPACKED)} a workbook may have; not read (save it as CSV)")
+        raise _Refused
+    wb = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=True, keep_links=False)
+    ws = wb.worksheets[0]
+    if not hasattr(ws, "_get_source"):
+        findings.error(rel, None, None, "the first sheet is not a worksheet of cells; not read")
+        raise _Refused
+    if ws.max_column is not None and ws.max_column > MAX_COLUMNS:
+        findings.error(rel, None, None, f"the first sheet spans {ws.max_column:,} columns (to column "
+                       f"{get_column_letter(ws.max_column)}), more than the {MAX_COLUMNS:,} a data file may "
+                       "have; not read (delete the columns beyond the data)")
+        raise _Refused
+
+    class Parser(WorkSheetParser):
+        """The sheet parser, marking formulas that carry no saved value."""
+
+        def parse_cell(self, element: Any) -> dict:
+            cell = super().parse_cell(element)
+            saved = element.find(VALUE_TAG)
+            # an empty saved value is an empty text result only for a text-typed cell (t="str")
+            if element.find(FORMULA_TAG) is not None and (saved is None or (not saved.text and
+                                                                             element.get("t") != "str")):
+                cell["data_type"] = "formula without value"
+                f = element.find(FORMULA_TAG)
+                cell["value"] = "=" + (f.text or "")
+            return cell
+
+    sparse: dict[int, tuple[list[int], list[Any]]] = {}  # column (0-based) -> (sheet rows, values)
+    head: dict[int, Any] = {}  # column (0-based) -> value in row 1
+    odd: list[tuple[int, int, str, str]] = []  # (row, column, kind, text)
+    with ws._get_source() as src:
+        parser = Parser(src, ws._shared_strings, data_only=True, epoch=wb.epoch,
+                        date_formats=wb._date_formats, timedelta_formats=wb._timedelta_formats)
+        for r, row in parser.parse():
+            for cell in row:
+                c, v, t = cell["column"], cell["value"], cell["data_type"]
+                if v is None or (t == "s" and v == ""):
+                    continue
+                if c > MAX_COLUMNS:
+                    findings.error(rel, r, None, f"cell {get_column_letter(c)}{r} lies beyond column "
+                                   f"{get_column_letter(MAX_COLUMNS)}, the last of the {MAX_COLUMNS:,} a data "
+                                   "file may have; not read (delete the columns beyond the data)")
+                    raise _Refused
+                if t in ("formula without value", "e"):
+                    odd.append((r, c, t, str(v)))
+                    continue
+                if isinstance(v, float) and v.is_integer():
+                    v = int(v)  # as pandas' reader does: 5.0 is the whole number 5
+                if r == 1:
+                    head[c - 1] = v
+                at = sparse.setdefault(c - 1, ([], []))
+                at[0].append(r)
+                at[1].append(v)
+        merged = [m.coord for m in (parser.merged_cells.mergeCell if parser.merged_cells else [])]
+    wb.close()
+    row_ids = np.unique(np.asarray([r for rs, _ in sparse.values() for r in rs] + [r for r, _, _, _ in odd] + [1],
+                                   dtype=np.int64))
+    ncols = max([c + 1 for c in sparse] + [c for _, c, _, _ in odd] + [0])
+    if len(row_ids) * ncols > MAX_XLSX_CELLS:
+        findings.error(rel, None, None, f"the first sheet has {len(row_ids):,} rows by {ncols:,} columns, more "
+                       f"than the {MAX_XLSX_CELLS:,} cells a workbook may have; not read (save it as CSV)")
+        raise _Refused
+    labels = [str(head.get(i, "")).replace("\ufeff", "").strip().lower() for i in range(ncols)]
     dates = {c.name for c in spec.columns if c.kind in ("date", "date_or_year")}
-    labels = [str(v).replace("\ufeff", "").strip().lower() for v in frame.iloc[0].tolist()]
-    cells = pd.DataFrame({i: frame.iloc[:, i].map(lambda v, d=labels[i] in dates: _xlsx_cell_text(v, d))
-                          for i in range(frame.shape[1])})
-    rows = np.arange(1, len(cells) + 1, dtype=np.int64)
-    header = cells.iloc[0].tolist()
+    declared = {c.name for c in spec.columns}
+    columns = {}
+    for i in range(ncols):
+        col = np.full(len(row_ids), "", dtype=object)
+        date_only = labels[i] in dates
+        if i in sparse:
+            rs, vs = sparse[i]
+            col[np.searchsorted(row_ids, rs)] = [_xlsx_cell_text(v, date_only) for v in vs]
+        columns[i] = col
+    if ncols == 0:
+        return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
+    cells = pd.DataFrame(columns, index=pd.RangeIndex(len(row_ids)))
+    header = [str(x) for x in cells.iloc[0].tolist()]  # row_ids starts with sheet row 1
     body = cells.iloc[1:]
-    rows = rows[1:]
+    rows = row_ids[1:]
+
+    def label(c: int) -> str | None:  # 1-based column
+        return (labels[c - 1] or None) if c - 1 < len(labels) else None
+
+    for r, c, t, text in sorted(odd):
+        where = f"{get_column_letter(c)}{r}"
+        if t == "e":
+            findings.warning(rel, r, label(c), f"cell {where} holds the spreadsheet error {_short(text)}; read as blank",
+                             key="xlsx: error value")
+        else:
+            level = ERROR if label(c) in declared else WARNING
+            findings.add(rel, r, label(c), level, f"cell {where} holds the formula '{_short(text)}' without a "
+                         "saved value (open and save the workbook in a spreadsheet program); read as blank",
+                         key="xlsx: formula without value")
+    for coord in sorted(merged):
+        c1, r1, c2, r2 = range_boundaries(coord)
+        if r1 == 1 and c2 > c1:
+            lost = [get_column_letter(c) for c in range(c1 + 1, c2 + 1)
+                    if c - 1 in sparse and any(rr != 1 for rr in sparse[c - 1][0])]
+            level = ERROR if lost else WARNING
+            more = (f"; column{'s' if len(lost) > 1 else ''} {', '.join(lost)} under it "
+                    f"{'have' if len(lost) > 1 else 'has'} no label of its own and {'are' if len(lost) > 1 else 'is'} "
+                    "not read as that column") if lost else ""
+            findings.add(rel, 1, label(c1), level, f"header cells {coord} are merged: only column "
+                         f"{get_column_letter(c1)} is named{more}; unmerge them and give every column its own label",
+                         key="xlsx: merged header")
+        elif r2 > max(r1, 1) or c2 > c1:
+            findings.warning(rel, r1, label(c1), f"cells {coord} are merged: only {get_column_letter(c1)}{r1} holds "
+                             "the value, the other "
+                             "cells are read as blank", key="xlsx: merged cells")
     blank = body.eq("").all(axis=1).to_numpy() if body.shape[1] else np.zeros(len(body), dtype=bool)
     body = body.loc[~blank].reset_index(drop=True)
+    body.columns = range(body.shape[1])
     return _Grid(header, body, rows[~blank], rel)
 
 
