@@ -69,6 +69,8 @@ MAX_COLUMNS = 1024
 MAX_XLSX_UNPACKED = 512 * 1024 * 1024
 #: Most cells (rows with data by columns) read from one xlsx sheet.
 MAX_XLSX_CELLS = 50_000_000
+#: Files of templates/ that jinja2 reads as UTF-8 text (checked when loading).
+TEMPLATE_SUFFIXES = (".html", ".htm", ".css", ".js", ".txt", ".xml", ".svg", ".j2", ".jinja")
 #: Unknown front-matter keys reported one by one in a page; the rest are counted in one line.
 UNKNOWN_SHOWN = 20
 
@@ -1352,7 +1354,10 @@ def _template_dir(root: Path, inputs: _Inputs, findings: Findings) -> Path | Non
             ok = False
             continue
         if p.is_file():
-            inputs.get(p, limit=MAX_PAGE_BYTES)
+            raw = inputs.get(p, limit=MAX_PAGE_BYTES)
+            if raw is None or (p.suffix.lower() in TEMPLATE_SUFFIXES
+                               and _decode(raw, _rel(root, p), findings, max_line=None) is None):
+                ok = False  # the reason is a finding; templates are read as UTF-8 text
     return real if ok else None
 
 
