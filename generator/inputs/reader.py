@@ -209,12 +209,12 @@ class _Inputs:
         self.read: dict[str, bytes] = {}
 
     def get(self, path: Path, rel: str | None = None, folder_inside: bool = False,
-            limit: int = MAX_FILE_BYTES) -> bytes | None:
+            limit: int | None = None) -> bytes | None:
         """Return the bytes of *path*, or None (with an error) when it may not or cannot be read.
 
         With *folder_inside* (the containing folder already resolved inside the programme),
         only a symbolic link needs resolving. Only regular files of at most *limit* bytes are
-        read (a named pipe would block, a device never end).
+        read (a named pipe would block, a device never end); *limit* defaults to MAX_FILE_BYTES.
         """
         rel = rel or _rel(self.root, path)
         if (not folder_inside or os.path.islink(path)) and _inside(self.root, path) is None:
@@ -222,7 +222,7 @@ class _Inputs:
                                 "not read")
             return None
         try:
-            data = read_regular(path, limit)
+            data = read_regular(path, MAX_FILE_BYTES if limit is None else limit)
         except InputFileError as exc:
             self.findings.error(rel, None, None, str(exc))
             return None
@@ -261,11 +261,13 @@ def _long_line(raw: bytes, limit: int) -> tuple[int, int] | None:
     return (line, tail) if tail > limit else None
 
 
-def _decode(raw: bytes, rel: str, findings: Findings, max_line: int | None = MAX_LINE_BYTES) -> str | None:
+def _decode(raw: bytes, rel: str, findings: Findings, max_line: int | None = -1) -> str | None:
     """Return UTF-8 text (BOM removed) or None with one error naming the first bad byte.
 
-    A file with a line longer than *max_line* bytes is refused before it is decoded.
+    A file with a line longer than *max_line* bytes (default MAX_LINE_BYTES; None: no
+    limit) is refused before it is decoded.
     """
+    max_line = MAX_LINE_BYTES if max_line == -1 else max_line
     long = _long_line(raw, max_line) if max_line else None
     if long is not None:
         findings.error(rel, long[0], None, f"line {long[0]} is {long[1]:,} bytes long, more than the "
@@ -448,12 +450,12 @@ class _Refused(Exception):
     """A workbook that is not read (the reason is already a finding)."""
 
 
-def _parse_xlsx(raw: bytes, rel: str, findings: Findings, spec: FileSpec) -> _Grid | None:
-    """Return the cells of the first sheet of an xlsx workbook, or None with an error."""
+def _parse_xlsx(raw: bytes, rel: str, findings: Findings, spec: FileSpec, sheet: str | int = 0) -> _Grid | None:
+    """Return the cells of one sheet (default the first) of an xlsx workbook, or None with an error."""
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            return _read_sheet(raw, rel, findings, spec)
+            return _read_sheet(raw, rel, findings, spec, sheet)
     except _Refused:
         return None
     except Exception as exc:  # openpyxl raises many kinds for a damaged workbook
@@ -462,8 +464,8 @@ def _parse_xlsx(raw: bytes, rel: str, findings: Findings, spec: FileSpec) -> _Gr
         return None
 
 
-def _read_sheet(raw: bytes, rel: str, findings: Findings, spec: FileSpec) -> _Grid:
-    """Stream the first sheet cell by cell (openpyxl's sheet parser), within the caps.
+def _read_sheet(raw: bytes, rel: str, findings: Findings, spec: FileSpec, sheet: str | int = 0) -> _Grid:
+    """Stream one sheet cell by cell (openpyxl's sheet parser), within the caps.
 
     Refuses a workbook that unpacks to more than MAX_XLSX_UNPACKED or whose sheet reaches
     beyond column MAX_COLUMNS; reports merged header cells, and formulas without a saved
@@ -482,12 +484,12 @@ def _read_sheet(raw: bytes, rel: str, findings: Findings, spec: FileSpec) -> _Gr
                        f"{size_text(MAX_XLSX_UNPACKED)} a workbook may have; not read (save it as CSV)")
         raise _Refused
     wb = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=True, keep_links=False)
-    ws = wb.worksheets[0]
+    ws = wb[sheet] if isinstance(sheet, str) else wb.worksheets[sheet]
     if not hasattr(ws, "_get_source"):
-        findings.error(rel, None, None, "the first sheet is not a worksheet of cells; not read")
+        findings.error(rel, None, None, "the sheet is not a worksheet of cells; not read")
         raise _Refused
     if ws.max_column is not None and ws.max_column > MAX_COLUMNS:
-        findings.error(rel, None, None, f"the first sheet spans {ws.max_column:,} columns (to column "
+        findings.error(rel, None, None, f"the sheet spans {ws.max_column:,} columns (to column "
                        f"{get_column_letter(ws.max_column)}), more than the {MAX_COLUMNS:,} a data file may "
                        "have; not read (delete the columns beyond the data)")
         raise _Refused
@@ -538,7 +540,7 @@ def _read_sheet(raw: bytes, rel: str, findings: Findings, spec: FileSpec) -> _Gr
                                    dtype=np.int64))
     ncols = max([c + 1 for c in sparse] + [c for _, c, _, _ in odd] + [0])
     if len(row_ids) * ncols > MAX_XLSX_CELLS:
-        findings.error(rel, None, None, f"the first sheet has {len(row_ids):,} rows by {ncols:,} columns, more "
+        findings.error(rel, None, None, f"the sheet has {len(row_ids):,} rows by {ncols:,} columns, more "
                        f"than the {MAX_XLSX_CELLS:,} cells a workbook may have; not read (save it as CSV)")
         raise _Refused
     labels = [str(head.get(i, "")).replace("\ufeff", "").strip().lower() for i in range(ncols)]
