@@ -416,3 +416,12 @@ def test_template_mistake_is_the_users_not_an_internal_error(tmp_path: Path, nam
     assert "internal error" not in out + err and "Traceback" not in out + err, out + err
     assert expect in out, out + err
     assert not (tmp_path / "site").exists()
+
+
+def test_separator_rows_in_noise_logs_are_skipped(tmp_path: Path) -> None:
+    noise = "measurement_id,date,kind,group,duration_h,laeq\nM1,2025-03-01,area,G1,1,85\nM2,2025-03-01,area,G1,1,85\n"
+    log = "start,laeq\n2025-03-01T08:00:00,85\n,\n2025-03-01T08:01:00,86\n2025-03-01T08:02:00,87\n,\n"
+    root = make_programme(tmp_path / "p", {"noise.csv": noise, "noise_logs/M1.csv": log, "noise_logs/M2.csv": log})
+    prog = load_programme(root, today=TODAY)
+    assert not list(prog.findings), show(list(prog.findings))
+    assert prog.noise_logs["M1"]["_row"].tolist() == [2, 4, 5]

@@ -1184,7 +1184,7 @@ def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, str]], findi
     starts = np.concatenate(([0], nl[:-1] + 1))
     length = nl - starts
     cr = (length > 0) & (arr[np.maximum(nl - 1, 0)] == 13)
-    blank = (length - cr) == 0
+    blank = (length - cr) == fields - 1  # empty, or separators only
     if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
         # something unusual: read these logs one by one to report exact lines
         return [_log_single((",".join(cols) + "\n" + m[2]).encode("utf-8"), m[1], m[0], findings, today)
