@@ -4,7 +4,7 @@ Each input here once broke the reader: a line break in a cell forged a findings 
 YAML alias bomb ran for minutes, an xlsx with one far-away cell took 40 s and 700 MB, a
 named pipe hung the build, a template mistake was blamed on hcpsite. The command-line
 checks run in a child process with a timeout (a regression fails instead of hanging) and
-report the child's peak resident memory (``resource.getrusage``, Linux: KiB).
+report the child's peak resident memory (VmHWM of ``/proc/self/status``, KiB).
 """
 from __future__ import annotations
 
@@ -32,10 +32,16 @@ LINE = re.compile(r"^[^\n]*:\d*:[^\n]*: (error|warning): [^\n]*$")
 TIME_LIMIT_S = 60
 RSS_LIMIT_MB = 700
 
-_CHILD = ("import resource, sys\n"
+# VmHWM of /proc/self/status is the peak of this process's own memory; ru_maxrss would also
+# count the parent it was forked from (Linux keeps it across execve), so it is the fallback
+_CHILD = ("import re, resource, sys\n"
           "from generator.cli import main\n"
           "rc = main(sys.argv[1:])\n"
-          "sys.stderr.write('\\nPEAK_RSS_KB=%d\\n' % resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)\n"
+          "try:\n"
+          "    kb = int(re.search(r'VmHWM:\\s*(\\d+)', open('/proc/self/status').read()).group(1))\n"
+          "except (OSError, AttributeError):\n"
+          "    kb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss\n"
+          "sys.stderr.write('\\nPEAK_RSS_KB=%d\\n' % kb)\n"
           "sys.exit(rc)\n")
 
 
