@@ -255,6 +255,12 @@ def test_fifo_as_data_file_config_and_log_is_refused(tmp_path: Path) -> None:
     rc, out, err, rss = run_cli("check", str(root2), timeout=30)
     assert_clean(rc, out, err, rss)
     assert "programme.yaml::: error: is a named pipe (FIFO), not a regular file; not read" in out, out
+    root3 = make_programme(tmp_path / "t")
+    (root3 / "templates").mkdir()
+    os.mkfifo(root3 / "templates" / "overview.html")
+    rc, out, err, rss = run_cli("build", str(root3), "--out", str(tmp_path / "site"), timeout=60)
+    assert_clean(rc, out, err, rss)
+    assert "templates/overview.html::: error: is a named pipe (FIFO), not a regular file; not read" in out, out
 
 
 def test_file_over_the_size_cap_is_refused_naming_the_cap(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> None:

@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 
 from .. import clock
-from ..config import CONFIG_FILE, Config, load_config
+from ..config import CONFIG_FILE, MAX_CONFIG_BYTES, Config, load_config
 from ..findings import ERROR, WARNING, Findings
 from ..inputfile import InputFileError, read_regular, size_text
 from ..model import NarrativePage, Programme
@@ -1355,7 +1355,7 @@ def _template_dir(root: Path, inputs: _Inputs, findings: Findings) -> Path | Non
             findings.error(_rel(root, p), None, None, "resolves outside the programme folder; not used")
             ok = False
             continue
-        if p.is_file():
+        if not p.is_dir():  # a named pipe here would block the template loader: refused by get()
             raw = inputs.get(p, limit=MAX_PAGE_BYTES)
             if raw is None or (p.suffix.lower() in TEMPLATE_SUFFIXES
                                and _decode(raw, _rel(root, p), findings, max_line=None) is None):
@@ -1380,8 +1380,8 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
                        "not read")
         config = Config()
     else:
-        if cfg_path.is_file():
-            inputs.get(cfg_path)
+        if cfg_path.is_file() and cfg_path.stat().st_size <= MAX_CONFIG_BYTES:
+            inputs.get(cfg_path)  # for the digest; load_config reports a file it cannot read
         config = load_config(root, findings)
     if not (root / DATA_DIR).is_dir():
         findings.error(DATA_DIR, None, None, "the data/ folder is missing (run 'hcpsite new DIR' for a starter)")
