@@ -236,7 +236,8 @@ class _Inputs:
             data = self.read[rel]
             name = rel.encode("utf-8")
             h.update(len(name).to_bytes(8, "big") + name)
-            h.update(len(data).to_bytes(8, "big") + data)
+            h.update(len(data).to_bytes(8, "big"))
+            h.update(data)  # not concatenated: that would copy the largest file once more
         return h.hexdigest()
 
 
