@@ -305,7 +305,10 @@ def _xlsx_bytes(rows: list[list[Any]], setup: Any = None) -> bytes:
 
 
 def test_xlsx_cell_in_the_last_column_is_refused_fast(tmp_path: Path) -> None:
-    # XFD is column 16,384, the last of an Excel sheet (ECMA-376 Part 1, 18.3.1.13: 16384 columns)
+    # XFD is column 16,384, the last column of an Excel sheet (common practice; openpyxl's
+    # column-letter conversion is the oracle)
+    from openpyxl.utils import get_column_letter
+    assert get_column_letter(16384) == "XFD"
     root = make_programme(tmp_path / "p")
     raw = _xlsx_bytes([["person_id", "date", "topic"]] + [["E001", "2025-01-01", "x"]] * 200,
                       lambda ws: ws.cell(row=1, column=16384, value="z"))
@@ -378,11 +381,15 @@ def test_formula_without_saved_value_is_reported(tmp_path: Path) -> None:
     # openpyxl writes formulas without the value a spreadsheet program would have saved
     root = make_programme(tmp_path / "p")
     (root / "data" / "training.xlsx").write_bytes(_xlsx_bytes(
-        [["person_id", "date", "topic", "remark"], ["E001", "2025-01-01", '=A2&"x"', "=1+1"]]))
+        [["person_id", "date", "topic", "remark"], ["E001", "2025-01-01", '=A2&"x"', "=1+1"],
+         ["E002", "2025-01-02", "ok", "#DIV/0!"]]))
     found = findings_of(root)
     assert has(found, "data/training.xlsx", 2, "topic", ERROR,
                "cell C2 holds the formula '=A2&\"x\"' without a saved value"), show(found)
     assert has(found, "data/training.xlsx", 2, "remark", WARNING, "cell D2 holds the formula '=1+1'"), show(found)
+    # #DIV/0! is the error value a spreadsheet stores for a division by zero (common practice)
+    assert has(found, "data/training.xlsx", 3, "remark", WARNING, "cell D3 holds the spreadsheet error #DIV/0!"), \
+        show(found)
 
 
 # ---------------------------------------------------------------------------------------
