@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import dataclasses
 import datetime as dt
+import os
 import types
 import typing
 from dataclasses import dataclass, field
@@ -18,8 +19,14 @@ from typing import Any
 import yaml
 
 from .findings import Findings
+from .inputfile import InputFileError, read_regular
+from .yamltext import YamlError, load_yaml
 
 CONFIG_FILE = "programme.yaml"
+#: Largest programme.yaml read (a real one is a few kilobytes).
+MAX_CONFIG_BYTES = 1024 * 1024
+#: Unknown options reported one by one in one section; the rest are counted in one line.
+UNKNOWN_SHOWN = 20
 RULE_SETS = ("osha-1910.95", "niosh-rel", "eu-2003-10", "custom")
 
 
@@ -126,11 +133,14 @@ class Config:
 
 
 def _node_at(node: yaml.Node | None, key: str) -> tuple[yaml.Node | None, yaml.Node | None]:
-    if isinstance(node, yaml.MappingNode):
-        for k, v in node.value:
-            if isinstance(k, yaml.ScalarNode) and k.value == key:
-                return k, v
-    return None, None
+    return _key_nodes(node).get(key, (None, None))
+
+
+def _key_nodes(node: yaml.Node | None) -> dict[str, tuple[yaml.Node, yaml.Node]]:
+    """Return {key text: (key node, value node)} of a mapping node (the last of repeated keys)."""
+    if not isinstance(node, yaml.MappingNode):
+        return {}
+    return {k.value: (k, v) for k, v in node.value if isinstance(k, yaml.ScalarNode)}
 
 
 def _pos(node: yaml.Node | None) -> tuple[int | None, str | None]:
@@ -191,18 +201,24 @@ def _load_into(cls: type, data: Any, node: yaml.Node | None, prefix: str, path: 
         findings.error(path, line, prefix.rstrip(".") or None, "expected a mapping of options")
         return cls()
     known = {f.name for f in dataclasses.fields(cls)}
-    for key in data:
-        if key not in known:
-            k_node, _ = _node_at(node, str(key))
-            kl, kc = _pos(k_node)
-            findings.warning(path, kl, f"{prefix}{key}", f"unknown option '{prefix}{key}' is ignored; "
-                             f"known: {', '.join(sorted(known))}")
+    index = _key_nodes(node)
+    unknown = [key for key in data if key not in known]
+    for key in unknown[:UNKNOWN_SHOWN]:
+        k_node, _ = index.get(str(key), (None, None))
+        kl, kc = _pos(k_node)
+        findings.warning(path, kl, f"{prefix}{key}", f"unknown option '{prefix}{key}' is ignored; "
+                         f"known: {', '.join(sorted(known))}")
+    if len(unknown) > UNKNOWN_SHOWN:
+        k_node, _ = index.get(str(unknown[UNKNOWN_SHOWN]), (None, None))
+        findings.warning(path, _pos(k_node)[0], prefix.rstrip(".") or None,
+                         f"{len(unknown) - UNKNOWN_SHOWN:,} more unknown options "
+                         f"{'in ' + prefix.rstrip('.') + ' ' if prefix else ''}are ignored (not listed)")
     for f in dataclasses.fields(cls):
         if f.name not in data:
             continue
         tp = hints[f.name]
         value = data[f.name]
-        _, v_node = _node_at(node, f.name)
+        _, v_node = index.get(f.name, (None, None))
         vl, vc = _pos(v_node)
         where = f"{prefix}{f.name}"
         if isinstance(tp, type) and dataclasses.is_dataclass(tp):
@@ -247,25 +263,26 @@ def load_config(folder: Path, findings: Findings) -> Config:
     """Read and validate ``folder/programme.yaml``; record every problem in *findings*."""
     path = Path(folder) / CONFIG_FILE
     rel = CONFIG_FILE
-    if not path.is_file():
+    if not os.path.lexists(path):
         findings.error(rel, None, None, "programme.yaml is missing (run 'hcpsite new DIR' for a starter)")
         return Config()
     try:
-        text = path.read_bytes().decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        findings.error(rel, None, None, f"not UTF-8 text ({exc.reason} at byte {exc.start})")
+        raw = read_regular(path, MAX_CONFIG_BYTES)
+    except InputFileError as exc:
+        findings.error(rel, None, None, str(exc))
         return Config()
     try:
-        node = yaml.compose(text, Loader=yaml.SafeLoader)
-        data = yaml.safe_load(text)
-    except yaml.MarkedYAMLError as exc:
-        mark = exc.problem_mark or exc.context_mark
-        line = mark.line + 1 if mark else None
-        col = str(mark.column + 1) if mark else None
-        findings.error(rel, line, col, f"YAML syntax: {exc.problem or exc.context}")
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        start = exc.start + (3 if raw.startswith(b"\xef\xbb\xbf") else 0)
+        line = raw[:start].count(b"\n") + 1
+        findings.error(rel, line, None, f"not UTF-8 text ({exc.reason} at byte {start + 1} of the file)")
         return Config()
-    except yaml.YAMLError as exc:
-        findings.error(rel, None, None, f"YAML syntax: {exc}")
+    try:
+        node, data = load_yaml(text)
+    except YamlError as exc:
+        for p in exc.problems:
+            findings.error(rel, p.line, None if p.column is None else str(p.column), p.message)
         return Config()
     cfg = _load_into(Config, data, node, "", rel, findings)
     if cfg.period.end < cfg.period.start:

@@ -9,6 +9,10 @@ import sys
 
 from .reader import DEFAULT_PAGE_ORDER, HIRE_AGE_MAX, HIRE_AGE_MIN, LOG_INTERVAL_TOLERANCE_S, \
     RESERVED_SLUGS, YEAR_MAX, YEAR_MIN
+from .reader import MAX_COLUMNS, MAX_FILE_BYTES, MAX_LINE_BYTES, MAX_PAGE_BYTES, MAX_XLSX_UNPACKED
+from ..config import MAX_CONFIG_BYTES
+from ..inputfile import size_text
+from ..yamltext import MAX_DEPTH
 from .spec import FILES, NOISE_LOG, Column, FileSpec
 
 #: How each declared kind is read, in words.
@@ -94,6 +98,11 @@ def data_format_markdown() -> str:
         "* The first line names the columns; names are case-insensitive and surrounding spaces are",
         "  ignored. Unknown columns are kept and warned about once per file; a missing required",
         "  column is an error. A line with more or fewer cells than the header is an error.",
+        "* Empty lines and lines of separators only (`,,,,`, which spreadsheets write) are",
+        "  skipped, in CSV as in xlsx.",
+        "* In an xlsx sheet, merged header cells, formulas without a saved value (a workbook",
+        "  written by a program and never opened in a spreadsheet) and error values such as",
+        "  `#DIV/0!` are reported where they are; such cells are read as blank.",
         "* Every cell is read as text, stripped of surrounding spaces and converted according to",
         "  the column's kind. A blank cell means \"not given\" (or the column's default).",
         "* Numbers use a decimal point; `inf`, `nan` and values outside the allowed range are",
@@ -108,6 +117,16 @@ def data_format_markdown() -> str:
         "* Rows are reported by their line in the file (the header is line 1).",
         "* Inputs are only read, never changed. Files that resolve outside the programme",
         "  folder (for example through a symbolic link) are reported and not read.",
+        f"* What is read is capped, and a file over a cap is refused with a message naming it: a",
+        f"  data file or noise log of at most {size_text(MAX_FILE_BYTES)}, lines of at most",
+        f"  {size_text(MAX_LINE_BYTES)}, at most {MAX_COLUMNS:,} columns, an xlsx workbook unpacking",
+        f"  to at most {size_text(MAX_XLSX_UNPACKED)}; a page or template of at most {size_text(MAX_PAGE_BYTES)}",
+        f"  and `programme.yaml` of at most {size_text(MAX_CONFIG_BYTES)}. Only regular files are read (a",
+        "  named pipe or a device is refused). Text quoted in a message is shortened, and control",
+        "  characters in it are shown as escapes (`\\n`), so a finding is always one line.",
+        "* `programme.yaml` and the front matter of pages are YAML without anchors and aliases",
+        f"  (`&name`, `*name`), nested at most {MAX_DEPTH} levels; `.nan`, `.inf` and impossible dates",
+        "  (`2025-02-30`) are errors at their line and column.",
         "",
         "Cross-checks that only warn: a personal measurement without `person_id`; an",
         f"age at hire below {HIRE_AGE_MIN:g} or above {HIRE_AGE_MAX:g} years; a `leave_date`",
