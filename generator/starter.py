@@ -145,8 +145,6 @@ COMMENTED_EXAMPLES: dict[str, Any] = {"hours_worked": 412000}
 
 #: the files: section of the starter, commented out: a worked example of a European export.
 FILES_EXAMPLE = """
-# how to read data files exported in another dress (path, sheet, delimiter, decimal,
-# encoding, date_format, columns), one entry per data file; see docs/data-format.md.
 # Without an entry a file is read from data/NAME.csv (or .xlsx) as UTF-8 with commas,
 # decimal points, YYYY-MM-DD dates and hcpsite's column names. Remove the '# ' to use:
 # files:
@@ -169,6 +167,7 @@ FILES_EXAMPLE = """
 
 def programme_yaml() -> str:
     """Return programme.yaml with every option, its documentation as a comment and its default."""
+    files_doc = ""
     lines = ["# programme.yaml: settings of one hearing-conservation programme review.",
              "# Every option is listed with its documentation and its default value;",
              "# change what differs for your programme. Run 'hcpsite check .' after editing.",
@@ -177,6 +176,7 @@ def programme_yaml() -> str:
              f"# {', '.join(c.name for c in NOISE_LOG.columns)}, fixed intervals, covering the whole run.", ""]
     for name, kind, default, doc in iter_options(Config):
         if name == "files":
+            files_doc = doc
             continue  # written commented out at the end (FILES_EXAMPLE)
         depth = name.count(".")
         indent = "  " * depth
@@ -197,7 +197,7 @@ def programme_yaml() -> str:
             lines.append(f"{indent}{key}: {_yaml_value(value)}")
         if depth == 0:
             lines.append("")
-    return "\n".join(lines).rstrip() + "\n" + FILES_EXAMPLE
+    return "\n".join(lines).rstrip() + "\n\n# " + files_doc + FILES_EXAMPLE
 
 
 def starter_files() -> dict[str, str]:

@@ -540,3 +540,38 @@ def test_readme_and_data_format_describe_every_setting() -> None:
         assert f"{key}:" in readme, key
     assert "hl_<f>_l" in readme and "hl_<f>_l" in reference
     assert "%d.%m.%Y" in readme and "cp1252" in readme
+
+
+def test_semicolon_files_keep_commas_inside_cells(tmp_path: Path) -> None:
+    plain = "measurement_id;date;kind;duration_h;laeq;notes\nM1;2025-03-04;area;7,5;85,3;near press, east side\n"
+    quoted = ('measurement_id;date;kind;duration_h;laeq;notes\n'
+              'M1;2025-03-04;area;7,5;85,3;"near press, east side"\n')
+    cfg = {"files": {"noise": {"delimiter": ";", "decimal": ","}}}
+    got = []
+    for i, text in enumerate((plain, quoted)):
+        prog = load(make_programme(tmp_path / str(i), {"noise.csv": text}, config=cfg))
+        assert not prog.findings.errors, prog.findings.lines()
+        n = prog.tables["noise"]
+        got.append((n["notes"].tolist(), n["laeq"].tolist(), n["duration_h"].tolist(), n["_row"].tolist()))
+    assert got[0] == got[1] == (["near press, east side"], [85.3], [7.5], [2])
+
+
+def test_a_setting_that_does_not_fit_names_the_one_that_does(tmp_path: Path) -> None:
+    text = "measurement_id,date,kind,duration_h,laeq\nM1,2025-03-04,area,7.5,85.3\n"
+    root = make_programme(tmp_path / "p", {"noise.csv": text}, config={"files": {"noise": {"delimiter": ";"}}})
+    [e] = load(root).findings.errors
+    assert e.format() == ("data/noise.csv:1:: error: the header holds ',' separated names (files.noise.delimiter "
+                          "is \";\"); add files: {noise: {delimiter: \",\"}} to programme.yaml")
+
+
+def test_line_numbers_stay_the_files_own_after_re_separation(tmp_path: Path) -> None:
+    text = ("measurement_id;date;kind;duration_h;laeq\r\n\r\nM1;04.03.2025;area;7,5;85,3\r\n"
+            "M2;05.03.2025;area;8;abc\r\n")
+    cfg = {"files": {"noise": {"delimiter": ";", "decimal": ",", "date_format": "%d.%m.%Y",
+                               "encoding": "latin-1", "columns": {"LAeq": "laeq"}}}}
+    root = make_programme(tmp_path / "p", {"noise.csv": text.replace("laeq", "LAeq").encode("latin-1")},
+                          config=cfg)
+    prog = load(root)
+    [e] = prog.findings.errors
+    assert (e.path, e.row, e.column) == ("data/noise.csv", 4, "LAeq") and "'abc' is not a number" in e.message
+    assert prog.tables["noise"]["_row"].tolist() == [3, 4]

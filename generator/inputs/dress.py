@@ -56,6 +56,8 @@ _WIDE_NAME = re.compile(r"^hl_(\d+)_([lr])$")
 _ISO_DATE = r"^\d{4}-\d{2}-\d{2}"
 _YEAR = r"^\d{4}$"
 _DAY_FIRST = re.compile(r"^(\d{1,2})([./-])(\d{1,2})\2(\d{4}|\d{2})$")
+#: a cell that may be a date in another pattern (searched in a column's joined text)
+_OTHER_DATE = re.compile(r"(?m)^\s*\d{1,2}[./-]\d{1,2}[./-]\d{2,4}\s*$")
 _COMMA_NUMBER = r"^[+-]?(?:\d+,\d*|,\d+)$"
 _THOUSANDS = r"^[+-]?\d{1,3}(?:\.\d{3})+(?:,\d*)?$"
 _BOM16 = (b"\xff\xfe", b"\xfe\xff")
@@ -142,6 +144,8 @@ class Dresser:
         self.files: dict[str, FileDress] = dict(getattr(config, "files", None) or {})
         self.findings = findings
         self.seen: dict[str, _Seen] = {}
+        #: files whose in-cell commas wait as _COMMA_MARK
+        self.marked: set[str] = set()
 
     # -- where ---------------------------------------------------------------------------
 
@@ -248,6 +252,14 @@ class Dresser:
             return raw  # the reader reports NUL bytes
         if delimiter == ",":
             return text.encode("utf-8")
+        if self._other_delimiter(spec, text[:65536], rel, delimiter):
+            return None
+        if '"' not in text and _COMMA_MARK not in text:
+            # no quoted cells: every ',' is inside a cell; it waits as a mark (restored by
+            # standard_grid) so that the reader's quote-free path splits the lines
+            data = text.replace(",", _COMMA_MARK).replace(delimiter, ",").encode("utf-8")
+            self.marked.add(rel)
+            return data
         reader = csv.reader(io.StringIO(text, newline=""), delimiter=delimiter, strict=True)
         out = io.StringIO()
         writer = csv.writer(out, lineterminator="\n")
@@ -258,10 +270,7 @@ class Dresser:
             self.findings.error(rel, reader.line_num or None, None, f"cannot be read as CSV: {exc} "
                                 "(unbalanced quotes?)")
             return None
-        data = out.getvalue().encode("utf-8")
-        if self._other_delimiter(spec, data, rel, delimiter):
-            return None
-        return data
+        return out.getvalue().encode("utf-8")
 
     def _utf8(self, spec: FileSpec, raw: bytes, rel: str) -> bool:
         """Return True when *raw* is UTF-8; else record an error suggesting an encoding."""
@@ -279,11 +288,11 @@ class Dresser:
                                 f"(or {SUGGESTED_ENCODINGS[1]}), or save it as UTF-8", key="not utf-8")
             return False
 
-    def _other_delimiter(self, spec: FileSpec, data: bytes, rel: str, delimiter: str) -> bool:
+    def _other_delimiter(self, spec: FileSpec, data: bytes | str, rel: str, delimiter: str) -> bool:
         """Return True (with an error) when the header is one cell holding names split by another character."""
-        end = data.find(b"\n")
-        first = (data if end < 0 else data[:end]).decode("utf-8", errors="replace").lstrip("\ufeff").rstrip("\r")
-        if "," in first or '"' in first:
+        text = data if isinstance(data, str) else data[:65536].decode("utf-8", errors="replace")
+        first = text.split("\n", 1)[0].lstrip("\ufeff").rstrip("\r")
+        if delimiter in first or '"' in first:
             return False  # more than one cell, or quoted names: read as it is
         for seen, word in ((";", "';'"), ("\t", "tab"), ("|", "'|'"), (",", "','")):
             if seen == delimiter or seen not in first:
@@ -334,6 +343,13 @@ class Dresser:
         kinds = {c.name: c.kind for c in read.columns}
         cells = grid.cells
         changed: dict[int, pd.Series] = {}
+        if grid_path(grid) in self.marked:
+            cells = cells.copy()
+            for i in cells.columns:
+                joined = _joined(cells[i])
+                if _COMMA_MARK in joined:
+                    cells[i] = pd.Series(joined.replace(_COMMA_MARK, ",").split("\n"), index=cells.index,
+                                         dtype=object)
         comma_cols: list[tuple[str, str, int]] = []
         date_cols: list[tuple[str, str, int, str]] = []
         workbook = kind == "xlsx"
@@ -360,10 +376,15 @@ class Dresser:
     def _numbers(self, spec: FileSpec, col: pd.Series, d: FileDress | None, label: str, grid: Any,
                  comma_cols: list[tuple[str, str, int]]) -> pd.Series | None:
         """Rewrite decimal commas as points in one number column (None: nothing to change)."""
+        joined = _joined(col)
+        if "," not in joined and (d is None or d.decimal != "," or "." not in joined):
+            return None  # the usual case, found without a look at each cell
+        if d is not None and d.decimal == "," and "." not in joined:
+            lines = joined.replace(",", ".").split("\n")
+            if len(lines) == len(col):
+                return pd.Series(lines, index=col.index, dtype=object)
         s = col.astype(str).str.strip()
         if d is not None and d.decimal == ",":
-            if not s.str.contains(r"[.,]", regex=True).any():
-                return None
             thousands = s.str.match(_THOUSANDS).to_numpy(dtype=bool)
             dotted = s.str.contains(".", regex=False).to_numpy(dtype=bool) & ~thousands
             if dotted.any():
@@ -380,12 +401,18 @@ class Dresser:
             return None
         first = int(np.flatnonzero(commas)[0])
         comma_cols.append((label, str(s.iloc[first]), int(grid.rows[first])))
-        # read as written with a decimal comma so the one error above stands alone
-        return s.where(~commas, s.str.replace(",", ".", regex=False))
+        return None  # the cells stay unread ("not a number"); the finding names the setting
 
     def _dates(self, spec: FileSpec, col: pd.Series, d: FileDress | None, label: str, grid: Any,
                date_cols: list[tuple[str, str, int, str]], workbook: bool = False) -> pd.Series | None:
         """Rewrite dates written in another pattern as ISO in one date column (None: nothing to change)."""
+        fmt = d.date_format if d is not None else None
+        if fmt is None and not workbook and not _OTHER_DATE.search(_joined(col)):
+            return None  # the usual case, found without a look at each cell
+        if fmt is not None and not workbook:
+            quick = _reorder_dates(col, fmt)
+            if quick is not None:
+                return quick
         s = col.astype(str).str.strip()
         if workbook:
             # a workbook date cell under another column name arrives as an ISO date-time
@@ -394,13 +421,13 @@ class Dresser:
         other = (s.ne("") & ~s.str.match(_ISO_DATE) & ~s.str.match(_YEAR)).to_numpy(dtype=bool)
         if not other.any():
             return unchanged
-        fmt = d.date_format if d is not None else None
         if fmt is None:
             fmt = sniff_date_format(s[other].tolist())
             if fmt is None:
                 return unchanged
             first = int(np.flatnonzero(other)[0])
             date_cols.append((label, str(s.iloc[first]), int(grid.rows[first]), fmt))
+            return unchanged  # the cells stay unread ("not a date"); the finding names the setting
         parsed = pd.to_datetime(s.where(other, ""), format=fmt, errors="coerce")
         ok = parsed.notna().to_numpy() & other
         if not ok.any():
@@ -502,6 +529,51 @@ class Dresser:
         if not pairs:
             return ""
         return f"; some may be known columns under other names: {suggestion(seen.name, 'columns', pairs)}"
+
+
+#: stands for a comma inside a cell while a re-separated CSV passes the reader's splitting
+_COMMA_MARK = "\x1f"
+_SIMPLE_FORMAT = re.compile(r"^%([dmY])([^%\w])%([dmY])\2%([dmY])$")
+_NOT_ISO_LINE = re.compile(r"(?m)^(?![ \t]*$)(?![ \t]*\d{4}-\d{2}-\d{2}[ \t]*$)(?![ \t]*\d{4}[ \t]*$).+$")
+
+
+def _reorder_dates(col: pd.Series, fmt: str) -> pd.Series | None:
+    """Return a date column in a fixed-width pattern such as %d.%m.%Y rewritten as ISO, or None.
+
+    One regular-expression pass over the column's text; a rewritten date that is not a
+    calendar date keeps the file's text (so its finding quotes it); None when some cell
+    needs the general path.
+    """
+    m = _SIMPLE_FORMAT.match(fmt)
+    if not m or sorted((m.group(1), m.group(3), m.group(4))) != ["Y", "d", "m"]:
+        return None
+    order = (m.group(1), m.group(3), m.group(4))
+    sep = re.escape(m.group(2))
+    width = {"d": r"(\d{2})", "m": r"(\d{2})", "Y": r"(\d{4})"}
+    pattern = re.compile(r"(?m)^[ \t]*" + sep.join(width[p] for p in order) + r"[ \t]*$")
+    group = {p: i + 1 for i, p in enumerate(order)}
+    joined = _joined(col)
+    new = pattern.sub(rf"\{group['Y']}-\{group['m']}-\{group['d']}", joined)
+    if _NOT_ISO_LINE.search(new):
+        return None
+    lines = new.split("\n")
+    if len(lines) != len(col):
+        return None
+    out = pd.Series(lines, index=col.index, dtype=object)
+    changed = (out != col).to_numpy(dtype=bool)
+    if changed.any():
+        bad = changed & pd.to_datetime(out.where(changed, ""), format="%Y-%m-%d", errors="coerce").isna().to_numpy()
+        if bad.any():
+            out = out.where(~bad, col)
+    return out
+
+
+def _joined(col: pd.Series) -> str:
+    """Return the cells of a column joined by line breaks (one C-speed text to search)."""
+    try:
+        return "\n".join(col.tolist())
+    except TypeError:
+        return "\n".join(map(str, col.tolist()))
 
 
 def grid_path(grid: Any) -> str:
