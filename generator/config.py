@@ -343,8 +343,8 @@ def _load_files(data: Any, node: yaml.Node | None, where: str, path: str,
         kl, kc = _pos(k_node)
         key = str(name)
         if key not in DATA_FILES:
-            findings.error(path, kl, f"{where}.{key}", f"'{key}' is not a data file{closest(key, DATA_FILES)}; "
-                           f"known: {', '.join(DATA_FILES)}")
+            findings.warning(path, kl, f"{where}.{key}", f"'{key}' is not a data file{closest(key, DATA_FILES)}; "
+                             f"the entry is ignored; known: {', '.join(DATA_FILES)}")
             continue
         dress = _load_dress(key, data[name], v_node, f"{where}.{key}", path, findings)
         if dress is None:
@@ -379,8 +379,8 @@ def _load_dress(name: str, data: Any, node: yaml.Node | None, where: str, path: 
     for key in data:
         if str(key) not in known:
             k_node, _ = _node_at(node, str(key))
-            findings.error(path, _pos(k_node)[0], f"{where}.{key}", f"unknown setting '{key}'"
-                           f"{closest(str(key), known)}; known: {', '.join(known)}")
+            findings.warning(path, _pos(k_node)[0], f"{where}.{key}", f"unknown setting '{key}'"
+                             f"{closest(str(key), known)} is ignored; known: {', '.join(known)}")
     for f in fields:
         if f.name not in data:
             continue
@@ -428,10 +428,6 @@ def _load_dress(name: str, data: Any, node: yaml.Node | None, where: str, path: 
             findings.error(path, vl, at, f"'{text}' {problem}")
             continue
         setattr(dress, f.name, text)
-    if dress.delimiter == "," and dress.decimal == "," and "decimal" in dress.where:
-        findings.error(path, dress.where["decimal"][0], f"{where}.decimal",
-                       "the decimal mark ',' is also the delimiter; a CSV with decimal commas separates its "
-                       "cells with another character (add delimiter: \";\")")
     return dress
 
 

@@ -299,7 +299,8 @@ NOISE_EU = ("measurement_id;date;kind;duration_h;laeq\n"
             "M2;2025-03-05;area;8;90\n")
 
 
-@pytest.mark.parametrize("case", ["semicolon", "tab", "decimal", "day-first", "slashes", "cp1252", "renamed"])
+@pytest.mark.parametrize("case", ["semicolon", "tab", "decimal", "day-first", "slashes", "cp1252", "renamed",
+                                  "european"])
 def test_each_refused_dress_names_the_setting_that_reads_it(tmp_path: Path, case: str) -> None:
     files: dict[str, Any] = {}
     config: dict[str, Any] = {}
@@ -323,6 +324,9 @@ def test_each_refused_dress_names_the_setting_that_reads_it(tmp_path: Path, case
     elif case == "cp1252":
         files["training.csv"] = "person_id,date,topic\nE001,2025-02-01,Gehörschutz\n".encode("cp1252")
         expect = {"training": {"encoding": "cp1252"}}
+    elif case == "european":
+        files["noise.csv"] = NOISE_EU.replace("2025-03-04", "04.03.2025")
+        expect = {"noise": {"delimiter": ";", "decimal": ",", "date_format": "%d.%m.%Y"}}
     else:
         files["training.csv"] = "Person ID,Training date,Topic\nE001,2025-02-01,annual\n"
         expect = {"training": {"columns": {"Person ID": "person_id", "Training date": "date"}}}
@@ -342,6 +346,9 @@ def test_each_refused_dress_names_the_setting_that_reads_it(tmp_path: Path, case
                     else:
                         suggested.setdefault(name, {})[k] = v
     assert suggested == expect, [e.format() for e in errors]
+    if case in ("cp1252", "semicolon", "tab", "european"):  # one finding for the file's dress
+        [e] = errors
+        assert e.path == "data/" + next(iter(files)) and e.row in (1, 2)
     first = min(errors, key=lambda f: (f.row or 0))
     assert first.path.startswith("data/") and first.row in (1, 2, 3)
     # the suggested setting reads the file
@@ -351,10 +358,25 @@ def test_each_refused_dress_names_the_setting_that_reads_it(tmp_path: Path, case
 
 
 def test_semicolon_header_message(tmp_path: Path) -> None:
-    root = make_programme(tmp_path / "p", {"noise.csv": NOISE_EU})
+    root = make_programme(tmp_path / "p", {"noise.csv": NOISE_EU.replace("7,5", "7.5").replace("85,3", "85.3")})
     [e] = load(root).findings.errors
     assert e.format() == ('data/noise.csv:1:: error: the header holds \';\' separated names; '
                           'add files: {noise: {delimiter: ";"}} to programme.yaml')
+
+
+def test_one_finding_names_every_setting_a_refused_file_needs(tmp_path: Path) -> None:
+    text = "person_id;date;topic\r\nE001;31.01.2025;Gehörschutz\r\nE002;01.02.2025;Lärm, 8,5 h\r\n"
+    root = make_programme(tmp_path / "p", {"training.csv": text.encode("cp1252")})
+    [e] = load(root).findings.errors
+    assert e.format() == (
+        "data/training.csv:2:: error: byte 0xf6 on line 2 is not UTF-8 (in cp1252 it is 'ö'), the header "
+        "holds ';' separated names and dates are written day first ('31.01.2025' on line 2); add files: "
+        '{training: {encoding: cp1252, delimiter: ";", date_format: "%d.%m.%Y"}} to programme.yaml '
+        "(or encoding: latin-1), or save the file as UTF-8")
+    _apply(root, _suggested(e.message))
+    prog = load(root)
+    assert not prog.findings.errors, prog.findings.lines()
+    assert prog.tables["training"]["topic"].tolist() == ["Gehörschutz", "Lärm, 8,5 h"]
 
 
 def test_missing_columns_list_the_files_columns_and_closest(tmp_path: Path) -> None:
@@ -419,11 +441,10 @@ def _config_errors(tmp_path: Path, files: Any) -> list[str]:
     ({"audiograms": {"path": "../outside.csv"}}, "files.audiograms.path: error: '../outside.csv' leaves the "
                                                  "programme folder"),
     ({"audiograms": {"path": "C:\\exports\\a.csv"}}, "is an absolute path"),
-    ({"audiogram": {"delimiter": ";"}}, "files.audiogram: error: 'audiogram' is not a data file (did you "
-                                        "mean 'audiograms'?)"),
+    ({"audiogram": {"delimiter": ";"}}, "files.audiogram: warning: 'audiogram' is not a data file (did you "
+                                        "mean 'audiograms'?); the entry is ignored"),
     ({"noise": {"delimiter": ";;"}}, "files.noise.delimiter: error: ';;' must be one character"),
     ({"noise": {"decimal": ";"}}, "files.noise.decimal: error: ';' must be '.' or ','"),
-    ({"noise": {"decimal": ","}}, "files.noise.decimal: error: the decimal mark ',' is also the delimiter"),
     ({"noise": {"encoding": "cp1525"}}, "files.noise.encoding: error: 'cp1525' is not a known text encoding "
                                         "(did you mean 'cp1252'?)"),
     ({"noise": {"encoding": "base64"}}, "is not a known text encoding"),
@@ -431,7 +452,8 @@ def _config_errors(tmp_path: Path, files: Any) -> list[str]:
     ({"noise": {"date_format": "DD.MM.YYYY"}}, "has no % directive"),
     ({"noise": {"columns": {"Level": "leq"}}}, "files.noise.columns: error: 'leq' is not a column of noise"),
     ({"noise": {"columns": {"A": "laeq", "B": "laeq"}}}, "both 'A' and 'B' are mapped to 'laeq'"),
-    ({"noise": {"colums": {}}}, "unknown setting 'colums' (did you mean 'columns'?)"),
+    ({"noise": {"colums": {}}}, "files.noise.colums: warning: unknown setting 'colums' (did you mean "
+                                "'columns'?) is ignored"),
     ({"noise": {"path": "x.csv"}, "tasks": {"path": "X.csv"}}, "'X.csv' is also the path of files.noise"),
     ("audiograms", "files: error: expected a mapping"),
 ])
@@ -575,3 +597,19 @@ def test_line_numbers_stay_the_files_own_after_re_separation(tmp_path: Path) -> 
     [e] = prog.findings.errors
     assert (e.path, e.row, e.column) == ("data/noise.csv", 4, "LAeq") and "'abc' is not a number" in e.message
     assert prog.tables["noise"]["_row"].tolist() == [3, 4]
+
+
+def test_a_wide_export_under_its_own_names_gets_a_mapping_to_paste(tmp_path: Path) -> None:
+    text = "Worker ID,Test date,Left 500 Hz,Right 500 Hz,L4k,R4k\nE001,2025-02-01,10,15,30,NR\n"
+    root = make_programme(tmp_path / "p", {"audiograms.csv": text})
+    prog = load(root)
+    errs = {f.column: f.message for f in prog.findings.errors}
+    assert set(errs) == {"person_id", "date", "ear"}, errs
+    assert '"Left 500 Hz": hl_500_l' in errs["ear"] and "L4k: hl_4000_l" in errs["ear"]
+    [w] = [f for f in prog.findings.warnings if f.key == "unknown columns"]
+    _apply(root, _suggested(w.message))
+    prog = load(root)
+    assert not prog.findings.errors, prog.findings.lines()
+    aud = prog.tables["audiograms"]
+    assert aud["ear"].tolist() == ["L", "R"] and aud["hl_4000"].tolist()[0] == 30.0
+    assert aud["hl_500"].tolist() == [10.0, 15.0] and bool(aud["nr_4000"].iloc[1])

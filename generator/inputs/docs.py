@@ -173,6 +173,7 @@ def files_section() -> str:
         "* `columns` maps the file's column names (matched without regard to case or surrounding",
         "  spaces) onto hcpsite's. Findings still name the file, its line and the file's own",
         "  column name.",
+        "* The noise logs (`data/noise_logs/ID.csv`) are always read in hcpsite's own dress.",
         "",
         "### Wide audiograms",
         "",
@@ -203,8 +204,12 @@ def files_section() -> str:
         "  that reads them (month first, `%m/%d/%Y`, only when a middle part exceeds 12);",
         "* a missing required column lists the file's columns (the first "
         + f"{LISTED_COLUMNS}) and the closest ones,",
-        "  with the `columns:` entry that would map them; an unknown column that looks like a",
-        "  known one under another name gets the same hint.",
+        "  with the `columns:` entry that would map them; unknown columns that look like known",
+        "  ones under other names (such as `Left 500 Hz` for `hl_500_l`) get the same hint.",
+        "",
+        "When a file is refused for its encoding or its delimiter, its first lines are also",
+        "looked at for decimal commas and other date patterns, so one finding names every",
+        "setting the file needs.",
         "",
     ]
     return "\n".join(lines)

@@ -35,7 +35,7 @@ import pandas as pd
 
 from ..config import CONFIG_FILE, UTF8_NAMES, Config, FileDress
 from ..findings import ERROR, WARNING, Finding, Findings
-from .spec import AUDIO_FREQS, WIDE_EARS, FileSpec, wide_audiograms
+from .spec import AUDIO_FREQS, WIDE_EARS, WIDE_HL_COLUMNS, FileSpec, wide_audiograms
 
 #: Kinds of declared columns whose cells are numbers (the decimal mark applies).
 NUMBER_KINDS = ("float", "int", "level", "hours", "hl")
@@ -74,9 +74,29 @@ def _squash(label: str) -> str:
 
 
 def _tokens(label: str) -> list[str]:
-    """Return the words of a label (split at non-alphanumerics and lower-to-upper case changes)."""
+    """Return the words of a label (split at non-alphanumerics, case changes, letters and digits)."""
     spaced = re.sub(r"([a-z])([A-Z])", r"\1 \2", str(label))
+    spaced = re.sub(r"(\d)([A-Za-z])", r"\1 \2", re.sub(r"([A-Za-z])(\d)", r"\1 \2", spaced))
     return [t for t in re.split(r"[^a-z0-9]+", spaced.lower()) if t]
+
+
+#: words for an ear in a column name of a wide audiogram export
+EAR_WORDS = {"l": "l", "left": "l", "r": "r", "right": "r"}
+
+
+def _ear_frequency(label: str) -> str | None:
+    """Return hl_<f>_<ear> for a label such as 'Left 500 Hz', 'R4k' or 'L_1000', or None."""
+    toks = _tokens(label)
+    ears = {EAR_WORDS[t] for t in toks if t in EAR_WORDS}
+    freqs = set()
+    for i, t in enumerate(toks):
+        if t.isdigit():
+            f = int(t) * (1000 if i + 1 < len(toks) and toks[i + 1] in ("k", "khz") else 1)
+            if f in AUDIO_FREQS:
+                freqs.add(f)
+    if len(ears) == 1 and len(freqs) == 1:
+        return f"hl_{freqs.pop()}_{ears.pop()}"
+    return None
 
 
 def _flow(value: Any) -> str:
@@ -89,13 +109,76 @@ def _flow(value: Any) -> str:
     return '"' + text.replace("\\", "\\\\").replace('"', '\\"') + '"'
 
 
-def suggestion(name: str, setting: str, value: Any) -> str:
-    """Return 'add files: {NAME: {SETTING: VALUE}} to programme.yaml' with VALUE in YAML flow style."""
-    if isinstance(value, dict):
-        inner = "{" + ", ".join(f"{_flow(k)}: {_flow(v)}" for k, v in value.items()) + "}"
-    else:
-        inner = _flow(value)
-    return f"add files: {{{name}: {{{setting}: {inner}}}}} to {CONFIG_FILE}"
+def suggestion(name: str, setting: str | dict[str, Any], value: Any = None) -> str:
+    """Return 'add files: {NAME: {SETTING: VALUE}} to programme.yaml' in YAML flow style.
+
+    *setting* may be a mapping of several settings (then *value* is not given).
+    """
+    def flow(v: Any) -> str:
+        if isinstance(v, dict):
+            return "{" + ", ".join(f"{_flow(k)}: {_flow(x)}" for k, x in v.items()) + "}"
+        return _flow(v)
+
+    pairs = setting if isinstance(setting, dict) else {setting: value}
+    inner = ", ".join(f"{k}: {flow(v)}" for k, v in pairs.items())
+    return f"add files: {{{name}: {{{inner}}}}} to {CONFIG_FILE}"
+
+
+def _not_utf8(raw: bytes) -> tuple[int, int, str] | None:
+    """Return (byte, line, the byte in cp1252) of the first byte that is not UTF-8, or None."""
+    if raw.isascii():
+        return None
+    try:
+        raw.decode("utf-8")
+        return None
+    except UnicodeDecodeError as exc:
+        line = raw[:exc.start].count(b"\n") + 1
+        return raw[exc.start], line, raw[exc.start:exc.start + 1].decode("cp1252", errors="replace")
+
+
+def _header_delimiter(head: str, delimiter: str) -> tuple[str, str] | None:
+    """Return (character, word) when the header is one cell of names split by another character."""
+    first = head.split("\n", 1)[0].lstrip("\ufeff").rstrip("\r")
+    if delimiter in first or '"' in first:
+        return None  # more than one cell, or quoted names: read as it is
+    for seen, word in ((";", "';'"), ("\t", "tab"), ("|", "'|'"), (",", "','")):
+        if seen != delimiter and seen in first and len([n for n in first.split(seen) if n.strip()]) >= 2:
+            return seen, word
+    return None
+
+
+#: lines of a refused file looked at for decimal commas and date patterns
+SNIFFED_LINES = 2000
+
+
+def _sniff_cells(head: str, delimiter: str) -> list[tuple[str, str, str]]:
+    """Return (setting, value, what was seen) for decimal commas and other date patterns in cells."""
+    reader = csv.reader(io.StringIO(head, newline=""), delimiter=delimiter)
+    comma: tuple[str, int] | None = None
+    dates: list[str] = []
+    first_date: tuple[str, int] | None = None
+    try:
+        next(reader, None)
+        for record in reader:
+            if reader.line_num > SNIFFED_LINES:
+                break
+            for cell in record:
+                v = cell.strip()
+                if comma is None and delimiter != "," and re.match(_COMMA_NUMBER, v):
+                    comma = (v, reader.line_num)
+                if _DAY_FIRST.match(v):
+                    dates.append(v)
+                    first_date = first_date or (v, reader.line_num)
+    except csv.Error:
+        pass
+    out: list[tuple[str, str, str]] = []
+    if comma is not None:
+        out.append(("decimal", ",", f"numbers have decimal commas ('{comma[0]}' on line {comma[1]})"))
+    fmt = sniff_date_format(dates) if dates else None
+    if fmt is not None and first_date is not None:
+        order = "day first" if fmt.startswith("%d") else "month first"
+        out.append(("date_format", fmt, f"dates are written {order} ('{first_date[0]}' on line {first_date[1]})"))
+    return out
 
 
 def likely_columns(label: str, candidates: tuple[str, ...] | list[str]) -> list[str]:
@@ -114,6 +197,9 @@ def likely_columns(label: str, candidates: tuple[str, ...] | list[str]) -> list[
         c = SYNONYMS.get(t)
         if c and c in candidates and c not in out:
             out.append(c)
+    wide = _ear_frequency(label)
+    if wide and wide in candidates and wide not in out:
+        out.insert(0, wide)
     squashed = {_squash(c): c for c in candidates}
     for hit in difflib.get_close_matches(sq, list(squashed), n=2, cutoff=0.75):
         if squashed[hit] not in out:
@@ -234,9 +320,11 @@ class Dresser:
         delimiter = d.delimiter if d is not None else ","
         utf8 = encoding.lower() in UTF8_NAMES
         if utf8 and delimiter == ",":
-            if raw.startswith(_BOM16) or not self._utf8(spec, raw, rel):
-                return raw  # the reader reports UTF-16; _utf8 reported other bytes
-            if self._other_delimiter(spec, raw, rel, ","):
+            if raw.startswith(_BOM16):
+                return raw  # the reader reports UTF-16
+            bad = _not_utf8(raw)
+            head = raw[:65536].decode("cp1252" if bad else "utf-8", errors="replace")
+            if self._refuse(spec, rel, head, ",", bad):
                 return None
             return raw
         try:
@@ -249,10 +337,12 @@ class Dresser:
                                 f"decoded ({where}); check the file's encoding")
             return None
         if "\x00" in text:
-            return raw  # the reader reports NUL bytes
+            line = text[:text.index("\x00")].count("\n") + 1
+            self.findings.error(rel, line, None, "contains NUL bytes: not a text file")
+            return None
         if delimiter == ",":
             return text.encode("utf-8")
-        if self._other_delimiter(spec, text[:65536], rel, delimiter):
+        if self._refuse(spec, rel, text[:65536], delimiter, None):
             return None
         if '"' not in text and _COMMA_MARK not in text:
             # no quoted cells: every ',' is inside a cell; it waits as a mark (restored by
@@ -272,39 +362,41 @@ class Dresser:
             return None
         return out.getvalue().encode("utf-8")
 
-    def _utf8(self, spec: FileSpec, raw: bytes, rel: str) -> bool:
-        """Return True when *raw* is UTF-8; else record an error suggesting an encoding."""
-        if raw.isascii():
-            return True
-        try:
-            raw.decode("utf-8")
-            return True
-        except UnicodeDecodeError as exc:
-            line = raw[:exc.start].count(b"\n") + 1
-            shown = raw[exc.start:exc.start + 1].decode("cp1252", errors="replace")
-            self.findings.error(rel, line, None, f"byte 0x{raw[exc.start]:02x} on line {line} is not UTF-8 "
-                                f"(in cp1252 it is '{shown}'): the file looks saved in a Windows or ISO "
-                                f"code page; {suggestion(spec.name, 'encoding', SUGGESTED_ENCODINGS[0])} "
-                                f"(or {SUGGESTED_ENCODINGS[1]}), or save it as UTF-8", key="not utf-8")
-            return False
+    def _refuse(self, spec: FileSpec, rel: str, head: str, delimiter: str,
+                bad_byte: tuple[int, int, str] | None) -> bool:
+        """Return True after one error when the start of a CSV shows another dress.
 
-    def _other_delimiter(self, spec: FileSpec, data: bytes | str, rel: str, delimiter: str) -> bool:
-        """Return True (with an error) when the header is one cell holding names split by another character."""
-        text = data if isinstance(data, str) else data[:65536].decode("utf-8", errors="replace")
-        first = text.split("\n", 1)[0].lstrip("\ufeff").rstrip("\r")
-        if delimiter in first or '"' in first:
-            return False  # more than one cell, or quoted names: read as it is
-        for seen, word in ((";", "';'"), ("\t", "tab"), ("|", "'|'"), (",", "','")):
-            if seen == delimiter or seen not in first:
-                continue
-            names = [n for n in first.split(seen) if n.strip()]
-            if len(names) < 2:
-                continue
+        *bad_byte* is (byte, line, character in cp1252) of the first byte that is not UTF-8.
+        A header that is one cell of names split by another character, or bytes that are not
+        UTF-8, refuse the file; the cells are then looked at for decimal commas and other
+        date patterns too, so that one finding names every setting the file needs.
+        """
+        settings: dict[str, str] = {}
+        seen: list[str] = []
+        line = 1
+        if bad_byte is not None:
+            byte, line, char = bad_byte
+            settings["encoding"] = SUGGESTED_ENCODINGS[0]
+            seen.append(f"byte 0x{byte:02x} on line {line} is not UTF-8 (in cp1252 it is '{char}')")
+        split = delimiter
+        other = _header_delimiter(head, delimiter)
+        if other is not None:
+            split, word = other
+            settings["delimiter"] = split
             have = f" (files.{spec.name}.delimiter is {_flow(delimiter)})" if delimiter != "," else ""
-            self.findings.error(rel, 1, None, f"the header holds {word} separated names{have}; "
-                                f"{suggestion(spec.name, 'delimiter', seen)}", key="other delimiter")
-            return True
-        return False
+            seen.append(f"the header holds {word} separated names{have}")
+        if not settings:
+            return False
+        for setting, value, what in _sniff_cells(head, split):
+            if setting not in settings:
+                settings[setting] = value
+                seen.append(what)
+        text = ", ".join(seen[:-1]) + " and " + seen[-1] if len(seen) > 1 else seen[0]
+        hint = f"{suggestion(spec.name, settings)}"
+        if "encoding" in settings:
+            hint += f" (or encoding: {SUGGESTED_ENCODINGS[1]}), or save the file as UTF-8"
+        self.findings.error(rel, line, None, f"{text}; {hint}", key="other dress")
+        return True
 
     # -- cells ---------------------------------------------------------------------------
 
@@ -334,7 +426,7 @@ class Dresser:
         lowered = [_norm(n) for n in names]
         wide = spec.name == "audiograms" and "ear" not in lowered and any(_WIDE_NAME.match(n) for n in lowered)
         read = wide_audiograms() if wide else spec
-        known = tuple(c.name for c in spec.columns) + (tuple(c.name for c in read.columns) if wide else ())
+        known = tuple(c.name for c in spec.columns) + (WIDE_HL_COLUMNS if spec.name == "audiograms" else ())
         if wide:
             for n, label in zip(lowered, header):
                 if _WIDE_NAME.match(n) and n not in own:
@@ -512,6 +604,9 @@ class Dresser:
             text += f"; closest: {', '.join(repr(h) for h in near[:2])} ({suggestion(seen.name, 'columns', {near[0]: column})})"
         elif seen.name == "audiograms" and column == "ear":
             text += "; a file with both ears on one row names its levels hl_<f>_l and hl_<f>_r"
+            pairs = {h: _ear_frequency(h) for h in labels if _norm(h) not in mapped and _ear_frequency(h)}
+            if len(set(pairs.values())) == len(pairs) >= 2:
+                text += f" ({suggestion(seen.name, 'columns', pairs)})"
         return text
 
     def _unknown_hint(self, seen: _Seen) -> str:
