@@ -613,3 +613,16 @@ def test_a_wide_export_under_its_own_names_gets_a_mapping_to_paste(tmp_path: Pat
     aud = prog.tables["audiograms"]
     assert aud["ear"].tolist() == ["L", "R"] and aud["hl_4000"].tolist()[0] == 30.0
     assert aud["hl_500"].tolist() == [10.0, 15.0] and bool(aud["nr_4000"].iloc[1])
+
+
+def test_a_workbook_keeps_its_number_cells_under_a_decimal_comma(tmp_path: Path) -> None:
+    openpyxl = pytest.importorskip("openpyxl")
+    book = openpyxl.Workbook()
+    book.active.append(["measurement_id", "date", "kind", "duration_h", "laeq", "osha_dose_pct"])
+    book.active.append(["M1", "04.03.2025", "area", 7.5, "85,3", 1.234])
+    root = make_programme(tmp_path / "p", config={"files": {"noise": {"decimal": ",", "date_format": "%d.%m.%Y"}}})
+    book.save(root / "data" / "noise.xlsx")
+    prog = load(root)
+    assert not prog.findings.errors, prog.findings.lines()
+    n = prog.tables["noise"]
+    assert (n["duration_h"].iloc[0], n["laeq"].iloc[0], n["osha_dose_pct"].iloc[0]) == (7.5, 85.3, 1.234)

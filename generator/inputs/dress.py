@@ -451,7 +451,7 @@ class Dresser:
                 continue
             label = own.get(n, header[i])
             if kind in NUMBER_KINDS:
-                s = self._numbers(spec, cells[i], d, label, grid, comma_cols)
+                s = self._numbers(spec, cells[i], d, label, grid, comma_cols, workbook)
             elif kind in DATE_KINDS:
                 s = self._dates(spec, cells[i], d, label, grid, date_cols, workbook)
             else:
@@ -466,9 +466,19 @@ class Dresser:
         return dataclasses.replace(grid, header=names, cells=cells), read
 
     def _numbers(self, spec: FileSpec, col: pd.Series, d: FileDress | None, label: str, grid: Any,
-                 comma_cols: list[tuple[str, str, int]]) -> pd.Series | None:
-        """Rewrite decimal commas as points in one number column (None: nothing to change)."""
+                 comma_cols: list[tuple[str, str, int]], workbook: bool = False) -> pd.Series | None:
+        """Rewrite decimal commas as points in one number column (None: nothing to change).
+
+        In a workbook only text cells can hold a decimal comma: a number cell arrives
+        written with a point and is kept as it is.
+        """
         joined = _joined(col)
+        if workbook and d is not None and d.decimal == ",":
+            if "," not in joined:
+                return None
+            s = col.astype(str).str.strip()
+            commas = s.str.match(_COMMA_NUMBER).to_numpy(dtype=bool)
+            return s.where(~commas, s.str.replace(",", ".", regex=False))
         if "," not in joined and (d is None or d.decimal != "," or "." not in joined):
             return None  # the usual case, found without a look at each cell
         if d is not None and d.decimal == "," and "." not in joined:
