@@ -139,7 +139,8 @@ def files_section() -> str:
         "| --- | --- | --- |",
     ]
     for f in fields:
-        default = f.default if f.default is not dataclasses.MISSING else f.default_factory()  # type: ignore[misc]
+        default = f.default if f.default is not dataclasses.MISSING else (
+            f.default_factory() if f.default_factory is not dataclasses.MISSING else None)
         doc = f.metadata.get("doc", "")
         if f.metadata.get("choices"):
             doc += " (one of: " + ", ".join(f"`{c}`" for c in f.metadata["choices"]) + ")"

@@ -194,9 +194,9 @@ def likely_columns(label: str, candidates: tuple[str, ...] | list[str]) -> list[
         if c not in out and len(sq) >= 3 and all(p in toks for p in parts) and parts != ["id"]:
             out.append(c)
     for t in toks:
-        c = SYNONYMS.get(t)
-        if c and c in candidates and c not in out:
-            out.append(c)
+        syn = SYNONYMS.get(t)
+        if syn and syn in candidates and syn not in out:
+            out.append(syn)
     wide = _ear_frequency(label)
     if wide and wide in candidates and wide not in out:
         out.insert(0, wide)
@@ -446,13 +446,13 @@ class Dresser:
         date_cols: list[tuple[str, str, int, str]] = []
         workbook = kind == "xlsx"
         for i, n in enumerate(lowered):
-            kind = kinds.get(n)
-            if kind is None or i not in cells.columns:
+            col_kind = kinds.get(n)
+            if col_kind is None or i not in cells.columns:
                 continue
             label = own.get(n, header[i])
-            if kind in NUMBER_KINDS:
+            if col_kind in NUMBER_KINDS:
                 s = self._numbers(spec, cells[i], d, label, grid, comma_cols, workbook)
-            elif kind in DATE_KINDS:
+            elif col_kind in DATE_KINDS:
                 s = self._dates(spec, cells[i], d, label, grid, date_cols, workbook)
             else:
                 continue
