@@ -527,6 +527,10 @@ def test_a_workbook_sheet_is_chosen_by_name(tmp_path: Path) -> None:
     aud = prog.tables["audiograms"]
     assert aud["ear"].tolist() == ["L", "R"] and aud["hl_4000"].iloc[0] == 20 and bool(aud["nr_4000"].iloc[1])
     cfg = yaml.safe_load((root / CONFIG_FILE).read_text(encoding="utf-8"))
+    cfg["files"]["audiograms"]["encoding"] = "cp1252"
+    (root / CONFIG_FILE).write_text(yaml.safe_dump(cfg), encoding="utf-8")
+    [w] = load(root).findings.warnings
+    assert (w.path, w.column) == (CONFIG_FILE, "files.audiograms.encoding") and "workbook" in w.message
     cfg["files"]["audiograms"]["sheet"] = "Results"
     (root / CONFIG_FILE).write_text(yaml.safe_dump(cfg), encoding="utf-8")
     [e] = load(root).findings.errors

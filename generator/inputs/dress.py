@@ -273,6 +273,11 @@ class Dresser:
                 self.findings.warning(other, None, None, f"not read: {opt} names '{d.path}' instead",
                                       key="replaced data file")
         kind = "xlsx" if d.path.lower().endswith(".xlsx") else "csv"
+        for key in ("encoding", "delimiter"):
+            if kind == "xlsx" and key in d.where:
+                kl, kopt = self._at(spec.name, key)
+                self.findings.warning(CONFIG_FILE, kl, kopt, f"{key} is for CSV files; '{d.path}' is a workbook, "
+                                      "the setting is ignored")
         if d.sheet is not None and kind == "csv":
             sl, sopt = self._at(spec.name, "sheet")
             self.findings.warning(CONFIG_FILE, sl, sopt, f"sheet is for workbooks; '{d.path}' is read as a "
