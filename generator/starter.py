@@ -143,8 +143,31 @@ STARTER_VALUES: dict[str, Any] = {
 COMMENTED_EXAMPLES: dict[str, Any] = {"hours_worked": 412000}
 
 
+#: the files: section of the starter, commented out: a worked example of a European export.
+FILES_EXAMPLE = """
+# Without an entry a file is read from data/NAME.csv (or .xlsx) as UTF-8 with commas,
+# decimal points, YYYY-MM-DD dates and hcpsite's column names. Remove the '# ' to use:
+# files:
+#   audiograms:
+#     path: "exports/Hearing tests 2025.csv"   # inside the programme folder
+#     delimiter: ";"                           # default ","
+#     decimal: ","                             # default "."
+#     encoding: cp1252                         # default utf-8, with or without BOM
+#     date_format: "%d.%m.%Y"                  # default YYYY-MM-DD
+#     columns:                                 # the file's column name -> hcpsite's
+#       "Employee No": person_id
+#       "Test date": date
+#       "Left 4000 Hz": hl_4000_l              # both ears on one row: hl_<f>_l, hl_<f>_r
+#       "Right 4000 Hz": hl_4000_r
+#   people:
+#     sheet: "Staff"                           # for data/people.xlsx: the sheet to read
+#     columns: {"Employee No": person_id, "Exposure group": group}
+"""
+
+
 def programme_yaml() -> str:
     """Return programme.yaml with every option, its documentation as a comment and its default."""
+    files_doc = ""
     lines = ["# programme.yaml: settings of one hearing-conservation programme review.",
              "# Every option is listed with its documentation and its default value;",
              "# change what differs for your programme. Run 'hcpsite check .' after editing.",
@@ -152,6 +175,9 @@ def programme_yaml() -> str:
              f"# measurement goes in {NOISE_LOG.path} (ID = its measurement_id) with the columns",
              f"# {', '.join(c.name for c in NOISE_LOG.columns)}, fixed intervals, covering the whole run.", ""]
     for name, kind, default, doc in iter_options(Config):
+        if name == "files":
+            files_doc = doc
+            continue  # written commented out at the end (FILES_EXAMPLE)
         depth = name.count(".")
         indent = "  " * depth
         key = name.rsplit(".", 1)[-1]
@@ -171,7 +197,7 @@ def programme_yaml() -> str:
             lines.append(f"{indent}{key}: {_yaml_value(value)}")
         if depth == 0:
             lines.append("")
-    return "\n".join(lines).rstrip() + "\n"
+    return "\n".join(lines).rstrip() + "\n\n# " + files_doc + FILES_EXAMPLE
 
 
 def starter_files() -> dict[str, str]:

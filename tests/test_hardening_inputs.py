@@ -403,10 +403,10 @@ def test_bad_byte_after_a_byte_order_mark_is_located(tmp_path: Path) -> None:
     root = make_programme(tmp_path / "p", {"people.csv": raw})
     found = findings_of(root)
     assert has(found, "data/people.csv", 2, None, ERROR,
-               "byte 0xe9 on line 2 (byte 1 of the line, 20 of the file)"), show(found)
+               "byte 0xe9 on line 2 (byte 1 of the line, 20 of the file;"), show(found)
     root = make_programme(tmp_path / "q", {"people.csv": b"person_id,group\nE1,G1\nE2,\xe9\n"})
     found = findings_of(root)
-    assert has(found, "data/people.csv", 3, None, ERROR, "byte 0xe9 on line 3 (byte 4 of the line, 26 of the file)"), \
+    assert has(found, "data/people.csv", 3, None, ERROR, "byte 0xe9 on line 3 (byte 4 of the line, 26 of the file;"), \
         show(found)
 
 

@@ -111,7 +111,7 @@ CASES: list[Case] = [
          (P, 2, None, ERROR, "byte 0xeb on line 2"), cli=True),
     # EF BB BF is the UTF-8 byte-order mark (Unicode Standard ch. 23.8); the bad byte is counted in the file
     Case("bom-then-latin-1", {"people.csv": b"\xef\xbb\xbfperson_id,group\n\xe9E,G1\n"},
-         (P, 2, None, ERROR, "byte 0xe9 on line 2 (byte 1 of the line, 20 of the file)"), cli=True),
+         (P, 2, None, ERROR, "byte 0xe9 on line 2 (byte 1 of the line, 20 of the file;"), cli=True),
     Case("cp1252-quotes", {"training.csv": TRAINING_HEAD.encode() + "E001,2025-01-01,“fit”\n".encode("cp1252")},
          (T, 2, None, ERROR, "byte 0x93")),
     # UTF-16 with its byte-order mark FF FE (Unicode Standard ch. 23.8)

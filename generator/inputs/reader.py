@@ -32,6 +32,7 @@ from ..findings import ERROR, WARNING, Findings
 from ..inputfile import InputFileError, read_regular, size_text
 from ..model import NarrativePage, Programme
 from ..yamltext import YamlError, load_yaml
+from .dress import Dresser
 from .spec import FILES, GROUPS, NOISE_LOG, Column, FileSpec
 
 log = logging.getLogger(__name__)
@@ -1044,11 +1045,16 @@ def _source(root: Path, spec: FileSpec, findings: Findings) -> tuple[Path | None
 
 
 def _read_table(spec: FileSpec, root: Path, inputs: _Inputs, findings: Findings,
-                today: dt.date) -> tuple[pd.DataFrame, str | None]:
-    """Read one data file; return (typed table, relative path read or None)."""
-    path, kind = _source(root, spec, findings)
+                today: dt.date, dresser: Dresser | None = None) -> tuple[pd.DataFrame, str | None]:
+    """Read one data file; return (typed table, relative path read or None).
+
+    The *dresser* applies the file's ``files:`` settings (other path, encoding, delimiter,
+    decimal mark, date pattern, column names, wide audiograms) around the standard reading.
+    """
+    dresser = dresser or Dresser(root, None, findings)
+    path, kind, named = dresser.source(spec, _source)
     if path is None:
-        if spec.required:
+        if spec.required and not named:
             findings.error(spec.path, None, None, f"{spec.path} is missing; this file is required",
                            key="required file missing")
         return empty_table(spec), None
@@ -1059,18 +1065,23 @@ def _read_table(spec: FileSpec, root: Path, inputs: _Inputs, findings: Findings,
     raw = inputs.get(path)
     if raw is None:
         return empty_table(spec), None
-    grid = _parse_xlsx(raw, rel, findings, spec) if kind == "xlsx" else _parse_csv(raw, rel, findings)
+    raw = dresser.standard_bytes(spec, raw, rel, kind)
+    sheet = dresser.sheet(spec, raw) if raw is not None and kind == "xlsx" else 0
+    if raw is None or sheet is None:
+        return empty_table(spec), rel
+    grid = _parse_xlsx(raw, rel, findings, spec, sheet) if kind == "xlsx" else _parse_csv(raw, rel, findings)
     if grid is None:
         return empty_table(spec), rel
     if not grid.header:
         _no_rows(spec, rel, findings, "no rows (the file is empty)")
         return empty_table(spec), rel
-    frame, unknown, _missing = _named(grid, spec, findings)
+    grid, read = dresser.standard_grid(spec, grid, kind)
+    frame, unknown, _missing = _named(grid, read, findings)
     if frame.empty:
         _no_rows(spec, rel, findings, "no rows (header only)")
     sink = _Sink(findings, rel, grid.rows)
-    table = _typed(spec, frame, unknown, grid.rows, sink, today, grid.hints)
-    return table, rel
+    table = _typed(read, frame, unknown, grid.rows, sink, today, grid.hints)
+    return dresser.standard_table(spec, read, table, rel), rel
 
 
 def _no_rows(spec: FileSpec, rel: str, findings: Findings, what: str) -> None:
@@ -1082,14 +1093,19 @@ def _no_rows(spec: FileSpec, rel: str, findings: Findings, what: str) -> None:
         findings.warning(rel, None, None, f"{what}; its pages are left out", key="no rows")
 
 
-def _unknown_data_files(root: Path, findings: Findings) -> None:
-    """Warn about data/*.csv|xlsx files that no spec declares (they are not read)."""
+def _unknown_data_files(root: Path, findings: Findings, named: set[str] | frozenset[str] = frozenset()) -> None:
+    """Warn about data/*.csv|xlsx files that no spec declares (they are not read).
+
+    *named* holds the folder-relative paths that ``files:`` names (they are read).
+    """
     data = root / DATA_DIR
     if not data.is_dir():
         return
     known = {Path(f.path).stem for f in FILES}
     for p in sorted(data.iterdir()):
         if p.suffix.lower() not in (".csv", ".xlsx") or (p.stem in known and p.suffix in (".csv", ".xlsx")):
+            continue
+        if _rel(root, p) in named:
             continue
         if p.stem.lower() in known:
             hint = f"file names are lower-case: rename it to {p.stem.lower()}{p.suffix.lower()}"
@@ -1390,9 +1406,10 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
         findings.error(DATA_DIR, None, None, "resolves outside the programme folder; not read")
     tables: dict[str, pd.DataFrame] = {}
     present: dict[str, str] = {}
+    dresser = Dresser(root, config, findings)
     for spec in FILES:
         try:
-            table, rel = _read_table(spec, root, inputs, findings, today)
+            table, rel = _read_table(spec, root, inputs, findings, today, dresser)
         except Exception as exc:  # a last line of defence: report, never crash on a user's file
             log.exception("unexpected failure reading %s", spec.path)
             findings.error(spec.path, None, None, f"could not be read ({type(exc).__name__}: {exc})")
@@ -1411,7 +1428,7 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
         sink = _Sink(findings, present[spec.name], df["_row"].to_numpy())
         _check_key(df, spec, sink)
         _check_refs(df, spec, sink, tables, present, derived)
-    _unknown_data_files(root, findings)
+    _unknown_data_files(root, findings, dresser.paths())
     try:
         logs, intervals = _load_logs(root, inputs, findings, tables["noise"], today)
     except Exception as exc:
@@ -1420,6 +1437,7 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
         logs, intervals = {}, {}
     pages = _load_pages(root, inputs, findings)
     template_dir = _template_dir(root, inputs, findings)
+    findings = dresser.finish(findings)
     prog = Programme(root=root, config=config, tables=tables, present=present, noise_logs=logs,
                      log_interval_s=intervals, pages=pages, findings=findings, digest=inputs.digest(),
                      template_dir=template_dir)
