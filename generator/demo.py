@@ -31,7 +31,7 @@ import pandas as pd
 
 from . import norms
 from .config import Config, iter_options
-from .findings import UsageError
+from .findings import HcpsiteError, UsageError
 from .inputs.spec import AUDIO_FREQS, BOOTH_BANDS, OCTAVE_BANDS
 from .levels import weighted_from_bands
 
@@ -1304,13 +1304,13 @@ _YAML_HEADER = f"# programme.yaml of the {ORGANISATION} demonstration programme 
 def _check_target(folder: Path) -> None:
     """Refuse to write into a file or into a non-empty folder that holds no demo programme."""
     if folder.exists() and not folder.is_dir():
-        raise UsageError(f"demo: {folder} exists and is not a folder")
+        raise HcpsiteError(f"demo: {folder} exists and is not a folder")
     if folder.is_dir() and any(folder.iterdir()):
         cfg = folder / "programme.yaml"
         head = cfg.read_text(encoding="utf-8", errors="replace").split("\n", 1)[0] if cfg.is_file() else ""
         if head != _YAML_HEADER:
-            raise UsageError(f"demo: {folder} is not empty and holds no demo programme; "
-                             "name a new folder (a demo never overwrites other records)")
+            raise HcpsiteError(f"demo: {folder} is not empty and holds no demo programme; "
+                               "name a new folder (a demo never overwrites other records)")
 
 
 def programme_yaml(end_year: int, hours_worked: float) -> str:

@@ -217,3 +217,69 @@ def test_gitignore_covers_build_artefacts(git_checkout: None) -> None:
     ignored = {line.rsplit("\t", 1)[-1] for line in res.stdout.splitlines()}
     missing = sorted(set(ARTEFACTS) - ignored)
     assert not missing, f".gitignore does not cover: {missing}"
+
+
+# ---------------------------------------------------------------------------------------
+# --help documents every command, argument and option
+
+
+def _commands() -> dict[str, "argparse.ArgumentParser"]:
+    import argparse
+
+    from generator.cli import make_parser
+    parser = make_parser()
+    found = {"hcpsite": parser}
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            found.update(action.choices)
+    return found
+
+
+def test_every_command_has_a_description() -> None:
+    commands = _commands()
+    assert set(commands) == {"hcpsite", "new", "check", "build", "export", "serve", "demo"}
+    for name, parser in commands.items():
+        assert parser.description and len(parser.description) > 20, f"{name} has no description"
+        assert "exit codes" in (parser.epilog or ""), f"{name} --help does not list the exit codes"
+
+
+def test_every_argument_and_option_has_help_with_its_default() -> None:
+    import argparse
+
+    missing, no_default = [], []
+    for name, parser in _commands().items():
+        formatter = parser._get_formatter()
+        for action in parser._actions:
+            label = f"{name} {'/'.join(action.option_strings) or action.metavar or action.dest}"
+            if not action.help or action.help == argparse.SUPPRESS:
+                missing.append(label)
+                continue
+            text = formatter._expand_help(action)
+            if action.default not in (None, False, argparse.SUPPRESS) and not isinstance(action, argparse._HelpAction):
+                if f"default: {action.default}" not in text:
+                    no_default.append(f"{label}: {text!r}")
+            elif action.dest in ("out", "to"):  # a default computed from DIR, or none: the text says which
+                if "default" not in text:
+                    no_default.append(f"{label}: {text!r}")
+    assert not missing, f"arguments and options without a help text: {missing}"
+    assert not no_default, f"help texts that do not give the default: {no_default}"
+
+
+@pytest.mark.parametrize("command", ["new", "check", "build", "export", "serve", "demo"])
+def test_help_prints_and_exits_0(command: str, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main([command, "--help"]) == 0
+    out = capsys.readouterr().out
+    assert out.startswith(f"usage: hcpsite {command}") and "DIR" in out and "exit codes" in out
+
+
+def test_a_full_folder_is_not_a_command_line_mistake(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # exit code 2 is kept for command-line mistakes; the state of the disk is exit code 1
+    full = tmp_path / "records"
+    full.mkdir()
+    (full / "notes.txt").write_text("someone's records\n", encoding="utf-8")
+    assert main(["demo", str(full), "--people", "40", "--years", "1"]) == 1
+    assert main(["new", str(full)]) == 1
+    assert (full / "notes.txt").read_text(encoding="utf-8") == "someone's records\n"
+    assert sorted(p.name for p in full.iterdir()) == ["notes.txt"]
+    err = capsys.readouterr().err
+    assert "Traceback" not in err and "internal error" not in err

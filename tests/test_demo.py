@@ -15,7 +15,7 @@ import pytest
 
 from generator import demo
 from generator.config import CONFIG_FILE, iter_options, load_config
-from generator.findings import Findings, UsageError
+from generator.findings import Findings, HcpsiteError, UsageError
 from generator.inputs.spec import AUDIO_FREQS, FILES, OCTAVE_BANDS
 
 REPO = Path(__file__).resolve().parents[1]
@@ -494,9 +494,12 @@ def test_never_overwrites_other_records(tmp_path: Path) -> None:
     (tmp_path / "real" / "data").mkdir(parents=True)
     people = tmp_path / "real" / "data" / "people.csv"
     people.write_text("person_id,group\nE1,G1\n", encoding="utf-8")
-    with pytest.raises(UsageError):
+    # a folder that holds other records is the state of the disk, not a command-line mistake (exit 1, not 2)
+    with pytest.raises(HcpsiteError) as refused:
         demo.write_demo(tmp_path / "real", people=40, years=2)
+    assert not isinstance(refused.value, UsageError)
     assert people.read_text(encoding="utf-8") == "person_id,group\nE1,G1\n"
     (tmp_path / "file").write_text("x", encoding="utf-8")
-    with pytest.raises(UsageError):
+    with pytest.raises(HcpsiteError) as refused:
         demo.write_demo(tmp_path / "file", people=40, years=2)
+    assert not isinstance(refused.value, UsageError)
