@@ -135,8 +135,16 @@
     addFilter(table);
   }
 
+  /** mark a sideways scroll box while it is scrolled, so the style sheet can edge the kept first column */
+  function watchScroll(box) {
+    box.addEventListener("scroll", function () {
+      box.classList.toggle("is-scrolled", box.scrollLeft > 0);
+    }, { passive: true });
+  }
+
   function init() {
     Array.prototype.forEach.call(document.querySelectorAll("table.data"), enhance);
+    Array.prototype.forEach.call(document.querySelectorAll(".table-wrap, main table:not(.data)"), watchScroll);
   }
 
   if (document.readyState === "loading") {
