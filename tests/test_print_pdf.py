@@ -219,3 +219,20 @@ def test_printed_text_stays_inside_the_margins_with_a_running_header(printed: di
         assert f"Page {n} of {pages}" in bottom, f"page {n} has no page number: {bottom!r}"
     body = [w["text"] for w in words if w["page"] == pages]
     assert "Sign-off" in body and "Signature" in body, "the last sheet is not the sign-off"
+
+
+def test_folded_cautions_print_open_on_every_page_kind(pw_browser, review_site: Path) -> None:
+    # the style sheet alone unfolds them for print (no script needed), and hides the chart toolbar
+    page = pw_browser.new_page(viewport={"width": 700, "height": 1000}, java_script_enabled=False)
+    try:
+        for rel in ("index.html", "exposure.html", "actions.html"):
+            page.goto((review_site / rel).as_uri(), wait_until="load")
+            shown = "() => document.querySelector('#cautions .caution-general').checkVisibility()"
+            height = "() => document.getElementById('cautions').getBoundingClientRect().height"
+            assert page.evaluate(shown) is False and page.evaluate(height) < 80, f"{rel}: not folded on screen"
+            page.emulate_media(media="print")
+            assert page.evaluate(shown) is True, f"{rel}: the folded cautions do not print"
+            assert page.evaluate(height) > 200, f"{rel}: the cautions print folded"
+            page.emulate_media(media="screen")
+    finally:
+        page.close()
