@@ -145,12 +145,31 @@ def printed(pw_browser, review_site: Path, tmp_path_factory: pytest.TempPathFact
             page.evaluate("() => window.dispatchEvent(new Event('beforeprint'))")
             page.wait_for_timeout(300)
             measured = page.evaluate(PRINT_JS)
-            pdf = out / f"review-{sheet}.pdf"
-            page.pdf(path=str(pdf), format=sheet, print_background=True)
         finally:
             page.close()
-        found[sheet] = {"measured": measured, "pdf": pdf, "width": width}
+        # printed as a user would, from a wide window: the charts are redrawn to fit the sheet for print
+        page = pw_browser.new_page(viewport={"width": 1400, "height": 900})
+        try:
+            page.goto((review_site / "review.html").as_uri(), wait_until="load", timeout=120000)
+            page.wait_for_function("() => [...document.querySelectorAll('.plotly-graph-div')]"
+                                   ".every(d => d.querySelector('.main-svg'))", timeout=60000)
+            widths = "() => [...document.querySelectorAll('.js-plotly-plot')].map(d => d.offsetWidth)"
+            before = page.evaluate(widths)
+            pdf = out / f"review-{sheet}.pdf"
+            page.pdf(path=str(pdf), format=sheet, print_background=True)
+            page.wait_for_timeout(500)
+            after = page.evaluate(widths)
+        finally:
+            page.close()
+        found[sheet] = {"measured": measured, "pdf": pdf, "width": width, "charts": (before, after)}
     return found
+
+
+@pytest.mark.parametrize("sheet", sorted(SHEETS))
+def test_charts_return_to_the_window_width_after_printing(printed: dict[str, dict], sheet: str) -> None:
+    before, after = printed[sheet]["charts"]
+    assert before and min(before) > 700, "the charts of a 1400 px window should be wider than a sheet"
+    assert after == before
 
 
 @pytest.mark.parametrize("sheet", sorted(SHEETS))
