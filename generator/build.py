@@ -8,12 +8,11 @@ a folder that carries its marker.
 from __future__ import annotations
 
 import datetime as dt
-import importlib
-import importlib.util
 import logging
 import os
 import re
 import shutil
+import stat
 import time
 from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
@@ -23,20 +22,15 @@ from . import clock
 from .config import CONFIG_FILE
 from .findings import Findings, HcpsiteError, UsageError
 from .model import Programme
-from .pages import NARRATIVE, SECTIONS, module_name
+from . import pipeline
+from .pages import page_builders
+from .pages.people import link_person_codes
 from .pages.base import Page, SiteContext
+from .pipeline import STAGE_NAMES, Results
 from .privacy import make_coder, small_groups
 from .rules import rule_sets_for
 
 log = logging.getLogger(__name__)
-
-#: Compute stages in order: (result name, module exposing compute(programme, results)).
-STAGES: tuple[tuple[str, str], ...] = (
-    ("exposure", "generator.exposure"),
-    ("protection", "generator.protection"),
-    ("hearing", "generator.hearing"),
-    ("compliance", "generator.compliance"),
-)
 
 MARKER = ".hcpsite-site"
 MARKER_TEXT = b"This folder was made by hcpsite and is replaced as a whole by each build.\n"
@@ -58,8 +52,6 @@ class BuildReport:
     bytes: int
     findings: Findings
     stages: list[str] = field(default_factory=list)
-    skipped_stages: list[str] = field(default_factory=list)
-    skipped_sections: list[str] = field(default_factory=list)
     restricted: bool = False
     #: the SiteContext of the build (programme, results, rule sets, coder), for tests and tools
     context: Any = field(default=None, repr=False)
@@ -68,14 +60,6 @@ class BuildReport:
 def validation_today() -> dt.date:
     """Return the date future dates are judged against: SOURCE_DATE_EPOCH (UTC) or the system date."""
     return clock.today()
-
-
-def module_available(name: str) -> bool:
-    """True when module *name* exists (a missing module during development is skipped)."""
-    try:
-        return importlib.util.find_spec(name) is not None
-    except ModuleNotFoundError:
-        return False
 
 
 def load(root: Path, strict: bool = False) -> Programme:
@@ -96,41 +80,31 @@ def _stop_if_failed(root: Path, findings: Findings, strict: bool) -> None:
         raise HcpsiteError(f"{root}: {findings.summary()}{why}", findings)
 
 
-def compute(programme: Programme) -> tuple[dict[str, Any], list[str]]:
-    """Run the compute stages in order; add their findings to the programme's. Return (results, skipped)."""
-    results: dict[str, Any] = {}
-    skipped: list[str] = []
-    for name, module in STAGES:
-        if not module_available(module):
-            log.warning("stage %s (%s) is not available; skipped", name, module)
-            skipped.append(name)
-            continue
-        mod = importlib.import_module(module)
-        result = mod.compute(programme, results)
-        results[name] = result
-        programme.findings.extend(sorted(getattr(result, "findings", None) or []))
-    return results, skipped
+def compute(programme: Programme) -> Results:
+    """Run the compute pipeline (generator/pipeline.py) with the programme's rule sets."""
+    return pipeline.run(programme, rule_sets_for(programme.config))
 
 
-def make_context(programme: Programme, results: dict[str, Any], restricted: bool = False) -> SiteContext:
+def make_context(programme: Programme, results: Results, restricted: bool = False) -> SiteContext:
     """Return the SiteContext: rule sets, person codes and suppressed groups; adds the no-key warning."""
     cfg = programme.config
     people = programme.table("people")
     code, warning = make_coder(people, os.environ.get(cfg.privacy.id_key_env) or None, cfg.privacy.id_key_env)
     if warning is not None:
         programme.findings.extend([warning])
-    return SiteContext(programme=programme, results=results, rules=rule_sets_for(cfg), code=code,
+    return SiteContext(programme=programme, results=results, rules=results.rules, code=code,
                        suppressed_groups=small_groups(people, cfg.privacy.min_group_size),
                        restricted=restricted)
 
 
-def prepare(root: Path, *, strict: bool = False, restricted: bool = False) -> tuple[SiteContext, list[str]]:
-    """Load, validate and compute; return the context and skipped stages. Raise HcpsiteError on failure."""
+def prepare(root: Path, *, strict: bool = False, restricted: bool = False) -> SiteContext:
+    """Load, validate and compute; return the site context. Raise HcpsiteError on failure."""
     programme = load(root, strict)
-    results, skipped = compute(programme)
+    results = compute(programme)
+    programme.findings.extend(results.findings())
     ctx = make_context(programme, results, restricted)
     _stop_if_failed(root, programme.findings, strict)
-    return ctx, skipped
+    return ctx
 
 
 def _add_pages(ctx: SiteContext, pages: list[Page]) -> None:
@@ -138,20 +112,11 @@ def _add_pages(ctx: SiteContext, pages: list[Page]) -> None:
     ctx.pages.extend(p for p in pages if id(p) not in known)
 
 
-def build_pages(ctx: SiteContext) -> list[str]:
-    """Run the page builders in SECTIONS order (narrative pages after the overview); return skipped sections."""
-    skipped: list[str] = []
-    order = [s for s, _ in SECTIONS]
-    order.insert(order.index("index") + 1, NARRATIVE)
-    for section in order:
-        module = module_name(section)
-        if not module_available(module):
-            log.warning("section %s (%s) is not available; skipped", section, module)
-            skipped.append(section)
-            continue
-        mod = importlib.import_module(module)
-        _add_pages(ctx, list(mod.build(ctx)))
-    return skipped
+def build_pages(ctx: SiteContext) -> None:
+    """Run the page builders in navigation order (narrative pages right after the overview)."""
+    for builder in page_builders():
+        _add_pages(ctx, list(builder(ctx)))
+    link_person_codes(ctx, ctx.pages)
 
 
 #: image files beside the narrative pages that are copied into the site (no SVG: it can carry script).
@@ -191,32 +156,44 @@ def _inside(path: Path, folder: Path) -> bool:
         return False
 
 
-def check_output(root: Path, out: Path) -> None:
-    """Raise HcpsiteError unless *out* is a folder the tool may replace."""
+def check_output(root: Path, out: Path, *, marker: str = MARKER, what: str = "output") -> None:
+    """Raise HcpsiteError unless *out* is a folder the tool may replace (new, empty or carrying *marker*)."""
+    given = Path(out).absolute()
     root, out = Path(root).resolve(), Path(out).resolve()
     if out == root:
-        raise HcpsiteError(f"{out}: the output folder cannot be the programme folder")
+        raise HcpsiteError(f"{out}: the {what} folder cannot be the programme folder")
     if _inside(root, out):
-        raise HcpsiteError(f"{out}: the output folder cannot contain the programme folder")
+        raise HcpsiteError(f"{out}: the {what} folder cannot contain the programme folder")
     for name in INPUT_FOLDERS:
         if _inside(out, root / name):
-            raise HcpsiteError(f"{out}: the output folder cannot lie inside the programme's {name}/ folder")
+            raise HcpsiteError(f"{out}: the {what} folder cannot lie inside the programme's {name}/ folder")
+    if given.is_symlink():
+        raise HcpsiteError(f"{given}: is a symbolic link; name the folder itself")
+    for parent in out.parents:
+        if parent.exists() and not parent.is_dir():
+            raise HcpsiteError(f"{out}: cannot be made, {parent} is a file and not a folder")
     if out.exists() or out.is_symlink():
         if not out.is_dir() or out.is_symlink():
             raise HcpsiteError(f"{out}: exists and is not a folder")
         if (out / CONFIG_FILE).exists() or (out / "data").exists():
             raise HcpsiteError(f"{out}: looks like a programme folder (has programme.yaml or data/); "
-                               f"choose another output folder")
-        if not (out / MARKER).is_file() and any(out.iterdir()):
-            raise HcpsiteError(f"{out}: exists and was not made by hcpsite (no {MARKER} file); "
-                               f"remove it or choose another output folder")
+                               f"choose another {what} folder")
+        if not (out / marker).is_file() and any(out.iterdir()):
+            raise HcpsiteError(f"{out}: exists and was not made by hcpsite (no {marker} file); "
+                               f"remove it or choose another {what} folder")
+
+
+#: modes of a restricted build or export: readable by the user only
+PRIVATE_DIR_MODE = 0o700
+PRIVATE_FILE_MODE = 0o600
 
 
 class SiteWriter:
-    """Write files below one folder only, each path at most once."""
+    """Write files below one folder only, each path at most once (user-only modes when *private*)."""
 
-    def __init__(self, folder: Path) -> None:
+    def __init__(self, folder: Path, private: bool = False) -> None:
         self.folder = Path(folder)
+        self.private = private
         self.written: set[str] = set()
         self.bytes = 0
 
@@ -232,8 +209,16 @@ class SiteWriter:
         target = self.folder.joinpath(*pure.parts)
         if not _inside(target.resolve().parent, self.folder.resolve()):
             raise ValueError(f"refusing to write {rel!r}: outside the output folder")
-        target.parent.mkdir(parents=True, exist_ok=True)
-        with open(target, "xb") as fh:
+        folder = self.folder
+        if not folder.is_dir():
+            folder.mkdir(parents=True, mode=PRIVATE_DIR_MODE if self.private else 0o777)
+        for part in pure.parts[:-1]:
+            folder = folder / part
+            if not folder.is_dir():
+                folder.mkdir(mode=PRIVATE_DIR_MODE if self.private else 0o777)
+        flags = os.O_WRONLY | os.O_CREAT | os.O_EXCL | getattr(os, "O_NOFOLLOW", 0) | getattr(os, "O_BINARY", 0)
+        fd = os.open(target, flags, PRIVATE_FILE_MODE if self.private else 0o666)
+        with os.fdopen(fd, "wb") as fh:
             fh.write(data)
         self.written.add(rel)
         self.bytes += len(data)
@@ -255,22 +240,57 @@ def _alive(pid: int) -> bool:
     return True
 
 
-def clean_stale(out: Path) -> None:
+def _make_writable(folder: Path) -> None:
+    """Give the user write and search rights on *folder* and every folder below it (links not followed)."""
+    st = os.lstat(folder)
+    if not stat.S_ISDIR(st.st_mode):
+        return
+    want = stat.S_IMODE(st.st_mode) | stat.S_IRWXU
+    if want != stat.S_IMODE(st.st_mode):
+        os.chmod(folder, want)
+    with os.scandir(folder) as it:
+        subdirs = [Path(e.path) for e in it if e.is_dir(follow_symlinks=False)]
+    for sub in subdirs:
+        _make_writable(sub)
+
+
+def remove_tool_folder(folder: Path, marker: str = MARKER) -> None:
+    """Remove *folder*, a folder the tool made (it carries *marker*), even when it was made read-only.
+
+    A folder without the marker is left alone. Failures are logged, not raised: the next
+    build tries again.
+    """
+    folder = Path(folder)
+    if folder.is_symlink() or not folder.is_dir() or not (folder / marker).is_file():
+        return
+    try:
+        shutil.rmtree(folder)
+        return
+    except OSError:
+        pass
+    try:
+        _make_writable(folder)
+        shutil.rmtree(folder)
+    except OSError as exc:
+        log.warning("%s: could not be removed (%s); remove it by hand", folder, exc.strerror or exc)
+
+
+def clean_stale(out: Path, marker: str = MARKER) -> None:
     """Remove temporary folders of dead builds beside *out*; restore a site left aside by a killed swap."""
     parent, prefix = out.parent, f"{TMP_PREFIX}{out.name}-"
     if not parent.is_dir():
         return
     for entry in sorted(parent.iterdir()):
-        if not entry.name.startswith(prefix) or not entry.is_dir():
+        if not entry.name.startswith(prefix) or not entry.is_dir() or entry.is_symlink():
             continue
         m = _TMP_NAME.match(entry.name[len(prefix):])
-        if not m or _alive(int(m.group("pid"))) or not (entry / MARKER).is_file():
+        if not m or _alive(int(m.group("pid"))) or not (entry / marker).is_file():
             continue
         if m.group("old") and not out.exists():
             log.warning("restoring the previous site from %s", entry)
             os.rename(entry, out)
             continue
-        shutil.rmtree(entry, ignore_errors=True)
+        remove_tool_folder(entry, marker)
 
 
 def _pause_seconds() -> float:
@@ -281,28 +301,89 @@ def _pause_seconds() -> float:
         return 0.0
 
 
-def write_site(files: dict[str, bytes], out: Path) -> int:
-    """Write *files* into a temporary sibling of *out* and swap it in; return bytes written."""
-    out = Path(out).resolve()
-    out.parent.mkdir(parents=True, exist_ok=True)
-    clean_stale(out)
+def _with_path(exc: OSError, path: Path) -> OSError:
+    """Return *exc* naming *path* when it names no file (so the message says where it happened)."""
+    if exc.filename is None and exc.errno is not None:
+        return type(exc)(exc.errno, exc.strerror or os.strerror(exc.errno), str(path))
+    return exc
+
+
+def _write_into_empty(files: dict[str, bytes], out: Path, private: bool, marker: str,
+                      marker_text: bytes) -> int:
+    """Write *files* straight into the existing empty folder *out* (kept with its permissions).
+
+    There is no previous site to keep, so no swap: on failure everything written is
+    removed again and *out* is left empty, as it was.
+    """
+    before = {p for p in out.iterdir()}
+    writer = SiteWriter(out, private=private)
+    try:
+        writer.write_file(marker, marker_text)
+        for rel in sorted(files):
+            try:
+                writer.write_file(rel, files[rel])
+            except OSError as exc:
+                raise _with_path(exc, out) from exc
+    except BaseException:
+        for rel in sorted(writer.written, reverse=True):
+            out.joinpath(*rel.split("/")).unlink(missing_ok=True)
+        made = sorted((p for p in out.rglob("*") if p.is_dir() and not p.is_symlink() and p not in before),
+                      key=lambda p: len(p.parts), reverse=True)
+        for p in made:
+            try:
+                p.rmdir()
+            except OSError:
+                pass
+        raise
+    return writer.bytes
+
+
+def write_site(files: dict[str, bytes], out: Path, *, private: bool = False, marker: str = MARKER,
+               marker_text: bytes = MARKER_TEXT) -> int:
+    """Write *files* into a temporary sibling of *out* and swap it in; return bytes written.
+
+    *private* writes folders 0700 and files 0600 (a restricted build or export). An
+    existing empty *out* folder is kept (with its permissions) and written into directly.
+    """
+    out = Path(out).absolute()
+    if out.is_symlink():
+        raise HcpsiteError(f"{out}: is a symbolic link; name the folder itself")
+    out = out.resolve()
+    try:
+        out.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise _with_path(exc, out.parent) from exc
+    clean_stale(out, marker)
     pid = os.getpid()
     tmp = out.parent / f"{TMP_PREFIX}{out.name}-{pid}"
     aside = out.parent / f"{TMP_PREFIX}{out.name}-{pid}-old"
+    if out.is_dir() and not any(out.iterdir()):
+        return _write_into_empty(files, out, private, marker, marker_text)
     for p in (tmp, aside):
-        if p.exists():
-            shutil.rmtree(p)
-    tmp.mkdir()
+        if p.exists() or p.is_symlink():
+            if p.is_dir() and not p.is_symlink() and not any(p.iterdir()):
+                p.rmdir()  # an empty folder of an earlier process with this id
+            elif not (p / marker).is_file():
+                raise HcpsiteError(f"{p}: is in the way and was not made by hcpsite; remove it")
+            else:
+                remove_tool_folder(p, marker)
     try:
-        writer = SiteWriter(tmp)
-        writer.write_file(MARKER, MARKER_TEXT)
+        tmp.mkdir(mode=PRIVATE_DIR_MODE if private else 0o777)
+    except OSError as exc:
+        raise _with_path(exc, tmp) from exc
+    try:
+        writer = SiteWriter(tmp, private=private)
+        writer.write_file(marker, marker_text)
         names = sorted(files)
         pause = _pause_seconds()
         for i, rel in enumerate(names):
             if pause and i == len(names) // 2:
                 log.info("pausing %.1f s halfway through writing (%s)", pause, PAUSE_ENV)
                 time.sleep(pause)
-            writer.write_file(rel, files[rel])
+            try:
+                writer.write_file(rel, files[rel])
+            except OSError as exc:
+                raise _with_path(exc, out) from exc
         if out.exists():
             os.rename(out, aside)
         try:
@@ -312,9 +393,12 @@ def write_site(files: dict[str, bytes], out: Path) -> int:
                 os.rename(aside, out)
             raise
     except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
+        if tmp.exists():
+            remove_tool_folder(tmp, marker)
+            if tmp.exists():
+                shutil.rmtree(tmp, ignore_errors=True)
         raise
-    shutil.rmtree(aside, ignore_errors=True)
+    remove_tool_folder(aside, marker)
     return writer.bytes
 
 
@@ -326,14 +410,13 @@ def build_site(root: Path, out: Path | None = None, *, strict: bool = False,
     out = Path(out) if out is not None else root / DEFAULT_OUT
     check_output(root, out)
     clean_stale(Path(out).resolve())
-    ctx, skipped_stages = prepare(root, strict=strict, restricted=restricted)
-    skipped_sections = build_pages(ctx)
+    ctx = prepare(root, strict=strict, restricted=restricted)
+    build_pages(ctx)
     files = render_site(ctx)
     files.update(narrative_images(root, set(files)))
-    size = write_site(files, out)
+    size = write_site(files, out, private=restricted)
     pages = sorted(p.slug for p in ctx.pages if restricted or not p.restricted)
     log.info("built %d pages (%d files, %d bytes) into %s", len(pages), len(files) + 1, size, out)
     return BuildReport(out=out.resolve(), pages=pages, files=len(files) + 1, bytes=size,
-                       findings=ctx.programme.findings, stages=list(ctx.results),
-                       skipped_stages=skipped_stages, skipped_sections=skipped_sections,
+                       findings=ctx.programme.findings, stages=list(STAGE_NAMES),
                        restricted=restricted, context=ctx)

@@ -8,6 +8,7 @@ it the default, so figures stay small and look alike.
 """
 from __future__ import annotations
 
+import html
 import math
 from typing import Any, Callable, Mapping, Sequence
 
@@ -52,6 +53,43 @@ def register_template() -> None:
 
 
 register_template()
+
+
+#: figure keys whose strings are written by the program as plotly markup (they may hold
+#: ``<br>`` and ``<extra>``, and the values they show are escaped); every other string is data.
+MARKUP_KEYS = frozenset({"hovertemplate", "texttemplate", "template"})
+
+
+def _escape_tree(value: Any) -> Any:
+    """Return *value* with every string HTML-escaped (numbers, dates and booleans unchanged)."""
+    if isinstance(value, str):
+        return html.escape(value, quote=False)
+    if isinstance(value, dict):
+        return {k: (v if k in MARKUP_KEYS else _escape_tree(v)) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_escape_tree(v) for v in value]
+    if isinstance(value, np.ndarray) and value.dtype.kind in "OUS":
+        return np.array([_escape_tree(v) for v in value.tolist()], dtype=object).reshape(value.shape)
+    return value
+
+
+def finalise(fig: go.Figure | dict) -> dict:
+    """Return the figure as a dict with every text shown by the chart HTML-escaped.
+
+    Plotly renders trace names, tick and category labels, hover text, annotations and
+    titles as a small subset of HTML (``<b>``, ``<a href>`` ...), so a label typed in the
+    records would be live markup inside the chart. Every string of the figure is escaped
+    here (plotly shows ``&lt;`` as ``<``), except the program's own templates
+    (``MARKUP_KEYS``). Every chart passes through this function before it is written.
+    """
+    data = fig.to_dict() if isinstance(fig, go.Figure) else dict(fig)
+    return _escape_tree(data)
+
+
+def figure_html(fig: go.Figure, div_id: str, height: int | str | None, config: Mapping[str, Any]) -> str:
+    """Return the plot div and script of *fig* (escaped by :func:`finalise`); plotly.js is loaded by the page."""
+    return pio.to_html(finalise(fig), include_plotlyjs=False, full_html=False, div_id=div_id,
+                       default_height=height, config=dict(config), validate=False)
 
 
 def _values(seq: Any) -> list:

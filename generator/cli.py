@@ -7,11 +7,14 @@ printed as ``path:row:column: level: message`` on stdout and a summary on stderr
 from __future__ import annotations
 
 import argparse
+import errno
 import logging
 import os
 import sys
 from pathlib import Path
 from typing import Callable, Sequence
+
+from jinja2.exceptions import SecurityError
 
 from . import __version__
 from .findings import Findings, HcpsiteError, UsageError
@@ -20,6 +23,27 @@ log = logging.getLogger("generator")
 
 REPORT_HINT = ("this is a fault in hcpsite, not in your data; please report it to the hcpsite "
                "maintainers with the command you ran (set HCPSITE_DEBUG=1 for the full traceback)")
+
+
+#: errors of the machine, not of hcpsite: a full disk, missing rights, a file where a folder
+#: should be, a read-only file system, a port in use. They get a message naming the path.
+ENVIRONMENT_ERRNOS = frozenset(getattr(errno, name) for name in (
+    "ENOSPC", "EDQUOT", "EACCES", "EPERM", "EROFS", "ENOTDIR", "EISDIR", "EEXIST",
+    "ENAMETOOLONG", "ELOOP", "EXDEV", "EBUSY", "ETXTBSY", "EIO", "EMFILE", "ENFILE", "EFBIG",
+    "EADDRINUSE", "EADDRNOTAVAIL") if hasattr(errno, name))
+
+
+def environment_message(exc: OSError) -> str:
+    """Return the one-line message of an error of the machine: path, problem and what to do."""
+    where = " -> ".join(str(f) for f in (exc.filename, exc.filename2) if f is not None)
+    what = exc.strerror or os.strerror(exc.errno or 0)
+    hint = {errno.ENOSPC: "free some disk space and run the command again",
+            errno.EACCES: "check the rights on that folder or choose another one",
+            errno.EPERM: "check the rights on that folder or choose another one",
+            errno.EROFS: "choose a folder on a writable disk",
+            errno.ENOTDIR: "a part of that path is a file, not a folder; choose another path"}.get(
+                exc.errno or 0, "this is a problem of the machine, not of hcpsite or your data")
+    return f"error: {where + ': ' if where else ''}{what}; {hint}"
 
 
 class _Parser(argparse.ArgumentParser):
@@ -60,7 +84,7 @@ def cmd_new(args: argparse.Namespace) -> int:
 def cmd_check(args: argparse.Namespace) -> int:
     """Load, validate and compute without writing anything."""
     from .build import prepare
-    ctx, _ = prepare(args.dir, strict=args.strict)
+    ctx = prepare(args.dir, strict=args.strict)
     findings = ctx.programme.findings
     _print_findings(findings)
     _err(f"{args.dir}: {findings.summary()}; ok")
@@ -94,8 +118,11 @@ def cmd_serve(args: argparse.Namespace) -> int:
 def cmd_demo(args: argparse.Namespace) -> int:
     """Write a synthetic programme of an invented workplace."""
     from .demo import write_demo
-    write_demo(args.dir, people=args.people, years=args.years, seed=args.seed)
-    _err(f"wrote a demo programme ({args.people} people, {args.years} years, seed {args.seed}) into {args.dir}")
+    n = write_demo(args.dir, people=args.people, years=args.years, seed=args.seed)
+    _err(f"wrote a demo programme of an invented workplace into {args.dir}: {n['headcount']} people at a "
+         f"time, {n['people']} over {n['years']} years with turnover, {n['audiograms']} audiograms, "
+         f"{n['noise']} noise measurements ({n['noise_logs']} with time histories), {n['files']} files "
+         f"(seed {args.seed})")
     return 0
 
 
@@ -239,8 +266,22 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         _err("interrupted")
         return 130
-    except Exception as exc:  # noqa: BLE001 - the one place that turns a fault into a message
-        if os.environ.get("HCPSITE_DEBUG"):
-            raise
-        _err(f"internal error: {type(exc).__name__}: {exc} -- {REPORT_HINT}")
+    except SecurityError as exc:
+        _err(f"error: a template of the programme's templates/ folder tried an operation the template "
+             f"sandbox forbids ({exc}); review the programme's templates before building it")
         return 1
+    except OSError as exc:
+        if exc.errno not in ENVIRONMENT_ERRNOS or os.environ.get("HCPSITE_DEBUG"):
+            return _internal(exc)
+        _err(environment_message(exc))
+        return 1
+    except Exception as exc:  # noqa: BLE001 - the one place that turns a fault into a message
+        return _internal(exc)
+
+
+def _internal(exc: BaseException) -> int:
+    """Report a fault of hcpsite itself (the full traceback with HCPSITE_DEBUG=1)."""
+    if os.environ.get("HCPSITE_DEBUG"):
+        raise exc
+    _err(f"internal error: {type(exc).__name__}: {exc} -- {REPORT_HINT}")
+    return 1

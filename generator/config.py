@@ -205,7 +205,7 @@ def _load_into(cls: type, data: Any, node: yaml.Node | None, prefix: str, path: 
         _, v_node = _node_at(node, f.name)
         vl, vc = _pos(v_node)
         where = f"{prefix}{f.name}"
-        if dataclasses.is_dataclass(tp):
+        if isinstance(tp, type) and dataclasses.is_dataclass(tp):
             kwargs[f.name] = _load_into(tp, value, v_node, where + ".", path, findings)
             continue
         meta = f.metadata
@@ -281,12 +281,12 @@ def iter_options(cls: type = Config, prefix: str = "") -> list[tuple[str, str, A
     for f in dataclasses.fields(cls):
         tp = hints[f.name]
         name = prefix + f.name
-        if dataclasses.is_dataclass(tp):
+        if isinstance(tp, type) and dataclasses.is_dataclass(tp):
             out.append((name, "section", None, f.metadata.get("doc", "")))
             out.extend(iter_options(tp, name + "."))
             continue
         default = f.default if f.default is not dataclasses.MISSING else (
-            f.default_factory() if f.default_factory is not dataclasses.MISSING else None)  # type: ignore[misc]
+            f.default_factory() if f.default_factory is not dataclasses.MISSING else None)
         doc = f.metadata.get("doc", "")
         if f.metadata.get("choices"):
             doc += f" (one of: {', '.join(f.metadata['choices'])})"

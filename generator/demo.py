@@ -19,9 +19,11 @@ workplace and say nothing about anyone's hearing.
 from __future__ import annotations
 
 import functools
+import hashlib
 import json
 import logging
-import shutil
+import os
+import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -362,9 +364,8 @@ def _text_column(values: Any, name: str) -> np.ndarray:
     return txt
 
 
-def _write_csv(df: pd.DataFrame, path: Path) -> None:
+def _write_csv(df: pd.DataFrame, out: "_DemoWriter", rel: str) -> None:
     """Write one CSV: header, LF line ends, fixed decimals per column (vectorised text join)."""
-    path.parent.mkdir(parents=True, exist_ok=True)
     cols = list(df.columns)
     body = ""
     if len(df):
@@ -372,13 +373,11 @@ def _write_csv(df: pd.DataFrame, path: Path) -> None:
         for c in cols[1:]:
             line = np.strings.add(np.strings.add(line, ","), _text_column(df[c].to_numpy(), c))
         body = "\n".join(line.tolist()) + "\n"
-    with open(path, "w", encoding="utf-8", newline="\n") as fh:
-        fh.write(",".join(cols) + "\n" + body)
+    out.write(rel, (",".join(cols) + "\n" + body).encode("utf-8"))
 
 
-def _write_logs(logs: pd.DataFrame, folder: Path) -> None:
+def _write_logs(logs: pd.DataFrame, out: "_DemoWriter", folder: str) -> None:
     """Write one time-history CSV per measurement (rows grouped by measurement_id, in time order)."""
-    folder.mkdir(parents=True, exist_ok=True)
     if not len(logs):
         return
     mids = logs["measurement_id"].to_numpy()
@@ -386,8 +385,7 @@ def _write_logs(logs: pd.DataFrame, folder: Path) -> None:
                            _text_column(logs["laeq"].to_numpy(), "laeq")).tolist()
     cut = np.flatnonzero(np.concatenate([[True], mids[1:] != mids[:-1], [True]]))
     for a, b in zip(cut[:-1], cut[1:]):  # one file per logged measurement
-        with open(folder / f"{mids[a]}.csv", "w", encoding="utf-8", newline="\n") as fh:
-            fh.write("start,laeq\n" + "\n".join(lines[a:b]) + "\n")
+        out.write(f"{folder}/{mids[a]}.csv", ("start,laeq\n" + "\n".join(lines[a:b]) + "\n").encode("utf-8"))
 
 
 # ---------------------------------------------------------------------------------------
@@ -1297,20 +1295,126 @@ def _yaml_value(value: Any) -> str:
     return json.dumps(str(value), ensure_ascii=False)
 
 
-#: First line of a demo programme.yaml: marks a folder write_demo may overwrite.
+#: First line of a demo programme.yaml (says what the folder holds; it guards nothing).
 _YAML_HEADER = f"# programme.yaml of the {ORGANISATION} demonstration programme (invented workplace)."
 
+#: The list of files a demo wrote, one "sha256  path" line each (the format of sha256sum).
+#: A non-empty folder is only written into when it holds exactly the files listed there.
+MANIFEST = ".hcpsite-demo.sha256"
+_MANIFEST_LINE = re.compile(r"^(?P<digest>[0-9a-f]{64})  (?P<rel>[A-Za-z0-9_][A-Za-z0-9_./-]*)$")
 
-def _check_target(folder: Path) -> None:
-    """Refuse to write into a file or into a non-empty folder that holds no demo programme."""
-    if folder.exists() and not folder.is_dir():
-        raise HcpsiteError(f"demo: {folder} exists and is not a folder")
-    if folder.is_dir() and any(folder.iterdir()):
-        cfg = folder / "programme.yaml"
-        head = cfg.read_text(encoding="utf-8", errors="replace").split("\n", 1)[0] if cfg.is_file() else ""
-        if head != _YAML_HEADER:
-            raise HcpsiteError(f"demo: {folder} is not empty and holds no demo programme; "
-                               "name a new folder (a demo never overwrites other records)")
+
+def _sha256_file(path: Path) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def _refuse(folder: Path, why: str) -> HcpsiteError:
+    return HcpsiteError(f"demo: {folder}: {why}; nothing was written. A demo only writes into a new or "
+                        f"empty folder, or over exactly what an earlier demo wrote (listed in {MANIFEST}); "
+                        "name a new folder")
+
+
+def _read_manifest(folder: Path) -> dict[str, str]:
+    """Return path -> sha256 of the manifest in *folder*; raise when it is absent or malformed."""
+    path = folder / MANIFEST
+    if path.is_symlink() or not path.is_file():
+        raise _refuse(folder, f"not empty and holds no {MANIFEST} (not a folder written by 'hcpsite demo')")
+    if path.stat().st_size > 16 * 1024 * 1024:
+        raise _refuse(folder, f"{MANIFEST} is too large to be a demo's list of files")
+    listed: dict[str, str] = {}
+    for n, line in enumerate(path.read_text(encoding="utf-8", errors="replace").splitlines(), 1):
+        m = _MANIFEST_LINE.match(line)
+        parts = m.group("rel").split("/") if m else []
+        if not m or any(p in ("", ".", "..") for p in parts) or m.group("rel") == MANIFEST:
+            raise _refuse(folder, f"{MANIFEST}:{n}: not a line the demo writes")
+        listed[m.group("rel")] = m.group("digest")
+    return listed
+
+
+def _check_target(folder: Path) -> dict[str, str]:
+    """Return the files of an earlier demo in *folder* (path -> sha256); raise unless safe to write.
+
+    Safe: *folder* does not exist, is empty, or holds exactly files listed in its manifest,
+    each unchanged (a listed file may be missing). Anything else (another file, a changed
+    file, a folder the demo did not make, a link) refuses before anything is touched.
+    """
+    if folder.is_symlink():
+        raise _refuse(folder, "is a symbolic link")
+    if not folder.exists():
+        return {}
+    if not folder.is_dir():
+        raise _refuse(folder, "exists and is not a folder")
+    if not any(folder.iterdir()):
+        return {}
+    listed = _read_manifest(folder)
+    folders = {"/".join(rel.split("/")[:i]) for rel in listed for i in range(1, rel.count("/") + 1)}
+    for here, dirs, files in os.walk(folder):
+        base = Path(here).relative_to(folder).as_posix()
+        for name in sorted(dirs + files):
+            path = Path(here) / name
+            rel = name if base == "." else f"{base}/{name}"
+            if path.is_symlink():
+                raise _refuse(folder, f"{rel} is a symbolic link the demo did not write")
+            if name in dirs:
+                if rel not in folders:
+                    raise _refuse(folder, f"{rel}/ is a folder the demo did not make")
+            elif rel == MANIFEST:
+                continue
+            elif rel not in listed:
+                raise _refuse(folder, f"{rel} was not written by the demo")
+            elif not path.is_file() or _sha256_file(path) != listed[rel]:
+                raise _refuse(folder, f"{rel} was changed after the demo wrote it")
+    return listed
+
+
+def _remove_earlier(folder: Path, listed: dict[str, str]) -> None:
+    """Remove the files an earlier demo listed in its manifest (and folders left empty by that)."""
+    (folder / MANIFEST).unlink(missing_ok=True)
+    parents: set[Path] = set()
+    for rel in sorted(listed):
+        path = folder.joinpath(*rel.split("/"))
+        path.unlink(missing_ok=True)
+        parents.update(p for p in path.parents if p != folder and folder in p.parents)
+    for p in sorted(parents, key=lambda q: len(q.parts), reverse=True):
+        try:
+            p.rmdir()
+        except OSError:
+            pass
+
+
+class _DemoWriter:
+    """Write new files below one folder and remember their digests for the manifest."""
+
+    def __init__(self, folder: Path) -> None:
+        self.folder = folder
+        self.digests: dict[str, str] = {}
+
+    def write(self, rel: str, data: bytes) -> None:
+        """Write *data* to the new file *rel* (never over an existing file)."""
+        path = self.folder.joinpath(*rel.split("/"))
+        path.parent.mkdir(parents=True, exist_ok=True)
+        try:
+            with open(path, "xb") as fh:
+                try:
+                    fh.write(data)
+                except BaseException:
+                    path.unlink(missing_ok=True)  # made by this call: a partial file is not left behind
+                    raise
+        except OSError as exc:
+            if exc.filename is None and exc.errno is not None:  # e.g. a full disk: say where
+                raise OSError(exc.errno, exc.strerror or os.strerror(exc.errno), str(path)) from exc
+            raise
+        self.digests[rel] = hashlib.sha256(data).hexdigest()
+
+    def write_manifest(self) -> None:
+        """Write the manifest: one "sha256  path" line per written file, sorted by path."""
+        text = "".join(f"{self.digests[rel]}  {rel}\n" for rel in sorted(self.digests))
+        with open(self.folder / MANIFEST, "x", encoding="utf-8", newline="\n") as fh:
+            fh.write(text)
 
 
 def programme_yaml(end_year: int, hours_worked: float) -> str:
@@ -1416,13 +1520,11 @@ office.
 """
 
 
-def _pages(folder: Path, end_year: int) -> None:
+def _pages(out: _DemoWriter, end_year: int) -> None:
     """Write the two narrative pages."""
-    pages = folder / "pages"
-    pages.mkdir(parents=True, exist_ok=True)
     fmt = {"org": ORGANISATION, "start": f"{end_year}-01-01", "end": f"{end_year}-12-31"}
-    (pages / "about.md").write_text(_ABOUT.format(**fmt), encoding="utf-8", newline="\n")
-    (pages / "scope.md").write_text(_SCOPE, encoding="utf-8", newline="\n")
+    out.write("pages/about.md", _ABOUT.format(**fmt).encode("utf-8"))
+    out.write("pages/scope.md", _SCOPE.encode("utf-8"))
 
 
 # ---------------------------------------------------------------------------------------
@@ -1436,21 +1538,18 @@ def write_demo(folder: Path | str, people: int = 250, years: int = 6, seed: int 
     *people* is the headcount of the positions (leavers are replaced, so people.csv holds
     somewhat more rows); *years* the number of calendar years of records ending with
     *end_year*, the review period. The same arguments always write the same bytes. A
-    folder that is not empty is only overwritten when it holds an earlier demo programme.
+    folder that is not empty is only written into when it holds exactly the files an
+    earlier demo wrote (its manifest, ``MANIFEST``); only those files are removed.
     """
     if people < len(GROUPS):
         raise UsageError(f"demo: --people must be at least {len(GROUPS)} (one per similar exposure group)")
     if years < 1:
         raise UsageError("demo: --years must be at least 1")
     folder = Path(folder)
-    _check_target(folder)
+    earlier = _check_target(folder)
     rng = np.random.default_rng(seed)
     start = _day(end_year - years + 1)
     end = _day(end_year, 12, 31)
-    data = folder / "data"
-    if (data / "noise_logs").is_dir():
-        shutil.rmtree(data / "noise_logs")
-    data.mkdir(parents=True, exist_ok=True)
 
     ppl = _people(rng, people, start, end)
     ev, hl, reviews, notices, refits, test_days = _audiograms(rng, ppl, start, end)
@@ -1486,31 +1585,36 @@ def write_demo(folder: Path | str, people: int = 250, years: int = 6, seed: int 
                                "about": notices["about"].to_numpy()})
     protectors_df = protector_catalogue()
 
-    _write_csv(people_df, data / "people.csv")
-    _write_csv(groups_df, data / "groups.csv")
-    _write_csv(noise, data / "noise.csv")
-    _write_csv(tasks, data / "tasks.csv")
-    _write_csv(audiograms, data / "audiograms.csv")
-    _write_csv(reviews_df, data / "reviews.csv")
-    _write_csv(notices_df, data / "notices.csv")
-    _write_csv(training, data / "training.csv")
-    _write_csv(protectors_df, data / "protectors.csv")
-    _write_csv(fits, data / "protector_fits.csv")
-    _write_csv(checks, data / "audiometers.csv")
-    log_dir = data / "noise_logs"
-    log_dir.mkdir(parents=True, exist_ok=True)
-    _write_logs(logs, log_dir)
-
     # hours worked in the review period: each person's days employed in it
     hire = ppl["hire"].to_numpy()
     leave = np.where(np.isnan(ppl["leave"].to_numpy()), end, ppl["leave"].to_numpy())
     p0 = _day(end_year)
     days_in = np.clip(np.minimum(leave, end) - np.maximum(hire, p0) + 1, 0, None)
     hours = float(np.round(days_in.sum() / 365.0 * HOURS_PER_PERSON_YEAR, -2))
-    (folder / "programme.yaml").write_text(programme_yaml(end_year, hours), encoding="utf-8", newline="\n")
-    _pages(folder, end_year)
+
+    _remove_earlier(folder, earlier)
+    folder.mkdir(parents=True, exist_ok=True)
+    out = _DemoWriter(folder)
+    try:
+        _write_csv(people_df, out, "data/people.csv")
+        _write_csv(groups_df, out, "data/groups.csv")
+        _write_csv(noise, out, "data/noise.csv")
+        _write_csv(tasks, out, "data/tasks.csv")
+        _write_csv(audiograms, out, "data/audiograms.csv")
+        _write_csv(reviews_df, out, "data/reviews.csv")
+        _write_csv(notices_df, out, "data/notices.csv")
+        _write_csv(training, out, "data/training.csv")
+        _write_csv(protectors_df, out, "data/protectors.csv")
+        _write_csv(fits, out, "data/protector_fits.csv")
+        _write_csv(checks, out, "data/audiometers.csv")
+        _write_logs(logs, out, "data/noise_logs")
+        out.write("programme.yaml", programme_yaml(end_year, hours).encode("utf-8"))
+        _pages(out, end_year)
+    finally:  # the files written so far stay removable by the next demo
+        out.write_manifest()
 
     counts = {
+        "headcount": people, "years": years, "files": len(out.digests),
         "people": len(people_df), "groups": len(groups_df), "noise": len(noise),
         "noise_logs": int(logs["measurement_id"].nunique()),
         "noise_log_rows": len(logs), "tasks": len(tasks),

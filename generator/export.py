@@ -18,7 +18,7 @@ from typing import Any, Callable
 import numpy as np
 import pandas as pd
 
-from .findings import HcpsiteError
+from .pipeline import Results
 from .pages.base import SiteContext
 from .privacy import redactor
 
@@ -62,11 +62,9 @@ EXPORTS: tuple[ExportSpec, ...] = (
 PERSON_COLUMNS = ("person_id",)
 
 
-def stage_frame(results: dict[str, Any], spec: ExportSpec) -> pd.DataFrame | None:
-    """Return the DataFrame a stage result holds for *spec*, or None when the stage did not run."""
-    res = results.get(spec.stage)
-    if res is None:
-        return None
+def stage_frame(results: Results, spec: ExportSpec) -> pd.DataFrame | None:
+    """Return the DataFrame a stage result holds for *spec*."""
+    res = getattr(results, spec.stage)
     for attr in spec.attributes:
         frame = getattr(res, attr, None)
         if callable(frame) and not isinstance(frame, pd.DataFrame):
@@ -185,7 +183,7 @@ def _json_ready(v: Any) -> Any:
 def summary_json(ctx: SiteContext) -> bytes:
     """Return the headline figures of the overview as sorted JSON."""
     prog = ctx.programme
-    comp = ctx.results.get("compliance")
+    comp = ctx.results.compliance
     data: dict[str, Any] = {
         "title": prog.config.title,
         "organisation": prog.config.organisation,
@@ -226,28 +224,25 @@ def export_files(ctx: SiteContext) -> dict[str, bytes]:
     return files
 
 
+#: marker file of an export folder: only a folder carrying it (or a new or empty one) is replaced.
+EXPORT_MARKER = ".hcpsite-export"
+EXPORT_MARKER_TEXT = b"This folder was made by hcpsite export and is replaced as a whole by each export.\n"
+
+
 def export_results(root: Path, to: Path, *, restricted: bool = False, strict: bool = False) -> list[Path]:
-    """Compute the programme at *root* and write the export files into folder *to*."""
-    from .build import prepare
+    """Compute the programme at *root* and write the export files into folder *to*.
+
+    The files are written as the site is: into a temporary sibling folder, swapped in at
+    the end. *to* must be new, empty or an earlier export (it carries ``EXPORT_MARKER``);
+    a restricted export is readable by the user only.
+    """
+    from .build import check_output, clean_stale, prepare, write_site
     to = Path(to)
-    root_r, to_r = Path(root).resolve(), to.resolve()
-    for name in ("data", "pages", "templates"):
-        try:
-            to_r.relative_to(root_r / name)
-            raise HcpsiteError(f"{to}: the export folder cannot lie inside the programme's {name}/ folder")
-        except ValueError:
-            pass
-    if to_r == root_r:
-        raise HcpsiteError(f"{to}: the export folder cannot be the programme folder")
-    if to.exists() and not to.is_dir():
-        raise HcpsiteError(f"{to}: exists and is not a folder")
-    ctx, _ = prepare(root, strict=strict, restricted=restricted)
+    check_output(root, to, marker=EXPORT_MARKER, what="export")
+    clean_stale(to.resolve(), EXPORT_MARKER)
+    ctx = prepare(root, strict=strict, restricted=restricted)
     files = export_files(ctx)
-    to.mkdir(parents=True, exist_ok=True)
-    written = []
-    for name in sorted(files):
-        path = to / name
-        path.write_bytes(files[name])
-        written.append(path)
+    write_site(files, to, private=restricted, marker=EXPORT_MARKER, marker_text=EXPORT_MARKER_TEXT)
+    written = [to / name for name in sorted(files)]
     log.info("exported %d files into %s", len(written), to)
     return written

@@ -611,10 +611,14 @@ def _group_dose(df: pd.DataFrame, key: str, col: str) -> pd.Series:
     return (df[col] * df["te_h"] / df["duration_h"]).groupby(df[key]).mean()
 
 
-def compute(programme: Programme, results: dict | None = None) -> ExposureResult:
-    """Compute every exposure figure of *programme* (see the module docstring)."""
+def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> ExposureResult:
+    """Compute every exposure figure of *programme* for each rule set (see the module docstring).
+
+    *rules* are the programme's rule sets, headline first (default: those of programme.yaml).
+    """
     cfg = programme.config
-    rules = rule_sets_for(cfg)
+    if rules is None:
+        rules = rule_sets_for(cfg)
     head_id = cfg.rules
     head = rules[head_id]
     findings: list[Finding] = []
@@ -682,8 +686,7 @@ def compute(programme: Programme, results: dict | None = None) -> ExposureResult
                                spec.criterion_level, spec.criterion_hours, spec.exchange_rate,
                                None if spec.exchange_rate == 3.0 else spec.threshold)
         src = f"dose_{rule.id}" if which is None else f"limit_dose_{rule.id}"
-        src = src if src in cur else None
-        if src is not None:
+        if src in cur:
             d = cur[src].to_numpy(float)
         jd = _group_dose(cur.assign(**{col: d}), "group", col).reindex(g.index).to_numpy(float)
         if len(task_rows):

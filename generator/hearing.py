@@ -45,7 +45,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from . import norms
+from . import audiometers, norms
+from .audiometers import AudiometerChecks
+from .exposure import ExposureResult
 from .findings import WARNING, Finding
 from .inputs.spec import AUDIO_FREQS
 from .model import Programme
@@ -60,7 +62,7 @@ NIOSH_FREQS = (500, 1000, 2000, 3000, 4000, 6000)
 NOISE_FREQS = (3000, 4000, 6000)
 
 #: Values this module uses, with where each comes from.
-PARAMETERS: dict[str, Any] = {
+SETTINGS: dict[str, Any] = {
     "sts_db": 10.0,  # 29 CFR 1910.95(g)(10)(i)
     "recordable_db": 25.0,  # 29 CFR 1904.10(a)
     "niosh_db": 15.0,  # DHHS (NIOSH) 98-126
@@ -83,6 +85,25 @@ PARAMETERS: dict[str, Any] = {
         "niosh": "DHHS (NIOSH) 98-126",
     },
 }
+
+#: The settings above for the methods page: (name, value, unit, source).
+PARAMETERS: list[tuple[str, Any, str, str]] = [
+    ("standard threshold shift: mean change at 2000, 3000 and 4000 Hz", SETTINGS["sts_db"], "dB",
+     "29 CFR 1910.95(g)(10)(i)"),
+    ("recordable: 2000/3000/4000 Hz average from audiometric zero", SETTINGS["recordable_db"], "dB HL",
+     "29 CFR 1904.10(a)"),
+    ("NIOSH shift at any of 500 to 6000 Hz", SETTINGS["niosh_db"], "dB", "DHHS (NIOSH) 98-126"),
+    ("sequential-pair indicator criterion", SETTINGS["indicator_db"], "dB", "ANSI/ASA S12.13 TR-2002"),
+    ("improvement that makes a baseline-revision candidate", SETTINGS["improvement_db"], "dB",
+     "the programme's own setting"),
+    ("refit due after the shift is determined", SETTINGS["refit_days"], "days",
+     "the programme's own setting (written notice within 21 days: 29 CFR 1910.95(g)(8)(i))"),
+    ("referral due after the shift is determined", SETTINGS["referral_days"], "days",
+     "the programme's own setting"),
+    ("confidence level of the exact binomial intervals", SETTINGS["ci_level"], "", "Clopper-Pearson (1934)"),
+    ("age bands compared with ISO 7029", ", ".join(str(a) for a in SETTINGS["age_bands"][:-1]) + " and over",
+     "years", "ISO 7029:2017 (bands: the programme's own setting)"),
+]
 
 #: Columns of hearing_results.csv (the contract), in order.
 HEARING_RESULTS_COLUMNS = (
@@ -487,8 +508,8 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     ag["shift_234_age_corrected"] = (diffs - corr).mean(axis=1)
     known = np.isfinite(ag["shift_234"].to_numpy()) & has_base.to_numpy()
     known_c = np.isfinite(ag["shift_234_age_corrected"].to_numpy()) & has_base.to_numpy()
-    ag["osha_sts"] = _nbool(_ge(ag["shift_234"], PARAMETERS["sts_db"]), known)
-    ag["osha_sts_age_corrected"] = _nbool(_ge(ag["shift_234_age_corrected"], PARAMETERS["sts_db"]), known_c)
+    ag["osha_sts"] = _nbool(_ge(ag["shift_234"], SETTINGS["sts_db"]), known)
+    ag["osha_sts_age_corrected"] = _nbool(_ge(ag["shift_234_age_corrected"], SETTINGS["sts_db"]), known_c)
     if age_correction:
         drive = ag["osha_sts_age_corrected"].where(ag["osha_sts_age_corrected"].notna(), ag["osha_sts"])
         ag["sts_basis"] = np.where(ag["osha_sts_age_corrected"].notna(), "age corrected",
@@ -514,8 +535,8 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
         for f in STS_FREQS], axis=1)
     praw = pdiffs.mean(axis=1)
     pcor = (pdiffs - pcorr).mean(axis=1)
-    raw_p = _nbool(_ge(praw, PARAMETERS["sts_db"]), np.isfinite(praw) & prev_has)
-    cor_p = _nbool(_ge(pcor, PARAMETERS["sts_db"]), np.isfinite(pcor) & prev_has)
+    raw_p = _nbool(_ge(praw, SETTINGS["sts_db"]), np.isfinite(praw) & prev_has)
+    cor_p = _nbool(_ge(pcor, SETTINGS["sts_db"]), np.isfinite(pcor) & prev_has)
     ag["_sts_vs_prev_base"] = (cor_p.where(cor_p.notna(), raw_p) if age_correction else raw_p).set_axis(ag.index)
     # NIOSH: >= 15 dB at the same frequency on this and the next test of the ear (the next
     # test compared with this test's baseline)
@@ -523,8 +544,8 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     conf = []
     for f in NIOSH_FREQS:
         d = (ag[f"hl_{f}"] - ag[f"base_hl_{f}"]).to_numpy()
-        hit = _ge(d, PARAMETERS["niosh_db"]) & has_base.to_numpy()
-        hit_p = _ge(ag[f"hl_{f}"].to_numpy(float) - pbase[f], PARAMETERS["niosh_db"]) & prev_has
+        hit = _ge(d, SETTINGS["niosh_db"]) & has_base.to_numpy()
+        hit_p = _ge(ag[f"hl_{f}"].to_numpy(float) - pbase[f], SETTINGS["niosh_db"]) & prev_has
         nxt = _nxt(hit_p, sn, False).astype(bool)
         s15.append(hit)
         conf.append(hit & nxt & sn)
@@ -615,7 +636,7 @@ def _status_and_cases(ag: pd.DataFrame) -> pd.DataFrame:
          "cancelled by retest", "confirmed by retest", "shift", "not computed (NR)"],
         default="")
     ag["shift_status"] = status
-    crit = active & ~nwr & _ge(ag["avg_234"], PARAMETERS["recordable_db"])
+    crit = active & ~nwr & _ge(ag["avg_234"], SETTINGS["recordable_db"])
     ag["recordable_criteria"] = crit
     first = pd.Series(crit).groupby([ag["person_id"], ag["ear"], ag["baseline_date"]], sort=False,
                                     dropna=False).cumsum()
@@ -629,18 +650,12 @@ def _status_and_cases(ag: pd.DataFrame) -> pd.DataFrame:
 # audiometer checks
 
 
-def _audiometer_status(programme: Programme) -> pd.DataFrame:
+def _audiometer_status(checks: AudiometerChecks) -> pd.DataFrame:
     """Return [audiometer_id, date, valid, reason] per test day (empty without audiometers.csv)."""
     cols = ["audiometer_id", "date", "valid", "reason"]
-    if not programme.has("audiometers"):
+    if not checks.recorded:
         return pd.DataFrame(columns=cols)
-    try:
-        from .compliance import audiometer_checks
-        from .rules import load_rule_set
-        status, _, _ = audiometer_checks(programme, load_rule_set(programme.config.rules, programme.config))
-    except Exception:  # the compliance stage is optional for this view  # noqa: BLE001
-        log.warning("audiometer checks could not be computed", exc_info=True)
-        return pd.DataFrame(columns=cols)
+    status = checks.status
     out = pd.DataFrame({"audiometer_id": status["audiometer_id"].astype(str), "date": _dates(status["date"]),
                         "valid": status["ok"].astype(bool), "reason": status["reason"].astype(str)})
     return out.reset_index(drop=True)
@@ -675,7 +690,7 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float) -> pd.D
     computed = rows[rows["sts_computed"].fillna(False).astype(bool)]
     latest_shift = computed.groupby(keys(computed), sort=True)["date"].max()
     persistent = set(n_det.index[n_det >= 2]) | set(keys(confirmed))
-    better = (rows["shift_234"] <= -PARAMETERS["improvement_db"]).astype(bool)
+    better = (rows["shift_234"] <= -SETTINGS["improvement_db"]).astype(bool)
     prev_better = better.groupby([rows["person_id"], rows["ear"]], sort=False).shift(1, fill_value=False)
     imp_rows = rows[better & prev_better.astype(bool)]
     impr = imp_rows.groupby(keys(imp_rows), sort=True)["date"].max()
@@ -694,7 +709,7 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float) -> pd.D
     cur["candidate_detail"] = np.where(
         is_pers, "shift in force on more than one test against this baseline: the reviewer may revise the "
                  "baseline (1910.95(g)(9)(i))",
-        np.where(is_impr, f"2000/3000/4000 Hz average {PARAMETERS['improvement_db']:g} dB or more better than "
+        np.where(is_impr, f"2000/3000/4000 Hz average {SETTINGS['improvement_db']:g} dB or more better than "
                           "baseline on two tests in a row: the reviewer may revise the baseline (1910.95(g)(9)(ii))",
                  ""))
     return cur[cols].sort_values(["person_id", "ear"], kind="mergesort").reset_index(drop=True)
@@ -724,7 +739,7 @@ def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
                as_of: pd.Timestamp) -> pd.DataFrame:
     """Return notices, retests, refits and referrals with their timeliness."""
     cfg = programme.config.audiometry
-    cl = PARAMETERS["clauses"]
+    cl = SETTINGS["clauses"]
     notices = programme.table("notices")
     notices = pd.DataFrame({"person_id": _col(notices, "person_id", "").astype(str),
                             "date": _dates(_col(notices, "date", pd.NaT)),
@@ -751,7 +766,7 @@ def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
         wr = act[~act["not_work_related"]]
         if not wr.empty:
             trig = wr["determined_on"]
-            due = trig + pd.Timedelta(days=int(PARAMETERS["refit_days"]))
+            due = trig + pd.Timedelta(days=int(SETTINGS["refit_days"]))
             done = _first_on_or_after(wr, fits, "date")
             parts.append(pd.DataFrame({"person_id": wr["person_id"], "ear": wr["ear"], "kind": "refit",
                                        "trigger_date": trig, "due_date": due, "done_date": done,
@@ -761,7 +776,7 @@ def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
         rows = ag.loc[ref["idx"].to_numpy()]
         rr = pd.DataFrame({"person_id": rows["person_id"].to_numpy(), "ear": rows["ear"].to_numpy(),
                            "trigger_date": _dates(ref["review_date"]).to_numpy()})
-        due = rr["trigger_date"] + pd.Timedelta(days=int(PARAMETERS["referral_days"]))
+        due = rr["trigger_date"] + pd.Timedelta(days=int(SETTINGS["referral_days"]))
         told = notices[notices["about"].str.contains("refer", case=False, regex=False)]
         done = _first_on_or_after(rr, told, "trigger_date")
         parts.append(pd.DataFrame({"person_id": rr["person_id"], "ear": rr["ear"], "kind": "referral",
@@ -795,7 +810,7 @@ def _fmt_date(s: pd.Series) -> pd.Series:
 def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start: pd.Timestamp,
              as_of: pd.Timestamp) -> pd.DataFrame:
     """Return the hearing action list (refits are listed by the compliance stage)."""
-    cl = PARAMETERS["clauses"]
+    cl = SETTINGS["clauses"]
     parts = []
     if not fu.empty:
         f = fu[fu["kind"].isin(["notice", "retest", "referral"]) & fu["status"].isin(["late", "missing", "not yet due"])
@@ -873,7 +888,7 @@ def _with_all(df: pd.DataFrame) -> pd.DataFrame:
 
 def _add_rates(p: pd.DataFrame) -> None:
     """Add STS and recordable rates with exact (Clopper-Pearson) intervals to a count table."""
-    level = PARAMETERS["ci_level"]
+    level = SETTINGS["ci_level"]
     for what in ("sts", "recordable"):
         p[f"{what}_rate"] = p[f"n_{what}"] / p["n_tested"]
         p[f"{what}_ci_low"], p[f"{what}_ci_high"] = clopper_pearson(p[f"n_{what}"], p["n_tested"], level)
@@ -939,7 +954,7 @@ def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     prev = np.vstack([np.full((1, vals.shape[1]), np.nan), vals[:-1]])
     diff = vals - prev
     complete = np.isfinite(diff).all(axis=1)
-    lim = PARAMETERS["indicator_db"]
+    lim = SETTINGS["indicator_db"]
     worse = (np.round(diff, 6) >= lim).any(axis=1)
     bw = (np.round(np.abs(diff), 6) >= lim).any(axis=1)
     groups = ag.drop_duplicates("person_id").set_index("person_id")["group"]
@@ -979,7 +994,7 @@ def _age_norms(ag: pd.DataFrame, as_of: pd.Timestamp) -> pd.DataFrame:
     lat = lat[lat["sex"].isin(["M", "F"]) & lat["age"].notna() & (lat["age"] >= 18)]
     if lat.empty:
         return pd.DataFrame(columns=cols)
-    edges = list(PARAMETERS["age_bands"])
+    edges = list(SETTINGS["age_bands"])
     labels = [f"{lo}-{hi - 1}" if hi < 200 else f"{lo}+" for lo, hi in zip(edges[:-1], edges[1:])]
     band = pd.cut(lat["age"], bins=edges, right=False, labels=labels)
     frames = []
@@ -1006,12 +1021,11 @@ def _age_norms(ag: pd.DataFrame, as_of: pd.Timestamp) -> pd.DataFrame:
     return out[cols]
 
 
-def _noise_expected(ag: pd.DataFrame, results: dict, as_of: pd.Timestamp) -> tuple[pd.DataFrame, list[str]]:
+def _noise_expected(ag: pd.DataFrame, ex: ExposureResult | None, as_of: pd.Timestamp) -> tuple[pd.DataFrame, list[str]]:
     """Return per group and frequency the ISO 1999:2013 expected change vs the observed change."""
     cols = ["group", "freq", "lex_8h", "n_ears", "n_nr_excluded", "mean_years", "nipts_at_mean_years",
             "expected_noise_change", "expected_age_change", "expected_change", "observed_change"]
     notes: list[str] = []
-    ex = results.get("exposure") if results else None
     people = getattr(ex, "people", None)
     groups = getattr(ex, "groups", None)
     if people is None or groups is None or not isinstance(people, pd.DataFrame):
@@ -1129,8 +1143,15 @@ def _findings(programme: Programme, ag: pd.DataFrame, baselines: pd.DataFrame, m
 # the stage
 
 
-def compute(programme: Programme, results: dict) -> HearingResult:
-    """Compute baselines, shifts, recordable cases, follow-ups and population views."""
+def compute(programme: Programme, *, exposure: ExposureResult | None = None,
+            checks: AudiometerChecks | None = None) -> HearingResult:
+    """Compute baselines, shifts, recordable cases, follow-ups and population views.
+
+    *exposure* gives the levels for the expected noise-induced change (none: not shown);
+    *checks* the audiometer checks of each test day (none: computed here).
+    """
+    if checks is None:
+        checks = audiometers.compute(programme)
     cfg = programme.config
     start = pd.Timestamp(cfg.period.start)
     as_of = pd.Timestamp(cfg.period.end)
@@ -1145,7 +1166,7 @@ def compute(programme: Programme, results: dict) -> HearingResult:
     ag = _apply_reviews(ag, decisions)
     ag = _status_and_cases(ag)
 
-    meters = _audiometer_status(programme)
+    meters = _audiometer_status(checks)
     if meters.empty:
         ag["valid_check"] = pd.Series(pd.NA, index=ag.index, dtype="boolean")
         ag["check_reason"] = ""
@@ -1171,7 +1192,7 @@ def compute(programme: Programme, results: dict) -> HearingResult:
     period_groups = _period_groups(py, start, as_of)
     indicators = _indicators(ag, last)
     age_norms = _age_norms(ag, as_of)
-    noise_expected, n_notes = _noise_expected(ag, results, as_of)
+    noise_expected, n_notes = _noise_expected(ag, exposure, as_of)
     notes.extend(n_notes)
     findings.extend(_findings(programme, ag, baselines, cfg.audiometry.min_quiet_hours))
     if ag.empty:

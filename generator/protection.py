@@ -31,6 +31,7 @@ import pandas as pd
 
 from .findings import Finding, WARNING
 from .inputs.spec import OCTAVE_BANDS
+from .exposure import ExposureResult
 from .model import Programme
 from .rules import RuleSet, load_rule_set
 
@@ -475,15 +476,14 @@ class ProtectionResult:
     period_end: pd.Timestamp | None = None
 
 
-def _exposure_people(programme: Programme, results: dict) -> pd.DataFrame:
+def _exposure_people(programme: Programme, exp: ExposureResult | None) -> pd.DataFrame:
     """Return person_id, group, lex_8h, twa, exposed from the exposure stage (or blanks)."""
     people = programme.table("people")
     start = pd.Timestamp(programme.config.period.start)
     if "leave_date" in people.columns:
         people = people[people["leave_date"].isna() | (people["leave_date"] >= start)]
     base = people[["person_id", "group"]].copy()
-    exp = results.get("exposure")
-    ep = getattr(exp, "people", None)
+    ep = None if exp is None else exp.people
     if ep is None or ep.empty:
         return base.assign(lex_8h=np.nan, twa=np.nan, exposed=False)
     cols = [c for c in ("person_id", "lex_8h", "twa", "exposed") if c in ep.columns]
@@ -493,39 +493,6 @@ def _exposure_people(programme: Programme, results: dict) -> pd.DataFrame:
             merged[c] = np.nan
     merged["exposed"] = merged.get("exposed", pd.Series(False, index=merged.index)).fillna(False).astype(bool)
     return merged
-
-
-def sts_people_from(results: dict, end: pd.Timestamp | None = None) -> set[str]:
-    """Return the people with a standard threshold shift (up to *end*) from the hearing stage, if it ran.
-
-    Reads ``results["hearing"].sts_people`` when present, else the rows of
-    ``results["hearing"].audiograms`` whose ``sts`` (shift in force) is true.
-    """
-    h = results.get("hearing")
-    if h is None:
-        return set()
-    s = getattr(h, "sts_people", None)
-    if s is not None:
-        return set(s)
-    ag = getattr(h, "audiograms", None)
-    if isinstance(ag, pd.DataFrame) and {"person_id", "sts"} <= set(ag.columns):
-        sel = ag["sts"].fillna(False).astype(bool)
-        if end is not None and "date" in ag.columns:
-            sel &= ag["date"].isna() | (ag["date"] <= end)
-        return set(ag.loc[sel, "person_id"])
-    return set()
-
-
-def apply_sts(results: dict, rules: RuleSet) -> ProtectionResult | None:
-    """Return the protection result judged again with the hearing stage's STS list (None if absent).
-
-    For a stage that runs after ``hearing`` (e.g. compliance): 29 CFR 1910.95(j)(3) lowers the
-    target to 85 dB for people with a standard threshold shift.
-    """
-    res = results.get("protection")
-    if res is None:
-        return None
-    return rejudge(res, rules, sts_people_from(results, res.period_end))
 
 
 def _groups(people: pd.DataFrame) -> pd.DataFrame:
@@ -612,12 +579,18 @@ def _findings(programme: Programme, cat: pd.DataFrame, cur: pd.DataFrame) -> lis
     return out
 
 
-def compute(programme: Programme, results: dict, rules: RuleSet | None = None) -> ProtectionResult:
-    """Estimate levels under each person's protector by every method and judge their adequacy."""
+def compute(programme: Programme, *, exposure: ExposureResult | None, sts_people: frozenset[str],
+            rules: RuleSet | None = None) -> ProtectionResult:
+    """Estimate levels under each person's protector by every method and judge their adequacy.
+
+    *sts_people* are the people with a standard threshold shift in force at the end of the
+    period (from the hearing stage, which runs first): they are judged against the rule
+    set's target after a shift.
+    """
     if rules is None:
         rules = load_rule_set(programme.config.rules, programme.config)
     end = pd.Timestamp(programme.config.period.end)
-    people = _exposure_people(programme, results)
+    people = _exposure_people(programme, exposure)
     people = people.sort_values("person_id", kind="stable").reset_index(drop=True)
     cat = catalogue(programme.table("protectors"))
     cur = current_protectors(programme.table("protector_fits"), cat, end)
@@ -643,7 +616,7 @@ def compute(programme: Programme, results: dict, rules: RuleSet | None = None) -
     df["method"] = gov["method"].where(df["protector_id"] != "", "")
     df["protected_level"] = gov["protected_level"]
     df["osha_50_level"] = lv["nrr-50"]
-    judged = judge(df, rules, sts_people_from(results, end))
+    judged = judge(df, rules, set(sts_people))
     out_people = judged[PEOPLE_COLUMNS + ["issue_date", "n_protectors", "osha_50_level", "target", "after_sts",
                                           "en458", "exposed", "spectrum_source"]].copy()
     out_people["n_protectors"] = out_people["n_protectors"].fillna(0).astype(int)
@@ -661,13 +634,3 @@ def compute(programme: Programme, results: dict, rules: RuleSet | None = None) -
     return ProtectionResult(people=out_people, groups=_groups(out_people), methods=methods, protectors=cat,
                             actions=_actions(judged, rules), findings=findings, rules_id=rules.id,
                             period_end=end)
-
-
-def rejudge(result: ProtectionResult, rules: RuleSet, sts_people: set[str]) -> ProtectionResult:
-    """Return *result* judged again with the post-STS target for *sts_people* (for the hearing stage)."""
-    judged = judge(result.people, rules, sts_people, result.over_below)
-    return ProtectionResult(people=judged[result.people.columns.tolist()], groups=_groups(judged),
-                            methods=result.methods, protectors=result.protectors,
-                            actions=_actions(judged, rules), findings=list(result.findings),
-                            rules_id=result.rules_id, over_below=result.over_below,
-                            period_end=result.period_end)

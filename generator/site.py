@@ -18,12 +18,13 @@ from typing import Any, Iterable
 from urllib.parse import urlsplit
 
 import jinja2
+from jinja2.sandbox import SandboxedEnvironment
 import markdown as md
 import nh3
 import plotly.io as pio
 from markupsafe import Markup
 
-from . import clock
+from . import charts, clock
 from . import __version__
 from .pages import NARRATIVE, SECTIONS, section_title
 from .pages.base import Chart, Page, SiteContext
@@ -61,18 +62,42 @@ ALLOWED_ATTRIBUTES = {
 LINK_SCHEMES = frozenset({"http", "https", "mailto"})
 
 
+#: characters a browser drops from anywhere in a URL (tab, line feed, carriage return)
+_URL_DROPPED = re.compile(r"[\t\n\r]")
+#: characters a browser strips from both ends of a URL (C0 controls and space)
+_URL_TRIM = "".join(chr(i) for i in range(0x21))
+
+
+def _browser_url(value: str) -> str:
+    """Return *value* as a browser reads it: tabs and newlines dropped, ends trimmed, ``\\`` as ``/``."""
+    return _URL_DROPPED.sub("", value).strip(_URL_TRIM).replace("\\", "/")
+
+
+def site_relative(value: str) -> bool:
+    """True when *value* refers to a file inside the site: no scheme, no host, no leading ``/``, no ``..``."""
+    url = _browser_url(value)
+    if not url or url.startswith("/") or urlsplit(url).scheme:
+        return False
+    path = url.split("#", 1)[0].split("?", 1)[0]
+    return ".." not in path.split("/")
+
+
 def _attribute_filter(tag: str, attr: str, value: str) -> str | None:
-    """Keep relative links and images; drop protocol-relative URLs and remote images."""
-    if attr in ("href", "src"):
-        v = value.strip()
-        if v.startswith("//") or v.startswith("\\"):
-            return None
-        scheme = urlsplit(v).scheme.lower()
-        if attr == "src" and scheme:
-            return None  # an image must come with the site, never from another host
-        if scheme and scheme not in LINK_SCHEMES:
-            return None
-    return value
+    """Keep links to anchors, to files of the site and to web pages (href only); drop the rest.
+
+    An image (``src``) must be a file of the site: a reference with a scheme, a host or a
+    leading ``/`` or ``\\`` (which browsers read as ``//``, another host) is removed.
+    """
+    if attr not in ("href", "src"):
+        return value
+    url = _browser_url(value)
+    if attr == "href" and url.startswith("#"):
+        return url
+    if site_relative(url):
+        return url
+    if attr == "href" and urlsplit(url).scheme.lower() in LINK_SCHEMES and not url.startswith("/"):
+        return url
+    return None
 
 
 def sanitise_html(html: str) -> str:
@@ -126,7 +151,7 @@ def make_environment(template_dir: Path | None = None) -> jinja2.Environment:
     if template_dir is not None and Path(template_dir).is_dir():
         loaders.append(jinja2.FileSystemLoader(str(template_dir)))
     loaders.append(jinja2.FileSystemLoader(str(templates_dir())))
-    env = jinja2.Environment(
+    env = SandboxedEnvironment(
         loader=jinja2.ChoiceLoader(loaders),
         autoescape=jinja2.select_autoescape(default=True, default_for_string=True),
         undefined=jinja2.StrictUndefined,
@@ -151,8 +176,7 @@ source_date = clock.source_date
 
 def chart_html(chart: Chart) -> str:
     """Return the plot div and its script for *chart* (plotly.js is loaded by the page)."""
-    return pio.to_html(chart.figure, include_plotlyjs=False, full_html=False, div_id=chart.id,
-                       default_height=chart.height, config=CHART_CONFIG)
+    return charts.figure_html(chart.figure, chart.id, chart.height, CHART_CONFIG)
 
 
 @dataclass

@@ -13,7 +13,7 @@ from types import SimpleNamespace
 import pandas as pd
 import pytest
 
-from generator import compliance
+from generator import compliance, trends
 from generator.config import Config, Period
 from generator.findings import Findings
 from generator.model import Programme
@@ -88,7 +88,7 @@ def test_baseline_day_182_vs_184(days: int, expected: str) -> None:
     # first exposure 2025-04-01; six calendar months later is 2025-10-01 = day 183
     first = D("2025-04-01")
     prog = make(ONE, audiograms=aud((first + pd.Timedelta(days=days)).strftime("%Y-%m-%d"), "baseline"))
-    res = compliance.compute(prog, {"exposure": exposed("2025-04-01")})
+    res = compliance.compute(prog, **{"exposure": exposed("2025-04-01")})
     assert person(res)["baseline_due"] == D("2025-10-01")  # 29 CFR 1910.95(g)(5)(i)
     assert person(res)["baseline_status"] == expected  # 29 CFR 1910.95(g)(5)(i)
 
@@ -96,10 +96,10 @@ def test_baseline_day_182_vs_184(days: int, expected: str) -> None:
 def test_baseline_missing_is_overdue_or_due_soon() -> None:
     # 29 CFR 1910.95(g)(5)(i): due 6 months after first exposure; as of 2025-12-31
     res = compliance.compute(make(ONE, training=[{"person_id": "E1", "date": "2025-06-01"}]),
-                             {"exposure": exposed("2025-06-29")})
+                             **{"exposure": exposed("2025-06-29")})
     assert person(res)["baseline_status"] == "overdue"  # due 2025-12-29 < 2025-12-31
     res = compliance.compute(make(ONE, training=[{"person_id": "E1", "date": "2025-07-01"}]),
-                             {"exposure": exposed("2025-07-15")})
+                             **{"exposure": exposed("2025-07-15")})
     assert person(res)["baseline_status"] == "due_soon"  # due 2026-01-15, within 60 days
     kinds = set(res.actions["kind"])
     assert "baseline audiogram" in kinds
@@ -110,11 +110,11 @@ def test_baseline_missing_is_overdue_or_due_soon() -> None:
 def test_baseline_mobile_van_one_year() -> None:
     # 29 CFR 1910.95(g)(5)(ii): one year with a mobile test van; day 300 is then on time
     prog = make(ONE, audiograms=aud("2025-01-27", "baseline"), mobile_van=True)
-    res = compliance.compute(prog, {"exposure": exposed("2024-04-02")})
+    res = compliance.compute(prog, **{"exposure": exposed("2024-04-02")})
     assert person(res)["baseline_due"] == D("2025-04-02")
     assert person(res)["baseline_status"] == "on_time"
     prog = make(ONE, audiograms=aud("2025-01-27", "baseline"), mobile_van=False)
-    res = compliance.compute(prog, {"exposure": exposed("2024-04-02")})
+    res = compliance.compute(prog, **{"exposure": exposed("2024-04-02")})
     assert person(res)["baseline_status"] == "late"  # six months without the van
 
 
@@ -132,7 +132,7 @@ def test_calendar_months_end_of_month() -> None:
 def test_annual_audiogram_364_vs_366(days: int, expected: str) -> None:
     last = (D("2025-12-31") - pd.Timedelta(days=days)).strftime("%Y-%m-%d")
     prog = make(ONE, audiograms=aud("2020-06-01", "baseline") + aud(last))
-    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    res = compliance.compute(prog, **{"exposure": exposed("2020-01-01")})
     assert person(res)["audiogram_status"] == expected  # 29 CFR 1910.95(g)(6)
     assert bool(person(res)["current_audiogram"]) is (days <= 365)
 
@@ -141,16 +141,16 @@ def test_annual_audiogram_across_29_february() -> None:
     # 29 CFR 1910.95(g)(6) "at least annually" = 12 calendar months: 366 days on time across 29 Feb
     prog = make(ONE, audiograms=aud("2020-06-01", "baseline") + aud("2023-03-01"), end="2024-03-01",
                 start="2023-03-02")
-    assert person(compliance.compute(prog, {"exposure": exposed("2020-01-01")}))["audiogram_status"] == "due_soon"
+    assert person(compliance.compute(prog, **{"exposure": exposed("2020-01-01")}))["audiogram_status"] == "due_soon"
     prog = make(ONE, audiograms=aud("2020-06-01", "baseline") + aud("2023-03-01"), end="2024-03-02",
                 start="2023-03-03")
-    assert person(compliance.compute(prog, {"exposure": exposed("2020-01-01")}))["audiogram_status"] == "overdue"
+    assert person(compliance.compute(prog, **{"exposure": exposed("2020-01-01")}))["audiogram_status"] == "overdue"
 
 
 def test_annual_audiogram_not_due_for_unexposed_person() -> None:
     # 29 CFR 1910.95(g)(6) applies to employees at or above the action level only
     prog = make(ONE, audiograms=aud("2020-06-01", "baseline"))
-    res = compliance.compute(prog, {"exposure": exposure([{"person_id": "E1", "group": "G1", "exposed": False}])})
+    res = compliance.compute(prog, **{"exposure": exposure([{"person_id": "E1", "group": "G1", "exposed": False}])})
     assert person(res)["audiogram_status"] == "not_required"
     assert person(res)["training_status"] == "not_required"  # 29 CFR 1910.95(k)(1): exposed employees
     assert not bool(person(res)["protector_required"])  # 29 CFR 1910.95(i)(1)
@@ -162,16 +162,16 @@ def test_exit_audiogram_for_leaver() -> None:
     # common practice: an exit audiogram when employment ends
     people = [{"person_id": "E1", "group": "G1", "hire_date": "2020-01-01", "leave_date": "2025-09-30"}]
     prog = make(people, audiograms=aud("2020-02-01", "baseline") + aud("2025-03-01"))
-    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    res = compliance.compute(prog, **{"exposure": exposed("2020-01-01")})
     assert person(res)["exit_status"] == "overdue"
     assert person(res)["audiogram_status"] == "not_required"  # left before the next annual one
     prog = make(people, audiograms=aud("2020-02-01", "baseline") + aud("2025-03-01") + aud("2025-09-20", "exit"))
-    assert person(compliance.compute(prog, {"exposure": exposed("2020-01-01")}))["exit_status"] == "done"
+    assert person(compliance.compute(prog, **{"exposure": exposed("2020-01-01")}))["exit_status"] == "done"
 
 
 def test_leaver_before_period_out_of_scope() -> None:
     people = ONE + [{"person_id": "E2", "group": "G1", "hire_date": "2010-01-01", "leave_date": "2024-12-31"}]
-    res = compliance.compute(make(people), {"exposure": exposure([
+    res = compliance.compute(make(people), **{"exposure": exposure([
         {"person_id": "E1", "group": "G1", "exposed": True, "first_exposed_date": "2020-01-01"},
         {"person_id": "E2", "group": "G1", "exposed": True, "first_exposed_date": "2010-01-01"}])})
     assert res.people["person_id"].tolist() == ["E1"]
@@ -186,7 +186,7 @@ def test_training_364_vs_366(days: int, expected: str) -> None:
     last = (D("2025-12-31") - pd.Timedelta(days=days)).strftime("%Y-%m-%d")
     prog = make(ONE, audiograms=aud("2020-06-01", "baseline") + aud("2025-06-01"),
                 training=[{"person_id": "E1", "date": last}])
-    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    res = compliance.compute(prog, **{"exposure": exposed("2020-01-01")})
     assert person(res)["training_status"] == expected  # 29 CFR 1910.95(k)(2)
     tg = res.training_groups.set_index("group").loc["G1"]
     assert tg["n_required"] == 1
@@ -200,7 +200,7 @@ def test_training_completion_per_group() -> None:
                     "first_exposed_date": "2020-01-01"} for i in range(1, 6)])
     training = [{"person_id": "E1", "date": "2025-05-01"}, {"person_id": "E2", "date": "2024-05-01"},
                 {"person_id": "E4", "date": "2025-02-01"}]
-    res = compliance.compute(make(people, training=training), {"exposure": ex})
+    res = compliance.compute(make(people, training=training), **{"exposure": ex})
     tg = res.training_groups.set_index("group")
     # 1910.95(k)(2): trained within 12 months: G1 1 of 3, G2 1 of 2
     assert tg.loc["G1", "n_trained"] == 1 and tg.loc["G1", "n_required"] == 3
@@ -222,7 +222,7 @@ def test_enrolment_mismatches_both_ways() -> None:
                   groups=[{"group": "G1", "exposed": False}, {"group": "G2", "exposed": False},
                           {"group": "G3", "exposed": True}])
     prog = make(people, training=[{"person_id": "E2", "date": "2025-03-01"}])
-    res = compliance.compute(prog, {"exposure": ex})
+    res = compliance.compute(prog, **{"exposure": ex})
     mm = dict(zip(res.enrolment["person_id"], res.enrolment["mismatch"]))
     assert mm == {"E1": "exposed_no_records", "E4": "exposed_no_records", "E2": "records_not_exposed"}
     st = res.people.set_index("person_id")
@@ -236,7 +236,7 @@ def test_enrolment_mismatches_both_ways() -> None:
 def test_person_without_exposure_row_uses_group() -> None:
     people = [{"person_id": "E1", "group": "G3"}]
     ex = exposure([], groups=[{"group": "G3", "exposed": True}])
-    res = compliance.compute(make(people), {"exposure": ex})
+    res = compliance.compute(make(people), **{"exposure": ex})
     assert bool(person(res)["must_enrol"])
 
 
@@ -251,7 +251,7 @@ def test_protector_coverage_and_fit_tests() -> None:
     fits = [{"person_id": "E1", "protector_id": "P1", "date": "2024-01-01", "par": 18.0},
             {"person_id": "E2", "protector_id": "P1", "date": "2025-01-01", "par": None},
             {"person_id": "E3", "protector_id": "P2", "date": "2026-02-01", "par": 20.0}]  # after the period
-    res = compliance.compute(make(people, fits=fits), {"exposure": ex})
+    res = compliance.compute(make(people, fits=fits), **{"exposure": ex})
     pg = res.protector_groups.set_index("group").loc["G1"]
     assert pg["n_with_protector"] == 2 and pg["n_fit_tested"] == 1
     assert res.summary["protector_share"] == 0.5 and res.summary["fit_test_share"] == 0.25
@@ -269,7 +269,7 @@ def test_refits_from_hearing_followups() -> None:
          "due_date": D("2024-03-22"), "done_date": D("2024-03-10"), "status": "on time", "clause": ""},
         {"person_id": "E1", "ear": "L", "kind": "notice", "trigger_date": D("2025-03-01"),
          "due_date": D("2025-03-22"), "done_date": pd.NaT, "status": "overdue", "clause": "x"}])
-    res = compliance.compute(make(ONE), {"exposure": exposed("2020-01-01"),
+    res = compliance.compute(make(ONE), **{"exposure": exposed("2020-01-01"),
                                          "hearing": SimpleNamespace(audiograms=pd.DataFrame(), followups=fu,
                                                                     actions=pd.DataFrame(), cases=pd.DataFrame())})
     assert len(res.refits) == 3
@@ -321,7 +321,7 @@ def _checks(test_day: str, acoustic: str, exhaustive: str, functional: bool = Tr
 
 def _status(test_day: str, **kw: object) -> pd.Series:
     prog = make(ONE, audiograms=aud(test_day, meter="A1"), audiometers=_checks(test_day, **kw))
-    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    res = compliance.compute(prog, **{"exposure": exposed("2020-01-01")})
     assert len(res.audiometer_status) == 1
     return res.audiometer_status.iloc[0], res
 
@@ -358,7 +358,7 @@ def test_failed_check_does_not_count_and_booth_over_limit_flags() -> None:
               {"audiometer_id": "A1", "date": "2025-01-10", "check": "exhaustive", "result": "pass"},
               _booth({500: 41.0, 1000: 30.0, 2000: 30.0, 4000: 30.0, 8000: 30.0}, "2025-01-10")]
     prog = make(ONE, audiograms=aud(day, meter="A1"), audiometers=checks)
-    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    res = compliance.compute(prog, **{"exposure": exposed("2020-01-01")})
     st = res.audiometer_status.iloc[0]
     assert not bool(st["functional_ok"])
     assert not bool(st["booth_ok"])  # 41 dB at 500 Hz > 40 dB, App. D Table D-1
@@ -395,8 +395,9 @@ def test_action_list_merges_stages_and_sorts() -> None:
                   actions=ex_actions)
     res = compliance.compute(make(people, fits=[{"person_id": p, "protector_id": "P1", "date": "2025-01-01"}
                                                 for p in ("E1", "E2")]),
-                             {"exposure": ex, "protection": SimpleNamespace(actions=prot_actions),
-                              "hearing": SimpleNamespace(actions=hear_actions)})
+                             **{"exposure": ex, "protection": SimpleNamespace(actions=prot_actions),
+                              "hearing": SimpleNamespace(actions=hear_actions, audiograms=pd.DataFrame(),
+                                                         followups=pd.DataFrame())})
     a = res.actions
     assert list(a.columns[:7]) == ["subject", "subject_type", "kind", "detail", "due_date", "clause", "source"]
     due = a["due_date"]
@@ -446,8 +447,10 @@ def test_trends_per_year_and_changes() -> None:
         {"person_id": "E2", "ear": "L", "date": D("2025-06-01"), "sts": True, "recordable": False},
         {"person_id": "E1", "ear": "L", "date": D("2024-05-01"), "sts": False, "recordable": False}]),
         followups=pd.DataFrame(), actions=pd.DataFrame())
-    res = compliance.compute(make(people, audiograms=audios), {"exposure": ex, "hearing": hearing})
-    t = res.trends.set_index("year")
+    prog = make(people, audiograms=audios)
+    res = compliance.compute(prog, **{"exposure": ex, "hearing": hearing})
+    tr = trends.compute(prog, compliance=res, exposure=ex, hearing=hearing)
+    t = tr.table.set_index("year")
     assert t.index.tolist() == [2023, 2024, 2025]
     # 29 CFR 1910.95(g)(6): current = within 12 months of 31 Dec
     assert t.loc[2023, "current_audiogram_share"] == 1.0
@@ -457,14 +460,14 @@ def test_trends_per_year_and_changes() -> None:
     # bands from the measurements up to each year end: E2 takes the group's latest
     assert t.loc[2024, "band: 85–90"] == 2
     assert t.loc[2025, "band: at or above 90"] == 2
-    assert "Share with a current audiogram rose from 50 % in 2024 to 100 % in 2025." in res.changes
+    assert "Share with a current audiogram rose from 50 % in 2024 to 100 % in 2025." in tr.changes
     assert res.summary["sts_this_period"] == 1
     assert res.summary["current_audiogram_share"] == t.loc[2025, "current_audiogram_share"]
 
 
 def test_summary_is_json_with_sorted_keys() -> None:
     res = compliance.compute(make(ONE, training=[{"person_id": "E1", "date": "2025-01-01"}]),
-                             {"exposure": exposed("2020-01-01")})
+                             **{"exposure": exposed("2020-01-01")})
     text = json.dumps(res.summary, sort_keys=False)
     assert list(res.summary) == sorted(res.summary)
     back = json.loads(text)
@@ -475,7 +478,7 @@ def test_summary_is_json_with_sorted_keys() -> None:
 
 
 def test_missing_stages_do_not_break() -> None:
-    res = compliance.compute(make(ONE), {})
+    res = compliance.compute(make(ONE))
     assert res.people["must_enrol"].sum() == 0
     assert res.notes  # says why nobody is judged exposed
 
@@ -485,17 +488,17 @@ def test_eu_rule_set_without_intervals() -> None:
     rule = load_rule_set("eu-2003-10")
     assert rule.audiogram_interval_months is None
     prog = make(ONE, audiograms=aud("2020-06-01", "baseline"), rules="eu-2003-10")
-    res = compliance.compute(prog, {"exposure": exposed("2020-01-01")})
+    res = compliance.compute(prog, **{"exposure": exposed("2020-01-01")})
     assert person(res)["audiogram_status"] == "not_required"
     assert any("interval" in n for n in res.notes)
     # no time limit for the baseline either: a person without audiograms is not "overdue"
-    res = compliance.compute(make(ONE, rules="eu-2003-10"), {"exposure": exposed("2020-01-01")})
+    res = compliance.compute(make(ONE, rules="eu-2003-10"), **{"exposure": exposed("2020-01-01")})
     assert person(res)["baseline_status"] == "not_required"
     assert res.actions.empty or "baseline audiogram" not in set(res.actions["kind"])
 
 
 def test_no_people_at_all() -> None:
-    res = compliance.compute(make([]), {"exposure": exposure([])})
+    res = compliance.compute(make([]), **{"exposure": exposure([])})
     assert res.people.empty and res.actions.empty
     assert res.summary["current_audiogram_share"] is None
 
@@ -521,12 +524,12 @@ def test_programme_folder_baseline_boundary(tmp_path: Path) -> None:
     })
     prog = load_programme(root, today=dt.date(2026, 1, 1))
     assert not prog.findings.has_errors()
-    results, _ = run_stages(prog)
-    st = results["compliance"].people.set_index("person_id")
+    results = run_stages(prog)
+    st = results.compliance.people.set_index("person_id")
     assert st.loc["E001", "baseline_status"] == "late"  # 29 CFR 1910.95(g)(5)(i)
     assert st.loc["E002", "baseline_status"] == "on_time"  # 29 CFR 1910.95(g)(5)(i)
     assert st.loc["E001", "training_status"] == "overdue"  # 29 CFR 1910.95(k): never trained
-    acts = results["compliance"].actions
+    acts = results.compliance.actions
     assert set(acts.loc[acts["subject"].eq("E001"), "kind"]) >= {"training", "protector"}
 
 
@@ -591,7 +594,7 @@ def _stages(tmp_path: Path, files: dict, config: dict | None = None) -> tuple[Pr
     root = make_programme(tmp_path / "p", files=files, config=config)
     prog = load_programme(root, today=dt.date(2026, 1, 1))
     assert not prog.findings.has_errors(), [f.format() for f in prog.findings.errors]
-    results, _ = run_stages(prog)
+    results = run_stages(prog)
     return prog, results
 
 
@@ -608,7 +611,7 @@ def test_no_refit_action_for_a_leaver(tmp_path: Path) -> None:
              {"person_id": "E002", "date": "2025-03-03", "ear": "R", "kind": "periodic", **HL_SHIFT}]
     _, results = _stages(tmp_path, {"people.csv": people, "audiograms.csv": auds},
                          config={"audiometry": {"age_correction": False}})
-    comp = results["compliance"]
+    comp = results.compliance
     refits = comp.refits.set_index("person_id")
     assert refits.loc["E001", "status"] == "not applicable (left)"
     assert refits.loc["E002", "status"] == "missing"
@@ -624,7 +627,7 @@ def test_refit_after_leave_date_dropped_without_hearing_mark() -> None:
     people = [{"person_id": "E1", "group": "G1", "hire_date": "2020-01-01", "leave_date": "2025-03-10"}]
     fu = pd.DataFrame([{"person_id": "E1", "ear": "L", "kind": "refit", "trigger_date": D("2025-03-01"),
                         "due_date": D("2025-03-22"), "done_date": pd.NaT, "status": "missing", "clause": ""}])
-    res = compliance.compute(make(people), {"exposure": exposed("2020-01-01"),
+    res = compliance.compute(make(people), **{"exposure": exposed("2020-01-01"),
                                             "hearing": SimpleNamespace(audiograms=pd.DataFrame(), followups=fu,
                                                                        actions=pd.DataFrame(),
                                                                        cases=pd.DataFrame())})
@@ -644,8 +647,8 @@ def test_first_record_year_ignores_audiometer_checks(tmp_path: Path) -> None:
              "audiograms.csv": [{"person_id": "E001", "date": d, "ear": "R", "kind": k, "audiometer_id": "AU1",
                                  **HL10} for d, k in (("2023-03-01", "baseline"), ("2025-03-01", "periodic"))]}
     prog, results = _stages(tmp_path, files)
-    assert compliance._first_record_year(prog) == 2023
-    assert results["compliance"].trends["year"].tolist() == [2023, 2024, 2025]
+    assert trends._first_record_year(prog) == 2023
+    assert results.trends.table["year"].tolist() == [2023, 2024, 2025]
 
 
 def test_programme_page_tells_missing_audiometer_from_invalid_check(tmp_path: Path) -> None:
@@ -679,13 +682,13 @@ def _many(n: int) -> tuple[Programme, compliance.ComplianceResult]:
     ex = exposure([{"person_id": f"E{i:04d}", "group": "G1", "exposed": True,
                     "first_exposed_date": str(dt.date(2024, 1, 1) + dt.timedelta(days=i))} for i in range(n)])
     prog = make(people)
-    return prog, compliance.compute(prog, {"exposure": ex})
+    return prog, compliance.compute(prog, **{"exposure": ex})
 
 
 def _page_ctx(prog: Programme, res: compliance.ComplianceResult, restricted: bool = False):
     from generator.pages.base import SiteContext
     rule = load_rule_set("osha-1910.95")
-    return SiteContext(programme=prog, results={"compliance": res}, rules={rule.id: rule},
+    return SiteContext(programme=prog, results=SimpleNamespace(compliance=res), rules={rule.id: rule},
                        code=lambda p: "P-" + p[1:] + "Q", suppressed_groups=frozenset(), restricted=restricted)
 
 

@@ -91,9 +91,17 @@ def test_rewrite_replaces_old_logs(tmp_path: Path) -> None:
     root = tmp_path / "prog"
     demo.write_demo(root, people=40, years=3, seed=1)
     stale = root / "data" / "noise_logs" / "NM-1999-99999.csv"
+    first = {p.name for p in (root / "data" / "noise_logs").glob("*.csv")}
+    demo.write_demo(root, people=40, years=2, seed=2)  # the first demo's logs are removed
+    logs = {p.name for p in (root / "data" / "noise_logs").glob("*.csv")}
+    assert first - logs, "the two demos should differ in their logs"
+    listed = (root / demo.MANIFEST).read_text(encoding="utf-8")
+    assert logs and all(f"data/noise_logs/{name}" in listed for name in logs)
+    # a log the demo did not write is kept and the demo refuses
     stale.write_text("start,laeq\n", encoding="utf-8")
-    demo.write_demo(root, people=40, years=3, seed=1)
-    assert not stale.exists()
+    with pytest.raises(HcpsiteError):
+        demo.write_demo(root, people=40, years=3, seed=1)
+    assert stale.read_text(encoding="utf-8") == "start,laeq\n"
 
 
 # ---------------------------------------------------------------------------------------
@@ -384,8 +392,7 @@ def staged(fresh: Path) -> tuple:
     from generator.build import compute, load
 
     prog = load(fresh)
-    results, skipped = compute(prog)
-    assert skipped == []
+    results = compute(prog)
     return prog, results
 
 
@@ -425,7 +432,7 @@ def test_quiet_period_lapses_are_few(fresh: Path) -> None:
 
 def test_followups_are_mostly_on_time(staged: tuple) -> None:
     _, results = staged
-    fu = results["hearing"].followups
+    fu = results.hearing.followups
     # 29 CFR 1910.95(g)(7)(ii) retest within 30 days, (g)(8)(i) notice within 21 days,
     # (g)(8)(ii) refit: judged by the hearing stage against its due dates
     judged = fu[fu["status"] != "not yet due"]
@@ -433,7 +440,7 @@ def test_followups_are_mostly_on_time(staged: tuple) -> None:
     assert 0.85 <= on_time <= 0.97
     review_year = fu[fu["due_date"].dt.year == 2025]
     assert (review_year["status"] == "on time").mean() >= 0.8
-    actions = results["compliance"].actions
+    actions = results.compliance.actions
     kinds = set(actions["kind"])
     # each kind of follow-up lapse shows once or a few times on the action list
     assert {"notice late", "notice missing", "retest missing", "refit"} <= kinds
@@ -443,7 +450,7 @@ def test_followups_are_mostly_on_time(staged: tuple) -> None:
 
 def test_protectors_match_the_exposure(staged: tuple) -> None:
     _, results = staged
-    people = results["protection"].people
+    people = results.protection.people
     judged = people[people["adequacy"].isin(["adequate", "insufficient", "over-protected"])]
     counts = judged["adequacy"].value_counts()
     assert counts.get("adequate", 0) >= 0.9 * len(judged)
@@ -457,7 +464,7 @@ def test_protectors_match_the_exposure(staged: tuple) -> None:
 
 def test_trends_cover_the_record_years(staged: tuple) -> None:
     _, results = staged
-    trends = results["compliance"].trends
+    trends = results.trends.table
     assert trends["year"].tolist() == list(range(2020, 2026))
 
 

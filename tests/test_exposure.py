@@ -155,7 +155,7 @@ def test_annex_e_through_compute(tmp_path: Path) -> None:
               "duration_h": 2, "laeq": L} for i, L in enumerate(ANNEX_E)]
     p = _load(tmp_path, {"people.csv": people, "groups.csv": [{"group": "LINE", "name": "Line", "shift_hours": 7.5}],
                          "noise.csv": noise}, config={"rules": "eu-2003-10", "compare_rules": ["osha-1910.95"]})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     g = r.groups.set_index("group").loc["LINE"]
     # ISO 9612:2009 Annex E
     assert g["strategy"] == "job" and g["n_samples"] == 6 and g["n_people"] == 18
@@ -179,7 +179,7 @@ def test_annex_e_through_compute(tmp_path: Path) -> None:
 def test_annex_d_through_compute(tmp_path: Path) -> None:
     p = _load(tmp_path, {"people.csv": [{"person_id": "E001", "group": "WELD"}],
                          "groups.csv": [{"group": "WELD", "name": "Welding"}], "tasks.csv": _annex_d_rows()})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     g = r.groups.set_index("group").loc["WELD"]
     # ISO 9612:2009 Annex D, case (b) with the duration term
     assert g["strategy"] == "task"
@@ -215,7 +215,7 @@ def test_log_dose_equals_steady_dose_for_constant_log(tmp_path: Path) -> None:
              {"measurement_id": "S1", "date": "2025-03-10", "kind": "personal", "person_id": "E002",
               "duration_h": 4, "laeq": 92.0}]
     p = _load(tmp_path, {"noise.csv": noise, "noise_logs/L1.csv": _log_csv([92.0] * 240)})
-    m = ex.compute(p, {}).measurements.set_index("measurement_id")
+    m = ex.compute(p).measurements.set_index("measurement_id")
     assert m.loc["L1", "basis"] == "log" and m.loc["S1", "basis"] == "steady_level"
     for col in ("osha_dose_pct", "osha_twa", "osha_pel_dose_pct", "niosh_dose_pct", "niosh_twa", "lex_8h",
                 "dose_eu-2003-10"):
@@ -231,7 +231,7 @@ def test_log_dose_is_exact_for_varying_levels(tmp_path: Path) -> None:
     noise = [{"measurement_id": "L1", "date": "2025-03-10", "kind": "personal", "person_id": "E001",
               "duration_h": 3, "laeq": 91.6}]
     p = _load(tmp_path, {"noise.csv": noise, "noise_logs/L1.csv": _log_csv(levels)})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     m = r.measurements.set_index("measurement_id").loc["L1"]
     assert m["osha_dose_pct"] == pytest.approx(25 + 6.25, rel=1e-9)
     # PEL dose counts levels >= 90 only (OSHA Technical Manual, common practice)
@@ -249,7 +249,7 @@ def test_downsampled_history_keeps_the_energy(tmp_path: Path) -> None:
     noise = [{"measurement_id": "L1", "date": "2025-03-10", "kind": "personal", "person_id": "E001",
               "duration_h": 1300 / 3600, "laeq": _leq(levels)}]
     p = _load(tmp_path, {"noise.csv": noise, "noise_logs/L1.csv": _log_csv(list(levels), step_s=1)})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     h = r.logs["L1"]
     assert len(h) <= ex.LOG_POINTS
     # per-bin energy means, weighted by the samples in each bin, give back the log's LAeq
@@ -263,7 +263,7 @@ def test_dosimeter_basis_uses_reported_values(tmp_path: Path) -> None:
              {"measurement_id": "D2", "date": "2025-03-11", "kind": "personal", "person_id": "E002",
               "duration_h": 8, "laeq": 88.0, "osha_twa": 85.0}]
     p = _load(tmp_path, {"noise.csv": noise})
-    m = ex.compute(p, {}).measurements.set_index("measurement_id")
+    m = ex.compute(p).measurements.set_index("measurement_id")
     assert (m["basis"] == "dosimeter").all()
     assert m.loc["D1", "osha_dose_pct"] == pytest.approx(70.0)
     # 29 CFR 1910.95 App. A: TWA = 16.61 lg(70/100) + 90 = 87.43 (Table A-1 as computed: 87.4)
@@ -280,7 +280,7 @@ def test_steady_level_and_extended_shift(tmp_path: Path) -> None:
              {"measurement_id": "X2", "date": "2025-03-11", "kind": "personal", "person_id": "E002",
               "duration_h": 2, "laeq": 90.0}]
     p = _load(tmp_path, {"noise.csv": noise, "groups.csv": [{"group": "G1", "shift_hours": 8}]})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     m = r.measurements.set_index("measurement_id")
     # LEX,8h = LAeq + 10 lg(Te/8): 87 dB over a 10-h shift -> 87.97 dB (ISO 9612:2009 Eq. 12)
     assert m.loc["X1", "lex_8h"] == pytest.approx(87.97, abs=0.005)
@@ -302,7 +302,7 @@ def test_octave_bands_warn_on_mismatch(tmp_path: Path) -> None:
              {"measurement_id": "O2", "date": "2025-03-10", "kind": "area", "group": "G1", "duration_h": 1,
               "laeq": 101.0, **bands}]
     p = _load(tmp_path, {"noise.csv": noise})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     m = r.measurements.set_index("measurement_id")
     # ISO 4869-2:2018 Annex B spectrum: LA = 104.0, LC = 103.0 dB
     assert m.loc["O1", "laeq_octaves"] == pytest.approx(104.0, abs=0.05)
@@ -327,7 +327,7 @@ def test_people_weekly_and_first_exposure(tmp_path: Path) -> None:
               "duration_h": 8, "laeq": 86.0}]
     p = _load(tmp_path, {"people.csv": people, "noise.csv": noise,
                          "groups.csv": [{"group": "G1"}, {"group": "G2"}]})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     pp = r.people.set_index("person_id")
     assert pp.loc["E001", "source"] == "personal"
     assert pp.loc["E001", "lex_8h"] == pytest.approx(_leq([84, 90, 86]))
@@ -360,7 +360,7 @@ def test_stale_group_and_limit_actions(tmp_path: Path) -> None:
               "lcpeak": 141.0 if i == 0 else 120.0} for i in range(5)]
     p = _load(tmp_path, {"noise.csv": noise, "groups.csv": [{"group": "G1"}]},
               config={"exposure": {"stale_after_years": 3}})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     g = r.groups.set_index("group").loc["G1"]
     assert bool(g["stale"]) is True and g["last_measured"] == pd.Timestamp("2021-05-01")
     assert g["max_lcpeak"] == 141.0
@@ -377,7 +377,7 @@ def test_group_with_few_samples_is_warned(tmp_path: Path) -> None:
               "duration_h": 1, "laeq": 85.0 + i} for i in range(3)]
     noise[0].update({f"oct_{f}": 80.0 for f in (63, 125, 250, 500, 1000, 2000, 4000, 8000)})
     p = _load(tmp_path, {"noise.csv": noise, "groups.csv": [{"group": "G1"}]})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     keys = {f.key for f in r.findings}
     # ISO 9612:2009 10.3 (N >= 5) and Table 1 (5 h minimum for up to 5 workers)
     assert "job-few-samples" in keys and "job-short-duration" in keys
@@ -395,7 +395,7 @@ def test_noise_map_idw(tmp_path: Path) -> None:
     noise = [{"measurement_id": f"A{i}", "date": "2025-04-01", "kind": "area", "group": "G1", "duration_h": 0.5,
               "laeq": L, "x_m": x, "y_m": y, "location": f"spot {i}"} for i, (x, y, L) in enumerate(pts)]
     p = _load(tmp_path, {"noise.csv": noise}, config={"exposure": {"map_grid": 11}})
-    nm = ex.compute(p, {}).noise_map
+    nm = ex.compute(p).noise_map
     assert nm.z.shape == (11, 11) and len(nm.points) == 4
     assert np.nanmin(nm.z) >= 80.0 - 1e-9 and np.nanmax(nm.z) <= 95.0 + 1e-9
     gx, gy, z = ex.idw_grid([0, 10], [0, 0], [80, 90], 3)
@@ -437,8 +437,7 @@ def test_pages_build_with_codes_and_suppression(tmp_path: Path) -> None:
     p = _load(tmp_path, {"people.csv": people, "noise.csv": noise, "groups.csv": [{"group": "BIG"}, {"group": "TINY"}],
                          "noise_logs/M0.csv": _log_csv([84.0] * 480)},
               config={"privacy": {"min_group_size": 3}})
-    results = {"exposure": ex.compute(p, {})}
-    ctx = build.make_context(p, results)
+    ctx = build.make_context(p, build.compute(p))
     assert "TINY" in ctx.suppressed_groups
     built = pages.build(ctx)
     slugs = [pg.slug for pg in built]
@@ -467,7 +466,7 @@ def test_osha_limit_band_uses_the_pel_dose(tmp_path: Path) -> None:
               "duration_h": 8, "laeq": 91.2}]
     p = _load(tmp_path, {"noise.csv": noise, "groups.csv": [{"group": "G1"}],
                          "noise_logs/L1.csv": _log_csv([93.0] * 240 + [88.0] * 240)})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     m = r.measurements.set_index("measurement_id").loc["L1"]
     t93, t88 = (_t_osha(L) for L in (93, 88))
     assert m["osha_dose_pct"] == pytest.approx(100 * (4 / t93 + 4 / t88), rel=1e-9)
@@ -490,7 +489,7 @@ def test_several_logs_in_any_row_order(tmp_path: Path) -> None:
     a = [80.0] * 350 + [70.0] * 350
     p = _load(tmp_path, {"noise.csv": noise, "noise_logs/Z9.csv": _log_csv(z, step_s=1),
                          "noise_logs/A1.csv": _log_csv(a, "2025-03-11T07:00:00", step_s=1)})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     m = r.measurements.set_index("measurement_id")
     assert m.loc["Z9", "laeq"] == pytest.approx(_leq(z))
     assert m.loc["A1", "laeq"] == pytest.approx(_leq(a))
@@ -510,7 +509,7 @@ def test_quiet_group_still_gives_people_a_source(tmp_path: Path) -> None:
     noise = [{"measurement_id": "Q1", "date": "2025-03-10", "kind": "personal", "person_id": "E001",
               "duration_h": 8, "laeq": 70.0}]
     p = _load(tmp_path, {"noise.csv": noise, "groups.csv": [{"group": "G1"}]})
-    r = ex.compute(p, {})
+    r = ex.compute(p)
     pp = r.people.set_index("person_id")
     assert pp.loc["E002", "source"] == "group" and pp.loc["E002", "lex_8h"] == pytest.approx(70.0)
     assert np.isnan(pp.loc["E002", "twa"]) and not bool(pp.loc["E002", "exposed"])
@@ -539,7 +538,7 @@ def test_group_page_stays_small_and_aggregates(tmp_path: Path) -> None:
     from generator.pages import exposure as pages
 
     p = _group_page_programme(tmp_path)
-    ctx = build.make_context(p, {"exposure": ex.compute(p, {})})
+    ctx = build.make_context(p, build.compute(p))
     built = {pg.slug: pg for pg in pages.build(ctx)}
     pg = built["exposure/g1"]
     c = pg.context

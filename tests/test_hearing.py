@@ -39,7 +39,7 @@ def run(tmp_path: Path, audiograms: list[dict], people: list[dict] | None = None
     prog = load_programme(root)
     errors = [f.format() for f in prog.findings.errors]
     assert not errors, errors
-    return hearing.compute(prog, {})
+    return hearing.compute(prog)
 
 
 def person(pid: str, sex: str, birth: str, group: str = "G1") -> dict:
@@ -446,8 +446,10 @@ def test_pages_public_and_restricted(tmp_path):
     people_pages = sorted(s for s in res.pages if s.startswith("people/"))
     assert people_pages == sorted(f"people/{res.context.code(p)}" for p in ("RAWID0", "RAWID1", "RAWID2", "RAWLONE"))
     over = (tmp_path / "res" / "hearing.html").read_text(encoding="utf-8")
-    assert f'href="{people_pages[0]}.html"' in over  # the restricted overview links the person pages
-    assert 'href="people/' not in html  # the public one does not
+    assert 'href="people.html"' in over  # the restricted overview links the index of person pages
+    # the shift listed by code links to the person's page
+    assert f'href="people/{res.context.code("RAWID0")}.html"' in over
+    assert 'href="people' not in html  # the public one does not
     page = (tmp_path / "res" / f"{people_pages[0]}.html").read_text(encoding="utf-8").replace(" ", "")
     assert '"type":"log"' in page and '"autorange":"reversed"' in page
 
@@ -455,7 +457,7 @@ def test_pages_public_and_restricted(tmp_path):
 def test_no_audiograms(tmp_path):
     root = make_programme(tmp_path / "empty", {})
     prog = load_programme(root)
-    res = hearing.compute(prog, {})
+    res = hearing.compute(prog)
     assert res.audiograms.empty and res.cases.empty and res.followups.empty
     assert list(res.hearing_results().columns)[:3] == ["person_id", "ear", "date"]
     assert any("No audiograms" in n for n in res.notes)
@@ -628,7 +630,7 @@ def test_hearing_page_counts_cases_per_ear_and_people(tmp_path):
     root = make_programme(tmp_path / "prog", {"audiograms.csv": auds, "people.csv": people},
                           config={"audiometry": {"age_correction": False}})
     prog = load_programme(root)
-    results, _ = run_stages(prog)
+    results = run_stages(prog)
     ctx = make_context(prog, results)
     page = [p for p in hearing_page.build(ctx) if p.slug == "hearing"][0]
     tile = [t for t in page.context["tiles"] if "recordable" in t["label"]][0]
@@ -638,7 +640,7 @@ def test_hearing_page_counts_cases_per_ear_and_people(tmp_path):
     col = gt.columns.index("People with a recordable case")
     assert [r[col] for r in gt.rows] == ["1", "1"]  # G1 and all groups: one person
     # the compliance summary behind the overview tile counts people too
-    assert results["compliance"].summary["recordables_this_period"] == 1
+    assert results.compliance.summary["recordables_this_period"] == 1
 
 
 def _listing_ctx(restricted: bool = False):

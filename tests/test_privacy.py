@@ -145,7 +145,7 @@ def test_export_codes_person_ids_unless_restricted(tmp_path: Path, restricted: b
               "group": "G1", "duration_h": 8, "laeq": 88.0}]
     root = make_programme(tmp_path / "p", files={"noise.csv": noise})
     with env(HCPSITE_ID_KEY=TEST_KEY):
-        ctx, _ = prepare(root, restricted=restricted)
+        ctx = prepare(root, restricted=restricted)
         files = export_files(ctx)
     text = files["exposure_results.csv"].decode()
     assert ("E001" in text) is restricted

@@ -46,7 +46,7 @@ def test_sts_is_the_mean_change_at_2_3_4_khz(tmp_path_factory, base: list[int], 
                           config={"audiometry": {"age_correction": True}})
     programme = load_programme(root)
     assert not programme.findings.has_errors(), programme.findings.lines()
-    ag = hearing_compute(programme, {}).audiograms
+    ag = hearing_compute(programme).audiograms
     latest = ag[ag["date"] == ag["date"].max()]
     mean_change = sum(change) / 3.0
     for _, row in latest.iterrows():

@@ -231,7 +231,7 @@ def test_nrr_only_person_and_adequacy_boundaries():
     ])
     exp = exposure([("A90", "G1", 103.0, True), ("A91", "G1", 103.1, True), ("LOW", "G1", 86.0, True),
                     ("NONE", "G1", 95.0, True), ("QUIET", "G1", 78.0, False), ("UNK", "G1", 95.0, True)])
-    res = P.compute(prog, {"exposure": exp}, rules=OSHA)
+    res = P.compute(prog, exposure=exp, sts_people=frozenset(), rules=OSHA)
     p = res.people.set_index("person_id")
     assert p.loc["A90", "protected_level"] == pytest.approx(90.0)
     assert p.loc["A90", "method"] == "nrr-a"
@@ -267,21 +267,14 @@ def test_target_after_sts_is_85():
         {"person_id": "S2", "protector_id": "PLUG-P", "date": "2025-01-10"},
     ])
     exp = exposure([("S1", "G1", 99.0, True), ("S2", "G1", 99.0, True)])  # 99 − 13 = 86
-    res = P.compute(prog, {"exposure": exp}, rules=OSHA)
+    res = P.compute(prog, exposure=exp, sts_people=frozenset(), rules=OSHA)
     assert set(res.people["adequacy"]) == {"adequate"}
-    again = P.rejudge(res, OSHA, {"S1"})
+    # a person with a shift in force (from the hearing stage, which runs first) gets the lower target
+    again = P.compute(prog, exposure=exp, sts_people=frozenset({"S1"}), rules=OSHA)
     p = again.people.set_index("person_id")
     assert p.loc["S1", "adequacy"] == "insufficient" and p.loc["S1", "target"] == 85.0
     assert p.loc["S2", "adequacy"] == "adequate" and p.loc["S2", "target"] == 90.0
     assert again.actions["clause"].tolist() == ["29 CFR 1910.95(j)(3)"]
-    # the stage itself picks up STS people from the hearing stage when it ran first
-    res2 = P.compute(prog, {"exposure": exp, "hearing": SimpleNamespace(sts_people={"S2"})}, rules=OSHA)
-    assert res2.people.set_index("person_id").loc["S2", "adequacy"] == "insufficient"
-    # a later stage re-applies the hearing stage's shifts in force (audiograms.sts), up to the period end
-    ag = pd.DataFrame({"person_id": ["S1", "S2"], "sts": [True, True],
-                       "date": pd.to_datetime(["2025-05-01", "2026-03-01"])})
-    again = P.apply_sts({"protection": res, "hearing": SimpleNamespace(audiograms=ag)}, OSHA)
-    assert again.people.set_index("person_id")["adequacy"].to_dict() == {"S1": "insufficient", "S2": "adequate"}
 
 
 def _noise_row(pid: str, mid: str, bands: np.ndarray | None = None, laeq: float = 104.0,
@@ -309,7 +302,7 @@ def test_precedence_par_octave_hml_snr_nrr():
     la_b = float(P.weighted_level(ANNEX_B_NOISE, "A")[0])
     exp = exposure([("PAR", "G1", la_b, True), ("OCT", "G1", la_b, True), ("HML", "G1", 110.0, True),
                     ("NRR", "G2", 100.0, True)])
-    res = P.compute(prog, {"exposure": exp}, rules=OSHA)
+    res = P.compute(prog, exposure=exp, sts_people=frozenset(), rules=OSHA)
     p = res.people.set_index("person_id")
     assert p.loc["PAR", "method"] == "par"
     assert p.loc["PAR", "protected_level"] == pytest.approx(la_b - 20.0)  # L − PAR (common practice)
@@ -339,7 +332,7 @@ def test_snr_governs_without_hml_and_group_spectrum_fallback():
                             # a run after the period end is not used
                             dict(_noise_row("", "A2", None, laeq=100.0, lceq=110.0), kind="area",
                                  date="2026-01-15")])
-    res = P.compute(prog, {"exposure": exposure([("X", "G1", 96.0, True)])}, rules=OSHA)
+    res = P.compute(prog, exposure=exposure([("X", "G1", 96.0, True)]), sts_people=frozenset(), rules=OSHA)
     p = res.people.set_index("person_id").loc["X"]
     assert p["method"] == "snr" and p["protected_level"] == 69.0  # 96 + 3 − 30
     assert p["spectrum_source"] == "group"
@@ -358,8 +351,8 @@ def test_latest_protector_up_to_period_end_and_dual():
         {"person_id": "T", "protector_id": "PLUG-F", "date": "2025-03-01"},
         {"person_id": "T", "protector_id": "PLUG-P", "date": "2025-03-01"},
     ])
-    res = P.compute(prog, {"exposure": exposure([("D", "G1", 110.0, True), ("L", "G1", 95.0, True),
-                                                  ("T", "G1", 95.0, True)])}, rules=OSHA)
+    res = P.compute(prog, exposure=exposure([("D", "G1", 110.0, True), ("L", "G1", 95.0, True),
+                                             ("T", "G1", 95.0, True)]), sts_people=frozenset(), rules=OSHA)
     p = res.people.set_index("person_id")
     assert p.loc["D", "protector_id"] == "MUFF-A+PLUG-F"
     assert p.loc["D", "protector_type"] == "dual" and p.loc["D", "n_protectors"] == 2
@@ -378,7 +371,7 @@ def test_niosh_rule_set_uses_niosh_derating():
     niosh = replace(OSHA, id="niosh-rel", metric="twa", protected_target=85.0, protected_target_after_sts=85.0,
                     clauses={})
     prog = programme(_people(["N"]), PROTECTORS, [{"person_id": "N", "protector_id": "MUFF-A"}])
-    res = P.compute(prog, {"exposure": exposure([("N", "G1", 100.0, True)])}, rules=niosh)
+    res = P.compute(prog, exposure=exposure([("N", "G1", 100.0, True)]), sts_people=frozenset(), rules=niosh)
     p = res.people.set_index("person_id").loc["N"]
     assert p["method"] == "nrr-niosh"
     assert p["protected_level"] == pytest.approx(88.25)
@@ -387,7 +380,7 @@ def test_niosh_rule_set_uses_niosh_derating():
 
 def test_no_exposure_stage_gives_unknown_or_not_exposed():
     prog = programme(_people(["A"]), PROTECTORS, [{"person_id": "A", "protector_id": "MUFF-A"}])
-    res = P.compute(prog, {}, rules=OSHA)
+    res = P.compute(prog, exposure=None, sts_people=frozenset(), rules=OSHA)
     assert res.people["adequacy"].tolist() == ["not exposed"]
     assert res.actions.columns.tolist() == P.ACTION_COLUMNS and res.actions.empty
 
@@ -408,8 +401,8 @@ def _site(tmp_suppressed: frozenset[str] = frozenset()):
     prog.present["protector_fits"] = "data/protector_fits.csv"
     exp = exposure([("E101", "G1", 106.0, True), ("E102", "G1", 92.0, True), ("E103", "G1", 95.0, True),
                     ("E201", "TINY", 107.0, True)])
-    res = P.compute(prog, {"exposure": exp}, rules=OSHA)
-    ctx = SiteContext(programme=prog, results={"protection": res}, rules={OSHA.id: OSHA},
+    res = P.compute(prog, exposure=exp, sts_people=frozenset(), rules=OSHA)
+    ctx = SiteContext(programme=prog, results=SimpleNamespace(protection=res), rules={OSHA.id: OSHA},
                       code={"E101": "P-K7Q2", "E102": "P-M3X9", "E103": "P-A4T6", "E201": "P-Z8W1"}.__getitem__,
                       suppressed_groups=tmp_suppressed)
     return page.build(ctx), ctx
@@ -439,14 +432,12 @@ def test_page_without_protector_files_says_so():
     from generator.pages.base import SiteContext
     prog = programme(_people(["E1"]))
     prog.present.pop("protectors")
-    res = P.compute(prog, {"exposure": exposure([("E1", "G1", 95.0, True)])}, rules=OSHA)
+    res = P.compute(prog, exposure=exposure([("E1", "G1", 95.0, True)]), sts_people=frozenset(), rules=OSHA)
     assert res.people["adequacy"].tolist() == ["no protector"]
-    ctx = SiteContext(programme=prog, results={"protection": res}, rules={OSHA.id: OSHA},
+    ctx = SiteContext(programme=prog, results=SimpleNamespace(protection=res), rules={OSHA.id: OSHA},
                       code={"E1": "P-Q1"}.__getitem__, suppressed_groups=frozenset())
     (pg,) = page.build(ctx)
     assert pg.charts == [] and pg.context["has_data"] is False
-    assert page.build(SiteContext(programme=prog, results={}, rules={OSHA.id: OSHA}, code=str,
-                                  suppressed_groups=frozenset())) == []
 
 
 def test_page_lists_the_furthest_above_target_first_and_caps_the_list():

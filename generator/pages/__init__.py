@@ -35,3 +35,11 @@ def module_name(section: str) -> str:
 def section_title(section: str) -> str:
     """Return the navigation title of *section* (the id itself when unknown)."""
     return dict(SECTIONS).get(section, section)
+
+
+def page_builders() -> list:
+    """Return the page builders in navigation order, the narrative pages right after the overview."""
+    from . import (actions, exposure, hearing, methods, narrative, overview, people, programme, protection,
+                   quality, review, trends)
+    return [overview.build, narrative.build, exposure.build, protection.build, hearing.build, people.build,
+            programme.build, actions.build, trends.build, review.build, methods.build, quality.build]

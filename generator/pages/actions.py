@@ -94,7 +94,7 @@ def kind_chart(a: pd.DataFrame, slug: str = "actions") -> Chart:
 
 def build(ctx: SiteContext) -> list[Page]:
     """Return the actions page."""
-    comp = ctx.results.get("compliance")
+    comp = ctx.results.compliance
     if comp is None:
         return [Page(slug="actions", title="Actions", template="actions.html", section="actions", in_nav=True,
                      context={"available": False})]

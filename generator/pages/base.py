@@ -8,9 +8,24 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass, field
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Any, Callable
 
 from ..model import Programme
+from ..rules import RuleSet
+
+if TYPE_CHECKING:
+    from ..pipeline import Results
+
+
+@dataclass(frozen=True)
+class Link:
+    """A table cell that links to another page of the site (href relative to the site root)."""
+
+    text: str
+    href: str
+
+    def __str__(self) -> str:
+        return self.text
 
 
 @dataclass
@@ -56,10 +71,10 @@ class SiteContext:
     """What page builders get: the programme, computed results and privacy helpers."""
 
     programme: Programme
-    #: stage name -> result object, e.g. results["exposure"]
-    results: dict[str, Any]
+    #: every stage's result (generator/pipeline.py), e.g. results.exposure
+    results: Results
     #: rule-set id -> RuleSet, headline first
-    rules: dict[str, Any]
+    rules: dict[str, RuleSet]
     #: person_id -> pseudonymous code (public pages never show a raw id)
     code: Callable[[str], str]
     #: groups below the minimum size: their figures are suppressed on public pages
@@ -69,7 +84,7 @@ class SiteContext:
     pages: list[Page] = field(default_factory=list)
 
     @property
-    def headline(self) -> Any:
+    def headline(self) -> RuleSet:
         """Return the headline rule set."""
         return next(iter(self.rules.values()))
 

@@ -1,6 +1,8 @@
 """The exposure pages: overview, one page per similar exposure group, and the noise map."""
 from __future__ import annotations
 
+from collections.abc import Mapping
+
 import logging
 from typing import Any
 
@@ -62,7 +64,7 @@ def _reference_values(rule: Any) -> dict[str, float | None]:
     return vals
 
 
-def _hlines(fig: go.Figure, values: dict[str, float | None]) -> go.Figure:
+def _hlines(fig: go.Figure, values: Mapping[str, float | None]) -> go.Figure:
     """Add labelled dashed horizontal lines at *values* in one layout update (cheaper than add_hline)."""
     shapes, notes = [], []
     for label, y in sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0.0, kv[0])):
@@ -512,7 +514,7 @@ def noise_map_chart(res: ExposureResult, ctx: SiteContext, redact: Any = str) ->
 
 def build(ctx: SiteContext) -> list[Page]:
     """Return the exposure overview, one page per group, and the noise map."""
-    res: ExposureResult | None = ctx.results.get("exposure")
+    res: ExposureResult | None = ctx.results.exposure
     if res is None:
         return []
     head = ctx.headline

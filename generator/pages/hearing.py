@@ -3,7 +3,6 @@ one page per person. Reads ``ctx.results["hearing"]``; computes nothing new."""
 from __future__ import annotations
 
 import logging
-import re
 from typing import Any
 
 import numpy as np
@@ -12,7 +11,6 @@ import plotly.graph_objects as go
 
 from .. import charts
 from ..hearing import EAR_NAMES, LEFT_STATUS, HearingResult
-from ..inputs.spec import AUDIO_FREQS
 from .base import Chart, Page, SiteContext, Table, group_slugs
 from .programme import LIST_CAP, cap_caption, cap_rows
 
@@ -24,10 +22,6 @@ YEARS_SHOWN = 10
 #: colours of the follow-up statuses
 STATUS_COLOURS = {"on time": charts.PALETTE[2], "late": charts.PALETTE[1], "missing": charts.PALETTE[4],
                   "not yet due": charts.PALETTE[5]}
-#: audiogram symbols (common practice): right ear red circles, left ear blue crosses
-EAR_STYLE = {"R": dict(color="#c0392b", symbol="circle-open"), "L": dict(color="#1f5fa8", symbol="x")}
-#: line style per audiogram shown on a person's chart
-ROLE_DASH = {"baseline": "dot", "previous": "dash", "latest": "solid"}
 KIND_WORDS = {"notice": "written notice", "retest": "retest", "refit": "protector refit", "referral": "referral"}
 BLANK = charts.BLANK
 #: rows shown in a listing on the overview and group pages of a public build (the counts use every row)
@@ -434,8 +428,7 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
         "any_suppressed": bool(set(slugs) & set(sup)),
         "n_candidates": int(h.summary.get("baseline_candidates", 0)),
         # restricted builds only: links to the per-person pages, by code
-        "people_links": (sorted({ctx.code(p) for p in h.audiograms["person_id"].unique()})
-                         if ctx.restricted else []),
+        "people_index": ctx.restricted,
     }
     return Page(slug="hearing", title="Hearing", template="hearing.html", section="hearing", context=context,
                 charts=page_charts, in_nav=True)
@@ -469,113 +462,16 @@ def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Pa
                 context=context, charts=page_charts)
 
 
-def _audiogram_chart(rows: pd.DataFrame, cid: str, code: str) -> Chart:
-    """Return one person's audiogram chart: baseline, previous and latest test of each ear."""
-    fig = go.Figure()
-    table_rows = []
-    for ear in ("R", "L"):
-        e = rows[rows["ear"] == ear].sort_values("date")
-        if e.empty:
-            continue
-        latest = e.iloc[-1]
-        picks: list[tuple[str, pd.Series]] = []
-        bdate = latest["baseline_date"]
-        base = e[e["date"] == bdate]
-        if not base.empty and bdate != latest["date"]:
-            picks.append(("baseline", base.iloc[0]))
-        prev = e[(e["date"] < latest["date"]) & (e["date"] != bdate)]
-        if not prev.empty:
-            picks.append(("previous", prev.iloc[-1]))
-        picks.append(("latest", latest))
-        style = EAR_STYLE[ear]
-        for role, r in picks:
-            ys = [None if pd.isna(r[f"hl_{f}"]) else float(r[f"hl_{f}"]) for f in AUDIO_FREQS]
-            name = f"{EAR_NAMES[ear]}, {role} {_date(r['date'])}"
-            fig.add_trace(go.Scatter(x=list(AUDIO_FREQS), y=ys, name=name, mode="lines+markers",
-                                     line=dict(color=style["color"], dash=ROLE_DASH[role], width=1.5),
-                                     marker=dict(symbol=style["symbol"], size=10, color=style["color"])))
-            nr = [f for f in AUDIO_FREQS if bool(r[f"nr_{f}"])]
-            table_rows.append([EAR_NAMES[ear], role, _date(r["date"])]
-                              + ["NR" if f in nr else _num(r[f"hl_{f}"], 0) for f in AUDIO_FREQS])
-    fig.update_xaxes(type="log", tickvals=list(AUDIO_FREQS), ticktext=[f"{f:g}" for f in AUDIO_FREQS],
-                     title_text="frequency, Hz")
-    fig.update_yaxes(autorange="reversed", title_text="hearing level, dB HL", dtick=10)
-    charts.base_layout(fig, None, 460)
-    table = Table(["Ear", "Test", "Date"] + [f"{f} Hz" for f in AUDIO_FREQS], table_rows,
-                  caption="Hearing levels shown in the chart, dB HL (NR = no response at the audiometer's limit)",
-                  classes=["", "", ""] + ["num"] * len(AUDIO_FREQS))
-    summary = (f"Audiogram of {code}: baseline, previous and latest test of each ear (right ear red circles, left "
-               "ear blue crosses; hearing level increases downwards).")
-    return Chart(cid, fig, summary, table, height=460, title="Audiograms")
-
-
-def _person_pages(ctx: SiteContext, h: HearingResult) -> list[Page]:
-    """Return one restricted page per person with audiograms."""
-    a = h.audiograms
-    if a.empty:
-        return []
-    reviews = ctx.programme.table("reviews")
-    rv = reviews.copy() if not reviews.empty else pd.DataFrame(columns=["person_id"])
-    rv["person_id"] = rv["person_id"].astype(str) if "person_id" in rv else rv.get("person_id")
-    rv_by = {k: g for k, g in rv.groupby("person_id", sort=True)} if not rv.empty else {}
-    fu_by = {k: g for k, g in h.followups.groupby("person_id", sort=True)} if not h.followups.empty else {}
-    base_by = {k: g for k, g in h.baselines.groupby("person_id", sort=True)} if not h.baselines.empty else {}
-    pages = []
-    for pid, rows in a.groupby("person_id", sort=True):
-        code = ctx.code(pid)
-        slug = f"people/{code}"
-        cid = "person-" + re.sub(r"[^a-z0-9]+", "-", code.lower()).strip("-")
-        rows = rows.sort_values(["date", "ear"])
-        hist = [[_date(r.date), EAR_NAMES.get(r.ear, r.ear), r.kind, _date(r.baseline_date), _num(r.avg_234),
-                 _num(r.shift_234), _num(r.shift_234_age_corrected), _yes(r.osha_sts), _yes(r.osha_sts_age_corrected),
-                 r.shift_status or BLANK, r.retest_status or BLANK, _yes(r.recordable), _yes(r.niosh_shift),
-                 r.review_decision or BLANK, _yes(r.valid_check), "yes" if r.nr_any else "no"]
-                for r in rows.itertuples()]
-        hist_table = Table(["Date", "Ear", "Kind", "Baseline", "2/3/4 kHz average", "Shift", "Shift age-corrected",
-                            "STS", "STS age-corrected", "Status", "Retest", "Recordable", "NIOSH", "Review",
-                            "Audiometer checked", "NR"], hist, caption="Every audiogram of this person")
-        rv_rows = []
-        if pid in rv_by:
-            for r in rv_by[pid].sort_values("date").itertuples():
-                rv_rows.append([_date(getattr(r, "date", None)), EAR_NAMES.get(getattr(r, "ear", ""), ""),
-                                getattr(r, "decision", ""), _date(getattr(r, "audiogram_date", None)),
-                                getattr(r, "reviewer_role", "") or BLANK, getattr(r, "note", "") or BLANK])
-        rv_table = Table(["Date", "Ear", "Decision", "Audiogram", "Reviewer", "Note"], rv_rows,
-                         caption="Decisions of the reviewing professional")
-        fu_rows = []
-        if pid in fu_by:
-            for r in fu_by[pid].itertuples():
-                fu_rows.append([EAR_NAMES.get(r.ear, r.ear), KIND_WORDS.get(r.kind, r.kind), _date(r.trigger_date),
-                                _date(r.due_date), _date(r.done_date), r.status, r.clause])
-        fu_table = Table(["Ear", "Follow-up", "Shift or decision", "Due", "Done", "Status", "Clause"], fu_rows,
-                         caption="Follow-ups")
-        b_rows = []
-        if pid in base_by:
-            for r in base_by[pid].itertuples():
-                b_rows.append([EAR_NAMES.get(r.ear, r.ear), _date(r.baseline_date), r.source,
-                               r.candidate or BLANK, _date(r.candidate_date), _yes(r.quiet_ok)])
-        b_table = Table(["Ear", "Baseline", "Chosen as", "Revision candidate", "Candidate test", "Quiet period met"],
-                        b_rows, caption="Baselines in force (revised only by the reviewer)")
-        group = str(rows["group"].iloc[0])
-        pages.append(Page(slug=slug, title=f"Person {code}", template="person.html", section="hearing",
-                          context={"code": code, "group": group, "history_table": hist_table,
-                                   "reviews_table": rv_table, "followups_table": fu_table, "baselines_table": b_table},
-                          charts=[_audiogram_chart(rows, f"{cid}-1", code)], restricted=True))
-    return pages
-
-
 def build(ctx: SiteContext) -> list[Page]:
     """Return the hearing pages (person pages only in a restricted build)."""
-    h = ctx.results.get("hearing")
+    h = ctx.results.hearing
     if h is None:
         return [Page(slug="hearing", title="Hearing", template="hearing.html", section="hearing",
                      context={"has_data": False, "notes": ["The hearing stage did not run."], "tiles": [],
-                              "group_links": [], "any_suppressed": False, "people_links": []}, in_nav=True)]
+                              "group_links": [], "any_suppressed": False, "people_index": ctx.restricted}, in_nav=True)]
     groups = sorted(set(h.audiograms["group"].astype(str)) - {""}) if not h.audiograms.empty else []
     slugs = group_slugs(groups)
     pages = [_overview(ctx, h, slugs)]
     pages += [_group_page(ctx, h, g, slugs[g]) for g in groups]
-    if ctx.restricted:
-        pages += _person_pages(ctx, h)
     log.info("hearing pages: %d", len(pages))
     return pages

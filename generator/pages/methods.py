@@ -2,8 +2,6 @@
 from __future__ import annotations
 
 import dataclasses
-import importlib
-import importlib.util
 import logging
 from typing import Any
 
@@ -13,8 +11,6 @@ from .base import Page, SiteContext, Table
 
 log = logging.getLogger(__name__)
 
-#: modules whose PARAMETERS are listed besides the compute stages (shared arithmetic).
-SHARED_MODULES = (("levels", "generator.levels"), ("norms", "generator.norms"))
 #: RuleSet fields that are not values (shown elsewhere or not at all).
 _NOT_VALUES = {"id", "name", "short", "caution", "clauses", "notes"}
 _UNITS = {
@@ -63,24 +59,24 @@ def clauses_table(rule: RuleSet) -> Table:
                  classes=["", "num", "", ""])
 
 
-def _module_parameters(module: str) -> list[tuple] | None:
-    if importlib.util.find_spec(module) is None:
-        return None
-    mod = importlib.import_module(module)
-    params = getattr(mod, "PARAMETERS", None)
-    return list(params) if params else None
+def _stage_parameters() -> list[tuple[str, str, list[tuple[Any, ...]]]]:
+    """Return (name, module, PARAMETERS) of each compute stage and of the shared arithmetic."""
+    from .. import compliance, exposure, hearing, levels, norms, protection
+    mods = (("exposure", exposure), ("hearing", hearing), ("protection", protection),
+            ("compliance", compliance), ("levels", levels), ("norms", norms))
+    return [(name, mod.__name__, list(getattr(mod, "PARAMETERS", None) or [])) for name, mod in mods]
 
 
 def parameter_tables() -> list[dict[str, Any]]:
-    """Return one table per module that declares PARAMETERS (name, value, unit, source)."""
-    from ..build import STAGES
+    """Return one table per module that declares PARAMETERS: rows of (name, value, unit, source)."""
     out = []
-    for name, module in tuple(STAGES) + SHARED_MODULES:
-        params = _module_parameters(module)
+    for name, module, params in _stage_parameters():
         if not params:
             continue
-        rows = [[str(p[0]), _cell(p[1]), str(p[2]) if len(p) > 2 else "", str(p[3]) if len(p) > 3 else ""]
-                for p in params]
+        for p in params:
+            if not isinstance(p, tuple) or len(p) != 4:
+                raise TypeError(f"{module}.PARAMETERS: each entry must be (name, value, unit, source), got {p!r}")
+        rows = [[str(p[0]), _cell(p[1]), str(p[2]), str(p[3])] for p in params]
         out.append({"name": name, "module": module,
                     "table": Table(columns=["parameter", "value", "unit", "source"], rows=rows,
                                    caption=f"Parameters of {module}", classes=["", "num", "", ""])})

@@ -9,6 +9,7 @@ import pandas as pd
 
 from .. import charts
 from ..inputs.spec import FILES
+from ..pipeline import Results
 from .base import Chart, Page, SiteContext
 
 log = logging.getLogger(__name__)
@@ -130,14 +131,9 @@ def count_tiles(ctx: SiteContext) -> list[dict[str, str]]:
     return tiles
 
 
-def all_actions(results: dict[str, Any]) -> pd.DataFrame | None:
-    """Return the merged action list (compliance's when present, else the stages' together)."""
-    comp = results.get("compliance")
-    if comp is not None and isinstance(getattr(comp, "actions", None), pd.DataFrame):
-        return comp.actions
-    frames = [r.actions for _, r in sorted(results.items())
-              if isinstance(getattr(r, "actions", None), pd.DataFrame) and len(r.actions)]
-    return pd.concat(frames, ignore_index=True) if frames else None
+def all_actions(results: Results) -> pd.DataFrame:
+    """Return the one action list (the compliance stage merges every stage's actions)."""
+    return results.compliance.actions
 
 
 def file_rows(ctx: SiteContext) -> list[dict[str, Any]]:
@@ -158,10 +154,12 @@ def file_rows(ctx: SiteContext) -> list[dict[str, Any]]:
     return out
 
 
-def stage_rows(results: dict[str, Any]) -> list[dict[str, Any]]:
+def stage_rows(results: Results) -> list[dict[str, Any]]:
     """Return per computed stage: name, findings and actions counts."""
     rows = []
-    for name, res in results.items():
+    stages = (("exposure", results.exposure), ("hearing", results.hearing), ("protection", results.protection),
+              ("compliance", results.compliance))
+    for name, res in stages:
         acts = getattr(res, "actions", None)
         rows.append({"stage": name, "findings": len(getattr(res, "findings", []) or []),
                      "actions": len(acts) if isinstance(acts, pd.DataFrame) else 0})
@@ -194,7 +192,7 @@ def overview_chart(actions: pd.DataFrame | None, files: list[dict[str, Any]]) ->
 def build(ctx: SiteContext) -> list[Page]:
     """Return the overview page."""
     results = ctx.results
-    comp = results.get("compliance")
+    comp = results.compliance
     summary = getattr(comp, "summary", None) if comp is not None else None
     headline = summary_tiles(summary) if isinstance(summary, dict) else []
     actions = all_actions(results)

@@ -192,7 +192,7 @@ def audiometer_chart(status: pd.DataFrame, slug: str = "programme") -> Chart | N
 
 def build(ctx: SiteContext) -> list[Page]:
     """Return the programme page."""
-    comp = ctx.results.get("compliance")
+    comp = ctx.results.compliance
     if comp is None:
         return [Page(slug="programme", title="Programme", template="programme.html", section="programme",
                      in_nav=True, context={"available": False})]

@@ -165,7 +165,7 @@ def methods_table(res: ProtectionResult, visible_ids: set[str]) -> Table:
 
 def build(ctx: SiteContext) -> list[Page]:
     """Return the protection page."""
-    res: ProtectionResult | None = ctx.results.get("protection")
+    res: ProtectionResult | None = ctx.results.protection
     rules = ctx.headline
     if res is None:
         return []

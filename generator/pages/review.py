@@ -9,7 +9,6 @@ it leaves out and where its rows are. Restricted pages never enter it.
 from __future__ import annotations
 
 import dataclasses
-import importlib
 import logging
 from typing import Any
 
@@ -163,12 +162,10 @@ def _section_page(pages: list[Page], section: str) -> Page | None:
 
 def _fallback(ctx: SiteContext, section: str) -> Page | None:
     """Build a section page the build has not made yet (e.g. methods, which comes later in the navigation)."""
-    from . import module_name
-    try:
-        mod = importlib.import_module(module_name(section))
-    except ImportError:
+    from . import methods
+    if section != "methods":
         return None
-    pages = [p for p in mod.build(ctx) if not p.restricted]
+    pages = [p for p in methods.build(ctx) if not p.restricted]
     return _section_page(pages, section)
 
 
@@ -200,7 +197,7 @@ def build(ctx: SiteContext) -> list[Page]:
                 long_tables[copy.id] = len(chart.table.rows)
         parts.append({"section": section, "heading": heading, "title": page.title, "slug": page.slug,
                       "chart_ids": ids, **collect(page)})
-    comp = ctx.results.get("compliance")
+    comp = ctx.results.compliance
     cfg = ctx.programme.config
     context = {
         "parts": parts,

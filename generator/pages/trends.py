@@ -95,9 +95,9 @@ def trend_table(t: pd.DataFrame) -> Table:
 
 def build(ctx: SiteContext) -> list[Page]:
     """Return the trends page."""
-    comp = ctx.results.get("compliance")
-    t = getattr(comp, "trends", None) if comp is not None else None
-    if t is None or len(t) == 0:
+    trends = ctx.results.trends
+    t = trends.table
+    if len(t) == 0:
         return [Page(slug="trends", title="Trends", template="trends.html", section="trends", in_nav=True,
                      context={"available": False, "changes": [], "table": None})]
     page_charts = [share_chart(t, "trends"), people_chart(t, "trends"), shift_chart(t, "trends")]
@@ -106,7 +106,7 @@ def build(ctx: SiteContext) -> list[Page]:
         page_charts.append(bc)
     context = {
         "available": True,
-        "changes": list(comp.changes),
+        "changes": list(trends.changes),
         "first_year": int(t["year"].iloc[0]),
         "last_year": int(t["year"].iloc[-1]),
         "table": trend_table(t),

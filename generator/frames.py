@@ -1,0 +1,64 @@
+"""Small pandas helpers shared by the compute stages (no HTML, no rules)."""
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .model import Programme
+
+
+def add_months(dates: pd.Series, months: float | None) -> pd.Series:
+    """Return *dates* plus whole calendar months (NaT stays NaT; None gives all NaT)."""
+    dates = pd.to_datetime(pd.Series(dates), errors="coerce")
+    if months is None:
+        return pd.Series(pd.NaT, index=dates.index, dtype="datetime64[ns]")
+    return (dates + pd.DateOffset(months=int(round(float(months))))).astype("datetime64[ns]")
+
+
+def as_dates(values: Any) -> pd.Series:
+    """Return *values* as a datetime64[ns] Series (all-NaN float columns included)."""
+    return pd.to_datetime(pd.Series(values), errors="coerce").astype("datetime64[ns]")
+
+
+def lookup(keys: pd.Series, values: pd.Series) -> pd.Series:
+    """Return values[key] for each key (NaN/NaT where absent), keeping the index of *keys*."""
+    values = values[~values.index.duplicated(keep="first")]
+    return pd.Series(values.reindex(keys.to_numpy()).to_numpy(), index=keys.index, dtype=values.dtype
+                     if values.dtype.kind == "M" else None)
+
+
+def ts(value: Any) -> pd.Timestamp:
+    return pd.Timestamp(value).normalize()
+
+
+def empty(columns: list[str]) -> pd.DataFrame:
+    return pd.DataFrame({c: pd.Series(dtype="object") for c in columns})
+
+
+def col(df: pd.DataFrame | None, name: str, default: Any = np.nan) -> pd.Series:
+    """Return column *name* of *df* or a column of *default* of matching length."""
+    if df is None:
+        return pd.Series(dtype="object")
+    if name in df.columns:
+        return df[name]
+    return pd.Series([default] * len(df), index=df.index)
+
+
+def dates(df: pd.DataFrame, name: str = "date") -> pd.Series:
+    return pd.to_datetime(col(df, name, pd.NaT), errors="coerce").astype("datetime64[ns]")
+
+
+def table(programme: Programme, name: str) -> pd.DataFrame:
+    tables = getattr(programme, "tables", {}) or {}
+    df = tables.get(name)
+    return df.copy() if df is not None else pd.DataFrame()
+
+
+def share(num: float, den: float) -> float | None:
+    return None if not den else round(float(num) / float(den), 4)
+
+
+def as_bool(s: pd.Series) -> pd.Series:
+    return s.astype("boolean").fillna(False).astype(bool)
