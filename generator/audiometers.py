@@ -13,10 +13,15 @@ import pandas as pd
 from .frames import add_months, as_bool as _bool, as_dates as _as_dates, col as _col, dates as _dates, \
     empty as _empty, lookup as _lookup, table as _table
 from .model import Programme
+from .rules import RuleSet
 
-#: Booth background limits, dB, per octave band (29 CFR 1910.95 App. D, Table D-1).
+#: Booth background limits, dB, per octave band: the programme's own setting. The numbers are
+#: those of 29 CFR 1910.95 App. D Table D-1 as printed in 49 CFR 227 App. D Table D-1
+#: ("supra-aural earphones"); OSHA's own table was not read, so no clause is cited for them.
 BOOTH_LIMITS: dict[int, float] = {500: 40.0, 1000: 40.0, 2000: 47.0, 4000: 57.0, 8000: 62.0}
-#: Audiometer check intervals in calendar months (29 CFR 1910.95(h)(5)(ii)-(iii), App. E).
+#: Audiometer check intervals in calendar months when no rule set is given; a rule set's
+#: acoustic_calibration_months / exhaustive_calibration_months govern (29 CFR 1910.95(h)(5):
+#: acoustic calibration at least annually per App. E, exhaustive every two years).
 ACOUSTIC_MONTHS = 12
 EXHAUSTIVE_MONTHS = 24
 
@@ -56,7 +61,7 @@ def _asof_check(tests: pd.DataFrame, checks: pd.DataFrame, kind: str, name: str)
 
 
 def booth_judgement(checks: pd.DataFrame) -> pd.DataFrame:
-    """Judge booth measurements against 29 CFR 1910.95 App. D Table D-1; add booth_pass, booth_detail."""
+    """Judge booth measurements against BOOTH_LIMITS; add booth_pass, booth_detail."""
     b = checks.loc[checks["check"].eq("booth")].copy()
     over = []
     measured = pd.Series(False, index=b.index)
@@ -77,14 +82,22 @@ def booth_judgement(checks: pd.DataFrame) -> pd.DataFrame:
     return b
 
 
-def compute(programme: Programme) -> AudiometerChecks:
-    """Judge every test day against the audiometer's checks (once per build)."""
-    status, flagged, meters = _audiometer_checks(programme)
+def compute(programme: Programme, rule: RuleSet | None = None) -> AudiometerChecks:
+    """Judge every test day against the audiometer's checks (once per build).
+
+    The calibration intervals are the rule set's (*rule*; the module defaults without one).
+    """
+    acoustic = ACOUSTIC_MONTHS if rule is None or rule.acoustic_calibration_months is None \
+        else rule.acoustic_calibration_months
+    exhaustive = EXHAUSTIVE_MONTHS if rule is None or rule.exhaustive_calibration_months is None \
+        else rule.exhaustive_calibration_months
+    status, flagged, meters = _audiometer_checks(programme, float(acoustic), float(exhaustive))
     return AudiometerChecks(status=status, flagged=flagged, audiometers=meters,
                             recorded=programme.has("audiometers"))
 
 
-def _audiometer_checks(programme: Programme) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
+def _audiometer_checks(programme: Programme, acoustic: float, exhaustive: float
+                       ) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     aud = _table(programme, "audiograms")
     tests = pd.DataFrame({"person_id": _col(aud, "person_id", "").astype(str), "date": _dates(aud),
                           "ear": _col(aud, "ear", "").astype(str),
@@ -97,7 +110,8 @@ def _audiometer_checks(programme: Programme) -> tuple[pd.DataFrame, pd.DataFrame
         checks[f"ob_{f}"] = pd.to_numeric(_col(raw, f"ob_{f}"), errors="coerce")
     checks = checks.dropna(subset=["date"])
     if tests.empty:
-        return _empty(STATUS_COLUMNS), _empty(FLAGGED_COLUMNS), _audiometer_overview(checks, tests)
+        return _empty(STATUS_COLUMNS), _empty(FLAGGED_COLUMNS), _audiometer_overview(checks, tests, acoustic,
+                                                                                     exhaustive)
 
     days = tests[["audiometer_id", "date"]].drop_duplicates().sort_values(
         ["audiometer_id", "date"], kind="mergesort").reset_index(drop=True)
@@ -121,10 +135,9 @@ def _audiometer_checks(programme: Programme) -> tuple[pd.DataFrame, pd.DataFrame
                            by="audiometer_id", direction="backward").drop(columns="_key")
         st["booth_detail"] = st["booth_detail"].fillna("no booth measurement recorded")
         st["booth_pass"] = _bool(st["booth_pass"])
-    # acoustic within 12 months, exhaustive within 24 months before the test (inclusive)
-    st["acoustic_ok"] = st["last_acoustic"].notna() & (add_months(st["last_acoustic"], ACOUSTIC_MONTHS)
-                                                      >= st["date"])
-    st["exhaustive_ok"] = st["last_exhaustive"].notna() & (add_months(st["last_exhaustive"], EXHAUSTIVE_MONTHS)
+    # acoustic and exhaustive calibrations within their intervals before the test (inclusive)
+    st["acoustic_ok"] = st["last_acoustic"].notna() & (add_months(st["last_acoustic"], acoustic) >= st["date"])
+    st["exhaustive_ok"] = st["last_exhaustive"].notna() & (add_months(st["last_exhaustive"], exhaustive)
                                                           >= st["date"])
     st["booth_ok"] = st["booth_pass"]
     known = st["audiometer_id"].ne("")
@@ -134,8 +147,8 @@ def _audiometer_checks(programme: Programme) -> tuple[pd.DataFrame, pd.DataFrame
     reasons = [
         (~known, "audiometer not recorded"),
         (known & ~st["functional_ok"], "no functional check that day"),
-        (known & ~st["acoustic_ok"], "no acoustic calibration within 12 months"),
-        (known & ~st["exhaustive_ok"], "no exhaustive calibration within 24 months"),
+        (known & ~st["acoustic_ok"], f"no acoustic calibration within {acoustic:g} months"),
+        (known & ~st["exhaustive_ok"], f"no exhaustive calibration within {exhaustive:g} months"),
         (known & ~st["booth_ok"], "booth: " + st["booth_detail"].astype(str)),
     ]
     reason = pd.Series([""] * len(st), index=st.index, dtype=object)
@@ -149,10 +162,11 @@ def _audiometer_checks(programme: Programme) -> tuple[pd.DataFrame, pd.DataFrame
                           on=["audiometer_id", "date"], how="inner")
     flagged = flagged[FLAGGED_COLUMNS].sort_values(["date", "person_id", "ear"], kind="mergesort") \
         .reset_index(drop=True)
-    return status, flagged, _audiometer_overview(checks, tests)
+    return status, flagged, _audiometer_overview(checks, tests, acoustic, exhaustive)
 
 
-def _audiometer_overview(checks: pd.DataFrame, tests: pd.DataFrame) -> pd.DataFrame:
+def _audiometer_overview(checks: pd.DataFrame, tests: pd.DataFrame, acoustic: float = ACOUSTIC_MONTHS,
+                         exhaustive: float = EXHAUSTIVE_MONTHS) -> pd.DataFrame:
     """Return the latest check of each kind per audiometer and the next calibration dates."""
     cols = ["audiometer_id", "last_functional", "last_acoustic", "acoustic_due", "last_exhaustive",
             "exhaustive_due", "last_booth", "booth_ok", "booth_detail", "last_used"]
@@ -164,8 +178,8 @@ def _audiometer_overview(checks: pd.DataFrame, tests: pd.DataFrame) -> pd.DataFr
     for kind in ("functional", "acoustic", "exhaustive"):
         last = ok[ok["check"].eq(kind)].groupby("audiometer_id")["date"].max()
         out[f"last_{kind}"] = _as_dates(_lookup(out["audiometer_id"], last))
-    out["acoustic_due"] = add_months(out["last_acoustic"], ACOUSTIC_MONTHS)
-    out["exhaustive_due"] = add_months(out["last_exhaustive"], EXHAUSTIVE_MONTHS)
+    out["acoustic_due"] = add_months(out["last_acoustic"], acoustic)
+    out["exhaustive_due"] = add_months(out["last_exhaustive"], exhaustive)
     booths = booth_judgement(checks).sort_values(["audiometer_id", "date"], kind="mergesort")
     latest = booths.drop_duplicates("audiometer_id", keep="last").set_index("audiometer_id")
     out["last_booth"] = _as_dates(_lookup(out["audiometer_id"], latest["date"]))

@@ -50,59 +50,20 @@ PARAMETERS: list[tuple[str, Any, str, str]] = [
     ("due soon: days ahead of the as-of date", DUE_SOON_DAYS, "days", "our choice"),
     ("exit audiogram window before the leave date", EXIT_WINDOW_DAYS, "days", "common practice"),
     ("baseline limit with a mobile test van", MOBILE_VAN_MONTHS, "months", "29 CFR 1910.95(g)(5)(ii)"),
-    ("acoustic calibration interval", ACOUSTIC_MONTHS, "months", "29 CFR 1910.95(h)(5)(ii), App. E"),
-    ("exhaustive calibration interval", EXHAUSTIVE_MONTHS, "months", "29 CFR 1910.95(h)(5)(iii), App. E"),
-    *[(f"booth maximum at {f} Hz", v, "dB", "29 CFR 1910.95 App. D, Table D-1") for f, v in BOOTH_LIMITS.items()],
+    ("acoustic and exhaustive calibration intervals", "rule set", "months",
+     "acoustic_calibration_months, exhaustive_calibration_months of the rule set"),
+    *[(f"booth maximum at {f} Hz", v, "dB", f"the programme's own setting: {v:g} dB") for f, v in BOOTH_LIMITS.items()],
     ("baseline, annual audiogram and training intervals", "rule set", "months",
      "baseline_months, audiogram_interval_months, training_interval_months of the rule set"),
+    ("who is owed audiometry, training and protectors", "rule set", "",
+     "duties of the rule set: the value (or peak value) each starts at"),
 ]
 
 ACTION_COLUMNS = ["subject", "subject_type", "kind", "detail", "due_date", "clause", "source", "status"]
 DUE_COLUMNS = ["person_id", "group", "kind", "due_date", "status", "clause"]
 
-#: Clauses behind each rule, per rule-set family; RuleSet.clauses entries of the same key win.
-_CLAUSES: dict[str, dict[str, str]] = {
-    "osha": {
-        "enrolment": "29 CFR 1910.95(c)(1)",
-        "baseline": "29 CFR 1910.95(g)(5)",
-        "periodic": "29 CFR 1910.95(g)(6)",
-        "exit": "common practice (no exit audiogram in 1910.95)",
-        "training": "29 CFR 1910.95(k)(1)-(2)",
-        "protector": "29 CFR 1910.95(i)(1)",
-        "refit": "29 CFR 1910.95(g)(8)(ii)",
-        "functional": "29 CFR 1910.95(h)(5)(i)",
-        "acoustic": "29 CFR 1910.95(h)(5)(ii), App. E",
-        "exhaustive": "29 CFR 1910.95(h)(5)(iii), App. E",
-        "booth": "29 CFR 1910.95(h)(2), App. D Table D-1",
-    },
-    "eu": {
-        "enrolment": "Directive 2003/10/EC Art. 10",
-        "baseline": "Directive 2003/10/EC Art. 10(2)",
-        "periodic": "Directive 2003/10/EC Art. 10 (interval set nationally)",
-        "exit": "common practice",
-        "training": "Directive 2003/10/EC Art. 8",
-        "protector": "Directive 2003/10/EC Art. 6(1)",
-        "refit": "Directive 2003/10/EC Art. 10(3)",
-        "functional": "common practice (audiometer daily check)",
-        "acoustic": "common practice (annual acoustic calibration)",
-        "exhaustive": "common practice (exhaustive calibration)",
-        "booth": "29 CFR 1910.95 App. D Table D-1 (used as the booth reference)",
-    },
-    "niosh": {
-        "enrolment": "NIOSH 98-126 (REL 85 dB(A))",
-        "baseline": "NIOSH 98-126 (baseline audiogram)",
-        "periodic": "NIOSH 98-126 (annual audiogram)",
-        "exit": "common practice",
-        "training": "NIOSH 98-126 (annual training)",
-        "protector": "NIOSH 98-126 (hearing protectors)",
-        "refit": "NIOSH 98-126 (follow-up of a shift)",
-        "functional": "29 CFR 1910.95(h)(5)(i)",
-        "acoustic": "29 CFR 1910.95(h)(5)(ii), App. E",
-        "exhaustive": "29 CFR 1910.95(h)(5)(iii), App. E",
-        "booth": "29 CFR 1910.95(h)(2), App. D Table D-1",
-    },
-}
-
+#: The rule-set clause behind each item of this stage (generator/rules: duties and CLAUSE_KEYS).
+CLAUSE_OF = {"enrolment": "audiometry", "protector": "protectors_available"}
 
 @dataclass
 class ComplianceResult:
@@ -151,11 +112,8 @@ class ComplianceResult:
 
 
 def clause_for(rule: RuleSet, key: str) -> str:
-    """Return the clause text behind rule *key* for the rule set."""
-    if rule.clauses.get(key):
-        return str(rule.clauses[key])
-    family = "eu" if rule.id.startswith("eu") else "niosh" if rule.id.startswith("niosh") else "osha"
-    return _CLAUSES[family].get(key, rule.short)
+    """Return the clause the rule set cites for item *key* of this stage."""
+    return rule.clause(CLAUSE_OF.get(key, key))
 
 
 # ---------------------------------------------------------------------------------------
@@ -195,15 +153,32 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
         p["group_exposed"] = _bool(_lookup(p["group"], gexp))
     else:
         p["group_exposed"] = False
+    # duties that may start at another value than audiometry (EU: training and protectors at the
+    # lower action values); without per-duty judgements they follow the audiometry duty
+    for duty, col in (("training", "group_training"), ("protectors_available", "group_protectors")):
+        if ex_groups is not None and {"group", f"exposed_{duty}"} <= set(ex_groups.columns):
+            gd = ex_groups.drop_duplicates("group").set_index("group")[f"exposed_{duty}"]
+            p[col] = _bool(_lookup(p["group"], gd))
+        else:
+            p[col] = p["group_exposed"]
     if ex_people is not None and {"person_id", "exposed"} <= set(ex_people.columns):
         ep = ex_people.drop_duplicates("person_id").set_index("person_id")
         personal = _lookup(p["person_id"], ep["exposed"])
         # a person the exposure stage did not judge falls back on the group's judgement
         p["must_enrol"] = _bool(personal.where(personal.notna(), p["group_exposed"]))
+        for duty, col, gcol in (("training", "training_duty", "group_training"),
+                                ("protectors_available", "protector_duty", "group_protectors")):
+            if f"exposed_{duty}" in ep.columns:
+                own = _lookup(p["person_id"], ep[f"exposed_{duty}"])
+                p[col] = _bool(own.where(own.notna(), p[gcol]))
+            else:
+                p[col] = p["must_enrol"]
         first = _as_dates(_col(ep, "first_exposed_date", pd.NaT))
         p["first_exposed_date"] = _as_dates(_lookup(p["person_id"], first))
     else:
         p["must_enrol"] = p["group_exposed"]
+        p["training_duty"] = p["group_training"]
+        p["protector_duty"] = p["group_protectors"]
         p["first_exposed_date"] = pd.Series(pd.NaT, index=p.index, dtype="datetime64[ns]")
         if ex_people is None:
             notes.append("No exposure results: nobody can be judged as required to be in the programme.")
@@ -243,7 +218,7 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
         notes.append(f"{rule.short} sets no interval between audiograms: periodic audiograms are not "
                      "judged as due.")
     if training is None:
-        notes.append(f"{rule.short} sets no training interval: training is not judged as due.")
+        notes.append(f"{rule.short} sets no training interval: only a first training is judged as due.")
     return ComplianceInputs(p, a, t, f, rule, baseline, interval, training), notes
 
 
@@ -280,8 +255,12 @@ def person_status(inp: ComplianceInputs, as_of: pd.Timestamp, start: pd.Timestam
     s["has_records"] = has_aud | has_tr
     s["enrolled"] = s["has_records"] | s["group_exposed"]
     # training and protectors are owed to everyone the programme covers: people judged exposed
-    # and the members of exposed groups; records alone (information only) create no duties
+    # and the members of exposed groups, each at the value the rule set's duty starts at;
+    # records alone (information only) create no duties
     s["in_programme"] = s["must_enrol"] | s["group_exposed"]
+    started = s["first_exposed_date"].isna() | (s["first_exposed_date"] <= as_of)
+    s["training_duty"] = (s["training_duty"] & started) | s["group_training"]
+    s["protector_duty"] = (s["protector_duty"] & started) | s["group_protectors"]
 
     # baseline: within baseline_months of first exposure (29 CFR 1910.95(g)(5))
     s["baseline_due"] = add_months(s["first_exposed_date"], inp.baseline_months) \
@@ -315,7 +294,8 @@ def person_status(inp: ComplianceInputs, as_of: pd.Timestamp, start: pd.Timestam
     s["next_training_due"] = add_months(s["last_training"], inp.training_months).where(
         has_tr, s["first_exposed_date"].where(s["first_exposed_date"].notna(), as_of))
     left_before = s["leave_date"].notna() & (s["leave_date"] <= s["next_training_due"])
-    train_req = s["in_programme"] & (inp.training_months is not None) & ~left_before
+    # a first training is owed whatever the interval; a rule set with no interval asks for no repeat
+    train_req = s["training_duty"] & ((inp.training_months is not None) | ~has_tr) & ~left_before
     s["training_status"] = _classify(s["next_training_due"], as_of, train_req,
                                      pd.Series(False, index=s.index))
     s.loc[s["training_status"].eq("scheduled"), "training_status"] = "current"
@@ -327,7 +307,7 @@ def person_status(inp: ComplianceInputs, as_of: pd.Timestamp, start: pd.Timestam
     fits = inp.fits[inp.fits["date"].isna() | (inp.fits["date"] <= as_of)]
     s["has_protector"] = s["person_id"].isin(fits.loc[fits["protector_id"].ne(""), "person_id"])
     s["has_fit_test"] = s["person_id"].isin(fits.loc[fits["par"].notna(), "person_id"])
-    s["protector_required"] = s["in_programme"] & active
+    s["protector_required"] = s["protector_duty"] & active
     return s.sort_values("person_id", kind="mergesort").reset_index(drop=True)
 
 
@@ -479,7 +459,7 @@ def _figures(s: pd.DataFrame, hearing: pd.DataFrame | None, year_start: pd.Times
     must = s["must_enrol"]
     # people still within their baseline time limit are not yet expected to have an audiogram
     must_active = must & s["active"] & ~s["baseline_status"].isin(["scheduled", "due_soon"])
-    req_train = s["in_programme"] & s["active"]
+    req_train = s["training_duty"] & s["active"]
     f: dict[str, Any] = {
         "in_scope": int(len(s)),
         "must_be_enrolled": int(must.sum()),
@@ -536,7 +516,7 @@ def compute(programme: Programme, *, rule: RuleSet | None = None, exposure: Expo
     if rule is None:
         rule = load_rule_set(cfg.rules, cfg)
     if checks is None:
-        checks = audiometers.compute(programme)
+        checks = audiometers.compute(programme, rule)
     as_of, start = _ts(cfg.period.end), _ts(cfg.period.start)
     inp, notes = _gather(programme, exposure, rule)
     s = person_status(inp, as_of, start)
@@ -570,7 +550,7 @@ def compute(programme: Programme, *, rule: RuleSet | None = None, exposure: Expo
     due = due.sort_values(["due_date", "person_id", "kind"], kind="mergesort", na_position="first") \
         .reset_index(drop=True)
 
-    req = s[s["in_programme"] & s["active"]]
+    req = s[s["training_duty"] & s["active"]]
     tg = req.groupby("group", sort=True).agg(n_required=("person_id", "size"),
                                              n_trained=("trained_current", "sum")).reset_index()
     tg["n_trained"] = tg["n_trained"].astype(int)

@@ -15,9 +15,17 @@ Choices (also listed in :data:`PARAMETERS` for the methods page):
 
 * basis ``log``: a logged time history gives the exact dose for every rule (criterion,
   exchange rate, threshold), LAeq and duration; ``dosimeter``: the OSHA dose/TWA reported by
-  the instrument is used as is, other 5-dB figures assume the steady level that gives the
-  reported dose; ``steady_level``: 3-dB figures are exact energy figures from LAeq (no
-  threshold), 5-dB figures assume the level was steady over the run.
+  the instrument is used as is, every other dose is an estimate from LAeq; ``steady_level``:
+  every dose is an estimate from LAeq assumed steady over the run. An average cannot tell
+  which part of the run was above a threshold, so an estimate counts the whole run, with no
+  threshold (29 CFR 1910.95 App. A, T = 8/2^((L-90)/5), D = 100 C/T, applied to LAeq): 87.9
+  dB(A) for 11.25 h gives a PEL dose estimate of 105 %, not 0 %. ``dose_estimate`` marks the
+  rows whose doses are estimates (3-dB figures from LAeq are exact energy figures).
+* an area reading is a level at a place, not a person's dose: area rows carry laeq (and
+  LCpeak) only, never a dose, a TWA or an LEX,8h.
+* a person or group is exposed for each duty of the rule set (``exposed_<duty>``) when its
+  level reaches the value the duty starts at, or its highest LCpeak reaches the duty's peak
+  value (EU: either parameter alone starts the duty); ``exposed`` is the audiometry duty.
 * the dose counts the real run time; LEX,8h uses Te = max(run time, the group's shift), so
   a sample shorter than the shift stands for the whole shift (ISO 9612 sampling), and a run
   longer than the shift counts its real length. ``shift_twa_<id>`` projects the dose the
@@ -40,7 +48,7 @@ from . import levels as lv
 from .findings import WARNING, Finding
 from .inputs.spec import OCTAVE_BANDS
 from .model import Programme
-from .rules import RuleSet, load_rule_set, rule_sets_for
+from .rules import CONTRACT_RULES, DUTY_KEYS, RuleSet, load_rule_set, rule_sets_for
 
 log = logging.getLogger(__name__)
 
@@ -115,9 +123,17 @@ PARAMETERS: list[tuple[str, Any, str, str]] = [
      "common practice; for orientation only"),
 ]
 
-#: Doses the contract always reports (column prefix -> rule set id, threshold override).
-CONTRACT_DOSES = {"osha": ("osha-1910.95", None), "osha_pel": ("osha-1910.95", "limit"),
-                  "niosh": ("niosh-rel", None)}
+#: Doses the contract always reports (column prefix -> rule set id, which dose); the rule sets
+#: behind the fixed export columns are declared once, in generator.rules.CONTRACT_RULES.
+CONTRACT_DOSES = {"osha": (CONTRACT_RULES["osha"], None), "osha_pel": (CONTRACT_RULES["osha"], "limit"),
+                  "niosh": (CONTRACT_RULES["niosh"], None)}
+#: The rule set whose dose a dosimeter reports (its osha_dose_pct / osha_twa input columns).
+REPORTED_RULE = CONTRACT_RULES["osha"]
+#: How the pages name each basis of a measurement's doses.
+BASIS_LABELS = {"log": "time history", "dosimeter": "dosimeter (other doses: estimate from LAeq)",
+                "steady_level": "estimate from LAeq"}
+#: Figures an area reading never carries (a level at a place is not a person's dose).
+PERSONAL_ONLY = ("lex_8h", "osha_dose_pct", "osha_twa", "osha_pel_dose_pct", "niosh_dose_pct", "niosh_twa")
 
 MEASUREMENT_COLUMNS = ["measurement_id", "person_id", "group", "date", "duration_h", "laeq", "lex_8h",
                        "osha_dose_pct", "osha_twa", "osha_pel_dose_pct", "niosh_dose_pct", "niosh_twa",
@@ -296,11 +312,27 @@ def band_of(values: Any, rule: RuleSet, limit_values: Any = None) -> np.ndarray:
 
 
 def action_value(rule: RuleSet) -> float:
-    """Return the action value deciding who is exposed: the upper one, else the lower, else the limit."""
-    for v in (rule.upper_action_value, rule.lower_action_value, rule.limit_value):
-        if v is not None:
-            return float(v)
-    return float("inf")
+    """Return the level at which the rule set's audiometry duty starts (who is "exposed")."""
+    level, _ = rule.duty_values("audiometry")
+    return float(level) if level is not None else float("inf")
+
+
+def exposed_for(rule: RuleSet, duty: str, level: Any, peak: Any) -> np.ndarray:
+    """Return whether each level (dB(A)) or highest LCpeak (dB(C)) reaches the start of *duty*.
+
+    Either parameter alone starts the duty (Directive 2003/10/EC Art. 3(1): each action value
+    is a daily exposure level and a peak sound pressure); a rule set with no peak value for the
+    duty judges the level only.
+    """
+    lvl, pk = rule.duty_values(duty)
+    L = np.nan_to_num(np.asarray(level, dtype=float), nan=-np.inf)
+    P = np.nan_to_num(np.asarray(peak, dtype=float), nan=-np.inf)
+    out = np.zeros(np.broadcast(L, P).shape, dtype=bool)
+    if lvl is not None:
+        out |= L >= lvl
+    if pk is not None:
+        out |= P >= pk
+    return out
 
 
 def peak_flag(lcpeak: Any, rule: RuleSet) -> np.ndarray:
@@ -505,17 +537,15 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
     dosim = ~has_log & (m["osha_dose_pct"].notna() | m["osha_twa"].notna()).to_numpy()
     m["basis"] = np.where(has_log, "log", np.where(dosim, "dosimeter", "steady_level"))
 
-    osha = load_rule_set("osha-1910.95", programme.config)
+    m["dose_estimate"] = ~has_log
+    reported_rule = load_rule_set(REPORTED_RULE, programme.config)
+    reported_spec = _spec(reported_rule)
     rep_dose = m["osha_dose_pct"].to_numpy(float)
     rep_twa = m["osha_twa"].to_numpy(float)
-    rep_dose = np.where(np.isnan(rep_dose), lv.dose_from_twa(rep_twa, osha.criterion_level, osha.exchange_rate),
-                        rep_dose)
+    rep_dose = np.where(np.isnan(rep_dose), lv.dose_from_twa(rep_twa, reported_rule.criterion_level,
+                                                             reported_rule.exchange_rate), rep_dose)
     laeq = m["laeq"].to_numpy(float)
     hours = m["duration_h"].to_numpy(float)
-    # steady level that gives the dosimeter's OSHA dose over the run (for other 5-dB figures)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        l_dosim = osha.criterion_level + osha.exchange_rate * np.log2(
-            rep_dose / 100.0 * osha.criterion_hours / hours)
     upper_seen: dict[float, set[str]] = {}
     cache: dict[tuple[_DoseSpec, bool], np.ndarray] = {}
 
@@ -527,12 +557,10 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
         return cache[key]
 
     def _dose(spec: _DoseSpec, reported: bool) -> np.ndarray:
-        if spec.exchange_rate == 3.0:
-            steady = lv.steady_dose_pct(laeq, hours, spec.criterion_level, spec.criterion_hours, 3.0, None)
-        else:
-            base = np.where(dosim, l_dosim, laeq)
-            steady = lv.steady_dose_pct(base, hours, spec.criterion_level, spec.criterion_hours,
-                                        spec.exchange_rate, spec.threshold)
+        # LAeq assumed steady: an estimate over the whole run, with no threshold (an average
+        # cannot tell which part of the run was above it)
+        steady = lv.steady_dose_pct(laeq, hours, spec.criterion_level, spec.criterion_hours,
+                                    spec.exchange_rate, None)
         if reported:
             steady = np.where(dosim, rep_dose, steady)
         if have:
@@ -557,13 +585,13 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
     for prefix, (rid, which) in CONTRACT_DOSES.items():
         rule = load_rule_set(rid, programme.config)
         spec = _spec(rule, which)
-        d = dose(spec, reported=(prefix == "osha"))
+        d = dose(spec, reported=(spec == reported_spec))
         m[f"{prefix}_dose_pct"] = d
         if prefix != "osha_pel":
             m[f"{prefix}_twa"] = twa(d, spec)
     for rid, rule in rules.items():
         spec = _spec(rule)
-        d = dose(spec, reported=(rid == "osha-1910.95"))
+        d = dose(spec, reported=(spec == reported_spec))
         m[f"dose_{rid}"] = d
         m[f"twa_{rid}"] = twa(d, spec)
         sd = d * proj
@@ -580,6 +608,14 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
             m[f"limit_twa_{rid}"] = np.where(dl > 0, limit_level, np.nan)
         m[f"band_{rid}"] = band_of(np.where(np.isnan(laeq), np.nan, judged), rule, limit_level)
         m[f"peak_flag_{rid}"] = peak_flag(m["lcpeak"].to_numpy(float), rule)
+    # an area reading is a level at a place: no personal dose, TWA or LEX,8h
+    area = (m["kind"] == "area").to_numpy()
+    per_rule = [c for c in m.columns if c.startswith(("dose_", "twa_", "shift_twa_", "level_", "limit_"))]
+    for c in list(PERSONAL_ONLY) + per_rule:
+        m[c] = np.where(area, np.nan, m[c].to_numpy(float))
+    for c in [c for c in m.columns if c.startswith("band_")]:
+        m[c] = np.where(area, "", m[c].to_numpy(object)).astype(object)
+    m["dose_estimate"] = m["dose_estimate"].to_numpy(bool) & ~area
     for ul, ids in sorted(upper_seen.items()):
         for mid in sorted(ids):
             lf = programme.noise_logs[mid]
@@ -588,7 +624,7 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
                                     f"levels above {ul:g} dB(A), the upper end of the integration range, are "
                                     "counted at their measured level", key="above-integration-range"))
     logs = _downsample(idx, lev, start, mids, have)
-    front = MEASUREMENT_COLUMNS + ["kind", "location", "x_m", "y_m", "te_h", "laeq_reported",
+    front = MEASUREMENT_COLUMNS + ["dose_estimate", "kind", "location", "x_m", "y_m", "te_h", "laeq_reported",
                                    "duration_reported_h", "laeq_octaves", "lceq_octaves", "instrument_class",
                                    "_row"]
     rest = [c for c in m.columns if c not in front and (c.startswith(("dose_", "twa_", "shift_twa_", "band_",
@@ -684,7 +720,7 @@ def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> Ex
         col = f"_dose_{rule.id}_{which}"
         d = lv.steady_dose_pct(cur["laeq"].to_numpy(float), cur["duration_h"].to_numpy(float),
                                spec.criterion_level, spec.criterion_hours, spec.exchange_rate,
-                               None if spec.exchange_rate == 3.0 else spec.threshold)
+                               None)  # LAeq assumed steady: estimate without the threshold
         src = f"dose_{rule.id}" if which is None else f"limit_dose_{rule.id}"
         if src in cur:
             d = cur[src].to_numpy(float)
@@ -692,7 +728,7 @@ def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> Ex
         if len(task_rows):
             td = lv.steady_dose_pct(task_rows["lp_aeq"].to_numpy(float), task_rows["t_mean_h"].to_numpy(float),
                                     spec.criterion_level, spec.criterion_hours, spec.exchange_rate,
-                                    None if spec.exchange_rate == 3.0 else spec.threshold)
+                                    None)  # steady task levels: estimate without the threshold
             tdg = pd.Series(td).groupby(task_rows["group"].to_numpy()).sum().reindex(g.index).to_numpy(float)
         else:
             tdg = np.full(len(g), np.nan)
@@ -701,13 +737,11 @@ def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> Ex
                         np.where(dd == 0, -np.inf, np.nan))
 
     cur = cur.copy()
-    for rid in ("osha-1910.95", "niosh-rel"):
+    # the contract's fixed group columns (osha_twa, niosh_twa) from the declared rule sets
+    for prefix, rid in sorted(CONTRACT_RULES.items()):
         if f"dose_{rid}" not in cur:
-            cur[f"dose_{rid}"] = m.loc[cur.index, "osha_dose_pct" if rid == "osha-1910.95" else "niosh_dose_pct"]
-    osha_rule = load_rule_set("osha-1910.95", cfg)
-    niosh_rule = load_rule_set("niosh-rel", cfg)
-    g["osha_twa"] = group_twa(osha_rule)
-    g["niosh_twa"] = group_twa(niosh_rule)
+            cur[f"dose_{rid}"] = m.loc[cur.index, f"{prefix}_dose_pct"]
+        g[f"{prefix}_twa"] = group_twa(load_rule_set(rid, cfg))
     U = g["u_expanded"].to_numpy(float)
     for rid, rule in rules.items():
         val = g["lex_8h"].to_numpy(float) if rule.metric == "lex" else group_twa(rule)
@@ -726,8 +760,10 @@ def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> Ex
     g["band"] = np.where(g["band"] == "", g[f"band_{head_id}"], g["band"])
     hv = g[f"level_{head_id}"].to_numpy(float)
     judged = np.where(head.judge_with_uncertainty & ~np.isnan(U), hv + np.nan_to_num(U), hv)
-    g["exposed"] = judged >= action_value(head)
     g["max_lcpeak"] = m[(m["group"] != "") & (m["date"] <= end)].groupby("group")["lcpeak"].max().reindex(g.index)
+    for duty in DUTY_KEYS:
+        g[f"exposed_{duty}"] = exposed_for(head, duty, judged, g["max_lcpeak"].to_numpy(float))
+    g["exposed"] = g["exposed_audiometry"]
     dates = [personal[["group", "date"]]]
     if len(tasks_in) and "date" in tasks_in:
         dates.append(tasks_in[["group", "date"]])
@@ -738,7 +774,7 @@ def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> Ex
     for c in [c for c in g.columns if c.startswith("level_")]:
         g[c] = np.where(np.isneginf(g[c].to_numpy(float)), np.nan, g[c])
     g = g.reset_index()
-    extra = [c for c in g.columns if c.startswith(("band_", "level_", "limit_"))]
+    extra = [c for c in g.columns if c.startswith(("band_", "level_", "limit_", "exposed_"))]
     g = g[GROUP_COLUMNS + ["shift_hours", "days_per_week"] + extra]
 
     _sampling_findings(g, per_task, noise_path, tasks_path, findings)
@@ -801,14 +837,13 @@ def _people(people: pd.DataFrame, m: pd.DataFrame, g: pd.DataFrame, head: RuleSe
             end: pd.Timestamp, years: float) -> pd.DataFrame:
     """Return one row per person: personal (or group) exposure, exposed, first exposure date."""
     hid = head.id
-    act = action_value(head)
     every = m[(m["kind"] == "personal") & (m["person_id"] != "") & (m["date"] <= end) & m["laeq"].notna()]
     # a person's own figure uses their measurements within the survey interval of their latest one
     last = every.groupby("person_id")["date"].transform("max")
     pm = every[every["date"] >= last - pd.to_timedelta(years * 365.25, unit="D")].copy()
     pm["_e"] = lv.energy(pm["lex_8h"].to_numpy(float))
     pm["_sd"] = pm[f"dose_{hid}"] * pm["te_h"] / pm["duration_h"]
-    agg = pm.groupby("person_id").agg(_e=("_e", "mean"), _sd=("_sd", "mean"))
+    agg = pm.groupby("person_id").agg(_e=("_e", "mean"), _sd=("_sd", "mean"), _pk=("lcpeak", "max"))
     p = people[["person_id", "group"]].copy()
     if "hire_date" in people:
         p["_hire"] = pd.to_datetime(people["hire_date"])
@@ -835,11 +870,18 @@ def _people(people: pd.DataFrame, m: pd.DataFrame, g: pd.DataFrame, head: RuleSe
     p["twa"] = np.where(np.isneginf(val), np.nan, val)
     p["source"] = np.where(has_own, "personal", np.where(has_grp, "group", "none"))
     judged = np.where(head.judge_with_uncertainty & ~np.isnan(gU), val + np.nan_to_num(gU), val)
-    p["exposed"] = np.where(np.isnan(judged), False, judged >= act)
+    # the highest LCpeak: the person's own, else the group's
+    own_pk = a["_pk"].to_numpy(float)
+    peak = np.where(np.isnan(own_pk), _lookup(p["group"], gi["max_lcpeak"]).to_numpy(float), own_pk)
+    p["max_lcpeak"] = peak
+    for duty in DUTY_KEYS:
+        p[f"exposed_{duty}"] = exposed_for(head, duty, judged, peak)
+    p["exposed"] = p["exposed_audiometry"]
     # first exposure: first personal measurement at/above, else first group measurement at/above
-    over = every[every[f"level_{hid}"] >= act]
+    over = every[exposed_for(head, "audiometry", every[f"level_{hid}"], every["lcpeak"])]
     first_own = over.groupby("person_id")["date"].min()
-    gm = m[(m["kind"] == "personal") & (m["group"] != "") & (m[f"level_{hid}"] >= act) & (m["date"] <= end)]
+    pers = m[(m["kind"] == "personal") & (m["group"] != "") & (m["date"] <= end)]
+    gm = pers[exposed_for(head, "audiometry", pers[f"level_{hid}"], pers["lcpeak"])]
     first_grp = gm.groupby("group")["date"].min()
     fo = pd.to_datetime(_lookup(p["person_id"], first_own.astype("datetime64[ns]")))
     fg = pd.to_datetime(_lookup(p["group"], first_grp.astype("datetime64[ns]")))
@@ -872,9 +914,15 @@ def _actions(g: pd.DataFrame, head: RuleSet, cfg: Any, end: pd.Timestamp, m: pd.
     """Return the exposure actions: surveys due, controls, peaks."""
     rows: list[dict[str, Any]] = []
     years = cfg.exposure.stale_after_years
-    mon = head.clauses.get("monitoring", "")
-    ctl = head.clauses.get("controls", "")
+    mon = head.clause("monitoring")
+    measures_at = head.duties["programme_of_measures"].starts_at if "programme_of_measures" in head.duties else None
+    m_level, m_peak = head.duty_values("programme_of_measures")
+    # the programme of measures is the limit value's controls, or starts below the limit (EU: upper values)
+    ctl = head.clause("programme_of_measures") if measures_at == "limit" else head.clause("limit_value")
     limit_band = band_names(head)[-1] if head.limit_value is not None else None
+    names = band_names(head)
+    edges = band_edges(head)
+    from_band = edges.index(m_level) + 1 if m_level is not None and m_level in edges else None
     for r in g.sort_values("group").itertuples(index=False):
         if pd.isna(r.last_measured):
             rows.append(dict(subject=r.group, subject_type="group", kind="exposure survey",
@@ -894,16 +942,21 @@ def _actions(g: pd.DataFrame, head: RuleSet, cfg: Any, end: pd.Timestamp, m: pd.
                           "administrative controls")
             rows.append(dict(subject=r.group, subject_type="group", kind="noise controls", detail=detail,
                              due_date=pd.NaT, clause=ctl))
-        elif head.lower_action_value is not None and head.upper_action_value is not None and \
-                r.band in band_names(head)[2:]:
+        elif measures_at not in (None, "limit") and (
+                (from_band is not None and r.band in names[from_band:])
+                or (m_peak is not None and m_peak != head.peak_limit and not pd.isna(r.max_lcpeak)
+                    and r.max_lcpeak >= m_peak)):
+            what = f"group level at or above {m_level:g} dB(A)" if m_level is not None else "group level"
+            if m_peak is not None:
+                what += f" or highest LCpeak at or above {m_peak:g} dB(C)"
             rows.append(dict(subject=r.group, subject_type="group", kind="noise control programme",
-                             detail=f"group level at or above the upper action value {head.upper_action_value:g} "
-                                    "dB(A): programme of technical and organisational measures",
-                             due_date=pd.NaT, clause=ctl))
+                             detail=f"{what} (the {measures_at} action value): programme of technical and "
+                                    "organisational measures",
+                             due_date=pd.NaT, clause=head.clause("programme_of_measures")))
         if head.peak_limit is not None and not pd.isna(r.max_lcpeak) and r.max_lcpeak >= head.peak_limit:
             rows.append(dict(subject=r.group, subject_type="group", kind="peak level",
                              detail=f"highest LCpeak {r.max_lcpeak:.1f} dB(C) at or above {head.peak_limit:g} dB(C)",
-                             due_date=pd.NaT, clause=head.clauses.get("peak_limit", "")))
+                             due_date=pd.NaT, clause=head.clause("peak_limit")))
     if m.empty:
         rows.append(dict(subject="programme", subject_type="programme", kind="exposure survey",
                          detail="no noise measurements in the records", due_date=end.normalize(), clause=mon))

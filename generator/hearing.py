@@ -51,6 +51,7 @@ from .exposure import ExposureResult
 from .findings import WARNING, Finding
 from .inputs.spec import AUDIO_FREQS
 from .model import Programme
+from .rules import RuleSet, load_rule_set
 
 log = logging.getLogger(__name__)
 
@@ -72,19 +73,16 @@ SETTINGS: dict[str, Any] = {
     "referral_days": 21,  # program choice
     "ci_level": 0.95,  # exact (Clopper-Pearson) binomial interval
     "age_bands": (18, 30, 40, 50, 60, 200),
-    "clauses": {
-        "sts": "29 CFR 1910.95(g)(10)",
-        "notice": "29 CFR 1910.95(g)(8)(i)",
-        "retest": "29 CFR 1910.95(g)(7)(ii)",
-        "refit": "29 CFR 1910.95(g)(8)(ii)",
-        "referral": "29 CFR 1910.95(g)(8)(ii)(C)-(D)",
-        "baseline": "29 CFR 1910.95(g)(9)",
-        "recordable": "29 CFR 1904.10",
-        "quiet": "29 CFR 1910.95(g)(5)(iii)",
-        "review": "29 CFR 1910.95(g)(7)(iii)",
-        "niosh": "DHHS (NIOSH) 98-126",
-    },
 }
+#: The rule-set clauses this stage cites (generator/rules CLAUSE_KEYS): the headline rule set's.
+CLAUSE_KEYS = ("sts", "notice", "retest", "refit", "referral", "baseline_revision", "recordable", "quiet",
+               "review")
+
+
+def clauses_of(rules: RuleSet) -> dict[str, str]:
+    """Return the clauses this stage cites, as the rule set words them."""
+    return {k: rules.clause(k) for k in CLAUSE_KEYS}
+
 
 #: The settings above for the methods page: (name, value, unit, source).
 PARAMETERS: list[tuple[str, Any, str, str]] = [
@@ -665,7 +663,7 @@ def _audiometer_status(checks: AudiometerChecks) -> pd.DataFrame:
 # baselines, follow-ups, actions
 
 
-def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float) -> pd.DataFrame:
+def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dict[str, str]) -> pd.DataFrame:
     """Return the baseline in force per person and ear with revision candidates."""
     cols = ["person_id", "ear", "group", "baseline_date", "source", "decided", "n_baselines", "quiet_hours",
             "quiet_ok", "valid_check", "candidate", "candidate_date", "candidate_detail"]
@@ -708,9 +706,9 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float) -> pd.D
     cur["candidate_date"] = pers_date.where(is_pers, impr_date.where(is_impr))
     cur["candidate_detail"] = np.where(
         is_pers, "shift in force on more than one test against this baseline: the reviewer may revise the "
-                 "baseline (1910.95(g)(9)(i))",
+                 f"baseline ({cl['baseline_revision']})",
         np.where(is_impr, f"2000/3000/4000 Hz average {SETTINGS['improvement_db']:g} dB or more better than "
-                          "baseline on two tests in a row: the reviewer may revise the baseline (1910.95(g)(9)(ii))",
+                          f"baseline on two tests in a row: the reviewer may revise the baseline ({cl['baseline_revision']})",
                  ""))
     return cur[cols].sort_values(["person_id", "ear"], kind="mergesort").reset_index(drop=True)
 
@@ -736,10 +734,9 @@ def _first_on_or_after(left: pd.DataFrame, events: pd.DataFrame, left_on: str) -
 
 
 def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
-               as_of: pd.Timestamp) -> pd.DataFrame:
+               as_of: pd.Timestamp, cl: dict[str, str]) -> pd.DataFrame:
     """Return notices, retests, refits and referrals with their timeliness."""
     cfg = programme.config.audiometry
-    cl = SETTINGS["clauses"]
     notices = programme.table("notices")
     notices = pd.DataFrame({"person_id": _col(notices, "person_id", "").astype(str),
                             "date": _dates(_col(notices, "date", pd.NaT)),
@@ -808,9 +805,8 @@ def _fmt_date(s: pd.Series) -> pd.Series:
 
 
 def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start: pd.Timestamp,
-             as_of: pd.Timestamp) -> pd.DataFrame:
+             as_of: pd.Timestamp, cl: dict[str, str]) -> pd.DataFrame:
     """Return the hearing action list (refits are listed by the compliance stage)."""
-    cl = SETTINGS["clauses"]
     parts = []
     if not fu.empty:
         f = fu[fu["kind"].isin(["notice", "retest", "referral"]) & fu["status"].isin(["late", "missing", "not yet due"])
@@ -836,7 +832,7 @@ def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start:
                 "subject": b["person_id"], "subject_type": "person", "kind": "baseline review",
                 "detail": b["ear"].map(EAR_NAMES) + ": " + b["candidate"] + " (latest "
                 + _fmt_date(b["candidate_date"]) + "); " + b["candidate_detail"],
-                "due_date": pd.NaT, "clause": cl["baseline"]}))
+                "due_date": pd.NaT, "clause": cl["baseline_revision"]}))
     nr = ag[ag["shift_status"].eq("not computed (NR)") & (ag["date"] >= start) & (ag["date"] <= as_of)]
     if not nr.empty:
         parts.append(pd.DataFrame({
@@ -1093,7 +1089,8 @@ def _incidence(cases: pd.DataFrame, years: list[int], hours: float | None, start
 # findings
 
 
-def _findings(programme: Programme, ag: pd.DataFrame, baselines: pd.DataFrame, min_quiet: float) -> list[Finding]:
+def _findings(programme: Programme, ag: pd.DataFrame, baselines: pd.DataFrame, min_quiet: float,
+              cl: dict[str, str]) -> list[Finding]:
     """Return warnings about the audiogram data (NR, missing frequencies, quiet period, checks, sex)."""
     out: list[Finding] = []
     path = _path(programme, "audiograms")
@@ -1118,7 +1115,7 @@ def _findings(programme: Programme, ag: pd.DataFrame, baselines: pd.DataFrame, m
         q = ag["quiet_hours"]
         add(b & q.notna().to_numpy() & ~_ge(q, min_quiet), "quiet_hours",
             "baseline audiogram after " + q.round(1).astype(str) + f" h without workplace noise (the programme asks "
-            f"for at least {min_quiet:g} h, 29 CFR 1910.95(g)(5)(iii)); the reviewer may want a new baseline",
+            f"for at least {min_quiet:g} h: {cl['quiet']}); the reviewer may want a new baseline",
             key="baseline-quiet")
         add(b & q.isna().to_numpy(), "quiet_hours", "baseline audiogram: the quiet period before the test is not "
             "recorded", key="baseline-quiet-missing")
@@ -1144,15 +1141,19 @@ def _findings(programme: Programme, ag: pd.DataFrame, baselines: pd.DataFrame, m
 
 
 def compute(programme: Programme, *, exposure: ExposureResult | None = None,
-            checks: AudiometerChecks | None = None) -> HearingResult:
+            checks: AudiometerChecks | None = None, rules: RuleSet | None = None) -> HearingResult:
     """Compute baselines, shifts, recordable cases, follow-ups and population views.
 
     *exposure* gives the levels for the expected noise-induced change (none: not shown);
-    *checks* the audiometer checks of each test day (none: computed here).
+    *checks* the audiometer checks of each test day (none: computed here); *rules* the headline
+    rule set, whose clauses the follow-ups and actions cite (none: programme.yaml's).
     """
-    if checks is None:
-        checks = audiometers.compute(programme)
     cfg = programme.config
+    if rules is None:
+        rules = load_rule_set(cfg.rules, cfg)
+    cl = clauses_of(rules)
+    if checks is None:
+        checks = audiometers.compute(programme, rules)
     start = pd.Timestamp(cfg.period.start)
     as_of = pd.Timestamp(cfg.period.end)
     findings: list[Finding] = []
@@ -1179,13 +1180,13 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
         ag["valid_check"] = _nbool(m["valid"].fillna(False).to_numpy(bool), known)
         ag["check_reason"] = m["reason"].fillna("").to_numpy()
 
-    baselines = _baselines(ag, events, cfg.audiometry.min_quiet_hours)
+    baselines = _baselines(ag, events, cfg.audiometry.min_quiet_hours, cl)
     cases = ag.loc[ag["recordable"], ["person_id", "ear", "date", "avg_234", "shift_driving", "year", "group"]] \
         .rename(columns={"shift_driving": "shift"}).reset_index(drop=True)
     incidence, period_cases, period_rate = _incidence(cases, sorted(ag["year"].unique().tolist()),
                                                       cfg.hours_worked, start, as_of)
-    followups = _followups(programme, ag, decisions, as_of)
-    actions = _actions(ag, followups, baselines, start, as_of)
+    followups = _followups(programme, ag, decisions, as_of, cl)
+    actions = _actions(ag, followups, baselines, start, as_of, cl)
     last = _last_per_year(ag)
     py = _per_person_year(ag, last)
     population = _population(py)
@@ -1194,7 +1195,7 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
     age_norms = _age_norms(ag, as_of)
     noise_expected, n_notes = _noise_expected(ag, exposure, as_of)
     notes.extend(n_notes)
-    findings.extend(_findings(programme, ag, baselines, cfg.audiometry.min_quiet_hours))
+    findings.extend(_findings(programme, ag, baselines, cfg.audiometry.min_quiet_hours, cl))
     if ag.empty:
         notes.append("No audiograms (data/audiograms.csv): there are no shifts or recordable cases to show.")
 

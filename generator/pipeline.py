@@ -69,9 +69,9 @@ def run(programme: Programme, rules: dict[str, RuleSet], on_step: StepHook | Non
     with clock("exposure"):
         exp = exposure.compute(programme, rules)
     with clock("audiometer checks"):
-        checks = audiometers.compute(programme)
+        checks = audiometers.compute(programme, head)
     with clock("hearing"):
-        hear = hearing.compute(programme, exposure=exp, checks=checks)
+        hear = hearing.compute(programme, exposure=exp, checks=checks, rules=head)
     with clock("protection"):
         # 29 CFR 1910.95(j)(3) and its like: the target under the protector is lower for a
         # person with a shift in force, so protection is judged after the hearing stage

@@ -7,15 +7,19 @@ Methods (every one the data allow is computed, one governs):
 * ``hml``: ISO 4869-2:2018 HML method, Formulas (16)–(18);
 * ``snr``: ISO 4869-2:2018 SNR method, Formulas (23)/(24);
 * ``nrr-c`` / ``nrr-a``: 29 CFR 1910.95 App. B, ``LC − NRR`` and ``TWA − (NRR − 7)``;
-* ``nrr-50``: OSHA's 50 % derating used when weighing engineering controls,
-  ``TWA − (NRR − 7)/2`` (``LC − NRR/2``);
+* ``nrr-50``: OSHA's 50 % safety factor, ``TWA − (NRR − 7)/2`` (``LC − NRR/2``). OSHA
+  Instruction CPL 02-02-035 App. A applies it when weighing protectors against engineering
+  controls and says it is not for the 1910.95(j) adequacy check: it is shown beside the
+  verdict, never used for it;
 * ``nrr-niosh``: NIOSH 98-126 derating by type (earmuffs 25 %, formable plugs 50 %,
-  other plugs 70 % of the NRR), then the App. B correction (7 dB on A-weighted data; from memory).
+  other plugs 70 % of the NRR), then the 7-dB step on A-weighted data (where NIOSH puts
+  that step was not verified: the order is the programme's own setting). NIOSH's 2025
+  science policy superseded this derating with individual fit testing, so a fitted PAR
+  comes first wherever one is on record.
 
 Two protectors worn together (issued the same day) use the dual-protection rule for the NRR
 methods: the higher NRR, its corrections, plus 5 dB. The governing method is the first
-available of ``PAR > octave > HML > SNR > NRR`` (NRR: NIOSH-derated under the NIOSH rule set,
-otherwise C-weighted where a C level is known, else A-weighted).
+available in the rule set's ``protector_methods`` (e.g. ``PAR > octave > HML > SNR > NRR``).
 
 The figures are estimates that support, and do not replace, the judgement of a competent
 noise assessor and the fitting of protectors to the person.
@@ -42,11 +46,16 @@ log = logging.getLogger(__name__)
 
 #: 29 CFR 1910.95 App. B: NRR applied to A-weighted data is reduced by 7 dB.
 NRR_A_CORRECTION = 7.0
-#: OSHA field practice (OSHA Technical Manual): NRR derated by one half for engineering-control decisions.
+#: OSHA Instruction CPL 02-02-035 App. A: "apply a safety factor of 50 percent" to the computed
+#: attenuation when weighing protectors against engineering controls; "not applicable ... for
+#: determining compliance with" 1910.95(j). Shown for that use only, never for the verdict.
 OSHA_DERATING = 0.5
 #: Dual protection: add this to the higher-rated protector's attenuation (OSHA Technical Manual).
 DUAL_ADD = 5.0
-#: NIOSH 98-126: share of the NRR subtracted, by protector type.
+#: NIOSH 98-126: share of the NRR subtracted, by protector type (NIOSH abstract of Murphy & Franks
+#: 2002: "derating the NRR by 25%, 50% and 70% for earmuffs, formable earplugs, and all other
+#: earplugs"); superseded in January 2025 by NIOSH's science policy recommending individual fit
+#: testing (AIHA news of 30 Jan 2025).
 NIOSH_DERATING: dict[str, float] = {
     "earmuff": 0.25,
     "foam_plug": 0.50,  # formable earplugs
@@ -61,11 +70,11 @@ ALPHA_84 = 1.0
 A_OCTAVE = np.array([-26.2, -16.1, -8.6, -3.2, 0.0, 1.2, 1.0, -1.1])
 #: IEC 61672-1:2013 Table 3, C weighting at the octave centres 63 Hz … 8 kHz (dB).
 C_OCTAVE = np.array([-0.8, -0.2, 0.0, 0.0, 0.0, -0.2, -0.8, -3.0])
-#: EN 458 assessment relative to the action level (from memory, unverified): L'A above the
-#: action level is insufficient, more than 15 dB below it is over-protection.
+#: Reference level of the bands of the level under the protector: the programme's own setting
+#: (the bands of EN 458 could not be verified, so none is cited).
 EN458_ACTION_LEVEL = 80.0
-#: Below this level under the protector a person is flagged over-protected (EN 458 with an
-#: 80 dB(A) action level; from memory, unverified).
+#: Below this level under the protector a person is flagged as possibly over-protected: the
+#: programme's own setting (15 dB below the reference level).
 OVERPROTECTION_BELOW = 65.0
 
 METHODS = ("par", "octave", "hml", "snr", "nrr-niosh", "nrr-c", "nrr-a", "nrr-50")
@@ -74,37 +83,39 @@ METHOD_LABELS = {
     "octave": "octave band (ISO 4869-2)",
     "hml": "HML (ISO 4869-2)",
     "snr": "SNR (ISO 4869-2)",
-    "nrr-niosh": "NRR, NIOSH derating",
+    "nrr-niosh": "NRR, NIOSH 1998 derating (superseded 2025 by fit testing)",
     "nrr-c": "NRR on C-weighted level (App. B)",
     "nrr-a": "NRR on A-weighted level (App. B)",
-    "nrr-50": "NRR derated 50 % (OSHA, engineering controls)",
+    "nrr-50": "NRR derated 50 % (OSHA CPL 02-02-035, for weighing engineering controls only)",
 }
 ADEQUACY = ("adequate", "insufficient", "over-protected", "no protector", "not exposed", "unknown")
 
+_NIOSH_SRC = "NIOSH 98-126 (1998); superseded in Jan 2025 by NIOSH's recommendation of individual fit testing"
+
 PARAMETERS: list[tuple[str, Any, str, str]] = [
     ("A-weighted NRR correction", NRR_A_CORRECTION, "dB", "29 CFR 1910.95 App. B"),
-    ("OSHA derating for engineering-control decisions", OSHA_DERATING * 100, "% of (NRR − 7)",
-     "OSHA Technical Manual, Sec. III Ch. 5 (field practice, not App. B)"),
+    ("OSHA safety factor when weighing protectors against engineering controls (not for the "
+     "adequacy verdict)", OSHA_DERATING * 100, "% of (NRR − 7)", "OSHA Instruction CPL 02-02-035, App. A"),
     ("dual protection: added to the higher NRR", DUAL_ADD, "dB", "OSHA Technical Manual; WAC 296-307-63215"),
-    ("NIOSH derating, earmuffs", NIOSH_DERATING["earmuff"] * 100, "% of NRR", "NIOSH 98-126 (1998)"),
-    ("NIOSH derating, formable (foam) plugs", NIOSH_DERATING["foam_plug"] * 100, "% of NRR",
-     "NIOSH 98-126 (1998)"),
+    ("NIOSH derating, earmuffs", NIOSH_DERATING["earmuff"] * 100, "% of NRR", _NIOSH_SRC),
+    ("NIOSH derating, formable (foam) plugs", NIOSH_DERATING["foam_plug"] * 100, "% of NRR", _NIOSH_SRC),
     ("NIOSH derating, all other plugs", NIOSH_DERATING["premolded_plug"] * 100, "% of NRR",
-     "NIOSH 98-126 (1998); type 'other' treated alike (our choice)"),
+     _NIOSH_SRC + "; type 'other' treated alike (our choice)"),
     ("α for the assumed protection value (84 %)", ALPHA_84, "", "ISO 4869-2:2018 Table 1"),
     ("HML branch point LC − LA", 2.0, "dB", "ISO 4869-2:2018 Formulas (16)/(17)"),
-    ("target under the protector (no STS)", "rule set", "dB(A)", "29 CFR 1910.95(j)(2)"),
-    ("target under the protector after an STS", "rule set", "dB(A)", "29 CFR 1910.95(j)(3), App. B"),
-    ("EN 458 reference action level", EN458_ACTION_LEVEL, "dB(A)", "EN 458:2016 (from memory, unverified)"),
-    ("over-protection below", OVERPROTECTION_BELOW, "dB(A)", "EN 458:2016 (from memory, unverified)"),
+    ("target under the protector, before and after a shift", "rule set", "dB(A)",
+     "protected_target, protected_target_after_sts of the rule set (clauses in its table)"),
+    ("order of the methods (the first the data allow governs)", "rule set", "",
+     "protector_methods of the rule set"),
+    ("reference level of the bands under the protector", EN458_ACTION_LEVEL, "dB(A)",
+     f"the programme's own setting: {EN458_ACTION_LEVEL:g} dB(A)"),
+    ("possible over-protection below", OVERPROTECTION_BELOW, "dB(A)",
+     f"the programme's own setting: {OVERPROTECTION_BELOW:g} dB(A)"),
 ]
 
 PEOPLE_COLUMNS = ["person_id", "group", "protector_id", "protector_type", "exposure_level",
                   "protected_level", "method", "adequacy", "fit_date", "par"]
 ACTION_COLUMNS = ["subject", "subject_type", "kind", "detail", "due_date", "clause"]
-
-_DEFAULT_CLAUSES = {"osha-1910.95": "29 CFR 1910.95(j)", "niosh-rel": "NIOSH 98-126 Ch. 6",
-                    "eu-2003-10": "Directive 2003/10/EC Art. 6", "custom": ""}
 
 # ---------------------------------------------------------------------------------------
 # pure methods (array in, array out)
@@ -204,7 +215,11 @@ def octave_protected(bands: Any, apv_bands: Any) -> np.ndarray:
 
 
 def en458_band(protected: Any, action_level: float = EN458_ACTION_LEVEL) -> np.ndarray:
-    """Return the EN 458 assessment of levels under the protector (bands from memory, unverified)."""
+    """Return the band of each level under the protector relative to *action_level*.
+
+    The bands (above the level: insufficient; 0-5 dB below: acceptable; 5-10: good; 10-15:
+    acceptable; more than 15: too high) are the programme's own setting.
+    """
     p = _arr(protected)
     conds = [np.isnan(p), p > action_level, p > action_level - 5, p > action_level - 10,
              p > action_level - 15]
@@ -414,9 +429,10 @@ def protected_levels(df: pd.DataFrame) -> pd.DataFrame:
     return out
 
 
-def governing(levels: pd.DataFrame, niosh: bool = False) -> pd.DataFrame:
-    """Return (method, protected_level) of the first available method in order of precedence."""
-    order = ["par", "octave", "hml", "snr"] + (["nrr-niosh"] if niosh else []) + ["nrr-c", "nrr-a"]
+def governing(levels: pd.DataFrame, order: Iterable[str] = ("par", "octave", "hml", "snr", "nrr-c", "nrr-a")
+              ) -> pd.DataFrame:
+    """Return (method, protected_level) of the first available method in *order* (the rule set's)."""
+    order = list(order)
     vals = levels[order].to_numpy(dtype=float)
     ok = ~np.isnan(vals)
     idx = np.where(ok.any(axis=1), ok.argmax(axis=1), -1)
@@ -519,8 +535,8 @@ def _groups(people: pd.DataFrame) -> pd.DataFrame:
 
 def _actions(people: pd.DataFrame, rules: RuleSet) -> pd.DataFrame:
     """Return one action per person with too little or too much protection."""
-    base_clause = rules.clauses.get("protected_target") or _DEFAULT_CLAUSES.get(rules.id, "")
-    sts_clause = rules.clauses.get("protected_target_after_sts") or base_clause
+    base_clause = rules.clause("protected_target")
+    sts_clause = rules.clause("protected_target_after_sts")
     p = people
     clause = pd.Series(np.where(p["after_sts"].to_numpy(dtype=bool), sts_clause, base_clause), index=p.index)
     lvl = p["protected_level"].round(1).astype(str)
@@ -534,9 +550,9 @@ def _actions(people: pd.DataFrame, rules: RuleSet) -> pd.DataFrame:
         "over-protected": ("possible over-protection",
                            "estimated " + lvl + " dB(A) under " + p["protector_id"] + " (" + meth
                            + ") is below " + f"{OVERPROTECTION_BELOW:g}"
-                           + " dB(A): consider a protector with less attenuation (EN 458 band, "
-                             "from memory, unverified)",
-                           ""),
+                           + " dB(A) (the programme's own setting): consider a protector with less "
+                             "attenuation",
+                           f"the programme's own setting: {OVERPROTECTION_BELOW:g} dB(A)"),
     }  # people with no protector on record: the compliance stage lists them (coverage)
     frames = []
     for adequacy, (kind, detail, cl) in kinds.items():
@@ -612,7 +628,7 @@ def compute(programme: Programme, *, exposure: ExposureResult | None, sts_people
         df[c] = pd.to_datetime(df[c])
     lv = protected_levels(df)
     lv.loc[df["protector_id"] == "", :] = np.nan
-    gov = governing(lv, niosh=rules.id == "niosh-rel")
+    gov = governing(lv, rules.protector_methods)
     df["method"] = gov["method"].where(df["protector_id"] != "", "")
     df["protected_level"] = gov["protected_level"]
     df["osha_50_level"] = lv["nrr-50"]

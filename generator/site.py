@@ -8,6 +8,8 @@ works from ``file://``; no template loads anything from another host.
 """
 from __future__ import annotations
 
+from collections import defaultdict
+
 import logging
 import math
 import re
@@ -287,6 +289,10 @@ def site_info(ctx: SiteContext) -> dict[str, Any]:
         "build_date": build_date(),
         "note": cfg.site_url_note,
         "restricted": ctx.restricted,
+        # the headline rule set's clauses and intervals, for page texts that cite them
+        "clauses": defaultdict(str, ctx.headline.all_clauses() if ctx.rules else {}),
+        "calibration_months": {"acoustic": ctx.headline.acoustic_calibration_months,
+                               "exhaustive": ctx.headline.exhaustive_calibration_months} if ctx.rules else {},
     }
 
 

@@ -512,10 +512,13 @@ def test_quiet_group_still_gives_people_a_source(tmp_path: Path) -> None:
     r = ex.compute(p)
     pp = r.people.set_index("person_id")
     assert pp.loc["E002", "source"] == "group" and pp.loc["E002", "lex_8h"] == pytest.approx(70.0)
-    assert np.isnan(pp.loc["E002", "twa"]) and not bool(pp.loc["E002", "exposed"])
+    # an LAeq assumed steady gives an estimate with no threshold: 70 dB(A) for 8 h is a TWA of 70
+    # (29 CFR 1910.95 App. A, T = 8/2^((70-90)/5) = 128 h, D = 100·8/128 = 6.25 %)
+    assert pp.loc["E002", "twa"] == pytest.approx(70.0) and not bool(pp.loc["E002", "exposed"])
     g = r.groups.set_index("group").loc["G1"]
     assert g["band_osha-1910.95"] == "below 85" and g["band_eu-2003-10"] == "below 80"
-    assert r.measurements.iloc[0]["osha_dose_pct"] == 0.0
+    assert r.measurements.iloc[0]["osha_dose_pct"] == pytest.approx(6.25)
+    assert bool(r.measurements.iloc[0]["dose_estimate"])
 
 
 def _group_page_programme(tmp_path: Path):

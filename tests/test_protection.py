@@ -14,7 +14,7 @@ from generator.config import Config
 from generator.findings import Findings
 from generator.inputs import spec
 from generator.model import Programme
-from generator.rules import RuleSet
+from generator.rules import load_rule_set
 
 # ---------------------------------------------------------------------------------------
 # helpers: loaded tables following the conventions of generator/inputs/spec.py
@@ -58,15 +58,8 @@ def exposure(rows: list[tuple[str, str, float, bool]]) -> SimpleNamespace:
 
 
 # 29 CFR 1910.95(j)(2)/(j)(3): targets 90 dB TWA, 85 dB after a standard threshold shift.
-OSHA = RuleSet(
-    id="osha-1910.95", name="OSHA", short="OSHA", criterion_level=90.0, criterion_hours=8.0,
-    exchange_rate=5.0, threshold=80.0, upper_limit=130.0, metric="twa", lower_action_value=None,
-    upper_action_value=85.0, limit_value=90.0, peak_lower_action=None, peak_upper_action=None,
-    peak_limit=140.0, protectors_count_for_limit=False, judge_with_uncertainty=False,
-    baseline_months=6.0, audiogram_interval_months=12.0, training_interval_months=12.0,
-    protected_target=90.0, protected_target_after_sts=85.0, caution="osha-1910.95",
-    clauses={"protected_target": "29 CFR 1910.95(j)(2)", "protected_target_after_sts": "29 CFR 1910.95(j)(3)"},
-)
+OSHA = load_rule_set("osha-1910.95")
+assert (OSHA.protected_target, OSHA.protected_target_after_sts) == (90.0, 85.0)
 
 # ---------------------------------------------------------------------------------------
 # NRR methods: 29 CFR 1910.95 App. B, OSHA 50 % derating, NIOSH derating, dual protection
@@ -274,7 +267,7 @@ def test_target_after_sts_is_85():
     p = again.people.set_index("person_id")
     assert p.loc["S1", "adequacy"] == "insufficient" and p.loc["S1", "target"] == 85.0
     assert p.loc["S2", "adequacy"] == "adequate" and p.loc["S2", "target"] == 90.0
-    assert again.actions["clause"].tolist() == ["29 CFR 1910.95(j)(3)"]
+    assert again.actions["clause"].tolist() == ["29 CFR 1910.95(j)(3), App. B"]
 
 
 def _noise_row(pid: str, mid: str, bands: np.ndarray | None = None, laeq: float = 104.0,
@@ -368,14 +361,20 @@ def test_latest_protector_up_to_period_end_and_dual():
 
 def test_niosh_rule_set_uses_niosh_derating():
     # NIOSH 98-126: earmuff NRR 25 derated 25 % -> 18.75; A-weighted: 100 − (18.75 − 7) = 88.25
-    niosh = replace(OSHA, id="niosh-rel", metric="twa", protected_target=85.0, protected_target_after_sts=85.0,
-                    clauses={})
+    niosh = load_rule_set("niosh-rel")
+    assert niosh.protected_target == 85.0
     prog = programme(_people(["N"]), PROTECTORS, [{"person_id": "N", "protector_id": "MUFF-A"}])
     res = P.compute(prog, exposure=exposure([("N", "G1", 100.0, True)]), sts_people=frozenset(), rules=niosh)
     p = res.people.set_index("person_id").loc["N"]
     assert p["method"] == "nrr-niosh"
     assert p["protected_level"] == pytest.approx(88.25)
     assert p["adequacy"] == "insufficient"
+    # the method order is data of the rule set, not a test of its id: OSHA's order under NIOSH's id
+    # governs by App. B (A-weighted: 100 − (25 − 7) = 82)
+    renamed = replace(OSHA, id="niosh-rel")
+    res = P.compute(prog, exposure=exposure([("N", "G1", 100.0, True)]), sts_people=frozenset(), rules=renamed)
+    p = res.people.set_index("person_id").loc["N"]
+    assert p["method"] == "nrr-a" and p["protected_level"] == pytest.approx(82.0)
 
 
 def test_no_exposure_stage_gives_unknown_or_not_exposed():
@@ -424,7 +423,9 @@ def test_page_lists_codes_and_suppresses_small_groups():
     html = site.render_page(env, pg, {"site": site.site_info(ctx), "cautions": site.cautions_for(ctx.rules)}, pages)
     for raw in ("E101", "E102", "E103", "E201"):
         assert raw not in html
-    assert "P-K7Q2" in html and "from memory" in html and "suppressed" in html
+    assert "P-K7Q2" in html and "suppressed" in html
+    # the over-protection level is shown as the programme's own setting, never as an unverified citation
+    assert "programme's own settings" in html and "from memory" not in html and "unverified" not in html
 
 
 def test_page_without_protector_files_says_so():

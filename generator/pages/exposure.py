@@ -12,7 +12,7 @@ import plotly.graph_objects as go
 
 from .. import charts
 from .. import levels as lv
-from ..exposure import PARAMETERS, ExposureResult, action_value, band_names
+from ..exposure import BASIS_LABELS, PARAMETERS, ExposureResult, action_value, band_names
 from ..privacy import redactor
 from .base import Chart, Page, SiteContext, Table, group_slugs
 
@@ -22,8 +22,9 @@ SUPPRESSED = "suppressed"
 SECTION = "exposure"
 BASIS_TEXT = {
     "log": "logged time history (exact dose for every rule set)",
-    "dosimeter": "dose/TWA reported by the dosimeter (other 5-dB figures assume the steady level that gives it)",
-    "steady_level": "LAeq and run time only (3-dB figures exact; 5-dB figures assume a steady level)",
+    "dosimeter": "dose/TWA reported by the dosimeter (other doses: estimate from LAeq)",
+    "steady_level": "estimate from LAeq: LAeq and run time only, the level assumed steady, no threshold "
+                    "(3-dB figures exact)",
 }
 MAP_NOTE = "interpolated, for orientation only"
 #: rows of a group's measurement table (the most recent ones); the export has them all
@@ -264,7 +265,8 @@ def measurement_table(m: pd.DataFrame, ctx: SiteContext, redact: Any = str, n: i
             shown[cols].itertuples(index=False, name=None):
         who = ctx.code(pid) if pid else "area"
         rows.append([date.strftime("%Y-%m-%d"), redact(mid), who, kind, redact(loc) or charts.BLANK, _num(dur, 2), _num(laeq),
-                     _num(lex), _num(od, 0), _num(ot), _num(nd, 0), _num(nt), _num(pk), basis,
+                     _num(lex), _num(od, 0), _num(ot), _num(nd, 0), _num(nt), _num(pk),
+                     BASIS_LABELS.get(basis, basis),
                      band or charts.BLANK])
     which = (f"the {len(shown):,} most recent of {len(m):,}, newest first" if len(shown) < len(m)
              else f"all {len(m):,}, newest first")

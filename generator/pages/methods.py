@@ -6,13 +6,13 @@ import logging
 from typing import Any
 
 from ..resources import content_dir
-from ..rules import RuleSet
+from ..rules import CLAUSE_KEYS, DUTY_KEYS, DUTY_LABELS, RuleSet
 from .base import Page, SiteContext, Table
 
 log = logging.getLogger(__name__)
 
-#: RuleSet fields that are not values (shown elsewhere or not at all).
-_NOT_VALUES = {"id", "name", "short", "caution", "clauses", "notes"}
+#: RuleSet fields that are not values (shown elsewhere, in their own rows, or not at all).
+_NOT_VALUES = {"id", "name", "short", "caution", "clauses", "notes", "duties", "protector_methods"}
 _UNITS = {
     "criterion_level": "dB(A)", "criterion_hours": "h", "exchange_rate": "dB", "threshold": "dB(A)",
     "upper_limit": "dB(A)", "lower_action_value": "dB(A)", "upper_action_value": "dB(A)",
@@ -20,7 +20,32 @@ _UNITS = {
     "peak_limit": "dB(C)", "baseline_months": "months", "audiogram_interval_months": "months",
     "training_interval_months": "months", "protected_target": "dB(A)",
     "protected_target_after_sts": "dB(A)", "limit_dose_threshold": "dB(A)",
+    "acoustic_calibration_months": "months", "exhaustive_calibration_months": "months",
 }
+#: Value fields whose clause has another key in RuleSet.clauses.
+_CLAUSE_OF = {"criterion_hours": "criterion_level", "baseline_months": "baseline", "audiogram_interval_months": "periodic",
+              "training_interval_months": "training_interval", "acoustic_calibration_months": "acoustic",
+              "exhaustive_calibration_months": "exhaustive"}
+#: Readable names of the value fields (the field name with spaces otherwise).
+_LABELS = {"threshold": "integration threshold of the dose", "limit_dose_threshold":
+           "integration threshold of the limit dose", "upper_limit": "upper end of the integration range",
+           "metric": "level judged (twa: dose-based TWA; lex: LEX,8h)",
+           "judge_with_uncertainty": "judged on the level + expanded uncertainty",
+           "protectors_count_for_limit": "protectors count for the limit value",
+           "protected_target": "target under the protector",
+           "protected_target_after_sts": "target under the protector after a shift",
+           "baseline_months": "baseline audiogram due within", "audiogram_interval_months":
+           "audiograms repeated every", "training_interval_months": "training repeated every",
+           "acoustic_calibration_months": "acoustic calibration of the audiometer every",
+           "exhaustive_calibration_months": "exhaustive calibration of the audiometer every",
+           "sts": "threshold shift that calls for follow-up", "notice": "written notice of a shift",
+           "retest": "retest of a shift", "refit": "protector refit and retraining after a shift",
+           "referral": "referral asked for by the reviewer", "baseline_revision": "revised baseline",
+           "review": "audiograms the rules cannot judge", "recordable": "recordable hearing loss",
+           "quiet": "quiet period before the baseline audiogram", "functional": "audiometer functional check",
+           "booth": "booth background levels", "weekly": "weekly exposure level",
+           "monitoring": "exposure monitoring", "exit": "exit audiogram"}
+_STARTS = {"lower": "lower action value", "upper": "upper action value", "limit": "limit value"}
 
 
 def _cell(v: Any) -> str:
@@ -33,6 +58,20 @@ def _cell(v: Any) -> str:
     return str(v)
 
 
+def _label(name: str) -> str:
+    return _LABELS.get(name, name.replace("_", " "))
+
+
+def duty_cell(rule: RuleSet, duty: str) -> str:
+    """Return where a duty starts, with units: "80 dB(A) or 135 dB(C) (lower action value)"."""
+    level, peak = rule.duty_values(duty)
+    if level is None and peak is None:
+        return "not a duty"
+    parts = [f"{level:g} dB(A)" if level is not None else "", f"{peak:g} dB(C) peak" if peak is not None else ""]
+    at = rule.duties[duty].starts_at
+    return " or ".join(p for p in parts if p) + (f" ({_STARTS[at]})" if at in _STARTS else "")
+
+
 def rule_value_fields(rules: dict[str, RuleSet]) -> list[str]:
     """Return the value fields of the rule sets in declaration order."""
     first = next(iter(rules.values()))
@@ -40,21 +79,34 @@ def rule_value_fields(rules: dict[str, RuleSet]) -> list[str]:
 
 
 def rules_table(rules: dict[str, RuleSet]) -> Table:
-    """Return the rule sets side by side: one row per value, one column per rule set."""
+    """Return the rule sets side by side: one row per value and per duty, one column per rule set."""
     names = rule_value_fields(rules)
-    rows = [[n.replace("_", " "), _UNITS.get(n, "")] + [_cell(getattr(r, n)) for r in rules.values()]
-            for n in names]
+    rows = [[_label(n), _UNITS.get(n, "")] + [_cell(getattr(r, n)) for r in rules.values()] for n in names]
+    rows += [[f"duty: {DUTY_LABELS[d]}", "starts at"] + [duty_cell(r, d) for r in rules.values()]
+             for d in DUTY_KEYS]
+    rows.append(["protector methods, first available governs", ""]
+                + [" > ".join(r.protector_methods) for r in rules.values()])
     return Table(columns=["value", "unit"] + [r.name for r in rules.values()], rows=rows,
-                 caption="Values of the rule sets used in this review", classes=["", ""] + ["num"] * len(rules))
+                 caption="Values and duties of the rule sets used in this review (clauses in the tables below)",
+                 classes=["", ""] + ["num"] * len(rules))
 
 
 def clauses_table(rule: RuleSet) -> Table:
-    """Return one rule set's values with the clause each comes from."""
+    """Return one rule set's values and duties with the clause each comes from."""
     rows = []
+    shown: set[str] = set()
     for n in rule_value_fields({rule.id: rule}):
-        rows.append([n.replace("_", " "), _cell(getattr(rule, n)), _UNITS.get(n, ""), rule.clauses.get(n, "")])
-    for k in sorted(set(rule.clauses) - set(rule_value_fields({rule.id: rule}))):
-        rows.append([k.replace("_", " "), "", "", rule.clauses[k]])
+        key = _CLAUSE_OF.get(n, n)
+        shown.add(key)
+        rows.append([_label(n), _cell(getattr(rule, n)), _UNITS.get(n, ""), rule.clauses.get(key, "")])
+    for d in DUTY_KEYS:
+        rows.append([f"duty: {DUTY_LABELS[d]}", duty_cell(rule, d), "", rule.clause(d)])
+    rows.append(["protector methods, first available governs", " > ".join(rule.protector_methods), "",
+                 rule.clause("protector_method")])
+    shown.add("protector_method")
+    for k in CLAUSE_KEYS:
+        if k not in shown:
+            rows.append([_label(k), "", "", rule.clause(k)])
     return Table(columns=["value", "setting", "unit", "clause"], rows=rows, caption="",
                  classes=["", "num", "", ""])
 

@@ -39,8 +39,8 @@ def catalogue_table(cat: pd.DataFrame) -> Table:
                  for h, m, lo in zip(df["h"].astype(float), df["m"].astype(float), df["l"].astype(float))]
     df["octave"] = np.where(df["has_octave"], "yes", "no")
     cols = {"protector_id": "Protector", "type_label": "Type", "name": "Name", "nrr": "NRR",
-            "nrr_a": "NRR − 7 (App. B, A-weighted)", "nrr_osha_50": "(NRR − 7)/2 (OSHA 50 %)",
-            "nrr_niosh": "NIOSH-derated NRR", "snr": "SNR", "hml": "H/M/L", "octave": "Octave data",
+            "nrr_a": "NRR − 7 (App. B, A-weighted)", "nrr_osha_50": "(NRR − 7)/2 (OSHA 50 %, for weighing controls only)",
+            "nrr_niosh": "NIOSH 1998-derated NRR (superseded 2025 by fit testing)", "snr": "SNR", "hml": "H/M/L", "octave": "Octave data",
             "n_wearers": "Wearing"}
     return charts.table_from_frame(df, cols, {"n_wearers": "d", "nrr": "g", "snr": "g"},
                                    caption="Protector catalogue with the attenuation each method credits, dB")
