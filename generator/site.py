@@ -1,7 +1,8 @@
 """Render page models to HTML: jinja2 environment, sanitised markdown, charts, cautions.
 
 :func:`render_site` turns the pages of a :class:`~generator.pages.base.SiteContext` into a
-mapping ``relative path -> bytes`` (pages, ``assets/plotly.min.js``, ``assets/style.css``);
+mapping ``relative path -> bytes`` (pages, ``assets/plotly.min.js``, ``assets/style.css``,
+``assets/tables.js``);
 :mod:`generator.build` writes that mapping. Everything links relatively, so the site
 works from ``file://``; no template loads anything from another host.
 """
@@ -40,6 +41,8 @@ pio.json.config.default_engine = "json"
 
 PLOTLY_JS = "assets/plotly.min.js"
 STYLE_CSS = "assets/style.css"
+#: stock assets copied from the templates folder (a programme's own templates/ may override them).
+TEMPLATE_ASSETS = {STYLE_CSS: "style.css", "assets/tables.js": "tables.js"}
 CHART_CONFIG = {"displaylogo": False, "responsive": True}
 #: Names every page template gets; a page's own context may not reuse them.
 RESERVED = frozenset({"site", "nav", "root", "page", "charts", "chart_map", "cautions"})
@@ -335,8 +338,9 @@ def render_site(ctx: SiteContext, pages: list[Page] | None = None) -> dict[str, 
                 raise
             raise problem from None
     files[PLOTLY_JS] = plotly_js()
-    style, _, _ = env.loader.get_source(env, "style.css")  # type: ignore[union-attr]
-    files[STYLE_CSS] = style.encode("utf-8")
+    for path, name in sorted(TEMPLATE_ASSETS.items()):
+        text, _, _ = env.loader.get_source(env, name)  # type: ignore[union-attr]
+        files[path] = text.encode("utf-8")
     return files
 
 

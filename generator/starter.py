@@ -1,9 +1,10 @@
 """``hcpsite new``: a starter programme folder generated from the declarations.
 
 programme.yaml lists every option of :mod:`generator.config` with its documentation as a
-comment; each data file of :mod:`generator.inputs.spec` gets its declared header and two
-example rows of an invented workplace, consistent with each other so that
-``hcpsite check`` passes on the starter as written.
+comment; each data file of :mod:`generator.inputs.spec` gets its declared header and a
+few example rows of an invented workplace (two, or as many as a sampling or calibration
+rule needs), consistent with each other so that ``hcpsite check --strict`` passes on the
+starter as written once the person-code key is set.
 """
 from __future__ import annotations
 
@@ -22,7 +23,7 @@ from .inputs.spec import FILES, NOISE_LOG, FileSpec
 
 log = logging.getLogger(__name__)
 
-#: Example values of the starter, two rows per file, by column (blank when not given).
+#: Example values of the starter, two rows per file (more where a check needs them), by column (blank when not given).
 EXAMPLES: dict[str, list[dict[str, Any]]] = {
     "groups": [
         {"group": "G01", "name": "Press line operators", "description": "stamping presses, part handling",
@@ -39,7 +40,9 @@ EXAMPLES: dict[str, list[dict[str, Any]]] = {
          "name": "Example Worker Two"},
     ],
     "audiometers": [
-        {"audiometer_id": "AUD1", "date": "2025-01-06", "check": "functional", "result": "pass"},
+        {"audiometer_id": "AUD1", "date": "2025-02-10", "check": "functional", "result": "pass"},
+        {"audiometer_id": "AUD1", "date": "2024-06-03", "check": "acoustic", "result": "pass"},
+        {"audiometer_id": "AUD1", "date": "2024-06-03", "check": "exhaustive", "result": "pass"},
         {"audiometer_id": "AUD1", "date": "2024-11-18", "check": "booth", "result": "pass",
          "ob_500": 22, "ob_1000": 24, "ob_2000": 28, "ob_4000": 33, "ob_8000": 36},
     ],
@@ -60,8 +63,10 @@ EXAMPLES: dict[str, list[dict[str, Any]]] = {
     "tasks": [
         {"group": "G01", "task": "Press operation", "task_hours": 6.5, "laeq": 89.4, "date": "2025-03-05",
          "sample_minutes": 15, "instrument_class": 1},
-        {"group": "G01", "task": "Tool change", "task_hours": 1.0, "laeq": 84.2, "date": "2025-03-05",
-         "sample_minutes": 10, "instrument_class": 1},
+        {"group": "G01", "task": "Press operation", "task_hours": 6.5, "laeq": 88.7, "date": "2025-03-05",
+         "sample_minutes": 15, "instrument_class": 1},
+        {"group": "G01", "task": "Press operation", "task_hours": 6.5, "laeq": 90.1, "date": "2025-03-06",
+         "sample_minutes": 15, "instrument_class": 1},
     ],
     "audiograms": [
         {"person_id": "E10001", "date": "2025-02-10", "ear": "L", "kind": "periodic", "hl_500": 10,
@@ -105,13 +110,13 @@ navigation.
 
 
 def example_rows(spec: FileSpec) -> list[dict[str, Any]]:
-    """Return the two example rows of a data file, with every declared column (blank when unset)."""
+    """Return the example rows of a data file, with every declared column (blank when unset)."""
     rows = EXAMPLES.get(spec.name, [{}, {}])
     return [{c.name: r.get(c.name, "") for c in spec.columns} for r in rows]
 
 
 def csv_text(spec: FileSpec) -> str:
-    """Return the starter CSV of *spec*: header and two example rows."""
+    """Return the starter CSV of *spec*: header and its example rows."""
     buf = io.StringIO()
     w = csv.DictWriter(buf, fieldnames=[c.name for c in spec.columns], lineterminator="\n")
     w.writeheader()
