@@ -26,6 +26,7 @@ from . import clock
 from . import __version__
 from .pages import NARRATIVE, SECTIONS, section_title
 from .pages.base import Chart, Page, SiteContext
+from .portable import round_floats
 from .resources import content_dir, templates_dir
 
 log = logging.getLogger(__name__)
@@ -148,7 +149,8 @@ source_date = clock.source_date
 
 def chart_html(chart: Chart) -> str:
     """Return the plot div and its script for *chart* (plotly.js is loaded by the page)."""
-    return pio.to_html(chart.figure, include_plotlyjs=False, full_html=False, div_id=chart.id,
+    figure = round_floats(chart.figure.to_plotly_json())  # same bytes in every environment
+    return pio.to_html(figure, include_plotlyjs=False, full_html=False, div_id=chart.id,
                        default_height=chart.height, config=CHART_CONFIG)
 
 
