@@ -33,6 +33,7 @@ import subprocess
 import sys
 import tempfile
 import time
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
 from typing import Dict, List, Optional, Tuple
 
@@ -149,19 +150,35 @@ def venv_python(folder: Path) -> Path:
     return folder / "bin" / "python"
 
 
-def requirements_of(env: Dict[str, object], declared: List[str], plotly_version: Optional[str]) -> List[str]:
-    """Return everything pip installs into *env*."""
+def requirements_of(env: Dict[str, object], declared: List[str]) -> List[str]:
+    """Return everything pip installs into *env* (the project's own code runs from the checkout)."""
     reqs: List[str] = []
     if env.get("project", True):
         reqs += declared + ["pytest"]
-        if plotly_version:  # the plotly.js bundle is written into the site: same release everywhere
-            reqs.append(f"plotly=={plotly_version}")
     reqs += pins_for(env, declared) + [str(x) for x in env.get("extra", [])]  # type: ignore[union-attr]
     return reqs
 
 
-def setup(env: Dict[str, object], declared: List[str], plotly_version: Optional[str],
-          fresh: bool = False) -> Tuple[Optional[Path], str]:
+def _pip(python: Path, reqs: List[str]) -> subprocess.CompletedProcess:
+    pip_env = dict(os.environ, PIP_CACHE_DIR=str(PIP_CACHE), PIP_DISABLE_PIP_VERSION_CHECK="1")
+    return subprocess.run([str(python), "-m", "pip", "install", "-q", "--only-binary=:all:"] + reqs,
+                          capture_output=True, text=True, env=pip_env, cwd=str(REPO))
+
+
+def _pip_errors(proc: subprocess.CompletedProcess) -> str:
+    noise = ("WARNING: Location", "[notice]")
+    return "\n".join([l for l in (proc.stdout + proc.stderr).splitlines() if not l.startswith(noise)][-25:])
+
+
+def align_plotly(python: Path, version: Optional[str]) -> None:
+    """Install the reference's plotly release (its plotly.js bundle is copied into the site)."""
+    if version and versions(python).get("plotly") not in (None, version):
+        proc = _pip(python, [f"plotly=={version}"])
+        if proc.returncode != 0:
+            raise RuntimeError(f"pip could not install plotly=={version}:\n{_pip_errors(proc)}")
+
+
+def setup(env: Dict[str, object], declared: List[str], fresh: bool = False) -> Tuple[Optional[Path], str]:
     """Create (or reuse) the virtual environment of *env*. Return (its python, message).
 
     The python is None when the environment is skipped (its interpreter is missing); a
@@ -172,7 +189,7 @@ def setup(env: Dict[str, object], declared: List[str], plotly_version: Optional[
     if exe is None:
         return None, f"SKIPPED {name}: {found}"
     folder = VENVS / name
-    reqs = requirements_of(env, declared, plotly_version)
+    reqs = requirements_of(env, declared)
     spec = json.dumps({"python": found, "exe": exe, "requirements": reqs}, sort_keys=True)
     marker = folder / ".hcpsite-environment.json"
     if not fresh and marker.is_file() and marker.read_text(encoding="utf-8") == spec:
@@ -185,13 +202,9 @@ def setup(env: Dict[str, object], declared: List[str], plotly_version: Optional[
         shutil.rmtree(folder, ignore_errors=True)
         why = (proc.stderr or proc.stdout).strip().splitlines()[-1:] or ["?"]
         return None, f"SKIPPED {name}: Python {found} at {exe} cannot create a virtual environment ({why[0]})"
-    pip_env = dict(os.environ, PIP_CACHE_DIR=str(PIP_CACHE), PIP_DISABLE_PIP_VERSION_CHECK="1")
-    cmd = [str(venv_python(folder)), "-m", "pip", "install", "-q", "--only-binary=:all:"] + reqs
-    proc = subprocess.run(cmd, capture_output=True, text=True, env=pip_env, cwd=str(REPO))
+    proc = _pip(venv_python(folder), reqs)
     if proc.returncode != 0:
-        noise = ("WARNING: Location", "[notice]")
-        lines = [l for l in (proc.stdout + proc.stderr).splitlines() if not l.startswith(noise)]
-        raise RuntimeError(f"{name}: pip could not install {' '.join(reqs)}:\n" + "\n".join(lines[-25:]))
+        raise RuntimeError(f"{name}: pip could not install {' '.join(reqs)}:\n{_pip_errors(proc)}")
     marker.write_text(spec, encoding="utf-8")
     return venv_python(folder), f"{name}: created with Python {found} in {time.monotonic() - started:.0f} s"
 
@@ -256,12 +269,37 @@ def compare(ref: Path, other: Path, limit: int = 5) -> List[str]:
 
 
 def run_env_tests(python: Path) -> Tuple[bool, str]:
-    """Run tests/test_environments.py with *python*; return (ok, last lines)."""
+    """Run tests/test_environments.py with *python*; return (ok, pytest's summary or its last lines)."""
     env = dict(os.environ, PYTHONPATH=str(REPO))
-    proc = subprocess.run([str(python), "-m", "pytest", "-q", "-p", "no:cacheprovider", "tests/test_environments.py"],
+    proc = subprocess.run([str(python), "-m", "pytest", "-o", "addopts=", "-q", "-p", "no:cacheprovider",
+                           "tests/test_environments.py"],
                           capture_output=True, text=True, env=env, cwd=str(REPO), timeout=900)
-    tail = "\n".join((proc.stdout + proc.stderr).strip().splitlines()[-15:])
-    return proc.returncode == 0, tail
+    lines = (proc.stdout + proc.stderr).strip().splitlines()
+    return proc.returncode == 0, (lines[-1] if proc.returncode == 0 and lines else "\n".join(lines[-25:]))
+
+
+def check(name: str, python: Path, work: Path, reference: Path, plotly_version: Optional[str]) -> Tuple[bool, str]:
+    """Build, export and test in one environment; compare with the reference. Return (ok, report)."""
+    t0 = time.monotonic()
+    try:
+        align_plotly(python, plotly_version)
+    except RuntimeError as exc:
+        return False, f"FAILED {name}: {exc}"
+    label = f"{name} ({describe(versions(python))})"
+    ok, message = run_build(python, work / name)
+    if not ok:
+        return False, f"FAILED {label}: {message}"
+    problems: List[str] = []
+    for part in ("site", "export"):
+        problems += [f"{part}/{p}" for p in compare(reference / part, work / name / part)]
+    if problems:
+        return False, f"FAILED {label}: the output differs from the reference:\n  " + "\n  ".join(problems)
+    tests_ok, summary = run_env_tests(python)
+    if not tests_ok:
+        return False, f"FAILED {label}: tests/test_environments.py failed:\n{summary}"
+    files = len(tree(work / name / "site")) + len(tree(work / name / "export"))
+    return True, (f"ok {label}: {files} files identical to the reference; tests/test_environments.py: "
+                  f"{summary} ({time.monotonic() - t0:.0f} s)")
 
 
 # ---------------------------------------------------------------------------------------
@@ -276,37 +314,33 @@ def main(argv: Optional[List[str]] = None) -> int:
     ap.add_argument("--setup", action="store_true", help="only create the environments")
     ap.add_argument("--oracle", action="store_true", help="only create .venvs/oracle (Python 3.13 + phonometry)")
     ap.add_argument("--fresh", action="store_true", help="recreate environments even when they exist")
+    ap.add_argument("--jobs", type=int, default=2, metavar="N", help="environments checked at once (default 2)")
     ap.add_argument("--keep", metavar="DIR", help="write the builds into DIR and keep them")
     args = ap.parse_args(argv)
 
     declared = declared_dependencies()
-    chosen = ENVIRONMENTS
+    everything = ENVIRONMENTS + [ORACLE]
+    chosen = [ORACLE] if args.oracle else ENVIRONMENTS
     if args.only:
-        unknown = sorted(set(args.only) - {str(e["name"]) for e in ENVIRONMENTS + [ORACLE]})
+        unknown = sorted(set(args.only) - {str(e["name"]) for e in everything})
         if unknown:
             ap.error(f"unknown environment(s): {', '.join(unknown)}")
-        chosen = [e for e in ENVIRONMENTS + [ORACLE] if e["name"] in args.only]
+        chosen = [e for e in everything if e["name"] in args.only]
     if args.list:
-        for env in ENVIRONMENTS + [ORACLE]:
+        for env in everything:
             exe, found = find_python(str(env["python"]))
             where = f"{exe} ({found})" if exe else found
-            print(f"{env['name']}: {env['about']}\n    pip: {' '.join(requirements_of(env, declared, None))}\n"
+            print(f"{env['name']}: {env['about']}\n    pip: {' '.join(requirements_of(env, declared))}\n"
                   f"    python: {where}")
         return 0
-    if args.oracle:
-        chosen = [ORACLE]
 
     started = time.monotonic()
+    only_setup = args.oracle or args.setup
     reference = Path(args.reference)
-    plotly_version = None
-    if not (args.oracle or args.setup):
-        if not reference.exists():
-            say(f"no reference environment at {reference}: create it first with the README's test command "
-                f"(python3 -m venv .venv && .venv/bin/pip install -e '.[test]')")
-            return 2
-    if reference.exists():
-        ref_versions = versions(reference)
-        plotly_version = ref_versions.get("plotly")
+    if not only_setup and not reference.exists():
+        say(f"no reference environment at {reference}: create it first with the README's test command "
+            f"(python3 -m venv .venv && .venv/bin/pip install -e '.[test]')")
+        return 2
 
     VENVS.mkdir(exist_ok=True)
     pythons: Dict[str, Path] = {}
@@ -314,7 +348,7 @@ def main(argv: Optional[List[str]] = None) -> int:
     skipped: List[str] = []
     for env in chosen:
         try:
-            python, message = setup(env, declared, plotly_version, fresh=args.fresh)
+            python, message = setup(env, declared, fresh=args.fresh)
         except RuntimeError as exc:
             say(f"FAILED {exc}")
             failures.append(str(env["name"]))
@@ -324,13 +358,15 @@ def main(argv: Optional[List[str]] = None) -> int:
             skipped.append(str(env["name"]))
         else:
             pythons[str(env["name"])] = python
-    if args.oracle or args.setup:
+    if only_setup:
         for name, python in pythons.items():
             say(f"{name}: {python} ({describe(versions(python))})")
         say(f"set up in {time.monotonic() - started:.0f} s; {len(failures)} failed, {len(skipped)} skipped")
         return 1 if failures else 0
 
+    ref_versions = versions(reference)
     work = Path(args.keep) if args.keep else Path(tempfile.mkdtemp(prefix="hcpsite-environments-"))
+    identical = 0
     try:
         t0 = time.monotonic()
         ok, message = run_build(reference, work / "reference")
@@ -338,33 +374,17 @@ def main(argv: Optional[List[str]] = None) -> int:
             say(f"FAILED reference build ({describe(ref_versions)}): {message}")
             return 1
         say(f"reference ({describe(ref_versions)}): built and exported in {time.monotonic() - t0:.0f} s")
-        identical = 0
-        for name, python in pythons.items():
-            if name == ORACLE["name"]:
-                continue
-            t0 = time.monotonic()
-            label = f"{name} ({describe(versions(python))})"
-            ok, message = run_build(python, work / name)
-            if not ok:
-                say(f"FAILED {label}: {message}")
-                failures.append(name)
-                continue
-            problems = []
-            for part in ("site", "export"):
-                problems += [f"{part}/{p}" for p in compare(work / "reference" / part, work / name / part)]
-            tests_ok, tests_tail = run_env_tests(python)
-            if problems:
-                say(f"FAILED {label}: the output differs from the reference:\n  " + "\n  ".join(problems))
-                failures.append(name)
-            elif not tests_ok:
-                say(f"FAILED {label}: tests/test_environments.py failed:\n{tests_tail}")
-                failures.append(name)
-            else:
-                files = len(tree(work / name / "site")) + len(tree(work / name / "export"))
-                last = tests_tail.splitlines()[-1] if tests_tail else ""
-                say(f"ok {label}: {files} files identical to the reference; tests/test_environments.py: {last} "
-                    f"({time.monotonic() - t0:.0f} s)")
-                identical += 1
+        todo = [(n, p) for n, p in pythons.items() if n != ORACLE["name"]]
+        with ThreadPoolExecutor(max_workers=max(1, args.jobs)) as pool:
+            futures = [pool.submit(check, n, p, work, work / "reference", ref_versions.get("plotly"))
+                       for n, p in todo]
+            for (name, _), future in zip(todo, futures):
+                ok, message = future.result()
+                say(message)
+                if ok:
+                    identical += 1
+                else:
+                    failures.append(name)
     finally:
         if not args.keep:
             shutil.rmtree(work, ignore_errors=True)
