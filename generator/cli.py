@@ -16,7 +16,7 @@ from typing import Callable, Sequence
 
 from jinja2.exceptions import SecurityError
 
-from . import __version__
+from . import __version__, progress
 from .findings import Findings, HcpsiteError, UsageError
 
 log = logging.getLogger("generator")
@@ -156,7 +156,8 @@ def make_parser() -> argparse.ArgumentParser:
     p = _Parser(prog="hcpsite", description="Turn hearing-conservation programme records into a "
                 "static, offline review site.", epilog=EXIT_CODES)
     p.add_argument("--version", action="version", version=f"hcpsite {__version__}")
-    p.add_argument("-v", "--verbose", action="store_true", help="print progress messages")
+    p.add_argument("-v", "--verbose", action="store_true",
+                   help="print progress messages (one timed line per build phase; on by default on a terminal)")
     sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser,
                            help="one of the commands below; 'hcpsite COMMAND --help' shows its options")
 
@@ -253,6 +254,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     except SystemExit as exc:  # --help and --version
         return int(exc.code or 0)
     _setup_logging(args.verbose)
+    progress.configure(args.verbose)
     func: Callable[[argparse.Namespace], int] | None = getattr(args, "func", None)
     if func is None:
         parser.print_help(sys.stderr)
