@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 from pathlib import Path, PurePosixPath
 from typing import Any
 
-from . import clock
+from . import clock, progress
 from .config import CONFIG_FILE
 from .findings import Findings, HcpsiteError, UsageError
 from .model import Programme
@@ -68,7 +68,8 @@ def load(root: Path, strict: bool = False) -> Programme:
     if not root.is_dir():
         raise UsageError(f"{root}: no such programme folder")
     from .inputs.reader import load_programme
-    programme = load_programme(root, today=validation_today())
+    with progress.step("load"):
+        programme = load_programme(root, today=validation_today())
     _stop_if_failed(root, programme.findings, strict)
     return programme
 
@@ -415,11 +416,15 @@ def build_site(root: Path, out: Path | None = None, *, strict: bool = False,
     out = Path(out) if out is not None else root / DEFAULT_OUT
     check_output(root, out)
     clean_stale(Path(out).resolve())
-    ctx = prepare(root, strict=strict, restricted=restricted)
-    build_pages(ctx)
-    files = render_site(ctx)
-    files.update(narrative_images(root, set(files)))
-    size = write_site(files, out, private=restricted)
+    with progress.step("build"):
+        ctx = prepare(root, strict=strict, restricted=restricted)
+        with progress.step("pages"):
+            build_pages(ctx)
+        with progress.step("render"):
+            files = render_site(ctx)
+            files.update(narrative_images(root, set(files)))
+        with progress.step("write"):
+            size = write_site(files, out, private=restricted)
     pages = sorted(p.slug for p in ctx.pages if restricted or not p.restricted)
     log.info("built %d pages (%d files, %d bytes) into %s", len(pages), len(files) + 1, size, out)
     return BuildReport(out=out.resolve(), pages=pages, files=len(files) + 1, bytes=size,

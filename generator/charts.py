@@ -18,6 +18,7 @@ import plotly.graph_objects as go
 import plotly.io as pio
 
 from .pages.base import Table
+from .portable import round_floats
 
 TEMPLATE_NAME = "hcpsite"
 #: Colours of the site (also used by style.css): ink blue, amber, moss, plum, brick, slate, ochre, teal.
@@ -88,7 +89,8 @@ def finalise(fig: go.Figure | dict) -> dict:
 
 def figure_html(fig: go.Figure, div_id: str, height: int | str | None, config: Mapping[str, Any]) -> str:
     """Return the plot div and script of *fig* (escaped by :func:`finalise`); plotly.js is loaded by the page."""
-    return pio.to_html(finalise(fig), include_plotlyjs=False, full_html=False, div_id=div_id,
+    # numbers rounded to what every environment computes alike (generator/portable.py)
+    return pio.to_html(round_floats(finalise(fig)), include_plotlyjs=False, full_html=False, div_id=div_id,
                        default_height=height, config=dict(config), validate=False)
 
 

@@ -16,7 +16,7 @@ from typing import Callable, Sequence
 
 from jinja2.exceptions import SecurityError
 
-from . import __version__
+from . import __version__, progress
 from .findings import Findings, HcpsiteError, UsageError
 
 log = logging.getLogger("generator")
@@ -143,50 +143,91 @@ def _port(text: str) -> int:
     return value
 
 
-def make_parser() -> argparse.ArgumentParser:
-    """Return the argument parser of every command."""
-    p = _Parser(prog="hcpsite", description="Turn hearing-conservation programme records into a "
-                "static, offline review site.")
-    p.add_argument("--version", action="version", version=f"hcpsite {__version__}")
-    p.add_argument("-v", "--verbose", action="store_true", help="print progress messages")
-    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+#: the exit codes, printed under every command's --help.
+EXIT_CODES = ("exit codes: 0 success (warnings allowed unless --strict); 1 errors in the input or the "
+              "environment, or warnings under --strict; 2 a wrong command line (unknown command or option, "
+              "bad option value, or a programme folder that does not exist)")
+#: the programme folder argument of every command that reads one.
+DIR_HELP = "the programme folder (holding programme.yaml and data/)"
 
-    s = sub.add_parser("new", help="write a starter programme folder")
-    s.add_argument("dir", type=_folder, metavar="DIR")
+
+def make_parser() -> argparse.ArgumentParser:
+    """Return the argument parser of every command; every argument and option has a help text."""
+    p = _Parser(prog="hcpsite", description="Turn hearing-conservation programme records into a "
+                "static, offline review site.", epilog=EXIT_CODES)
+    p.add_argument("--version", action="version", version=f"hcpsite {__version__}")
+    p.add_argument("-v", "--verbose", action="store_true",
+                   help="print progress messages (one timed line per build phase; on by default on a terminal)")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser,
+                           help="one of the commands below; 'hcpsite COMMAND --help' shows its options")
+
+    def command(name: str, summary: str, description: str) -> argparse.ArgumentParser:
+        return sub.add_parser(name, help=summary, description=description, epilog=EXIT_CODES)
+
+    s = command("new", "write a starter programme folder",
+                "Write a starter programme folder: programme.yaml with every option and its documentation, "
+                "and each data file with its header and example rows of an invented workplace. Refuses a "
+                "folder that exists and is not empty.")
+    s.add_argument("dir", type=_folder, metavar="DIR", help="the folder to create (new, or empty)")
     s.set_defaults(func=cmd_new)
 
-    s = sub.add_parser("check", help="validate a programme folder, write nothing")
-    s.add_argument("dir", type=_folder, metavar="DIR")
-    s.add_argument("--strict", action="store_true", help="fail on warnings too")
+    strict_help = "count warnings as failures, after printing all of them (default: off)"
+    s = command("check", "validate a programme folder, write nothing",
+                "Load, validate and compute a programme folder; print every finding as "
+                "path:row:column: level: message. Writes nothing.")
+    s.add_argument("dir", type=_folder, metavar="DIR", help=DIR_HELP)
+    s.add_argument("--strict", action="store_true", help=strict_help)
     s.set_defaults(func=cmd_check)
 
-    s = sub.add_parser("build", help="check, compute and render the site")
-    s.add_argument("dir", type=_folder, metavar="DIR")
-    s.add_argument("--out", type=_folder, default=None, metavar="OUT", help="output folder (default DIR/_site)")
-    s.add_argument("--strict", action="store_true", help="fail on warnings too")
+    s = command("build", "check, compute and render the site",
+                "Check, compute and write the static review site. It is written into a temporary folder "
+                "and swapped in whole at the end, so a failed build leaves the previous site in place.")
+    s.add_argument("dir", type=_folder, metavar="DIR", help=DIR_HELP)
+    s.add_argument("--out", type=_folder, default=None, metavar="OUT",
+                   help="the folder to write the site into (default: DIR/_site)")
+    s.add_argument("--strict", action="store_true", help=strict_help)
     s.add_argument("--restricted", action="store_true",
-                   help="add per-person pages (for the occupational-health office only)")
+                   help="add per-person pages, for the occupational-health office only; never publish such a "
+                        "build (default: off)")
     s.set_defaults(func=cmd_build)
 
-    s = sub.add_parser("export", help="write the computed results as CSV/JSON")
-    s.add_argument("dir", type=_folder, metavar="DIR")
-    s.add_argument("--to", type=_folder, required=True, metavar="FOLDER")
-    s.add_argument("--strict", action="store_true", help="fail on warnings too")
-    s.add_argument("--restricted", action="store_true", help="keep raw person ids (restricted use only)")
+    s = command("export", "write the computed results as CSV/JSON",
+                "Write the computed results (exposure, group exposure, hearing, actions and a summary) as CSV "
+                "and JSON files, for records and for other tools.")
+    s.add_argument("dir", type=_folder, metavar="DIR", help=DIR_HELP)
+    s.add_argument("--to", type=_folder, required=True, metavar="FOLDER",
+                   help="the folder to write the files into (required; no default)")
+    s.add_argument("--strict", action="store_true", help=strict_help)
+    s.add_argument("--restricted", action="store_true",
+                   help="keep the raw person ids instead of pseudonymous codes, for restricted use only "
+                        "(default: off)")
     s.set_defaults(func=cmd_export)
 
-    s = sub.add_parser("serve", help="build, serve on 127.0.0.1 and rebuild on changes")
-    s.add_argument("dir", type=_folder, metavar="DIR")
-    s.add_argument("--port", type=_port, default=8000, metavar="N")
-    s.add_argument("--out", type=_folder, default=None, metavar="OUT")
-    s.add_argument("--restricted", action="store_true", help=argparse.SUPPRESS)
+    s = command("serve", "build, serve on 127.0.0.1 and rebuild on changes",
+                "Build the site, serve it on this machine only (127.0.0.1) and rebuild it whenever an input "
+                "file changes. Stop with Ctrl-C.")
+    s.add_argument("dir", type=_folder, metavar="DIR", help=DIR_HELP)
+    s.add_argument("--port", type=_port, default=8000, metavar="N",
+                   help="the port on 127.0.0.1, 1 to 65535 (default: %(default)s)")
+    s.add_argument("--out", type=_folder, default=None, metavar="OUT",
+                   help="the folder to build the site into (default: DIR/_site)")
+    s.add_argument("--restricted", action="store_true",
+                   help="build and serve the restricted site with per-person pages, for the occupational-health "
+                        "office only (default: off)")
     s.set_defaults(func=cmd_serve)
 
-    s = sub.add_parser("demo", help="write a synthetic programme of an invented workplace")
-    s.add_argument("dir", type=_folder, metavar="DIR")
-    s.add_argument("--people", type=_positive, default=250, metavar="N")
-    s.add_argument("--years", type=_positive, default=6, metavar="Y")
-    s.add_argument("--seed", type=int, default=2026, metavar="S")
+    s = command("demo", "write a synthetic programme of an invented workplace",
+                "Write a synthetic programme of an invented workplace (no real people or firms). The same "
+                "arguments always write the same files; an existing folder is only overwritten when it holds "
+                "an earlier demo.")
+    s.add_argument("dir", type=_folder, metavar="DIR", help="the folder to write (new, empty, or an earlier demo)")
+    s.add_argument("--people", type=_positive, default=250, metavar="N",
+                   help="headcount of the invented workforce; leavers are replaced, so the records hold "
+                        "somewhat more people (default: %(default)s)")
+    s.add_argument("--years", type=_positive, default=6, metavar="Y",
+                   help="years of records, ending with the review year (default: %(default)s)")
+    s.add_argument("--seed", type=int, default=2026, metavar="S",
+                   help="random seed; the same seed writes the same files (default: %(default)s)")
     s.set_defaults(func=cmd_demo)
     return p
 
@@ -213,6 +254,7 @@ def main(argv: Sequence[str] | None = None) -> int:
     except SystemExit as exc:  # --help and --version
         return int(exc.code or 0)
     _setup_logging(args.verbose)
+    progress.configure(args.verbose)
     func: Callable[[argparse.Namespace], int] | None = getattr(args, "func", None)
     if func is None:
         parser.print_help(sys.stderr)

@@ -922,7 +922,7 @@ def _weekly(m: pd.DataFrame, groups: pd.DataFrame, end: pd.Timestamp) -> pd.Data
         n_days=("_e", "size"), _s=("_e", "sum"), max_daily_lex=("_lex", "max"))
     wk = wk[wk["n_days"] >= 2].copy()
     wk["lex_w"] = lv.level(wk["_s"].to_numpy() / lv.NOMINAL_WEEK_DAYS)
-    wk["days_per_week"] = wk["group"].map(dict(zip(groups["group"], groups["days_per_week"]))).fillna(5.0)
+    wk["days_per_week"] = wk["group"].map(dict(zip(groups["group"], groups["days_per_week"]))).fillna(5.0).astype(float)
     wk["complete"] = wk["n_days"] >= wk["days_per_week"]
     return wk[cols].sort_values(["person_id", "week_start"]).reset_index(drop=True)
 

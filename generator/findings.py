@@ -5,9 +5,15 @@ Every problem the tool finds in a user's input is a :class:`Finding` carrying th
 and a message. They are collected in a :class:`Findings` list and printed all at once as
 ``path:row:column: level: message``; repeats of the same problem in one file and column
 are grouped ("and 312 more rows like this").
+
+A finding never spans more than one printed line and never grows with the input: control
+characters (line breaks, escape sequences, bidirectional overrides) in a path, column or
+message are printed as escapes (``\\n``, ``\\x1b``, ``\\u202e``), and the texts are capped
+(:data:`PATH_CHARS`, :data:`COLUMN_CHARS`, :data:`MESSAGE_CHARS`) when the finding is made.
 """
 from __future__ import annotations
 
+import re
 from collections import OrderedDict
 from dataclasses import dataclass, field
 from typing import Iterable, Iterator
@@ -18,6 +24,40 @@ LEVELS = (ERROR, WARNING)
 
 #: How many rows of one repeated problem are printed before the rest are counted.
 GROUP_SHOWN = 3
+#: Longest path, column and message kept in a finding (longer ones end in "… (N characters)").
+PATH_CHARS = 300
+COLUMN_CHARS = 120
+MESSAGE_CHARS = 1000
+
+#: C0 and C1 controls, DEL, the Unicode line and paragraph separators and the bidirectional
+#: formatting characters: anything that could break a line or disguise its text on a terminal.
+_CONTROL = re.compile(r"[\x00-\x1f\x7f-\x9f\u2028\u2029\u200e\u200f\u202a-\u202e\u2066-\u2069]")
+_NAMED = {"\n": "\\n", "\r": "\\r", "\t": "\\t"}
+
+
+def _escape_char(m: re.Match) -> str:
+    c = m.group()
+    if c in _NAMED:
+        return _NAMED[c]
+    return f"\\x{ord(c):02x}" if ord(c) < 0x100 else f"\\u{ord(c):04x}"
+
+
+def escape(text: str) -> str:
+    """Return *text* with every control character written as a visible escape (one line)."""
+    return _CONTROL.sub(_escape_char, text)
+
+
+def cap(text: str, limit: int) -> str:
+    """Return *text* cut to *limit* characters, saying how long it was."""
+    if len(text) <= limit:
+        return text
+    return f"{text[:limit]}… ({len(text):,} characters)"
+
+
+def format_line(path: str, row: int | None, column: str | None, level: str, message: str) -> str:
+    """Return one printed ``path:row:column: level: message`` line (controls escaped)."""
+    row_text = "" if row is None else str(row)
+    return f"{escape(path)}:{row_text}:{escape(column or '')}: {level}: {escape(message)}"
 
 
 @dataclass(frozen=True)
@@ -32,14 +72,19 @@ class Finding:
     #: Problems with the same key are grouped; defaults to the message itself.
     key: str | None = field(default=None, compare=False)
 
+    def __post_init__(self) -> None:
+        for name, limit in (("path", PATH_CHARS), ("column", COLUMN_CHARS), ("message", MESSAGE_CHARS),
+                            ("key", MESSAGE_CHARS)):
+            value = getattr(self, name)
+            if value is not None and len(value) > limit:
+                object.__setattr__(self, name, cap(str(value), limit))
+
     def __lt__(self, other: "Finding") -> bool:
         return _sort_key(self) < _sort_key(other)
 
     def format(self) -> str:
         """Return the one-line ``path:row:column: level: message`` form."""
-        row = "" if self.row is None else str(self.row)
-        col = self.column or ""
-        return f"{self.path}:{row}:{col}: {self.level}: {self.message}"
+        return format_line(self.path, self.row, self.column, self.level, self.message)
 
 
 @dataclass
@@ -143,8 +188,8 @@ class Findings:
                 lines.append(f.format())
             rest = g.count - shown
             if rest > 0:
-                lines.append(f"{g.path}::{g.column or ''}: {g.level}: and {rest} more "
-                             f"row{'s' if rest != 1 else ''} like this")
+                lines.append(format_line(g.path, None, g.column, g.level,
+                                         f"and {rest} more row{'s' if rest != 1 else ''} like this"))
         return lines
 
     def summary(self) -> str:

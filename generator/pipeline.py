@@ -16,11 +16,10 @@ name and type; each returns a frozen result. Nothing here reads or writes HTML.
 """
 from __future__ import annotations
 
-import time
 from dataclasses import dataclass
-from typing import Callable, Iterator
+from typing import Iterator
 
-from . import audiometers, compliance, exposure, hearing, protection, trends
+from . import audiometers, compliance, exposure, hearing, progress, protection, trends
 from .audiometers import AudiometerChecks
 from .compliance import ComplianceResult
 from .exposure import ExposureResult
@@ -66,14 +65,13 @@ class Results:
             yield from sorted(stage.findings or [])
 
 
-#: called as ``step(name, seconds)`` after each stage (progress lines)
-StepHook = Callable[[str, float], None]
+def run(programme: Programme, rules: dict[str, RuleSet]) -> Results:
+    """Run every stage on *programme* with its rule sets (headline first) and return the results.
 
-
-def run(programme: Programme, rules: dict[str, RuleSet], on_step: StepHook | None = None) -> Results:
-    """Run every stage on *programme* with its rule sets (headline first) and return the results."""
+    Each stage is timed as a progress step (a line on stderr with ``-v``; see progress.py).
+    """
     head = next(iter(rules.values()))
-    clock = _Clock(on_step)
+    clock = progress.step
     with clock("exposure"):
         exp = exposure.compute(programme, rules)
     with clock("audiometer checks"):
@@ -92,25 +90,3 @@ def run(programme: Programme, rules: dict[str, RuleSet], on_step: StepHook | Non
         trend = trends.compute(programme, compliance=comp, exposure=exp, hearing=hear, checks=checks)
     return Results(rules=rules, exposure=exp, checks=checks, hearing=hear, protection=prot,
                    compliance=comp, trends=trend)
-
-
-class _Clock:
-    """Time each stage and report it to the step hook (if any)."""
-
-    def __init__(self, hook: StepHook | None) -> None:
-        self.hook = hook
-
-    def __call__(self, name: str) -> "_Timer":
-        return _Timer(name, self.hook)
-
-
-class _Timer:
-    def __init__(self, name: str, hook: StepHook | None) -> None:
-        self.name, self.hook, self.t0 = name, hook, 0.0
-
-    def __enter__(self) -> None:
-        self.t0 = time.perf_counter()
-
-    def __exit__(self, *exc: object) -> None:
-        if self.hook is not None and exc[0] is None:
-            self.hook(self.name, time.perf_counter() - self.t0)

@@ -1,7 +1,8 @@
 """Render page models to HTML: jinja2 environment, sanitised markdown, charts, cautions.
 
 :func:`render_site` turns the pages of a :class:`~generator.pages.base.SiteContext` into a
-mapping ``relative path -> bytes`` (pages, ``assets/plotly.min.js``, ``assets/style.css``);
+mapping ``relative path -> bytes`` (pages, ``assets/plotly.min.js``, ``assets/style.css``,
+``assets/tables.js``);
 :mod:`generator.build` writes that mapping. Everything links relatively, so the site
 works from ``file://``; no template loads anything from another host.
 """
@@ -19,6 +20,7 @@ from typing import Any, Iterable
 from urllib.parse import urlsplit
 
 import jinja2
+from jinja2.exceptions import SecurityError
 from jinja2.sandbox import SandboxedEnvironment
 import markdown as md
 import nh3
@@ -28,6 +30,7 @@ from markupsafe import Markup
 from . import charts, clock
 from . import __version__
 from .pages import NARRATIVE, SECTIONS, section_title
+from .findings import Findings, HcpsiteError
 from .pages.base import Chart, Page, SiteContext
 from .privacy import redact_pages
 from .resources import content_dir, templates_dir
@@ -38,6 +41,8 @@ pio.json.config.default_engine = "json"
 
 PLOTLY_JS = "assets/plotly.min.js"
 STYLE_CSS = "assets/style.css"
+#: stock assets copied from the templates folder (a programme's own templates/ may override them).
+TEMPLATE_ASSETS = {STYLE_CSS: "style.css", "assets/tables.js": "tables.js"}
 CHART_CONFIG = {"displaylogo": False, "responsive": True}
 #: Names every page template gets; a page's own context may not reuse them.
 RESERVED = frozenset({"site", "nav", "root", "page", "charts", "chart_map", "cautions"})
@@ -325,10 +330,17 @@ def render_site(ctx: SiteContext, pages: list[Page] | None = None) -> dict[str, 
     common = {"site": site_info(ctx), "cautions": cautions_for(ctx.rules)}
     files: dict[str, bytes] = {}
     for page in sorted(pages, key=lambda p: p.slug):
-        files[page_path(page.slug)] = render_page(env, page, common, nav).encode("utf-8")
+        try:
+            files[page_path(page.slug)] = render_page(env, page, common, nav).encode("utf-8")
+        except Exception as exc:
+            problem = user_template_error(exc, ctx.programme.template_dir)
+            if problem is None:
+                raise
+            raise problem from None
     files[PLOTLY_JS] = plotly_js()
-    style, _, _ = env.loader.get_source(env, "style.css")  # type: ignore[union-attr]
-    files[STYLE_CSS] = style.encode("utf-8")
+    for path, name in sorted(TEMPLATE_ASSETS.items()):
+        text, _, _ = env.loader.get_source(env, name)  # type: ignore[union-attr]
+        files[path] = text.encode("utf-8")
     return files
 
 
@@ -337,3 +349,50 @@ def plotly_js() -> bytes:
     """Return the bundled plotly.js library."""
     from plotly.offline import get_plotlyjs
     return get_plotlyjs().encode("utf-8")
+
+
+def user_template_error(exc: BaseException, template_dir: Path | None) -> HcpsiteError | None:
+    """Return the user's mistake in a template of the programme's templates/ folder, or None.
+
+    A syntax error, an undefined name, a missing included template or a failing expression
+    whose innermost template frame is a file of *template_dir* is reported as
+    ``templates/NAME:line:: error: ...``; anything else is left to the caller (a fault of
+    the stock templates stays a fault of hcpsite). Sandbox refusals are left to the caller.
+    """
+    if template_dir is None or isinstance(exc, SecurityError):
+        return None
+    root = Path(template_dir)
+
+    def rel(filename: str | None) -> str | None:
+        if not filename:
+            return None
+        try:
+            return "templates/" + Path(filename).resolve().relative_to(root.resolve()).as_posix()
+        except (ValueError, OSError):
+            return None
+
+    where: tuple[str, int | None] | None = None
+    if isinstance(exc, jinja2.TemplateSyntaxError):
+        path = rel(exc.filename)
+        if path is not None:
+            where = (path, exc.lineno)
+        what = f"template syntax: {exc.message}"
+    else:
+        tb = exc.__traceback__
+        while tb is not None:
+            path = rel(tb.tb_frame.f_code.co_filename)
+            if path is not None:
+                where = (path, tb.tb_lineno)  # innermost frame in a programme template wins
+            tb = tb.tb_next
+        if isinstance(exc, jinja2.TemplateNotFound):
+            what = f"template not found: {exc.name}"
+        elif isinstance(exc, jinja2.UndefinedError):
+            what = f"template: {exc.message}"
+        else:
+            what = f"template: {type(exc).__name__}: {exc}"
+    if where is None:
+        return None
+    findings = Findings()
+    findings.error(where[0], where[1], None, what)
+    return HcpsiteError(f"{where[0]}: the programme's template cannot be rendered; fix it or remove it "
+                        "to use the stock template", findings)

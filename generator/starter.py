@@ -1,9 +1,10 @@
 """``hcpsite new``: a starter programme folder generated from the declarations.
 
 programme.yaml lists every option of :mod:`generator.config` with its documentation as a
-comment; each data file of :mod:`generator.inputs.spec` gets its declared header and two
-example rows of an invented workplace, consistent with each other so that
-``hcpsite check`` passes on the starter as written.
+comment; each data file of :mod:`generator.inputs.spec` gets its declared header and a
+few example rows of an invented workplace (two, or as many as a sampling or calibration
+rule needs), consistent with each other so that ``hcpsite check --strict`` passes on the
+starter as written once the person-code key is set.
 """
 from __future__ import annotations
 
@@ -22,7 +23,7 @@ from .inputs.spec import FILES, NOISE_LOG, FileSpec
 
 log = logging.getLogger(__name__)
 
-#: Example values of the starter, two rows per file, by column (blank when not given).
+#: Example values of the starter, two rows per file (more where a check needs them), by column (blank when not given).
 EXAMPLES: dict[str, list[dict[str, Any]]] = {
     "groups": [
         {"group": "G01", "name": "Press line operators", "description": "stamping presses, part handling",
@@ -39,7 +40,9 @@ EXAMPLES: dict[str, list[dict[str, Any]]] = {
          "name": "Example Worker Two"},
     ],
     "audiometers": [
-        {"audiometer_id": "AUD1", "date": "2025-01-06", "check": "functional", "result": "pass"},
+        {"audiometer_id": "AUD1", "date": "2025-02-10", "check": "functional", "result": "pass"},
+        {"audiometer_id": "AUD1", "date": "2024-06-03", "check": "acoustic", "result": "pass"},
+        {"audiometer_id": "AUD1", "date": "2024-06-03", "check": "exhaustive", "result": "pass"},
         {"audiometer_id": "AUD1", "date": "2024-11-18", "check": "booth", "result": "pass",
          "ob_500": 22, "ob_1000": 24, "ob_2000": 28, "ob_4000": 33, "ob_8000": 36},
     ],
@@ -60,8 +63,10 @@ EXAMPLES: dict[str, list[dict[str, Any]]] = {
     "tasks": [
         {"group": "G01", "task": "Press operation", "task_hours": 6.5, "laeq": 89.4, "date": "2025-03-05",
          "sample_minutes": 15, "instrument_class": 1},
-        {"group": "G01", "task": "Tool change", "task_hours": 1.0, "laeq": 84.2, "date": "2025-03-05",
-         "sample_minutes": 10, "instrument_class": 1},
+        {"group": "G01", "task": "Press operation", "task_hours": 6.5, "laeq": 88.7, "date": "2025-03-05",
+         "sample_minutes": 15, "instrument_class": 1},
+        {"group": "G01", "task": "Press operation", "task_hours": 6.5, "laeq": 90.1, "date": "2025-03-06",
+         "sample_minutes": 15, "instrument_class": 1},
     ],
     "audiograms": [
         {"person_id": "E10001", "date": "2025-02-10", "ear": "L", "kind": "periodic", "hl_500": 10,
@@ -105,13 +110,13 @@ navigation.
 
 
 def example_rows(spec: FileSpec) -> list[dict[str, Any]]:
-    """Return the two example rows of a data file, with every declared column (blank when unset)."""
+    """Return the example rows of a data file, with every declared column (blank when unset)."""
     rows = EXAMPLES.get(spec.name, [{}, {}])
     return [{c.name: r.get(c.name, "") for c in spec.columns} for r in rows]
 
 
 def csv_text(spec: FileSpec) -> str:
-    """Return the starter CSV of *spec*: header and two example rows."""
+    """Return the starter CSV of *spec*: header and its example rows."""
     buf = io.StringIO()
     w = csv.DictWriter(buf, fieldnames=[c.name for c in spec.columns], lineterminator="\n")
     w.writeheader()
@@ -143,8 +148,31 @@ STARTER_VALUES: dict[str, Any] = {
 COMMENTED_EXAMPLES: dict[str, Any] = {"hours_worked": 412000}
 
 
+#: the files: section of the starter, commented out: a worked example of a European export.
+FILES_EXAMPLE = """
+# Without an entry a file is read from data/NAME.csv (or .xlsx) as UTF-8 with commas,
+# decimal points, YYYY-MM-DD dates and hcpsite's column names. Remove the '# ' to use:
+# files:
+#   audiograms:
+#     path: "exports/Hearing tests 2025.csv"   # inside the programme folder
+#     delimiter: ";"                           # default ","
+#     decimal: ","                             # default "."
+#     encoding: cp1252                         # default utf-8, with or without BOM
+#     date_format: "%d.%m.%Y"                  # default YYYY-MM-DD
+#     columns:                                 # the file's column name -> hcpsite's
+#       "Employee No": person_id
+#       "Test date": date
+#       "Left 4000 Hz": hl_4000_l              # both ears on one row: hl_<f>_l, hl_<f>_r
+#       "Right 4000 Hz": hl_4000_r
+#   people:
+#     sheet: "Staff"                           # for data/people.xlsx: the sheet to read
+#     columns: {"Employee No": person_id, "Exposure group": group}
+"""
+
+
 def programme_yaml() -> str:
     """Return programme.yaml with every option, its documentation as a comment and its default."""
+    files_doc = ""
     lines = ["# programme.yaml: settings of one hearing-conservation programme review.",
              "# Every option is listed with its documentation and its default value;",
              "# change what differs for your programme. Run 'hcpsite check .' after editing.",
@@ -152,6 +180,9 @@ def programme_yaml() -> str:
              f"# measurement goes in {NOISE_LOG.path} (ID = its measurement_id) with the columns",
              f"# {', '.join(c.name for c in NOISE_LOG.columns)}, fixed intervals, covering the whole run.", ""]
     for name, kind, default, doc in iter_options(Config):
+        if name == "files":
+            files_doc = doc
+            continue  # written commented out at the end (FILES_EXAMPLE)
         depth = name.count(".")
         indent = "  " * depth
         key = name.rsplit(".", 1)[-1]
@@ -171,7 +202,7 @@ def programme_yaml() -> str:
             lines.append(f"{indent}{key}: {_yaml_value(value)}")
         if depth == 0:
             lines.append("")
-    return "\n".join(lines).rstrip() + "\n"
+    return "\n".join(lines).rstrip() + "\n\n# " + files_doc + FILES_EXAMPLE
 
 
 def starter_files() -> dict[str, str]:

@@ -238,6 +238,189 @@ def test_index_screenshots(context, site: Path, name: str, viewport: dict) -> No
     assert overflow <= 1, f"index.html scrolls sideways by {overflow}px at {viewport['width']}px wide"
 
 
+# ---------------------------------------------------------------------------------------
+# screen layout: no table cut off at a desktop and a phone width; the cautions once per page
+
+#: the widths the screen layout is checked at (a wide desktop window and a narrow phone).
+LAYOUT_WIDTHS = (1400, 400)
+
+#: For every table of a page (folded blocks opened): is it cut off? A table is in view when it fits the
+#: window, or when the box that scrolls it sideways fits the window and keeps its first column in view.
+LAYOUT_JS = """() => {
+  const cautions = document.getElementById('cautions');
+  const strip = document.querySelector('.caution-strip');
+  const main = document.querySelector('main');
+  const state = {
+    cautions: !!cautions, cautionsTag: cautions ? cautions.tagName : '', cautionsOpen: !!(cautions && cautions.open),
+    cautionsHeight: cautions ? Math.round(cautions.getBoundingClientRect().height) : 0,
+    cautionsAfterMain: !!(cautions && main && (main.compareDocumentPosition(cautions) & Node.DOCUMENT_POSITION_FOLLOWING)),
+    strip: strip ? strip.textContent : '',
+    stripBeforeMain: !!(strip && main && (strip.compareDocumentPosition(main) & Node.DOCUMENT_POSITION_FOLLOWING)),
+    cautionBoxes: document.querySelectorAll('.caution').length,
+  };
+  document.querySelectorAll('details').forEach(d => { d.open = true; });
+  const vw = document.documentElement.clientWidth;
+  const cut = [];
+  let tables = 0, scrolling = 0;
+  for (const t of document.querySelectorAll('table')) {
+    const r = t.getBoundingClientRect();
+    if (!r.width) continue;
+    tables += 1;
+    const head = (t.querySelector('th') || {}).textContent || '';
+    let scroller = null;
+    for (let e = t; e && e !== document.body; e = e.parentElement) {
+      const ox = getComputedStyle(e).overflowX;
+      if (ox === 'auto' || ox === 'scroll') { scroller = e; break; }
+    }
+    if (!scroller || scroller.scrollWidth <= scroller.clientWidth + 1) {
+      if (r.left < -1 || r.right > vw + 1) cut.push(`${head}: ${Math.round(r.left)}..${Math.round(r.right)} of ${vw}`);
+      continue;
+    }
+    scrolling += 1;
+    const s = scroller.getBoundingClientRect();
+    if (s.left < -1 || s.right > vw + 1) { cut.push(`${head}: its scroll box spans ${Math.round(s.left)}..${Math.round(s.right)} of ${vw}`); continue; }
+    const first = t.querySelector('tbody tr > :first-child');
+    if (first && getComputedStyle(first).position !== 'sticky') cut.push(`${head}: scrolls without its first column in view`);
+  }
+  return {state, cut, tables, scrolling, overflow: document.documentElement.scrollWidth - vw};
+}"""
+
+
+@pytest.fixture(scope="module")
+def layouts(context, site: Path) -> dict[int, dict[str, dict]]:
+    """Open every page at each width of LAYOUT_WIDTHS and measure its tables and its cautions."""
+    found: dict[int, dict[str, dict]] = {}
+    page = context.new_page()
+    try:
+        for width in LAYOUT_WIDTHS:
+            page.set_viewport_size({"width": width, "height": 900})
+            found[width] = {}
+            for rel in _html_files(site):
+                page.goto((site / rel).resolve().as_uri(), wait_until="load", timeout=60000)
+                found[width][rel] = page.evaluate(LAYOUT_JS)
+    finally:
+        page.close()
+    return found
+
+
+@pytest.mark.parametrize("width", LAYOUT_WIDTHS)
+def test_no_table_is_cut_off(layouts: dict[int, dict[str, dict]], width: int) -> None:
+    pages = layouts[width]
+    assert sum(m["tables"] for m in pages.values()) > 20, "the example should have tables to measure"
+    cut = {rel: m["cut"] for rel, m in pages.items() if m["cut"]}
+    assert not cut, f"tables cut off at {width} px: {cut}"
+    sideways = {rel: m["overflow"] for rel, m in pages.items() if m["overflow"] > 1}
+    assert not sideways, f"pages that scroll sideways at {width} px: {sideways}"
+    if width < 500:  # a phone: the wide tables scroll in their own box
+        assert sum(m["scrolling"] for m in pages.values()) > 0
+
+
+def test_cautions_strip_on_top_and_one_folded_block_at_the_foot(layouts: dict[int, dict[str, dict]]) -> None:
+    for rel, m in layouts[1400].items():
+        st = m["state"]
+        assert "qualified audiologist or physician" in st["strip"] and st["stripBeforeMain"], rel
+        assert st["cautions"] and st["cautionsTag"] == "DETAILS", f"{rel}: the cautions are not one folded block"
+        assert st["cautionBoxes"] >= 2, f"{rel}: the folded block lacks the full cautions"
+        if rel == "review.html":  # the printable review shows them unfolded, before the sign-off
+            assert st["cautionsOpen"], rel
+            continue
+        assert not st["cautionsOpen"] and st["cautionsAfterMain"], f"{rel}: the cautions should be folded at the foot"
+        assert st["cautionsHeight"] < 80, f"{rel}: the folded cautions take {st['cautionsHeight']} px"
+
+
+def test_strip_link_unfolds_the_cautions(context, site: Path) -> None:
+    page = context.new_page()
+    try:
+        page.goto((site / "exposure.html").resolve().as_uri(), wait_until="load")
+        assert page.evaluate("() => document.getElementById('cautions').open") is False
+        page.click(".caution-strip a[href='#cautions']")
+        page.wait_for_function("() => document.getElementById('cautions').open")
+        assert page.locator("#cautions .caution-general").is_visible()
+    finally:
+        page.close()
+
+
+# ---------------------------------------------------------------------------------------
+# sorting and filtering of long tables (assets/tables.js)
+
+#: the texts of one column of the visible body rows of the table holding a column headed `head`
+COLUMN_JS = """([head, col]) => {
+  const table = [...document.querySelectorAll('table.data')].find(t => t.tHead && [...t.tHead.rows[0].cells]
+      .some(c => c.textContent.trim() === head));
+  const idx = [...table.tHead.rows[0].cells].findIndex(c => c.textContent.trim() === col);
+  return [...table.tBodies[0].rows].filter(r => !r.hidden).map(r => r.cells[idx].textContent.trim());
+}"""
+
+
+def _natural(text: str) -> tuple:
+    """Sort key of text in natural order, digits before letters, case ignored (as Intl.Collator numeric)."""
+    return tuple((0, int(part), "") if part.isdigit() else (1, 0, part.lower())
+                 for part in re.findall(r"\d+|[^\d]+", text))
+
+
+def test_actions_table_sorts_and_filters(context, site: Path) -> None:
+    page = context.new_page()
+    page.set_viewport_size({"width": 1400, "height": 900})
+    try:
+        page.goto((site / "actions.html").resolve().as_uri(), wait_until="load")
+        table = page.locator("table.sortable", has=page.locator("th", has_text=re.compile(r"^\s*Subject\s*$")))
+        assert table.count() == 1, "the action list has no sorting"
+        original = page.evaluate(COLUMN_JS, ["Due", "Subject"])
+        due = page.evaluate(COLUMN_JS, ["Due", "Due"])
+        assert len(original) >= 12
+        subject = table.locator("thead th", has_text=re.compile(r"^\s*Subject\s*$"))
+        subject.click()
+        assert subject.get_attribute("aria-sort") == "ascending"
+        assert page.evaluate(COLUMN_JS, ["Due", "Subject"]) == sorted(original, key=_natural)
+        subject.click()
+        assert subject.get_attribute("aria-sort") == "descending"
+        assert page.evaluate(COLUMN_JS, ["Due", "Subject"]) == sorted(original, key=_natural, reverse=True)
+        subject.click()  # the third click restores the page's own order (most urgent first)
+        assert subject.get_attribute("aria-sort") is None
+        assert page.evaluate(COLUMN_JS, ["Due", "Subject"]) == original
+        table.locator("thead th", has_text=re.compile(r"^\s*Due\s*$")).click()
+        dated = [d for d in due if re.fullmatch(r"\d{4}-\d{2}-\d{2}", d)]
+        assert page.evaluate(COLUMN_JS, ["Due", "Due"])[:len(dated)] == sorted(dated)
+
+        kinds = page.evaluate(COLUMN_JS, ["Due", "Kind"])
+        word = "training" if "training" in kinds else kinds[0].split()[0]
+        rows = table.evaluate("t => [...t.tBodies[0].rows].map(r => [...r.cells].map(c => c.textContent.trim())"
+                              ".join(' ').toLowerCase())")
+        expected = sum(word in r for r in rows)
+        filt = table.locator("xpath=ancestor::div[contains(@class,'table-block')]//input[@type='search']")
+        filt.fill(word)
+        shown = page.evaluate(COLUMN_JS, ["Due", "Kind"])
+        assert 0 < len(shown) == expected < len(rows)
+        count = table.locator("xpath=ancestor::div[contains(@class,'table-block')]//*[contains(@class,'table-count')]")
+        assert count.inner_text() == f"{expected} of {len(rows)} rows"
+        filt.fill("")
+        assert len(page.evaluate(COLUMN_JS, ["Due", "Kind"])) == len(rows)
+    finally:
+        page.close()
+
+
+def test_sorting_is_numeric_aware(context, site: Path, tmp_path: Path) -> None:
+    # numbers as the site prints them (thousands separators, units, a minus sign), blanks last
+    values = ["1,234", "99", "-3.5", "12 %", "", "\u2013", "2.5", "100", "\u22127", "10", "9", "1,000", "85 dB(A)"]
+    rows = "".join(f"<tr><td>R{i}</td><td class=\"num\">{v}</td></tr>" for i, v in enumerate(values))
+    html = (f'<!DOCTYPE html><html lang="en"><head><meta charset="utf-8"><script src="{(site / "assets" / "tables.js").as_uri()}">'
+            f'</script></head><body><div class="table-wrap"><table class="data"><thead><tr><th>Row</th><th class="num">Value</th>'
+            f"</tr></thead><tbody>{rows}</tbody></table></div></body></html>")
+    test_page = tmp_path / "numbers.html"
+    test_page.write_text(html, encoding="utf-8")
+    page = context.new_page()
+    try:
+        page.goto(test_page.as_uri(), wait_until="load")
+        page.locator("th", has_text="Value").click()
+        got = page.evaluate(COLUMN_JS, ["Row", "Value"])
+        assert got == ["\u22127", "-3.5", "2.5", "9", "10", "12 %", "85 dB(A)", "99", "100", "1,000", "1,234", "", "\u2013"]
+        page.locator("th", has_text="Value").click()
+        got = page.evaluate(COLUMN_JS, ["Row", "Value"])
+        assert got[:3] == ["1,234", "1,000", "100"] and got[-2:] == ["", "\u2013"]  # blanks stay last
+    finally:
+        page.close()
+
+
 def test_pdf_page_counter() -> None:
     # two page objects and the page-tree object (/Pages is not a page)
     sample = b"%PDF-1.4 1 0 obj <</Type /Pages /Count 2>> 2 0 obj <</Type /Page>> 3 0 obj <</Type/Page /X 1>>"

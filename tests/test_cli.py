@@ -35,16 +35,14 @@ def test_new_then_check_passes(tmp_path: Path, capsys: pytest.CaptureFixture[str
     for spec in FILES:
         rows = list(csv.reader(io.StringIO((folder / spec.path).read_text(encoding="utf-8"))))
         assert rows[0] == [c.name for c in spec.columns], spec.name
-        assert len(rows) == 3, spec.name
+        assert len(rows) >= 3, spec.name
     capsys.readouterr()
+    # the starter as written passes the strict check once the person-code key is set
     with env(HCPSITE_ID_KEY=TEST_KEY):
-        assert main(["check", str(folder)]) == 0
+        assert main(["check", str(folder), "--strict"]) == 0
     out, err = capsys.readouterr()
-    assert "0 errors" in err and "internal error" not in err
-    # two example rows cannot meet every sampling and calibration rule; nothing else is flagged
-    allowed = ("audiometer check", "sample(s); ISO 9612")
-    for line in out.splitlines():
-        assert "warning" in line and any(a in line for a in allowed), line
+    assert "0 errors, 0 warnings" in err and "internal error" not in err
+    assert out.strip() == "", out
     # a second 'new' into the same folder is refused
     assert main(["new", str(folder)]) == 1
 
@@ -186,3 +184,103 @@ def test_serve_builds_serves_and_rebuilds(tmp_path: Path) -> None:
             stop.set()
             t.join(timeout=30)
     assert not t.is_alive()
+
+
+# ---------------------------------------------------------------------------------------
+# first contact: what the README's commands leave behind stays out of git
+
+#: files the README's install, build and test commands make in a clone.
+ARTEFACTS = ("hcpsite.egg-info/PKG-INFO", "site_example/_site/index.html", "generator/__pycache__/cli.cpython-311.pyc",
+             "tests/artifacts/review.pdf", ".venv/bin/python", "build/lib/generator/cli.py", "dist/x.whl",
+             ".pytest_cache/README.md", ".hypothesis/examples/x")
+
+
+def _git(*args: str) -> subprocess.CompletedProcess:
+    return subprocess.run(["git", *args], cwd=REPO, capture_output=True, text=True, timeout=60, check=False)
+
+
+@pytest.fixture()
+def git_checkout() -> None:
+    if not (REPO / ".git").exists() or _git("rev-parse", "--is-inside-work-tree").returncode != 0:
+        pytest.skip("not a git checkout (e.g. an unpacked source archive)")
+
+
+def test_no_build_artefact_is_tracked(git_checkout: None) -> None:
+    tracked = _git("ls-files").stdout.splitlines()
+    assert tracked, "git ls-files listed nothing"
+    bad = [f for f in tracked if ".egg-info/" in f or "__pycache__/" in f or f.endswith(".pyc")
+           or "/_site/" in f or f.startswith("_site/") or f.startswith("tests/artifacts/")]
+    assert not bad, f"build artefacts are tracked: {bad[:10]}"
+
+
+def test_gitignore_covers_build_artefacts(git_checkout: None) -> None:
+    res = _git("check-ignore", "--no-index", "-v", *ARTEFACTS)
+    ignored = {line.rsplit("\t", 1)[-1] for line in res.stdout.splitlines()}
+    missing = sorted(set(ARTEFACTS) - ignored)
+    assert not missing, f".gitignore does not cover: {missing}"
+
+
+# ---------------------------------------------------------------------------------------
+# --help documents every command, argument and option
+
+
+def _commands() -> dict[str, "argparse.ArgumentParser"]:
+    import argparse
+
+    from generator.cli import make_parser
+    parser = make_parser()
+    found = {"hcpsite": parser}
+    for action in parser._actions:
+        if isinstance(action, argparse._SubParsersAction):
+            found.update(action.choices)
+    return found
+
+
+def test_every_command_has_a_description() -> None:
+    commands = _commands()
+    assert set(commands) == {"hcpsite", "new", "check", "build", "export", "serve", "demo"}
+    for name, parser in commands.items():
+        assert parser.description and len(parser.description) > 20, f"{name} has no description"
+        assert "exit codes" in (parser.epilog or ""), f"{name} --help does not list the exit codes"
+
+
+def test_every_argument_and_option_has_help_with_its_default() -> None:
+    import argparse
+
+    missing, no_default = [], []
+    for name, parser in _commands().items():
+        formatter = parser._get_formatter()
+        for action in parser._actions:
+            label = f"{name} {'/'.join(action.option_strings) or action.metavar or action.dest}"
+            if not action.help or action.help == argparse.SUPPRESS:
+                missing.append(label)
+                continue
+            text = formatter._expand_help(action)
+            if action.default not in (None, False, argparse.SUPPRESS) and not isinstance(action, argparse._HelpAction):
+                if f"default: {action.default}" not in text:
+                    no_default.append(f"{label}: {text!r}")
+            elif action.dest in ("out", "to"):  # a default computed from DIR, or none: the text says which
+                if "default" not in text:
+                    no_default.append(f"{label}: {text!r}")
+    assert not missing, f"arguments and options without a help text: {missing}"
+    assert not no_default, f"help texts that do not give the default: {no_default}"
+
+
+@pytest.mark.parametrize("command", ["new", "check", "build", "export", "serve", "demo"])
+def test_help_prints_and_exits_0(command: str, capsys: pytest.CaptureFixture[str]) -> None:
+    assert main([command, "--help"]) == 0
+    out = capsys.readouterr().out
+    assert out.startswith(f"usage: hcpsite {command}") and "DIR" in out and "exit codes" in out
+
+
+def test_a_full_folder_is_not_a_command_line_mistake(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    # exit code 2 is kept for command-line mistakes; the state of the disk is exit code 1
+    full = tmp_path / "records"
+    full.mkdir()
+    (full / "notes.txt").write_text("someone's records\n", encoding="utf-8")
+    assert main(["demo", str(full), "--people", "40", "--years", "1"]) == 1
+    assert main(["new", str(full)]) == 1
+    assert (full / "notes.txt").read_text(encoding="utf-8") == "someone's records\n"
+    assert sorted(p.name for p in full.iterdir()) == ["notes.txt"]
+    err = capsys.readouterr().err
+    assert "Traceback" not in err and "internal error" not in err

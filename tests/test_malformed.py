@@ -109,6 +109,9 @@ CASES: list[Case] = [
          (P, 3, None, ERROR, "byte 0xc3 on line 3")),
     Case("latin-1", {"people.csv": "person_id,group,name\nE001,G1,Zoë Invented\n".encode("latin-1")},
          (P, 2, None, ERROR, "byte 0xeb on line 2"), cli=True),
+    # EF BB BF is the UTF-8 byte-order mark (Unicode Standard ch. 23.8); the bad byte is counted in the file
+    Case("bom-then-latin-1", {"people.csv": b"\xef\xbb\xbfperson_id,group\n\xe9E,G1\n"},
+         (P, 2, None, ERROR, "byte 0xe9 on line 2 (byte 1 of the line, 20 of the file;"), cli=True),
     Case("cp1252-quotes", {"training.csv": TRAINING_HEAD.encode() + "E001,2025-01-01,“fit”\n".encode("cp1252")},
          (T, 2, None, ERROR, "byte 0x93")),
     # UTF-16 with its byte-order mark FF FE (Unicode Standard ch. 23.8)
@@ -242,6 +245,14 @@ CASES: list[Case] = [
          config="title: x\ncolour: blue\n"),
     Case("yaml-wrong-rule-set", {}, ("programme.yaml", 1, "rules", ERROR, "'osha' is not one of"),
          config="rules: osha\n"),
+    # YAML 1.1 float type (yaml.org/type/float.html): .nan and .inf are floats, not finite numbers
+    Case("yaml-nan", {}, ("programme.yaml", 2, "15", ERROR, "'.nan' is not a finite number"),
+         config="title: x\nhours_worked: .nan\n", cli=True),
+    Case("yaml-alias", {}, ("programme.yaml", 1, "8", ERROR, "anchors and aliases"),
+         config="title: &t x\norganisation: *t\n", cli=True),
+    # 2025 is not a leap year (Gregorian calendar rule, ISO 8601 section 3.2.1)
+    Case("yaml-impossible-date", {}, ("programme.yaml", 2, "10", ERROR, "'2025-02-30' is not a date"),
+         config="period:\n  start: 2025-02-30\n", cli=True),
     # --- paths ---------------------------------------------------------------------------------------
     Case("symlink-outside", {}, (T, None, None, ERROR, "resolves outside the programme folder"),
          setup=symlink_out("training.csv", TRAINING_HEAD + "E001,2025-01-01,x\n"), cli=True),

@@ -316,3 +316,17 @@ def test_quality_page_caps_the_groups_and_keeps_the_counts(tmp_path: Path) -> No
     ctx.restricted = True
     (page,) = quality.build(ctx)
     assert len(page.context["findings_table"].rows) >= n + 1
+
+
+def test_review_running_header_escapes_the_title_for_css(tmp_path: Path) -> None:
+    # the title goes into a CSS string of the review's page margin boxes: it must neither end the
+    # string nor the style element (CSS Syntax Level 3, 4.3.7: "\" + hex digits + space is one code point)
+    title = 'Works "North" \\ plant </style><script>alert(1)</script>'
+    root = make_programme(tmp_path / "p", config={"title": title})
+    build_fixed(root, tmp_path / "site")
+    html = (tmp_path / "site" / "review.html").read_text(encoding="utf-8")
+    style = html.split("<style>", 1)[1].split("</style>", 1)[0]
+    assert "<script>alert" not in html and "</style><script>" not in style
+    assert ('@top-left { content: "Works \\22 North\\22  \\5c  plant \\3c /style>\\3c script>alert(1)\\3c /script>"; '
+            in style), style[:2000]
+    assert '@top-right { content: "2025-01-01 to 2025-12-31";' in style

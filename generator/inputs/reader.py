@@ -25,12 +25,14 @@ from typing import Any, Callable
 
 import numpy as np
 import pandas as pd
-import yaml
 
 from .. import clock
-from ..config import CONFIG_FILE, Config, load_config
+from ..config import CONFIG_FILE, MAX_CONFIG_BYTES, Config, load_config
 from ..findings import ERROR, WARNING, Findings
+from ..inputfile import InputFileError, read_regular, size_text
 from ..model import NarrativePage, Programme
+from ..yamltext import YamlError, load_yaml
+from .dress import Dresser
 from .spec import FILES, GROUPS, NOISE_LOG, Column, FileSpec
 
 log = logging.getLogger(__name__)
@@ -56,6 +58,22 @@ LOG_INTERVAL_TOLERANCE_S = 1.0
 HIRE_AGE_MIN, HIRE_AGE_MAX = 14.0, 90.0
 #: Longest cell text quoted back in a message.
 SHOWN_CHARS = 40
+#: Largest data file read (CSV, xlsx, noise log); larger files are refused, not read in part.
+MAX_FILE_BYTES = 256 * 1024 * 1024
+#: Largest narrative page or template read.
+MAX_PAGE_BYTES = 4 * 1024 * 1024
+#: Longest line of a CSV file or noise log (a file holding a longer one is not read).
+MAX_LINE_BYTES = 1024 * 1024
+#: Most columns a data file may have (header cells, or cells of an xlsx row).
+MAX_COLUMNS = 1024
+#: Largest unpacked size of an xlsx workbook (all its parts; the sheet is read as it streams).
+MAX_XLSX_UNPACKED = 512 * 1024 * 1024
+#: Most cells (rows with data by columns) read from one xlsx sheet.
+MAX_XLSX_CELLS = 50_000_000
+#: Files of templates/ that jinja2 reads as UTF-8 text (checked when loading).
+TEMPLATE_SUFFIXES = (".html", ".htm", ".css", ".js", ".txt", ".xml", ".svg", ".j2", ".jinja")
+#: Unknown front-matter keys reported one by one in a page; the rest are counted in one line.
+UNKNOWN_SHOWN = 20
 
 _FORMULA = r"^[=+\-@][A-Za-z]"
 _TZ_SUFFIX = r"\d{2}:\d{2}(?::\d{2}(?:\.\d+)?)?\s*(?:Z|[+-]\d{2}:?\d{2})$"
@@ -191,11 +209,13 @@ class _Inputs:
         self.findings = findings
         self.read: dict[str, bytes] = {}
 
-    def get(self, path: Path, rel: str | None = None, folder_inside: bool = False) -> bytes | None:
+    def get(self, path: Path, rel: str | None = None, folder_inside: bool = False,
+            limit: int | None = None) -> bytes | None:
         """Return the bytes of *path*, or None (with an error) when it may not or cannot be read.
 
         With *folder_inside* (the containing folder already resolved inside the programme),
-        only a symbolic link needs resolving.
+        only a symbolic link needs resolving. Only regular files of at most *limit* bytes are
+        read (a named pipe would block, a device never end); *limit* defaults to MAX_FILE_BYTES.
         """
         rel = rel or _rel(self.root, path)
         if (not folder_inside or os.path.islink(path)) and _inside(self.root, path) is None:
@@ -203,10 +223,9 @@ class _Inputs:
                                 "not read")
             return None
         try:
-            with open(path, "rb") as fh:
-                data = fh.read()
-        except OSError as exc:
-            self.findings.error(rel, None, None, f"cannot be read: {exc.strerror or exc}")
+            data = read_regular(path, MAX_FILE_BYTES if limit is None else limit)
+        except InputFileError as exc:
+            self.findings.error(rel, None, None, str(exc))
             return None
         self.read[rel] = data
         return data
@@ -218,21 +237,56 @@ class _Inputs:
             data = self.read[rel]
             name = rel.encode("utf-8")
             h.update(len(name).to_bytes(8, "big") + name)
-            h.update(len(data).to_bytes(8, "big") + data)
+            h.update(len(data).to_bytes(8, "big"))
+            h.update(data)  # not concatenated: that would copy the largest file once more
         return h.hexdigest()
 
 
-def _decode(raw: bytes, rel: str, findings: Findings) -> str | None:
-    """Return UTF-8 text (BOM removed) or None with one error naming the first bad byte."""
+def _long_line(raw: bytes, limit: int) -> tuple[int, int] | None:
+    """Return (line number, length in bytes) of the first line longer than *limit*, or None."""
+    if len(raw) <= limit:
+        return None
+    arr = np.frombuffer(raw, dtype=np.uint8)
+    chunk = 16 * 1024 * 1024
+    line, last_end = 1, -1  # last_end: position of the newline ending the previous line
+    for a in range(0, arr.size, chunk):
+        nl = np.flatnonzero(arr[a:a + chunk] == 10) + a
+        ends = np.concatenate(([last_end], nl))
+        lengths = np.diff(ends) - 1
+        over = np.flatnonzero(lengths > limit)
+        if over.size:
+            return line + int(over[0]), int(lengths[over[0]])
+        line += nl.size
+        if nl.size:
+            last_end = int(nl[-1])
+    tail = arr.size - last_end - 1
+    return (line, tail) if tail > limit else None
+
+
+def _decode(raw: bytes, rel: str, findings: Findings, max_line: int | None = -1) -> str | None:
+    """Return UTF-8 text (BOM removed) or None with one error naming the first bad byte.
+
+    A file with a line longer than *max_line* bytes (default MAX_LINE_BYTES; None: no
+    limit) is refused before it is decoded.
+    """
+    max_line = MAX_LINE_BYTES if max_line == -1 else max_line
+    long = _long_line(raw, max_line) if max_line else None
+    if long is not None:
+        findings.error(rel, long[0], None, f"line {long[0]} is {long[1]:,} bytes long, more than the "
+                       f"{size_text(max_line)} a line may have; the file is not read")  # type: ignore[arg-type]
+        return None
     if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
         findings.error(rel, 1, None, "looks like UTF-16 text (byte-order mark); save the file as UTF-8")
         return None
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
-        line = raw[:exc.start].count(b"\n") + 1
-        findings.error(rel, line, None, f"not UTF-8 text: byte 0x{raw[exc.start]:02x} on line {line} "
-                       "cannot be decoded; save the file as UTF-8")
+        # the decoder counts from after a byte-order mark; positions here are in the whole file
+        start = exc.start + (3 if raw.startswith(b"\xef\xbb\xbf") else 0)
+        line = raw.count(b"\n", 0, start) + 1
+        col = start - (raw.rfind(b"\n", 0, start) + 1) + 1
+        findings.error(rel, line, None, f"not UTF-8 text: byte 0x{raw[start]:02x} on line {line} (byte {col} "
+                       f"of the line, {start + 1} of the file) cannot be decoded; save the file as UTF-8")
         return None
     if "\x00" in text:
         line = text[:text.index("\x00")].count("\n") + 1
@@ -269,7 +323,8 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings) -> _Grid | No
     starts = np.concatenate(([0], nl[:-1] + 1))
     length = nl - starts
     cr = (length > 0) & (arr[np.minimum(nl - 1, arr.size - 1)] == 13)
-    blank = (length - cr) == 0
+    # an empty line, or a line of separators only (",,,,", which spreadsheets write), holds no data
+    blank = (length - cr) == fields - 1
     ncols = int(fields[0])
     bad = (fields != ncols) & ~blank
     bad[0] = False
@@ -308,6 +363,12 @@ def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
     if not records:
         return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
     lens = np.fromiter(map(len, records), dtype=np.int64, count=len(records))
+    ncols = int(lens[0])
+    if ncols > MAX_COLUMNS:
+        _too_wide(findings, rel, ncols)
+        return None
+    if lens.max() > ncols:  # rows longer than the header are not read: keep no more cells of them
+        records = [r[:ncols] for r in records]
     columns = list(itertools.zip_longest(*records, fillvalue=None))
     frame = pd.DataFrame({i: pd.Series(c, dtype=object) for i, c in enumerate(columns)},
                          index=pd.RangeIndex(len(records)))
@@ -316,11 +377,9 @@ def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
         breaks += frame[c].fillna("").astype(str).str.count("\n").to_numpy(dtype=np.int64)
     span = 1 + breaks
     start_line = np.concatenate(([1], 1 + np.cumsum(span)[:-1]))
-    ncols = int(lens[0])
     header = [str(x) for x in records[0]]
-    first_cell = frame[0].fillna("").to_numpy(dtype=object) if 0 in frame.columns \
-        else np.full(len(records), "", dtype=object)
-    blank = (lens == 0) | ((lens == 1) & (first_cell == ""))
+    # an empty record, or one whose every cell is empty (",,,,", which spreadsheets write)
+    blank = (lens == 0) | frame.fillna("").eq("").all(axis=1).to_numpy(dtype=bool)
     bad = (lens != ncols) & ~blank
     bad[0] = False
     if bad.any():
@@ -330,6 +389,12 @@ def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
     body = frame.loc[keep, list(range(min(ncols, frame.shape[1])))].fillna("")
     body = body.astype(str).reset_index(drop=True)
     return _Grid(header, body, start_line[keep], rel)
+
+
+def _too_wide(findings: Findings, rel: str, ncols: int) -> None:
+    """Record that a file has more columns than are read."""
+    findings.error(rel, 1, None, f"the header has {ncols:,} columns, more than the {MAX_COLUMNS:,} a data "
+                   "file may have; the file is not read")
 
 
 def _ragged(findings: Findings, rel: str, lines: np.ndarray, fields: np.ndarray, ncols: int) -> None:
@@ -349,6 +414,11 @@ def _parse_csv(raw: bytes, rel: str, findings: Findings) -> _Grid | None:
         return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
     body_raw = raw[3:] if raw.startswith(b"\xef\xbb\xbf") else raw
     if '"' not in text:
+        first = body_raw.find(b"\n")
+        ncols = body_raw.count(b",", 0, len(body_raw) if first < 0 else first) + 1
+        if ncols > MAX_COLUMNS:
+            _too_wide(findings, rel, ncols)
+            return None
         try:
             grid = _csv_fast(text, body_raw, rel, findings)
         except (pd.errors.ParserError, ValueError) as exc:
@@ -378,29 +448,153 @@ def _xlsx_cell_text(v: Any, date_only: bool = False) -> str:
     return str(v)
 
 
-def _parse_xlsx(raw: bytes, rel: str, findings: Findings, spec: FileSpec) -> _Grid | None:
-    """Return the cells of the first sheet of an xlsx workbook, or None with an error."""
+class _Refused(Exception):
+    """A workbook that is not read (the reason is already a finding)."""
+
+
+def _parse_xlsx(raw: bytes, rel: str, findings: Findings, spec: FileSpec, sheet: str | int = 0) -> _Grid | None:
+    """Return the cells of one sheet (default the first) of an xlsx workbook, or None with an error."""
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            frame = pd.read_excel(io.BytesIO(raw), sheet_name=0, header=None, dtype=object,
-                                  engine="openpyxl", keep_default_na=False, na_filter=False)
+            return _read_sheet(raw, rel, findings, spec, sheet)
+    except _Refused:
+        return None
     except Exception as exc:  # openpyxl raises many kinds for a damaged workbook
         findings.error(rel, None, None, f"cannot be read as an Excel workbook (.xlsx): "
                        f"{type(exc).__name__}: {str(exc)[:120]}")
         return None
-    if frame.empty:
-        return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
+
+
+def _read_sheet(raw: bytes, rel: str, findings: Findings, spec: FileSpec, sheet: str | int = 0) -> _Grid:
+    """Stream one sheet cell by cell (openpyxl's sheet parser), within the caps.
+
+    Refuses a workbook that unpacks to more than MAX_XLSX_UNPACKED or whose sheet reaches
+    beyond column MAX_COLUMNS; reports merged header cells, and formulas without a saved
+    value and error values (#DIV/0!, #N/A ...) that are read as blank.
+    """
+    import zipfile
+
+    import openpyxl
+    from openpyxl.utils import get_column_letter
+    from openpyxl.utils.cell import range_boundaries
+    from openpyxl.worksheet._reader import FORMULA_TAG, VALUE_TAG, WorkSheetParser
+
+    unpacked = sum(i.file_size for i in zipfile.ZipFile(io.BytesIO(raw)).infolist())
+    if unpacked > MAX_XLSX_UNPACKED:
+        findings.error(rel, None, None, f"unpacks to {size_text(unpacked)}, more than the "
+                       f"{size_text(MAX_XLSX_UNPACKED)} a workbook may have; not read (save it as CSV)")
+        raise _Refused
+    wb = openpyxl.load_workbook(io.BytesIO(raw), read_only=True, data_only=True, keep_links=False)
+    ws = wb[sheet] if isinstance(sheet, str) else wb.worksheets[sheet]
+    if not hasattr(ws, "_get_source"):
+        findings.error(rel, None, None, "the sheet is not a worksheet of cells; not read")
+        raise _Refused
+    if ws.max_column is not None and ws.max_column > MAX_COLUMNS:
+        findings.error(rel, None, None, f"the sheet spans {ws.max_column:,} columns (to column "
+                       f"{get_column_letter(ws.max_column)}), more than the {MAX_COLUMNS:,} a data file may "
+                       "have; not read (delete the columns beyond the data)")
+        raise _Refused
+
+    class Parser(WorkSheetParser):
+        """The sheet parser, marking formulas that carry no saved value."""
+
+        def parse_cell(self, element: Any) -> dict:
+            cell = super().parse_cell(element)
+            saved = element.find(VALUE_TAG)
+            # an empty saved value is an empty text result only for a text-typed cell (t="str")
+            if element.find(FORMULA_TAG) is not None and (saved is None or (not saved.text and
+                                                                             element.get("t") != "str")):
+                cell["data_type"] = "formula without value"
+                f = element.find(FORMULA_TAG)
+                cell["value"] = "=" + (f.text or "")
+            return cell
+
+    sparse: dict[int, tuple[list[int], list[Any]]] = {}  # column (0-based) -> (sheet rows, values)
+    head: dict[int, Any] = {}  # column (0-based) -> value in row 1
+    odd: list[tuple[int, int, str, str]] = []  # (row, column, kind, text)
+    with ws._get_source() as src:
+        parser = Parser(src, ws._shared_strings, data_only=True, epoch=wb.epoch,
+                        date_formats=wb._date_formats, timedelta_formats=wb._timedelta_formats)
+        for r, row in parser.parse():
+            for cell in row:
+                c, v, t = cell["column"], cell["value"], cell["data_type"]
+                if v is None or (t == "s" and v == ""):
+                    continue
+                if c > MAX_COLUMNS:
+                    findings.error(rel, r, None, f"cell {get_column_letter(c)}{r} lies beyond column "
+                                   f"{get_column_letter(MAX_COLUMNS)}, the last of the {MAX_COLUMNS:,} a data "
+                                   "file may have; not read (delete the columns beyond the data)")
+                    raise _Refused
+                if t in ("formula without value", "e"):
+                    odd.append((r, c, t, str(v)))
+                    continue
+                if isinstance(v, float) and v.is_integer():
+                    v = int(v)  # as pandas' reader does: 5.0 is the whole number 5
+                if r == 1:
+                    head[c - 1] = v
+                at = sparse.setdefault(c - 1, ([], []))
+                at[0].append(r)
+                at[1].append(v)
+        merged = [m.coord for m in (parser.merged_cells.mergeCell if parser.merged_cells else [])]
+    wb.close()
+    row_ids = np.unique(np.asarray([r for rs, _ in sparse.values() for r in rs] + [r for r, _, _, _ in odd] + [1],
+                                   dtype=np.int64))
+    ncols = max([c + 1 for c in sparse] + [c for _, c, _, _ in odd] + [0])
+    if len(row_ids) * ncols > MAX_XLSX_CELLS:
+        findings.error(rel, None, None, f"the sheet has {len(row_ids):,} rows by {ncols:,} columns, more "
+                       f"than the {MAX_XLSX_CELLS:,} cells a workbook may have; not read (save it as CSV)")
+        raise _Refused
+    labels = [str(head.get(i, "")).replace("\ufeff", "").strip().lower() for i in range(ncols)]
     dates = {c.name for c in spec.columns if c.kind in ("date", "date_or_year")}
-    labels = [str(v).replace("\ufeff", "").strip().lower() for v in frame.iloc[0].tolist()]
-    cells = pd.DataFrame({i: frame.iloc[:, i].map(lambda v, d=labels[i] in dates: _xlsx_cell_text(v, d))
-                          for i in range(frame.shape[1])})
-    rows = np.arange(1, len(cells) + 1, dtype=np.int64)
-    header = cells.iloc[0].tolist()
+    declared = {c.name for c in spec.columns}
+    columns = {}
+    for i in range(ncols):
+        col = np.full(len(row_ids), "", dtype=object)
+        date_only = labels[i] in dates
+        if i in sparse:
+            rs, vs = sparse[i]
+            col[np.searchsorted(row_ids, rs)] = [_xlsx_cell_text(v, date_only) for v in vs]
+        columns[i] = col
+    if ncols == 0:
+        return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
+    cells = pd.DataFrame(columns, index=pd.RangeIndex(len(row_ids)))
+    header = [str(x) for x in cells.iloc[0].tolist()]  # row_ids starts with sheet row 1
     body = cells.iloc[1:]
-    rows = rows[1:]
+    rows = row_ids[1:]
+
+    def label(c: int) -> str | None:  # 1-based column
+        return (labels[c - 1] or None) if c - 1 < len(labels) else None
+
+    for r, c, t, text in sorted(odd):
+        where = f"{get_column_letter(c)}{r}"
+        if t == "e":
+            findings.warning(rel, r, label(c), f"cell {where} holds the spreadsheet error {_short(text)}; read as blank",
+                             key="xlsx: error value")
+        else:
+            level = ERROR if label(c) in declared else WARNING
+            findings.add(rel, r, label(c), level, f"cell {where} holds the formula '{_short(text)}' without a "
+                         "saved value (open and save the workbook in a spreadsheet program); read as blank",
+                         key="xlsx: formula without value")
+    for coord in sorted(merged):
+        c1, r1, c2, r2 = range_boundaries(coord)
+        if r1 == 1 and c2 > c1:
+            lost = [get_column_letter(c) for c in range(c1 + 1, c2 + 1)
+                    if c - 1 in sparse and any(rr != 1 for rr in sparse[c - 1][0])]
+            level = ERROR if lost else WARNING
+            more = (f"; column{'s' if len(lost) > 1 else ''} {', '.join(lost)} under it "
+                    f"{'have' if len(lost) > 1 else 'has'} no label of its own and {'are' if len(lost) > 1 else 'is'} "
+                    "not read as that column") if lost else ""
+            findings.add(rel, 1, label(c1), level, f"header cells {coord} are merged: only column "
+                         f"{get_column_letter(c1)} is named{more}; unmerge them and give every column its own label",
+                         key="xlsx: merged header")
+        elif r2 > max(r1, 1) or c2 > c1:
+            findings.warning(rel, r1, label(c1), f"cells {coord} are merged: only {get_column_letter(c1)}{r1} holds "
+                             "the value, the other "
+                             "cells are read as blank", key="xlsx: merged cells")
     blank = body.eq("").all(axis=1).to_numpy() if body.shape[1] else np.zeros(len(body), dtype=bool)
     body = body.loc[~blank].reset_index(drop=True)
+    body.columns = range(body.shape[1])
     return _Grid(header, body, rows[~blank], rel)
 
 
@@ -867,11 +1061,16 @@ def _source(root: Path, spec: FileSpec, findings: Findings) -> tuple[Path | None
 
 
 def _read_table(spec: FileSpec, root: Path, inputs: _Inputs, findings: Findings,
-                today: dt.date) -> tuple[pd.DataFrame, str | None]:
-    """Read one data file; return (typed table, relative path read or None)."""
-    path, kind = _source(root, spec, findings)
+                today: dt.date, dresser: Dresser | None = None) -> tuple[pd.DataFrame, str | None]:
+    """Read one data file; return (typed table, relative path read or None).
+
+    The *dresser* applies the file's ``files:`` settings (other path, encoding, delimiter,
+    decimal mark, date pattern, column names, wide audiograms) around the standard reading.
+    """
+    dresser = dresser or Dresser(root, None, findings)
+    path, kind, named = dresser.source(spec, _source)
     if path is None:
-        if spec.required:
+        if spec.required and not named:
             findings.error(spec.path, None, None, f"{spec.path} is missing; this file is required",
                            key="required file missing")
         return empty_table(spec), None
@@ -882,18 +1081,23 @@ def _read_table(spec: FileSpec, root: Path, inputs: _Inputs, findings: Findings,
     raw = inputs.get(path)
     if raw is None:
         return empty_table(spec), None
-    grid = _parse_xlsx(raw, rel, findings, spec) if kind == "xlsx" else _parse_csv(raw, rel, findings)
+    raw = dresser.standard_bytes(spec, raw, rel, kind)
+    sheet = dresser.sheet(spec, raw) if raw is not None and kind == "xlsx" else 0
+    if raw is None or sheet is None:
+        return empty_table(spec), rel
+    grid = _parse_xlsx(raw, rel, findings, spec, sheet) if kind == "xlsx" else _parse_csv(raw, rel, findings)
     if grid is None:
         return empty_table(spec), rel
     if not grid.header:
         _no_rows(spec, rel, findings, "no rows (the file is empty)")
         return empty_table(spec), rel
-    frame, unknown, _missing = _named(grid, spec, findings)
+    grid, read = dresser.standard_grid(spec, grid, kind)
+    frame, unknown, _missing = _named(grid, read, findings)
     if frame.empty:
         _no_rows(spec, rel, findings, "no rows (header only)")
     sink = _Sink(findings, rel, grid.rows)
-    table = _typed(spec, frame, unknown, grid.rows, sink, today, grid.hints)
-    return table, rel
+    table = _typed(read, frame, unknown, grid.rows, sink, today, grid.hints)
+    return dresser.standard_table(spec, read, table, rel), rel
 
 
 def _no_rows(spec: FileSpec, rel: str, findings: Findings, what: str) -> None:
@@ -905,14 +1109,19 @@ def _no_rows(spec: FileSpec, rel: str, findings: Findings, what: str) -> None:
         findings.warning(rel, None, None, f"{what}; its pages are left out", key="no rows")
 
 
-def _unknown_data_files(root: Path, findings: Findings) -> None:
-    """Warn about data/*.csv|xlsx files that no spec declares (they are not read)."""
+def _unknown_data_files(root: Path, findings: Findings, named: set[str] | frozenset[str] = frozenset()) -> None:
+    """Warn about data/*.csv|xlsx files that no spec declares (they are not read).
+
+    *named* holds the folder-relative paths that ``files:`` names (they are read).
+    """
     data = root / DATA_DIR
     if not data.is_dir():
         return
     known = {Path(f.path).stem for f in FILES}
     for p in sorted(data.iterdir()):
         if p.suffix.lower() not in (".csv", ".xlsx") or (p.stem in known and p.suffix in (".csv", ".xlsx")):
+            continue
+        if _rel(root, p) in named:
             continue
         if p.stem.lower() in known:
             hint = f"file names are lower-case: rename it to {p.stem.lower()}{p.suffix.lower()}"
@@ -1008,7 +1217,7 @@ def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, str]], findi
     starts = np.concatenate(([0], nl[:-1] + 1))
     length = nl - starts
     cr = (length > 0) & (arr[np.maximum(nl - 1, 0)] == 13)
-    blank = (length - cr) == 0
+    blank = (length - cr) == fields - 1  # empty, or separators only
     if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
         # something unusual: read these logs one by one to report exact lines
         return [_log_single((",".join(cols) + "\n" + m[2]).encode("utf-8"), m[1], m[0], findings, today)
@@ -1101,15 +1310,11 @@ def _front_matter(text: str, rel: str, findings: Findings) -> tuple[dict[str, An
     block = "".join(lines[1:end])
     body = "".join(lines[end + 1:])
     try:
-        meta = yaml.safe_load(block)
-    except yaml.MarkedYAMLError as exc:
-        mark = exc.problem_mark or exc.context_mark
-        line = mark.line + 2 if mark else 1
-        col = str(mark.column + 1) if mark else None
-        findings.error(rel, line, col, f"front matter YAML syntax: {exc.problem or exc.context}")
-        return {}, body
-    except yaml.YAMLError as exc:
-        findings.error(rel, 1, None, f"front matter YAML syntax: {exc}")
+        _node, meta = load_yaml(block)
+    except YamlError as exc:
+        for p in exc.problems:
+            findings.error(rel, 1 if p.line is None else p.line + 1, None if p.column is None else str(p.column),
+                           f"front matter {p.message}")
         return {}, body
     if meta is None:
         return {}, body
@@ -1131,16 +1336,20 @@ def _load_pages(root: Path, inputs: _Inputs, findings: Findings) -> list[Narrati
     taken: dict[str, str] = {}
     for p in sorted(folder.glob("*.md")):
         rel = _rel(root, p)
-        raw = inputs.get(p)
+        raw = inputs.get(p, limit=MAX_PAGE_BYTES)
         if raw is None:
             continue
         text = _decode(raw, rel, findings)
         if text is None:
             continue
         meta, body = _front_matter(text, rel, findings)
-        for k in sorted(set(map(str, meta)) - set(PAGE_KEYS)):
-            findings.warning(rel, None, k, f"unknown front-matter key '{k}' is ignored (known: "
+        unknown = sorted(set(map(str, meta)) - set(PAGE_KEYS))
+        for k in unknown[:UNKNOWN_SHOWN]:
+            findings.warning(rel, None, k, f"unknown front-matter key '{_short(k)}' is ignored (known: "
                              f"{', '.join(PAGE_KEYS)})", key="page: unknown key")
+        if len(unknown) > UNKNOWN_SHOWN:
+            findings.warning(rel, None, None, f"{len(unknown) - UNKNOWN_SHOWN:,} more unknown front-matter keys "
+                             "are ignored (not listed)", key="page: unknown keys counted")
         title = meta.get("title")
         if title is None:
             heading = next((ln[2:].strip() for ln in body.splitlines() if ln.startswith("# ")), "")
@@ -1150,7 +1359,7 @@ def _load_pages(root: Path, inputs: _Inputs, findings: Findings) -> list[Narrati
             title = p.stem
         order = meta.get("order", DEFAULT_PAGE_ORDER)
         if isinstance(order, bool) or not isinstance(order, int):
-            findings.error(rel, None, "order", f"order must be a whole number, not '{order}'")
+            findings.error(rel, None, "order", f"order must be a whole number, not '{_short(order)}'")
             order = DEFAULT_PAGE_ORDER
         slug = page_slug(p.stem)
         if slug in taken:
@@ -1179,8 +1388,11 @@ def _template_dir(root: Path, inputs: _Inputs, findings: Findings) -> Path | Non
             findings.error(_rel(root, p), None, None, "resolves outside the programme folder; not used")
             ok = False
             continue
-        if p.is_file():
-            inputs.get(p)
+        if not p.is_dir():  # a named pipe here would block the template loader: refused by get()
+            raw = inputs.get(p, limit=MAX_PAGE_BYTES)
+            if raw is None or (p.suffix.lower() in TEMPLATE_SUFFIXES
+                               and _decode(raw, _rel(root, p), findings, max_line=None) is None):
+                ok = False  # the reason is a finding; templates are read as UTF-8 text
     return real if ok else None
 
 
@@ -1201,8 +1413,8 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
                        "not read")
         config = Config()
     else:
-        if cfg_path.is_file():
-            inputs.get(cfg_path)
+        if cfg_path.is_file() and cfg_path.stat().st_size <= MAX_CONFIG_BYTES:
+            inputs.get(cfg_path)  # for the digest; load_config reports a file it cannot read
         config = load_config(root, findings)
     if not (root / DATA_DIR).is_dir():
         findings.error(DATA_DIR, None, None, "the data/ folder is missing (run 'hcpsite new DIR' for a starter)")
@@ -1210,9 +1422,10 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
         findings.error(DATA_DIR, None, None, "resolves outside the programme folder; not read")
     tables: dict[str, pd.DataFrame] = {}
     present: dict[str, str] = {}
+    dresser = Dresser(root, config, findings)
     for spec in FILES:
         try:
-            table, rel = _read_table(spec, root, inputs, findings, today)
+            table, rel = _read_table(spec, root, inputs, findings, today, dresser)
         except Exception as exc:  # a last line of defence: report, never crash on a user's file
             log.exception("unexpected failure reading %s", spec.path)
             findings.error(spec.path, None, None, f"could not be read ({type(exc).__name__}: {exc})")
@@ -1231,7 +1444,7 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
         sink = _Sink(findings, present[spec.name], df["_row"].to_numpy())
         _check_key(df, spec, sink)
         _check_refs(df, spec, sink, tables, present, derived)
-    _unknown_data_files(root, findings)
+    _unknown_data_files(root, findings, dresser.paths())
     try:
         logs, intervals = _load_logs(root, inputs, findings, tables["noise"], today)
     except Exception as exc:
@@ -1240,6 +1453,7 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
         logs, intervals = {}, {}
     pages = _load_pages(root, inputs, findings)
     template_dir = _template_dir(root, inputs, findings)
+    findings = dresser.finish(findings)
     prog = Programme(root=root, config=config, tables=tables, present=present, noise_logs=logs,
                      log_interval_s=intervals, pages=pages, findings=findings, digest=inputs.digest(),
                      template_dir=template_dir)

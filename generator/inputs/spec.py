@@ -270,6 +270,31 @@ AUDIOMETERS = FileSpec(
     ) + _booth_columns(),
 )
 
+#: Ears of a wide audiogram file (one row per test, both ears side by side): suffix -> ear.
+WIDE_EARS = (("l", "L"), ("r", "R"))
+#: Hearing-level columns of a wide audiogram file: ``hl_<f>_l`` and ``hl_<f>_r``.
+WIDE_HL_COLUMNS = tuple(f"hl_{f}_{e}" for e, _ in WIDE_EARS for f in AUDIO_FREQS)
+
+
+def wide_audiograms() -> FileSpec:
+    """Return the declaration of a wide audiogram file: AUDIOGRAMS without ``ear``, each
+    ``hl_<f>`` once per ear as ``hl_<f>_l`` and ``hl_<f>_r`` (one row per test)."""
+    cols: list[Column] = []
+    for c in AUDIOGRAMS.columns:
+        if c.name == "ear":
+            continue
+        if c.kind == "hl":
+            if c.name == "hl_" + str(AUDIO_FREQS[0]):
+                for e, ear in WIDE_EARS:
+                    cols += [Column(f"hl_{f}_{e}", "hl", doc=f"{'left' if ear == 'L' else 'right'} ear at {f} Hz, "
+                                    "dB HL; `NR` = no response; blank = not tested", lo=HL_MIN, hi=HL_MAX)
+                             for f in AUDIO_FREQS]
+            continue
+        cols.append(c)
+    return FileSpec(AUDIOGRAMS.name, AUDIOGRAMS.path, "Audiograms, one row per person and date with both ears "
+                    "side by side.", tuple(cols))
+
+
 #: Every tabular file, in load order (referenced files first).
 FILES: tuple[FileSpec, ...] = (
     GROUPS, PEOPLE, AUDIOMETERS, PROTECTORS, NOISE, TASKS, AUDIOGRAMS, REVIEWS, NOTICES,
