@@ -510,7 +510,8 @@ def _row_of(ag: pd.DataFrame, person_id: Any, ear: Any, date: Any) -> np.ndarray
     if not len(ag):
         return np.full(len(np.asarray(person_id)), -1, dtype=np.int64)
     key = _ear_key(ag)
-    pid = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)]).get_indexer(pd.Index(np.asarray(person_id, dtype=object)))
+    ids = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)])  # id of each person code
+    pid = ids.get_indexer(pd.Index(np.asarray(person_id, dtype=object)))
     k = np.where(pid >= 0, pid.astype(np.int64) * 2 + (np.asarray(ear, dtype=object) == "R"), -1)
     index = pd.MultiIndex.from_arrays([key, ag["date"].to_numpy("datetime64[ns]")])
     pos = index.get_indexer(pd.MultiIndex.from_arrays([k, _dates(pd.Series(date)).to_numpy("datetime64[ns]")]))
