@@ -1067,8 +1067,13 @@ def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     diff = vals - prev
     complete = np.isfinite(diff).all(axis=1)
     lim = SETTINGS["indicator_db"]
-    worse = (np.round(diff, 6) >= lim).any(axis=1)
-    bw = (np.round(np.abs(diff), 6) >= lim).any(axis=1)
+    # judged only on the complete sequential pairs (the only rows counted below)
+    judged = np.flatnonzero(same & complete)
+    rounded = np.round(diff[judged], 6)
+    worse = np.zeros(len(diff), dtype=bool)
+    bw = np.zeros(len(diff), dtype=bool)
+    worse[judged] = (rounded >= lim).any(axis=1)
+    bw[judged] = (np.abs(rounded) >= lim).any(axis=1)
     group_of = ag["group"].to_numpy(object)[firsts][pids]  # one group per person (people.csv)
     pairs = pd.DataFrame({"person_id": persons, "year": years, "pair": same, "complete": same & complete,
                           "worse": same & complete & worse, "bw": same & complete & bw, "group": group_of})
@@ -1112,12 +1117,19 @@ def _age_norms(ag: pd.DataFrame, as_of: pd.Timestamp) -> pd.DataFrame:
     labels = [f"{lo}-{hi - 1}" if hi < 200 else f"{lo}+" for lo, hi in zip(edges[:-1], edges[1:])]
     band = pd.cut(lat["age"], bins=edges, right=False, labels=labels)
     frames = []
+    # the ISO 7029 values depend on age and sex only: evaluated once per distinct pair
+    ages = lat["age"].to_numpy(float)
+    sexes = lat["sex"].to_numpy(object)
+    pairs = pd.MultiIndex.from_arrays([ages, sexes])
+    codes, uniq = pd.factorize(pairs)
+    u_age = uniq.get_level_values(0).to_numpy(float)
+    u_sex = uniq.get_level_values(1).to_numpy(object)
     for f in AUDIO_FREQS:
         v = lat[f"hl_{f}"].to_numpy(float)
         nr = lat[f"nr_{f}"].to_numpy(bool)
         obs = np.where(nr, np.inf, v)  # NR ranks above every number
-        p90 = norms.iso7029_percentile(lat["age"].to_numpy(float), f, lat["sex"].to_numpy(object), 0.10)
-        md = norms.iso7029_median(lat["age"].to_numpy(float), f, lat["sex"].to_numpy(object))
+        p90 = norms.iso7029_percentile(u_age, f, u_sex, 0.10)[codes]
+        md = norms.iso7029_median(u_age, f, u_sex)[codes]
         frames.append(pd.DataFrame({"age_band": band.astype(str).to_numpy(), "sex": lat["sex"].to_numpy(),
                                     "freq": f, "obs": obs, "nr": nr, "age": lat["age"].to_numpy(float),
                                     "iso_md": md, "iso_p90": p90,
