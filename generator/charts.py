@@ -21,10 +21,49 @@ from .pages.base import Table
 from .portable import round_floats
 
 TEMPLATE_NAME = "hcpsite"
-#: Colours of the site (also used by style.css): ink blue, amber, moss, plum, brick, slate, ochre, teal.
-PALETTE = ("#2b5d8a", "#e08a2e", "#4a9a6a", "#9b4f96", "#b8423c", "#6f7f8f", "#c9a227", "#3aa7b8")
-#: Colour of reference lines (action and limit values).
+#: One meaning per colour across the site. A status colour says how something stands (green
+#: only for what is in order), a rule-set colour says which rule set a series is judged
+#: under, a category colour tells apart series of equal standing (groups, years, sources).
+#: The three sets share no colour; every chart takes its colours from here.
+GREEN, AMBER, BRICK, WINE, SLATE, MIST = "#3d8c57", "#e08a2e", "#b8423c", "#6d2135", "#8a96a3", "#c8ced4"
+#: status -> colour (the words the charts and tables use for a status)
+STATUS_COLOURS: dict[str, str] = {
+    "on time": GREEN, "adequate": GREEN, "all checks valid": GREEN,
+    "late": AMBER, "due soon or open": AMBER, "over-protected": AMBER,
+    "missing": BRICK, "overdue": BRICK, "insufficient": BRICK, "a check missing or failed": BRICK,
+    "no protector": WINE,
+    "not yet due": SLATE, "not exposed": SLATE,
+    "unknown": MIST,
+}
+#: statuses that say something is wrong or exposed: never green
+ALARM_STATUSES = frozenset({"late", "missing", "overdue", "insufficient", "a check missing or failed",
+                            "no protector", "due soon or open"})
+#: rule set id -> colour
+RULE_COLOURS: dict[str, str] = {
+    "osha-1910.95": "#2b5d8a", "niosh-rel": "#3aa7b8", "eu-2003-10": "#6a51a3", "custom": "#8c6d46",
+}
+#: colours of series of equal standing, in order (the charts' default colour cycle)
+CATEGORY_COLOURS: tuple[str, ...] = ("#34495e", "#c9a227", "#c0679b", "#74a9cf", "#a1887f", "#1d2730",
+                                     "#9fb6c8", "#d9a5c0")
+#: the default colour cycle of the site template
+PALETTE = CATEGORY_COLOURS
+#: Colour of reference lines (action and limit values of a rule set).
 REFERENCE_COLOUR = "#8a1c1c"
+
+
+def status_colour(status: str) -> str:
+    """Return the colour of *status* (a word of STATUS_COLOURS)."""
+    return STATUS_COLOURS[status]
+
+
+def rule_colour(rule_id: str, position: int = 0) -> str:
+    """Return the colour of the rule set *rule_id* (a category colour for a rule set not listed)."""
+    return RULE_COLOURS.get(rule_id, CATEGORY_COLOURS[position % len(CATEGORY_COLOURS)])
+
+
+def category_colour(position: int) -> str:
+    """Return the category colour of the *position*-th series."""
+    return CATEGORY_COLOURS[position % len(CATEGORY_COLOURS)]
 FONT = "system-ui, -apple-system, 'Segoe UI', Roboto, 'Helvetica Neue', Arial, sans-serif"
 #: Cell shown for a missing number in tables.
 BLANK = "–"

@@ -114,7 +114,7 @@ def kind_chart(a: pd.DataFrame, slug: str = "actions") -> Chart:
                                                                                   for k in kinds]}
     height = max(260, 60 + 30 * len(kinds))
     fig = charts.stacked_bar(kinds, series, horizontal=True, xaxis_title="actions", height=height,
-                             colours={"overdue": charts.PALETTE[4], "due soon or open": charts.PALETTE[1]})
+                             colours={k: charts.STATUS_COLOURS[k] for k in ("overdue", "due soon or open")})
     rows = [[k, str(o), str(r), str(o + r)] for k, o, r in zip(kinds, series["overdue"], series["due soon or open"])]
     table = Table(["Kind", "Overdue", "Due soon or open", "All"], rows, classes=["", "num", "num", "num"])
     if kinds:

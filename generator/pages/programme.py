@@ -177,8 +177,8 @@ def audiometer_chart(status: pd.DataFrame, slug: str = "programme") -> Chart | N
     g["not_ok"] = g["size"] - g["sum"]
     fig = charts.stacked_bar(g["audiometer_id"], {"all checks valid": g["sum"], "a check missing or failed":
                                                   g["not_ok"]}, xaxis_title="audiometer", yaxis_title="test days",
-                             colours={"all checks valid": charts.PALETTE[2],
-                                      "a check missing or failed": charts.PALETTE[4]})
+                             colours={k: charts.STATUS_COLOURS[k] for k in
+                                      ("all checks valid", "a check missing or failed")})
     table = charts.table_from_frame(g.rename(columns={"sum": "ok_days", "size": "days"}),
                                     {"audiometer_id": "Audiometer", "days": "Test days",
                                      "ok_days": "All checks valid", "not_ok": "Check missing or failed"},

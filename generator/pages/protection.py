@@ -16,11 +16,9 @@ from .programme import cap_caption, cap_rows
 log = logging.getLogger(__name__)
 
 SUPPRESSED = "suppressed"
-#: colours of the adequacy classes in the stacked bar (site palette)
-ADEQUACY_COLOURS = {
-    "adequate": charts.PALETTE[2], "insufficient": charts.PALETTE[4], "over-protected": charts.PALETTE[1],
-    "no protector": charts.PALETTE[3], "not exposed": charts.PALETTE[5], "unknown": charts.PALETTE[6],
-}
+#: colours of the adequacy classes in the stacked bar (status colours of the site)
+ADEQUACY_COLOURS = {k: charts.STATUS_COLOURS[k] for k in
+                    ("adequate", "insufficient", "over-protected", "no protector", "not exposed", "unknown")}
 TYPE_LABELS = {"earmuff": "earmuff", "foam_plug": "foam plug", "premolded_plug": "premolded plug",
                "canal_cap": "canal cap", "custom_plug": "custom plug", "other": "other", "dual": "plug + muff"}
 
