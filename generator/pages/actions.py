@@ -13,8 +13,10 @@ from .programme import IN_ACTIONS_CSV, LIST_CAP, cap_caption, cap_rows
 log = logging.getLogger(__name__)
 
 STATUS_LABELS = {"overdue": "overdue", "due_soon": "due soon", "open": "open"}
-SOURCE_LABELS = {"compliance": "programme", "exposure": "exposure", "protection": "protection",
+SOURCE_LABELS = {"compliance": "enrolment and duties", "exposure": "exposure", "protection": "protection",
                  "hearing": "hearing"}
+#: the kinds of action in words where the code alone would not say what is to be done
+KIND_WORDS = {"protector": "no protector on record", "audiogram conditions": "no valid audiometer check on the test day"}
 #: listing order of the statuses (overdue first); any other status comes after these
 STATUS_ORDER = ("overdue", "due_soon", "open")
 #: actions the printable review lists (the most urgent ones; the counts are complete)
@@ -26,8 +28,14 @@ def label_actions(actions: pd.DataFrame) -> pd.DataFrame:
     a = actions.copy()
     a["status"] = a["status"].map(STATUS_LABELS).fillna(a["status"])
     a["source"] = a["source"].map(SOURCE_LABELS).fillna(a["source"])
-    a["kind_label"] = a["kind"].astype(str).str.replace("_", " ", regex=False)
+    a["kind_label"] = kind_words(a["kind"])
     return a
+
+
+def kind_words(kinds: pd.Series) -> pd.Series:
+    """Return the kinds of action as the pages word them."""
+    k = kinds.astype(str)
+    return k.map(KIND_WORDS).fillna(k.str.replace("_", " ", regex=False))
 
 
 def withhold_small_groups(a: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
@@ -125,7 +133,7 @@ def kind_chart(a: pd.DataFrame, slug: str = "actions") -> Chart:
                    f"them overdue; the most frequent kind is '{top['kind']}' with {int(top['n'])}.")
     else:
         summary = "No actions are open."
-    return Chart(f"{slug}-1", fig, summary, table, height=height, title="Open actions by kind")
+    return Chart(f"{slug}-1", fig, summary, table, height=height, title="Open actions by kind and status (overdue; due soon or open), number of actions")
 
 
 def build(ctx: SiteContext) -> list[Page]:

@@ -71,6 +71,15 @@ def value_words(rule: Any) -> tuple[str, str, str]:
     return VALUE_WORDS.get(rule.id, DEFAULT_VALUE_WORDS)
 
 
+def value_name(rule: Any, level: float | None) -> str:
+    """Return the trade's name of *level* in *rule* ("PEL", "upper exposure action value" ...), or "" if none."""
+    lower, upper, limit = value_words(rule)
+    for value, word in ((rule.limit_value, limit), (rule.upper_action_value, upper), (rule.lower_action_value, lower)):
+        if value is not None and level is not None and float(value) == float(level):
+            return word
+    return ""
+
+
 def _reference_values(rule: Any) -> dict[str, float | None]:
     """Return the rule set's action and limit values, each labelled with its name, value and unit."""
     lower, upper, limit = value_words(rule)

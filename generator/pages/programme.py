@@ -136,7 +136,7 @@ def training_chart(tg: pd.DataFrame, suppressed: frozenset[str], slug: str = "pr
                    f"{low['group']}.")
     else:
         summary = "No group with people in the programme can be shown."
-    return Chart(f"{slug}-1", fig, summary, table, title="Training completion per group")
+    return Chart(f"{slug}-1", fig, summary, table, title="People in the programme trained within the last 12 months, %, per similar exposure group")
 
 
 def _share_text(num: float, den: float) -> str:
@@ -165,7 +165,8 @@ def protector_chart(pg: pd.DataFrame, suppressed: frozenset[str], slug: str = "p
                    f"{_share_text(shown['n_fit_tested'].sum(), shown['n_required'].sum())} have a fit test.")
     else:
         summary = "No group with people in the programme can be shown."
-    return Chart(f"{slug}-2", fig, summary, table, title="Protector and fit-test coverage per group")
+    return Chart(f"{slug}-2", fig, summary, table, title="People in the programme with a protector and with a fit test on record, %, "
+                 "per similar exposure group")
 
 
 def audiometer_chart(status: pd.DataFrame, slug: str = "programme") -> Chart | None:
@@ -190,7 +191,8 @@ def audiometer_chart(status: pd.DataFrame, slug: str = "programme") -> Chart | N
                f"within App. D Table D-1."
                + (f" On {unnamed} further test day{'s' if unnamed != 1 else ''} no audiometer is recorded, so the "
                   "checks cannot be looked up." if unnamed else ""))
-    return Chart(f"{slug}-3", fig, summary, table, title="Test days with valid audiometer checks")
+    return Chart(f"{slug}-3", fig, summary, table, title="Audiometric test days in the review period with valid audiometer checks, "
+                 "number of test days per audiometer")
 
 
 def build(ctx: SiteContext) -> list[Page]:
