@@ -1,4 +1,4 @@
-"""The actions page: every open item of every stage in one list, overdue first by due date."""
+"""The actions page: every open action of every stage in one list, overdue first by due date."""
 from __future__ import annotations
 
 import logging

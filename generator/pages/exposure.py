@@ -177,7 +177,7 @@ def distribution_chart(res: ExposureResult, ctx: SiteContext) -> Chart:
 
 
 def band_counts(res: ExposureResult, ctx: SiteContext) -> tuple[Chart, Table]:
-    """Return the chart and table of groups and people per band for every rule set, side by side."""
+    """Return the chart and table of groups and people per exposure category for every rule set, side by side."""
     g = res.groups[~res.groups["group"].isin(sorted(ctx.suppressed_groups))]
     xr, xb, ys, rows = [], [], [], []
     fig = go.Figure()
@@ -335,7 +335,7 @@ def measurement_table(m: pd.DataFrame, ctx: SiteContext, redact: Any = str, n: i
              else f"all {len(m):,}, newest first")
     return Table(columns=["Date", "Measurement", "Person", "Kind", "Location", "Run, h", "LAeq", "LEX,8h",
                           "OSHA dose, %", "OSHA TWA", "NIOSH dose, %", "NIOSH TWA", "LCpeak", "Basis",
-                          f"Band ({ctx.headline.short})"], rows=rows,
+                          f"Exposure category ({ctx.headline.short})"], rows=rows,
                  caption=f"Measurements of this group, {which} (levels in dB(A), peaks in dB(C); the dose "
                          "counts the run time, LEX,8h the shift)",
                  classes=["", "", "", "", "", "num", "num", "num", "num", "num", "num", "num", "num", "", ""])
@@ -643,8 +643,8 @@ def build(ctx: SiteContext) -> list[Page]:
         pages.append(group_page(gr, res, ctx, f"exposure/{slugs[gr['group']]}", redact))
     chart = noise_map_chart(res, ctx, redact)
     survey = survey_words(res.noise_map.points) if not res.noise_map.points.empty else ""
-    pages.append(Page(slug="noise-map", title="Noise map", template="noise_map.html", section=SECTION,
-                      in_nav=True,
+    pages.append(Page(slug="noise-map", title="Noise map", template="noise_map.html", section="noise-map",
+                      in_nav=chart is not None,
                       context={"has_points": chart is not None, "map_note": MAP_NOTE, "survey": survey,
                                "n_points": int(len(res.noise_map.points))},
                       charts=[chart] if chart is not None else []))

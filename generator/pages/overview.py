@@ -22,13 +22,13 @@ USED_BY: dict[str, tuple[str, ...]] = {
     "groups": ("Exposure", "Protection"),
     "noise": ("Exposure", "Protection", "Trends"),
     "tasks": ("Exposure",),
-    "audiograms": ("Hearing", "Programme", "Trends"),
+    "audiograms": ("Hearing", "Enrolment and duties", "Trends"),
     "reviews": ("Hearing",),
-    "notices": ("Hearing", "Programme"),
-    "training": ("Programme",),
+    "notices": ("Hearing", "Enrolment and duties"),
+    "training": ("Enrolment and duties",),
     "protectors": ("Protection",),
     "protector_fits": ("Protection",),
-    "audiometers": ("Programme",),
+    "audiometers": ("Enrolment and duties",),
     "people": ("every section",),
 }
 
@@ -38,7 +38,8 @@ BLURBS: dict[str, str] = {
     "protection": "Hearing protectors, their ratings and whether the protected level meets the target.",
     "hearing": "Baselines, threshold shifts and follow-ups, shown by pseudonymous code.",
     "programme": "Enrolment, due audiograms, training and audiometer checks.",
-    "actions": "Everything that needs doing, with due dates.",
+    "noise-map": "Area measurements at their positions on a plan of the site.",
+    "actions": "Every action the records call for, with due dates.",
     "trends": "How the programme's figures changed over the years.",
     "review": "All sections on one page for printing and sign-off.",
     "methods": "Formulas, parameters and the rule sets' values with their clauses.",
@@ -189,8 +190,8 @@ def file_rows(ctx: SiteContext) -> list[dict[str, Any]]:
 def stage_rows(results: Results) -> list[dict[str, Any]]:
     """Return per computed stage: name, findings and actions counts."""
     rows = []
-    stages = (("exposure", results.exposure), ("hearing", results.hearing), ("protection", results.protection),
-              ("compliance", results.compliance))
+    stages = (("noise exposure", results.exposure), ("hearing", results.hearing),
+              ("hearing protection", results.protection), ("enrolment and duties", results.compliance))
     for name, res in stages:
         acts = getattr(res, "actions", None)
         rows.append({"stage": name, "findings": len(getattr(res, "findings", []) or []),

@@ -199,7 +199,7 @@ def build(ctx: SiteContext) -> list[Page]:
     """Return the programme page."""
     comp = ctx.results.compliance
     if comp is None:
-        return [Page(slug="programme", title="Programme", template="programme.html", section="programme",
+        return [Page(slug="programme", title="Enrolment and duties", template="programme.html", section="programme",
                      in_nav=True, context={"available": False})]
     sup = ctx.suppressed_groups
     start = pd.Timestamp(ctx.programme.config.period.start)
@@ -304,7 +304,7 @@ def build(ctx: SiteContext) -> list[Page]:
         "period_start": start.strftime("%Y-%m-%d"),
         "booth_limits": [{"band": f, "limit": v} for f, v in sorted(BOOTH_LIMITS.items())],
     }
-    return [Page(slug="programme", title="Programme", template="programme.html", section="programme",
+    return [Page(slug="programme", title="Enrolment and duties", template="programme.html", section="programme",
                  in_nav=True, context=context, charts=page_charts)]
 
 
