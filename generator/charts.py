@@ -45,6 +45,8 @@ RULE_COLOURS: dict[str, str] = {
 #: colours of series of equal standing, in order (the charts' default colour cycle)
 CATEGORY_COLOURS: tuple[str, ...] = ("#34495e", "#c9a227", "#c0679b", "#74a9cf", "#a1887f", "#1d2730",
                                      "#9fb6c8", "#d9a5c0")
+#: audiogram symbols' colours (common practice: right ear red, left ear blue); shown on audiograms only
+EAR_COLOURS: dict[str, str] = {"R": "#c0392b", "L": "#1f5fa8"}
 #: the default colour cycle of the site template
 PALETTE = CATEGORY_COLOURS
 #: Colour of reference lines (action and limit values of a rule set).

@@ -69,8 +69,8 @@ def adequacy_chart(groups: pd.DataFrame, suppressed: frozenset[str], rules_name:
                f"the target and {n_over} {'is' if n_over == 1 else 'are'} below "
                f"{OVERPROTECTION_BELOW:g} dB(A) (possible over-protection).")
     return Chart(id="protection-1", figure=fig, summary=summary, table=table,
-                 title="People per adequacy of their hearing protection (estimated level under the protector "
-                 f"against the target{' of ' + rules_name if rules_name else ''}), per similar exposure group")
+                 title="Adequacy of hearing protection per similar exposure group (estimated level under the "
+                 f"protector against the target{' of ' + rules_name if rules_name else ''}), people")
 
 
 def distribution_chart(people: pd.DataFrame, targets: dict[str, float | None], rules_name: str = "") -> Chart:
