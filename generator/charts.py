@@ -274,16 +274,17 @@ def scatter(x: Sequence, y: Sequence, *, text: Sequence | None = None, name: str
 def reference_lines(fig: go.Figure, values: Mapping[str, float | None], axis: str = "y",
                     colour: str = REFERENCE_COLOUR) -> go.Figure:
     """Draw a labelled dashed line across the plot at each level of *values* and return *fig*."""
-    for label, level in sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0, kv[0])):
+    # labels alternate sides so that close values stay readable
+    for i, (label, level) in enumerate(sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0, kv[0]))):
         if level is None or (isinstance(level, float) and math.isnan(level)):
             continue
         if axis == "y":
             fig.add_hline(y=float(level), line=dict(color=colour, dash="dash", width=1),
-                          annotation_text=str(label), annotation_position="top left",
+                          annotation_text=str(label), annotation_position="top right" if i % 2 else "top left",
                           annotation_font=dict(color=colour, size=11))
         else:
             fig.add_vline(x=float(level), line=dict(color=colour, dash="dash", width=1),
-                          annotation_text=str(label), annotation_position="top right",
+                          annotation_text=str(label), annotation_position="top left" if i % 2 else "top right",
                           annotation_font=dict(color=colour, size=11))
     return fig
 

@@ -102,12 +102,14 @@ def lex_rule(ctx: SiteContext) -> Any:
 def _hlines(fig: go.Figure, values: Mapping[str, float | None]) -> go.Figure:
     """Add labelled dashed horizontal lines at *values* in one layout update (cheaper than add_hline)."""
     shapes, notes = [], []
-    for label, y in sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0.0, kv[0])):
+    for i, (label, y) in enumerate(sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0.0, kv[0]))):
         if y is None:
             continue
         shapes.append(dict(type="line", xref="paper", x0=0, x1=1, yref="y", y0=float(y), y1=float(y),
                            line=dict(color=charts.REFERENCE_COLOUR, dash="dash", width=1)))
-        notes.append(dict(xref="paper", x=0, xanchor="left", yref="y", y=float(y), yanchor="bottom",
+        # labels alternate left and right so that close values stay readable
+        notes.append(dict(xref="paper", x=float(i % 2), xanchor="right" if i % 2 else "left", yref="y", y=float(y),
+                          yanchor="bottom",
                           text=label, showarrow=False, font=dict(color=charts.REFERENCE_COLOUR, size=11)))
     fig.update_layout(shapes=shapes, annotations=notes)
     return fig
@@ -166,7 +168,7 @@ def distribution_chart(res: ExposureResult, ctx: SiteContext) -> Chart:
                   classes=["", "num", "num", "num", "num", ""])
     n_exp = int(g["exposed"].sum())
     summary = (f"{len(g)} group{'s' if len(g) != 1 else ''} with figures: {n_exp} at or above the "
-               f"{head.short} action value of {action_value(head):g} dB(A)"
+               f"{head.short} {value_name(head, action_value(head)) or 'action value'} of {action_value(head):g} dB(A)"
                f"{' judged on LEX,8h + U' if head.judge_with_uncertainty else ''}; boxes show the spread "
                "of the measured LEX,8h, points the group value"
                + (" with its uncertainty bar" if with_u else "")
@@ -618,7 +620,8 @@ def build(ctx: SiteContext) -> list[Page]:
             "action_value": action_value(head),
             "tiles": [{"label": "measurements", "value": f"{len(m):,}"},
                       {"label": "groups", "value": f"{len(res.groups):,}"},
-                      {"label": f"groups at or above {action_value(head):g} dB(A)",
+                      {"label": f"groups at or above the {head.short} "
+                                f"{value_name(head, action_value(head)) or 'action value'} {action_value(head):g} dB(A)",
                        "value": f"{int(visible['exposed'].sum()):,}"},
                       {"label": "groups needing a survey", "value": f"{int(res.groups['stale'].sum()):,}"},
                       figure_tiles.tile(ctx, "exposed_top_band", note="")],

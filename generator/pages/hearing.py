@@ -140,6 +140,7 @@ def indicators_chart(ind: pd.DataFrame, group: str, cid: str, label: str) -> Cha
     fig = charts.line(years, {"%Worse-sequential": d["pct_worse"].tolist(),
                               "%Better-or-Worse-sequential": d["pct_better_or_worse"].tolist()},
                       xaxis_title="year (later test of the pair)", yaxis_title="% of people")
+    fig.update_xaxes(type="category")
     rows = [[str(r.year), str(r.n_pairs), str(r.n_worse), _num(r.pct_worse), str(r.n_better_or_worse),
              _num(r.pct_better_or_worse), str(r.n_incomplete)] for r in d.itertuples()]
     table = Table(["Year", "Pairs", "Worse", "%Ws", "Better or worse", "%BWs", "Pairs left out (incomplete or NR)"],

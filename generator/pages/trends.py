@@ -123,8 +123,8 @@ def build(ctx: SiteContext) -> list[Page]:
                       f"{value_name(head, action) or 'action value'} {action:g} dB(A){limit_text} ({head.name}, {_judged(head)}, without protectors) "
                       "and tested, per year, people", "people in scope",
                       f"In {last}, {_last(t, 'must_be_enrolled')} of {_last(t, 'in_scope')} people in scope were "
-                      f"exposed at or above the action value and {_last(t, 'exposed_top_band')} at or above the "
-                      "limit value."),
+                      f"exposed at or above the {value_name(head, action) or 'action value'} and "
+                      f"{_last(t, 'exposed_top_band')} at or above the {value_name(head, limit) or 'limit value'}."),
         _series_chart(t, SHIFTS, labels, "trends-3", "People with a standard threshold shift and recordable "
                       f"hearing-loss cases per year, people or cases (rule set: {_rules_words(ctx, SHIFTS)})",
                       "people or cases",
