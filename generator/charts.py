@@ -38,10 +38,8 @@ STATUS_COLOURS: dict[str, str] = {
 #: statuses that say something is wrong or exposed: never green
 ALARM_STATUSES = frozenset({"late", "missing", "overdue", "insufficient", "a check missing or failed",
                             "no protector", "due soon or open"})
-#: rule set id -> colour
-RULE_COLOURS: dict[str, str] = {
-    "osha-1910.95": "#2b5d8a", "niosh-rel": "#3aa7b8", "eu-2003-10": "#6a51a3", "custom": "#8c6d46",
-}
+#: rule set (by its short name, as the charts' legends show it) -> colour
+RULE_COLOURS: dict[str, str] = {"OSHA": "#2b5d8a", "NIOSH": "#3aa7b8", "EU": "#6a51a3", "Custom": "#8c6d46"}
 #: colours of series of equal standing, in order (the charts' default colour cycle)
 CATEGORY_COLOURS: tuple[str, ...] = ("#34495e", "#c9a227", "#c0679b", "#74a9cf", "#a1887f", "#1d2730",
                                      "#9fb6c8", "#d9a5c0")
@@ -58,9 +56,9 @@ def status_colour(status: str) -> str:
     return STATUS_COLOURS[status]
 
 
-def rule_colour(rule_id: str, position: int = 0) -> str:
-    """Return the colour of the rule set *rule_id* (a category colour for a rule set not listed)."""
-    return RULE_COLOURS.get(rule_id, CATEGORY_COLOURS[position % len(CATEGORY_COLOURS)])
+def rule_colour(short: str, position: int = 0) -> str:
+    """Return the colour of the rule set named *short* (a category colour for a rule set not listed)."""
+    return RULE_COLOURS.get(short, CATEGORY_COLOURS[position % len(CATEGORY_COLOURS)])
 
 
 def category_colour(position: int) -> str:

@@ -73,7 +73,7 @@ def test_charts_of_the_example_say_what_they_show(built_example) -> None:
     found = list(site_charts(built_example.pages()))
     assert len(found) >= 20
     status = {c.lower() for c in charts.STATUS_COLOURS.values()}
-    rule_colours = {r.short: charts.rule_colour(rid) for rid, r in rules.items()}
+    rule_colours = {r.short: charts.rule_colour(r.short) for r in rules.values()}
     for page, title, traces, layout in found:
         assert title and UNIT.search(title), (page, title)
         for tr in traces:

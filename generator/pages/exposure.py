@@ -57,18 +57,18 @@ def _chart_id(slug: str, n: int) -> str:
     return f"{slug.replace('/', '-')}-{n}"
 
 
-#: the trade's name of each value of a rule set (lower action, upper action, limit value)
+#: the trade's name of each value of a rule set (lower action, upper action, limit value), by its short name
 VALUE_WORDS: dict[str, tuple[str, str, str]] = {
-    "osha-1910.95": ("lower action value", "action level", "PEL"),
-    "niosh-rel": ("lower action value", "action value", "REL"),
-    "eu-2003-10": ("lower exposure action value", "upper exposure action value", "exposure limit value"),
+    "OSHA": ("lower action value", "action level", "PEL"),
+    "NIOSH": ("lower action value", "action value", "REL"),
+    "EU": ("lower exposure action value", "upper exposure action value", "exposure limit value"),
 }
 DEFAULT_VALUE_WORDS = ("lower action value", "upper action value", "limit value")
 
 
 def value_words(rule: Any) -> tuple[str, str, str]:
     """Return the names of the lower action, upper action and limit value of *rule*."""
-    return VALUE_WORDS.get(rule.id, DEFAULT_VALUE_WORDS)
+    return VALUE_WORDS.get(rule.short, DEFAULT_VALUE_WORDS)
 
 
 def value_name(rule: Any, level: float | None) -> str:
@@ -190,7 +190,7 @@ def band_counts(res: ExposureResult, ctx: SiteContext) -> tuple[Chart, Table]:
         groups = [int((g[col] == b).sum()) for b in names]
         plain = [int((g[f"band_{rid}"] == b).sum()) for b in names]
         fig.add_trace(go.Bar(x=[[rule.short] * len(names), names], y=people, name=rule.short,
-                             marker=dict(color=charts.rule_colour(rid, i))))
+                             marker=dict(color=charts.rule_colour(rule.short, i))))
         how = _judged_on(rule)
         for b, n_g, n_p, n_plain in zip(names, groups, people, plain):
             rows.append([rule.short, how, b, str(n_g), str(n_p), str(n_plain)])

@@ -49,11 +49,14 @@ def _series_chart(t: pd.DataFrame, names: tuple[str, ...], labels: dict[str, str
     return Chart(cid, fig, summary, table, title=title)
 
 
+#: a figure resting on the programme's own setting rather than a rule set
+OWN = "the programme's own setting"
+
+
 def _rules_words(ctx: SiteContext, names: tuple[str, ...]) -> str:
-    """Return the rule sets the figures *names* are judged under (the headline one when they all follow it)."""
-    said = [F.BY_NAME[n].described(ctx.headline)["rules"] for n in names if n in F.BY_NAME]
-    own = sorted({r for r in said if r not in ("every rule set", ctx.headline.name)})
-    return "; ".join([ctx.headline.name] + own) if ctx.headline.name in said or not own else "; ".join(own)
+    """Return the rule set the figures *names* are evaluated under (the headline one), and the own setting if any."""
+    said = {F.BY_NAME[n].described(ctx.headline)["rules"] for n in names if n in F.BY_NAME}
+    return ctx.headline.name + (f"; {OWN}" if OWN in said else "")
 
 
 def _judged(rule: Any) -> str:
