@@ -144,8 +144,9 @@ APPF_AGES = tuple(range(20, 61))
 
 # The 2000/3000/4000 Hz columns (the ones the STS uses) were checked against two printings of
 # the tables (App. F and 30 CFR 62 Tables 62-3/62-4; female age 51 at 3000 Hz is 11 as printed
-# there). The 1000 and 6000 Hz columns for males from age 32/33 and for all females are from
-# memory (unverified); nothing in this program computes an STS from them.
+# there). The 1000 and 6000 Hz columns for males from age 32/33 and for all females were not
+# checked against a printing: nothing in this program uses them (the STS and its age
+# correction use 2000, 3000 and 4000 Hz only), and no page shows them.
 
 #: Table F-1, males, rows age 20..60, columns 1000/2000/3000/4000/6000 Hz (dB).
 _APPF_MALE = np.array([

@@ -13,8 +13,11 @@ from tests.conftest import FIXED_EPOCH, TEST_KEY, env
 from tests.progkit import make_programme
 
 LINE = re.compile(r"^hcpsite: (?P<name>[a-z][a-z_ -]*) (?P<secs>\d+\.\d\d) s$")
-#: the phases build_site times itself (compute stages are timed where they run)
-BUILD_PHASES = ["load", "pages", "render", "write", "build"]
+from generator.pipeline import STAGE_NAMES
+
+#: the phases of a build: load, each compute stage (generator/pipeline.py), pages, render,
+#: write, and the total
+BUILD_PHASES = ["load", *STAGE_NAMES, "pages", "render", "write", "build"]
 
 
 def _progress_lines(text: str) -> list[re.Match[str]]:
@@ -46,7 +49,7 @@ def test_long_option_works_too(tmp_path: Path, capsys: pytest.CaptureFixture[str
     root = make_programme(tmp_path / "prog")
     with env(HCPSITE_ID_KEY=TEST_KEY):
         assert main(["--verbose", "check", str(root)]) == 0
-    assert [m["name"] for m in _progress_lines(capsys.readouterr().err)] == ["load"]
+    assert [m["name"] for m in _progress_lines(capsys.readouterr().err)] == ["load", *STAGE_NAMES]
 
 
 def test_silent_without_verbose_when_stderr_is_not_a_terminal(tmp_path: Path,
