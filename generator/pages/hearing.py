@@ -538,8 +538,8 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
         "retest_days": ctx.programme.config.audiometry.retest_days,
         "notice_days": ctx.programme.config.audiometry.notice_days,
         "group_table": group_table(h.period_groups, h.population, years, hidden_rows),
-        "group_links": [{"group": g, "href": f"hearing/{slugs[g]}.html", "suppressed": g in sup}
-                        for g in sorted(slugs)],
+        "group_links": [{"group": g, "name": _group_names(ctx).get(g, g), "href": f"hearing/{slugs[g]}.html",
+                         "suppressed": g in sup} for g in sorted(slugs)],
         "shifts_table": shifts_table(flagged, ctx),
         "followups_table": followups_table(fu_vis, ctx),
         "notes": list(h.notes),
@@ -552,13 +552,19 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
                 charts=page_charts, in_nav=True)
 
 
+def _group_names(ctx: SiteContext) -> dict[str, str]:
+    """Return the name of each similar exposure group (groups.csv), by code."""
+    groups = ctx.programme.table("groups")
+    if "name" not in groups.columns:
+        return {}
+    return {str(g): str(n) for g, n in zip(groups["group"], groups["name"]) if str(n)}
+
+
 def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Page:
     start, end = _period(ctx)
     full = f"hearing/{slug}"
     cid = "hearing-" + slug
-    groups = ctx.programme.table("groups")
-    names = dict(zip(groups["group"].astype(str), groups["name"].astype(str))) if "name" in groups.columns else {}
-    name = names.get(group) or group
+    name = _group_names(ctx).get(group) or group
     if group in ctx.suppressed_groups:
         return Page(slug=full, title=f"Hearing: {name}", template="hearing_group.html", section="hearing",
                     context={"group": group, "suppressed": True, "tiles": [], "shifts_table": None,
