@@ -167,12 +167,12 @@ def distribution_chart(res: ExposureResult, ctx: SiteContext) -> Chart:
                   caption="Group LEX,8h with its expanded uncertainty (ISO 9612, k = 1.65)",
                   classes=["", "num", "num", "num", "num", ""])
     n_exp = int(g["exposed"].sum())
-    summary = (f"{len(g)} group{'s' if len(g) != 1 else ''} with figures: {n_exp} at or above the "
-               f"{head.short} {value_name(head, action_value(head)) or 'action value'} of {action_value(head):g} dB(A)"
-               f"{' judged on LEX,8h + U' if head.judge_with_uncertainty else ''}; boxes show the spread "
-               "of the measured LEX,8h, points the group value"
-               + (" with its uncertainty bar" if with_u else "")
-               + (f"; dashed lines are the {ref.short} values for LEX,8h." if ref is not None else "."))
+    judged = "LEX,8h + U" if head.judge_with_uncertainty else ("LEX,8h" if head.metric == "lex" else "8-h TWA")
+    summary = (f"Boxes show the spread of the measured LEX,8h of {len(g)} group{'s' if len(g) != 1 else ''}, points "
+               "the group value" + (" with its uncertainty bar" if with_u else "")
+               + (f"; dashed lines are the {ref.short} values for LEX,8h" if ref is not None else "")
+               + f". Judged on {judged} under {head.short}, {n_exp} of them are at or above the "
+               f"{value_name(head, action_value(head)) or 'action value'} of {action_value(head):g} dB(A).")
     lines = (f"; lines: {ref.name}" + (", judged on LEX,8h + U" if with_u else "")) if ref is not None else ""
     title = f"Daily noise exposure level LEX,8h (ISO 9612), dB(A), per similar exposure group{lines}"
     return Chart(id="exposure-1", figure=fig, summary=summary, table=table, title=title)
