@@ -227,8 +227,8 @@ def groups_table(res: ExposureResult, ctx: SiteContext, slugs: dict[str, str]) -
     cols = ["Group", "Name", "People", "Strategy", "Samples", "LEX,8h", "U", "OSHA TWA", "NIOSH TWA",
             "Max LCpeak"]
     for rule in ctx.rules.values():
-        cols.append(f"{rule.short} category on the level")
-        cols.append(f"{rule.short} category on level + U")
+        cols.append(f"{rule.short} on value")
+        cols.append(f"{rule.short} on value + U")
     rows = []
     for _, r in res.groups.iterrows():
         if r["group"] in ctx.suppressed_groups:
@@ -242,7 +242,8 @@ def groups_table(res: ExposureResult, ctx: SiteContext, slugs: dict[str, str]) -
             row.append(r[f"band_{rid}"] or charts.BLANK)
             row.append(r[f"band_upper_{rid}"] or charts.BLANK)
         rows.append(row)
-    return Table(columns=cols, rows=rows, caption="Group figures (levels in dB(A), peaks in dB(C))",
+    return Table(columns=cols, rows=rows, caption="Group figures (levels in dB(A), peaks in dB(C)); the exposure category of each rule set, "
+                 "judged on the value and on the value plus its uncertainty U",
                  classes=["", "", "num", "", "num", "num", "num", "num", "num", "num"] + [""] * (2 * len(ctx.rules)))
 
 
