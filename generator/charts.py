@@ -21,10 +21,49 @@ from .pages.base import Table
 from .portable import round_floats
 
 TEMPLATE_NAME = "hcpsite"
-#: Colours of the site (also used by style.css): ink blue, amber, moss, plum, brick, slate, ochre, teal.
-PALETTE = ("#2b5d8a", "#e08a2e", "#4a9a6a", "#9b4f96", "#b8423c", "#6f7f8f", "#c9a227", "#3aa7b8")
-#: Colour of reference lines (action and limit values).
+#: One meaning per colour across the site. A status colour says how something stands (green
+#: only for what is in order), a rule-set colour says which rule set a series is judged
+#: under, a category colour tells apart series of equal standing (groups, years, sources).
+#: The three sets share no colour; every chart takes its colours from here.
+GREEN, AMBER, BRICK, WINE, SLATE, MIST = "#3d8c57", "#e08a2e", "#b8423c", "#6d2135", "#8a96a3", "#c8ced4"
+#: status -> colour (the words the charts and tables use for a status)
+STATUS_COLOURS: dict[str, str] = {
+    "on time": GREEN, "adequate": GREEN, "all checks valid": GREEN,
+    "late": AMBER, "due soon or open": AMBER, "over-protected": AMBER,
+    "missing": BRICK, "overdue": BRICK, "insufficient": BRICK, "a check missing or failed": BRICK,
+    "no protector": WINE,
+    "not yet due": SLATE, "not exposed": SLATE,
+    "unknown": MIST,
+}
+#: statuses that say something is wrong or exposed: never green
+ALARM_STATUSES = frozenset({"late", "missing", "overdue", "insufficient", "a check missing or failed",
+                            "no protector", "due soon or open"})
+#: rule set (by its short name, as the charts' legends show it) -> colour
+RULE_COLOURS: dict[str, str] = {"OSHA": "#2b5d8a", "NIOSH": "#3aa7b8", "EU": "#6a51a3", "Custom": "#8c6d46"}
+#: colours of series of equal standing, in order (the charts' default colour cycle)
+CATEGORY_COLOURS: tuple[str, ...] = ("#34495e", "#c9a227", "#c0679b", "#74a9cf", "#a1887f", "#1d2730",
+                                     "#9fb6c8", "#d9a5c0")
+#: audiogram symbols' colours (common practice: right ear red, left ear blue); shown on audiograms only
+EAR_COLOURS: dict[str, str] = {"R": "#c0392b", "L": "#1f5fa8"}
+#: the default colour cycle of the site template
+PALETTE = CATEGORY_COLOURS
+#: Colour of reference lines (action and limit values of a rule set).
 REFERENCE_COLOUR = "#8a1c1c"
+
+
+def status_colour(status: str) -> str:
+    """Return the colour of *status* (a word of STATUS_COLOURS)."""
+    return STATUS_COLOURS[status]
+
+
+def rule_colour(short: str, position: int = 0) -> str:
+    """Return the colour of the rule set named *short* (a category colour for a rule set not listed)."""
+    return RULE_COLOURS.get(short, CATEGORY_COLOURS[position % len(CATEGORY_COLOURS)])
+
+
+def category_colour(position: int) -> str:
+    """Return the category colour of the *position*-th series."""
+    return CATEGORY_COLOURS[position % len(CATEGORY_COLOURS)]
 FONT = "system-ui, -apple-system, 'Segoe UI', Roboto, 'Helvetica Neue', Arial, sans-serif"
 #: Cell shown for a missing number in tables.
 BLANK = "–"
@@ -233,16 +272,17 @@ def scatter(x: Sequence, y: Sequence, *, text: Sequence | None = None, name: str
 def reference_lines(fig: go.Figure, values: Mapping[str, float | None], axis: str = "y",
                     colour: str = REFERENCE_COLOUR) -> go.Figure:
     """Draw a labelled dashed line across the plot at each level of *values* and return *fig*."""
-    for label, level in sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0, kv[0])):
+    # labels alternate sides so that close values stay readable
+    for i, (label, level) in enumerate(sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0, kv[0]))):
         if level is None or (isinstance(level, float) and math.isnan(level)):
             continue
         if axis == "y":
             fig.add_hline(y=float(level), line=dict(color=colour, dash="dash", width=1),
-                          annotation_text=str(label), annotation_position="top left",
+                          annotation_text=str(label), annotation_position="top right" if i % 2 else "top left",
                           annotation_font=dict(color=colour, size=11))
         else:
             fig.add_vline(x=float(level), line=dict(color=colour, dash="dash", width=1),
-                          annotation_text=str(label), annotation_position="top right",
+                          annotation_text=str(label), annotation_position="top left" if i % 2 else "top right",
                           annotation_font=dict(color=colour, size=11))
     return fig
 

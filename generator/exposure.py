@@ -955,8 +955,9 @@ def _actions(g: pd.DataFrame, head: RuleSet, cfg: Any, end: pd.Timestamp, m: pd.
                 detail = (f"group level at or above the limit value {head.limit_value:g} dB(A) without protectors: "
                           "check the exposure under the protectors and reduce the noise")
             else:
-                detail = (f"group level at or above the limit {head.limit_value:g} dB(A): feasible engineering or "
-                          "administrative controls")
+                metric = "LEX,8h" if head.metric == "lex" else "8-h TWA"
+                detail = (f"group level at or above the {head.short} limit value {head.limit_value:g} dB(A) "
+                          f"({metric}): feasible engineering or administrative controls")
             rows.append(dict(subject=r.group, subject_type="group", kind="noise controls", detail=detail,
                              due_date=pd.NaT, clause=ctl))
         elif measures_at not in (None, "limit") and (

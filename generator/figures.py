@@ -249,7 +249,7 @@ FIGURES: tuple[Figure, ...] = (
            _EVERYWHERE + ("programme", "trends"), True, False,
            _status("must_be_enrolled", lambda s: s["must_enrol"].sum())),
     Figure("exposed_top_band", "People exposed at or above the limit value", COUNT,
-           "people in scope whose own level (or their group's) reaches the headline rule set's top band, "
+           "people in scope whose own level (or their group's) reaches the headline rule set's top exposure category, "
            "without protectors", _AS_OF, "", "limit_value", "exposure.html#exposure-figures",
            _EVERYWHERE + ("exposure", "trends"), True, True, _top_band),
     Figure("not_enrolled", "Exposed but without audiometry or training records", COUNT,
@@ -273,10 +273,10 @@ FIGURES: tuple[Figure, ...] = (
            "recordable cases in the period", _PERIOD, "200,000 hours worked (100 full-time workers, 40 h x 50 weeks)",
            "29 CFR 1904 incidence rate (N x 200,000 / hours worked)", "hearing.html#hearing-figures",
            _EVERYWHERE + ("hearing", "trends"), True, False, _rate, rules="US OSHA 29 CFR 1904"),
-    Figure("open_actions", "Open actions", COUNT, "items on the action list, every section", _AS_OF, "",
+    Figure("open_actions", "Open actions", COUNT, "open actions on the action list, every section", _AS_OF, "",
            "every rule behind an action", "actions.html", _EVERYWHERE + ("actions",), False, True,
            _actions("open_actions", False)),
-    Figure("overdue_actions", "Overdue actions", COUNT, "items on the action list whose due date has passed",
+    Figure("overdue_actions", "Overdue actions", COUNT, "actions on the action list whose due date has passed",
            _AS_OF, "", "every rule behind an action", "actions.html", _EVERYWHERE + ("actions",), False, True,
            _actions("overdue_actions", True)),
     Figure("overdue_audiograms", "Overdue audiograms (baseline, annual or exit)", COUNT,

@@ -14,7 +14,7 @@ import pytest
 
 from generator import charts
 from generator.build import build_pages, prepare
-from generator.pages import SECTIONS, page_builders
+from generator.pages import MODULES, SECTIONS, page_builders
 from generator.pages.base import Chart, Page, Table
 from generator.site import make_environment, render_page, root_prefix, site_info, cautions_for
 from tests.conftest import TEST_KEY, build_fixed, env
@@ -76,7 +76,7 @@ def _sites(small_site: Path, request: pytest.FixtureRequest) -> list[Path]:
 def test_every_section_has_a_builder() -> None:
     modules = {b.__module__.rsplit(".", 1)[-1] for b in page_builders()}
     for section, _ in SECTIONS:
-        assert {"index": "overview"}.get(section, section) in modules, section
+        assert MODULES.get(section, section) in modules, section
 
 
 def test_every_page_has_cautions_and_footer(small_site: Path, request: pytest.FixtureRequest) -> None:
@@ -87,7 +87,7 @@ def test_every_page_has_cautions_and_footer(small_site: Path, request: pytest.Fi
             text = page.read_text(encoding="utf-8")
             assert 'class="cautions"' in text, page
             assert "caution-general" in text and "qualified audiologist or physician" in text, page
-            assert 'class="site-footer"' in text and "input digest" in text, page
+            assert 'class="site-footer"' in text and "fingerprint of the input files" in text, page
             assert re.search(r"built (\d{4}-\d{2}-\d{2}|not stamped)", text), page
 
 

@@ -90,6 +90,6 @@ def test_overview_answers_first_and_links_each_figure(built_example) -> None:
         if anchor:
             assert f'id="{anchor}"' in target, fig.explained
     # internal tables live on the data-quality page
-    assert "Computed stages" not in text and "input digest" not in text.lower().split("<footer")[0]
+    assert "Computed stages" not in text and "fingerprint of the input files" not in text.lower().split("<footer")[0]
     quality = built_example.html("quality")
-    assert 'id="inputs"' in quality and "What each computation stage added" in quality
+    assert 'id="inputs"' in quality and "What each calculation run on the records found" in quality

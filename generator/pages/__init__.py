@@ -10,18 +10,19 @@ from __future__ import annotations
 SECTIONS: tuple[tuple[str, str], ...] = (
     ("index", "Overview"),
     ("exposure", "Exposure"),
+    ("noise-map", "Noise map"),
     ("protection", "Protection"),
     ("hearing", "Hearing"),
-    ("programme", "Programme"),
+    ("programme", "Enrolment and duties"),
     ("actions", "Actions"),
     ("trends", "Trends"),
-    ("review", "Printable review"),
+    ("review", "Printable annual review"),
     ("methods", "Methods"),
     ("quality", "Data quality"),
 )
 
 #: section id -> module under generator.pages (when the name differs from the id).
-MODULES: dict[str, str] = {"index": "overview"}
+MODULES: dict[str, str] = {"index": "overview", "noise-map": "exposure"}
 
 #: section id given to the programme's narrative pages.
 NARRATIVE = "narrative"

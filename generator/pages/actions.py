@@ -1,4 +1,4 @@
-"""The actions page: every open item of every stage in one list, overdue first by due date."""
+"""The actions page: every open action of every stage in one list, overdue first by due date."""
 from __future__ import annotations
 
 import logging
@@ -13,8 +13,10 @@ from .programme import IN_ACTIONS_CSV, LIST_CAP, cap_caption, cap_rows
 log = logging.getLogger(__name__)
 
 STATUS_LABELS = {"overdue": "overdue", "due_soon": "due soon", "open": "open"}
-SOURCE_LABELS = {"compliance": "programme", "exposure": "exposure", "protection": "protection",
+SOURCE_LABELS = {"compliance": "enrolment and duties", "exposure": "exposure", "protection": "protection",
                  "hearing": "hearing"}
+#: the kinds of action in words where the code alone would not say what is to be done
+KIND_WORDS = {"protector": "no protector on record", "audiogram conditions": "no valid audiometer check on the test day"}
 #: listing order of the statuses (overdue first); any other status comes after these
 STATUS_ORDER = ("overdue", "due_soon", "open")
 #: actions the printable review lists (the most urgent ones; the counts are complete)
@@ -26,8 +28,14 @@ def label_actions(actions: pd.DataFrame) -> pd.DataFrame:
     a = actions.copy()
     a["status"] = a["status"].map(STATUS_LABELS).fillna(a["status"])
     a["source"] = a["source"].map(SOURCE_LABELS).fillna(a["source"])
-    a["kind_label"] = a["kind"].astype(str).str.replace("_", " ", regex=False)
+    a["kind_label"] = kind_words(a["kind"])
     return a
+
+
+def kind_words(kinds: pd.Series) -> pd.Series:
+    """Return the kinds of action as the pages word them."""
+    k = kinds.astype(str)
+    return k.map(KIND_WORDS).fillna(k.str.replace("_", " ", regex=False))
 
 
 def withhold_small_groups(a: pd.DataFrame, ctx: SiteContext) -> pd.DataFrame:
@@ -114,7 +122,7 @@ def kind_chart(a: pd.DataFrame, slug: str = "actions") -> Chart:
                                                                                   for k in kinds]}
     height = max(260, 60 + 30 * len(kinds))
     fig = charts.stacked_bar(kinds, series, horizontal=True, xaxis_title="actions", height=height,
-                             colours={"overdue": charts.PALETTE[4], "due soon or open": charts.PALETTE[1]})
+                             colours={k: charts.STATUS_COLOURS[k] for k in ("overdue", "due soon or open")})
     rows = [[k, str(o), str(r), str(o + r)] for k, o, r in zip(kinds, series["overdue"], series["due soon or open"])]
     table = Table(["Kind", "Overdue", "Due soon or open", "All"], rows, classes=["", "num", "num", "num"])
     if kinds:
@@ -125,7 +133,7 @@ def kind_chart(a: pd.DataFrame, slug: str = "actions") -> Chart:
                    f"them overdue; the most frequent kind is '{top['kind']}' with {int(top['n'])}.")
     else:
         summary = "No actions are open."
-    return Chart(f"{slug}-1", fig, summary, table, height=height, title="Open actions by kind")
+    return Chart(f"{slug}-1", fig, summary, table, height=height, title="Open actions by kind and status (overdue; due soon or open), number of actions")
 
 
 def build(ctx: SiteContext) -> list[Page]:

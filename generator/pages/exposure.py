@@ -27,6 +27,8 @@ BASIS_TEXT = {
     "steady_level": "estimate from LAeq: LAeq and run time only, the level assumed steady, no threshold "
                     "(3-dB figures exact)",
 }
+#: the measurement strategies of ISO 9612:2009 in words
+STRATEGY_WORDS = {"job": "job-based", "task": "task-based", "full_day": "full-day", "none": "no measurement"}
 MAP_NOTE = "interpolated, for orientation only"
 #: rows of a group's measurement table (the most recent ones); the export has them all
 MEASUREMENT_ROWS = 100
@@ -55,26 +57,59 @@ def _chart_id(slug: str, n: int) -> str:
     return f"{slug.replace('/', '-')}-{n}"
 
 
+#: the trade's name of each value of a rule set (lower action, upper action, limit value), by its short name
+VALUE_WORDS: dict[str, tuple[str, str, str]] = {
+    "OSHA": ("lower action value", "action level", "PEL"),
+    "NIOSH": ("lower action value", "action value", "REL"),
+    "EU": ("lower exposure action value", "upper exposure action value", "exposure limit value"),
+}
+DEFAULT_VALUE_WORDS = ("lower action value", "upper action value", "limit value")
+
+
+def value_words(rule: Any) -> tuple[str, str, str]:
+    """Return the names of the lower action, upper action and limit value of *rule*."""
+    return VALUE_WORDS.get(rule.short, DEFAULT_VALUE_WORDS)
+
+
+def value_name(rule: Any, level: float | None) -> str:
+    """Return the trade's name of *level* in *rule* ("PEL", "upper exposure action value" ...), or "" if none."""
+    lower, upper, limit = value_words(rule)
+    for value, word in ((rule.limit_value, limit), (rule.upper_action_value, upper), (rule.lower_action_value, lower)):
+        if value is not None and level is not None and float(value) == float(level):
+            return word
+    return ""
+
+
 def _reference_values(rule: Any) -> dict[str, float | None]:
+    """Return the rule set's action and limit values, each labelled with its name, value and unit."""
+    lower, upper, limit = value_words(rule)
     vals: dict[str, float | None] = {}
     if rule.lower_action_value is not None:
-        vals[f"lower action {rule.lower_action_value:g}"] = rule.lower_action_value
+        vals[f"{rule.short} {lower} {rule.lower_action_value:g} dB(A)"] = rule.lower_action_value
     if rule.upper_action_value is not None and rule.upper_action_value != rule.limit_value:
-        vals[f"action {rule.upper_action_value:g}"] = rule.upper_action_value
+        vals[f"{rule.short} {upper} {rule.upper_action_value:g} dB(A)"] = rule.upper_action_value
     if rule.limit_value is not None:
-        vals[f"limit {rule.limit_value:g}"] = rule.limit_value
+        vals[f"{rule.short} {limit} {rule.limit_value:g} dB(A)"] = rule.limit_value
     return vals
+
+
+def lex_rule(ctx: SiteContext) -> Any:
+    """Return the rule set judged on LEX,8h (the headline one first), or None when no rule set is."""
+    ordered = [ctx.headline] + [r for r in ctx.rules.values() if r.id != ctx.headline.id]
+    return next((r for r in ordered if r.metric == "lex"), None)
 
 
 def _hlines(fig: go.Figure, values: Mapping[str, float | None]) -> go.Figure:
     """Add labelled dashed horizontal lines at *values* in one layout update (cheaper than add_hline)."""
     shapes, notes = [], []
-    for label, y in sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0.0, kv[0])):
+    for i, (label, y) in enumerate(sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0.0, kv[0]))):
         if y is None:
             continue
         shapes.append(dict(type="line", xref="paper", x0=0, x1=1, yref="y", y0=float(y), y1=float(y),
                            line=dict(color=charts.REFERENCE_COLOUR, dash="dash", width=1)))
-        notes.append(dict(xref="paper", x=0, xanchor="left", yref="y", y=float(y), yanchor="bottom",
+        # labels alternate left and right so that close values stay readable
+        notes.append(dict(xref="paper", x=float(i % 2), xanchor="right" if i % 2 else "left", yref="y", y=float(y),
+                          yanchor="bottom",
                           text=label, showarrow=False, font=dict(color=charts.REFERENCE_COLOUR, size=11)))
     fig.update_layout(shapes=shapes, annotations=notes)
     return fig
@@ -89,8 +124,14 @@ def _judged_band_col(rule: Any) -> str:
 
 
 def distribution_chart(res: ExposureResult, ctx: SiteContext) -> Chart:
-    """Return per group the spread of measured LEX,8h (quartiles) with the group LEX,8h and U."""
+    """Return per group the spread of measured LEX,8h (quartiles) with the group LEX,8h.
+
+    The reference lines are those of the rule set judged on LEX,8h (none when no rule set
+    is); the bar of U is drawn only when that rule set judges on LEX,8h + U.
+    """
     head = ctx.headline
+    ref = lex_rule(ctx)
+    with_u = ref is not None and bool(ref.judge_with_uncertainty)
     g = res.groups[~res.groups["group"].isin(sorted(ctx.suppressed_groups))]
     g = g[g["lex_8h"].notna()]
     m = res.measurements
@@ -101,14 +142,19 @@ def distribution_chart(res: ExposureResult, ctx: SiteContext) -> Chart:
         st = stats.reindex(g["group"]).dropna(subset=["count"])
         fig.add_trace(go.Box(x=list(st.index), q1=st["25%"].tolist(), median=st["50%"].tolist(),
                              q3=st["75%"].tolist(), lowerfence=st["min"].tolist(), upperfence=st["max"].tolist(),
-                             name="measurements (LEX,8h)", boxpoints=False, marker=dict(color=charts.PALETTE[5])))
-    fig.add_trace(go.Scatter(
-        x=g["group"].tolist(), y=_list(g["lex_8h"]), mode="markers", name="group LEX,8h with + U",
-        marker=dict(size=10, color=charts.PALETTE[0]),
-        error_y=dict(type="data", symmetric=False, array=_list(g["u_expanded"]),
-                     arrayminus=[0.0] * len(g), color=charts.PALETTE[0])))
+                             name="measurements (LEX,8h)", boxpoints=False, marker=dict(color=charts.category_colour(6))))
+    point: dict[str, Any] = dict(x=g["group"].tolist(), y=_list(g["lex_8h"]), mode="markers",
+                                 marker=dict(size=10, color=charts.category_colour(0)))
+    if with_u:
+        point.update(name="group LEX,8h, bar up to LEX,8h + U",
+                     error_y=dict(type="data", symmetric=False, array=_list(g["u_expanded"]),
+                                  arrayminus=[0.0] * len(g), color=charts.category_colour(0)))
+    else:
+        point.update(name="group LEX,8h")
+    fig.add_trace(go.Scatter(**point))
     charts.base_layout(fig, None, 440, "similar exposure group", "LEX,8h, dB(A)")
-    _hlines(fig, _reference_values(head))
+    if ref is not None:
+        _hlines(fig, _reference_values(ref))
     rows = []
     for r in res.groups.itertuples(index=False):
         if r.group in ctx.suppressed_groups:
@@ -117,19 +163,23 @@ def distribution_chart(res: ExposureResult, ctx: SiteContext) -> Chart:
         rows.append([r.group, str(int(r.n_samples)), _num(r.lex_8h), _num(r.u_expanded), _num(r.lex_8h_upper),
                      r.band or charts.BLANK])
     table = Table(columns=["Group", "Samples", "LEX,8h, dB(A)", "U, dB", "LEX,8h + U, dB(A)",
-                           f"Band ({head.short})"], rows=rows,
+                           f"Exposure category ({head.short})"], rows=rows,
                   caption="Group LEX,8h with its expanded uncertainty (ISO 9612, k = 1.65)",
                   classes=["", "num", "num", "num", "num", ""])
     n_exp = int(g["exposed"].sum())
-    summary = (f"{len(g)} group{'s' if len(g) != 1 else ''} with figures: {n_exp} at or above the "
-               f"{head.short} action value of {action_value(head):g} dB(A)"
-               f"{' judged on LEX,8h + U' if head.judge_with_uncertainty else ''}; boxes show the spread "
-               "of the measured LEX,8h, points the group value with its uncertainty bar.")
-    return Chart(id="exposure-1", figure=fig, summary=summary, table=table, title="Exposure by group")
+    judged = "LEX,8h + U" if head.judge_with_uncertainty else ("LEX,8h" if head.metric == "lex" else "8-h TWA")
+    summary = (f"Boxes show the spread of the measured LEX,8h of {len(g)} group{'s' if len(g) != 1 else ''}, points "
+               "the group value" + (" with its uncertainty bar" if with_u else "")
+               + (f"; dashed lines are the {ref.short} values for LEX,8h" if ref is not None else "")
+               + f". Judged on {judged} under {head.short}, {n_exp} of them are at or above the "
+               f"{value_name(head, action_value(head)) or 'action value'} of {action_value(head):g} dB(A).")
+    lines = (f"; lines: {ref.name}" + (", judged on LEX,8h + U" if with_u else "")) if ref is not None else ""
+    title = f"Daily noise exposure level LEX,8h (ISO 9612), dB(A), per similar exposure group{lines}"
+    return Chart(id="exposure-1", figure=fig, summary=summary, table=table, title=title)
 
 
 def band_counts(res: ExposureResult, ctx: SiteContext) -> tuple[Chart, Table]:
-    """Return the chart and table of groups and people per band for every rule set, side by side."""
+    """Return the chart and table of groups and people per exposure category for every rule set, side by side."""
     g = res.groups[~res.groups["group"].isin(sorted(ctx.suppressed_groups))]
     xr, xb, ys, rows = [], [], [], []
     fig = go.Figure()
@@ -140,28 +190,36 @@ def band_counts(res: ExposureResult, ctx: SiteContext) -> tuple[Chart, Table]:
         groups = [int((g[col] == b).sum()) for b in names]
         plain = [int((g[f"band_{rid}"] == b).sum()) for b in names]
         fig.add_trace(go.Bar(x=[[rule.short] * len(names), names], y=people, name=rule.short,
-                             marker=dict(color=charts.PALETTE[i % len(charts.PALETTE)])))
-        how = "LEX,8h + U" if rule.judge_with_uncertainty else ("LEX,8h" if rule.metric == "lex" else "TWA")
+                             marker=dict(color=charts.rule_colour(rule.short, i))))
+        how = _judged_on(rule)
         for b, n_g, n_p, n_plain in zip(names, groups, people, plain):
             rows.append([rule.short, how, b, str(n_g), str(n_p), str(n_plain)])
         xr.extend([rule.short] * len(names))
         xb.extend(names)
         ys.extend(people)
-    charts.base_layout(fig, None, 420, "rule set and band, dB(A)", "people in the groups")
-    table = Table(columns=["Rule set", "Judged on", "Band, dB(A)", "Groups", "People in them",
+    charts.base_layout(fig, None, 420, "rule set and exposure category, dB(A)", "people in the groups")
+    table = Table(columns=["Rule set", "Judged on", "Exposure category, dB(A)", "Groups", "People in them",
                            "Groups judged on the level alone"], rows=rows,
-                  caption="Groups and their people per band, for every rule set (suppressed groups left out)",
+                  caption="Groups and their people per exposure category, for every rule set (suppressed groups left out)",
                   classes=["", "", "", "num", "num", "num"])
     head = ctx.headline
     hc = _judged_band_col(head)
     top = band_names(head)[-1]
     n_top = int(g.loc[g[hc] == top, "n_people"].sum())
-    summary = (f"Under {head.short}, {n_top} people in scope work in groups whose group level is in the band "
+    summary = (f"Under {head.short}, {n_top} people in scope work in groups whose group level is in the category "
                f"'{top}' dB(A); judged on their own measurements where they have them, else their group's, "
                f"{figure_tiles.text(ctx, 'exposed_top_band')} people in scope are in it (the tile above). The same "
                f"groups are shown under {', '.join(r.short for r in list(ctx.rules.values())[1:]) or 'no other rule set'}"
                " for comparison.")
-    return Chart(id="exposure-2", figure=fig, summary=summary, table=table, title="Bands for every rule set"), table
+    metrics = ", ".join(f"{r.short} {_judged_on(r)}" for r in ctx.rules.values())
+    title = f"People per exposure category of their group, dB(A), under every rule set ({metrics})"
+    return Chart(id="exposure-2", figure=fig, summary=summary, table=table, title=title), table
+
+
+def _judged_on(rule: Any) -> str:
+    """Return what *rule* judges a group on, e.g. "LEX,8h + U" or "8-h TWA"."""
+    metric = "LEX,8h" if rule.metric == "lex" else f"8-h TWA ({rule.exchange_rate:g}-dB rule)"
+    return f"{metric} + U" if rule.judge_with_uncertainty else metric
 
 
 def groups_table(res: ExposureResult, ctx: SiteContext, slugs: dict[str, str]) -> Table:
@@ -169,21 +227,23 @@ def groups_table(res: ExposureResult, ctx: SiteContext, slugs: dict[str, str]) -
     cols = ["Group", "Name", "People", "Strategy", "Samples", "LEX,8h", "U", "OSHA TWA", "NIOSH TWA",
             "Max LCpeak"]
     for rule in ctx.rules.values():
-        cols.append(f"{rule.short} band")
-        cols.append(f"{rule.short} band with U")
+        cols.append(f"{rule.short} on value")
+        cols.append(f"{rule.short} on value + U")
     rows = []
     for _, r in res.groups.iterrows():
         if r["group"] in ctx.suppressed_groups:
             rows.append([r["group"], r["name"]] + [SUPPRESSED] * (len(cols) - 2))
             continue
-        row = [r["group"], r["name"], str(int(r["n_people"])), r["strategy"], str(int(r["n_samples"])),
+        row = [r["group"], r["name"], str(int(r["n_people"])), STRATEGY_WORDS.get(r["strategy"], r["strategy"]),
+               str(int(r["n_samples"])),
                _num(r["lex_8h"]), _num(r["u_expanded"]), _num(r["osha_twa"]), _num(r["niosh_twa"]),
                _num(r["max_lcpeak"])]
         for rid in ctx.rules:
             row.append(r[f"band_{rid}"] or charts.BLANK)
             row.append(r[f"band_upper_{rid}"] or charts.BLANK)
         rows.append(row)
-    return Table(columns=cols, rows=rows, caption="Group figures (levels in dB(A), peaks in dB(C))",
+    return Table(columns=cols, rows=rows, caption="Group figures (levels in dB(A), peaks in dB(C)); the exposure category of each rule set, "
+                 "judged on the value and on the value plus its uncertainty U",
                  classes=["", "", "num", "", "num", "num", "num", "num", "num", "num"] + [""] * (2 * len(ctx.rules)))
 
 
@@ -191,7 +251,7 @@ def coverage_table(res: ExposureResult) -> Table:
     """Return the groups with no measurement or only old ones."""
     g = res.groups[res.groups["stale"]]
     rows = [[r.group, r.name, r.last_measured.strftime("%Y-%m-%d") if not pd.isna(r.last_measured) else "never",
-             r.strategy] for r in g.itertuples(index=False)]
+             STRATEGY_WORDS.get(r.strategy, r.strategy)] for r in g.itertuples(index=False)]
     return Table(columns=["Group", "Name", "Latest measurement", "Strategy"], rows=rows,
                  caption="Groups with no measurement, or none recent enough", classes=["", "", "", ""])
 
@@ -199,7 +259,7 @@ def coverage_table(res: ExposureResult) -> Table:
 def basis_table(res: ExposureResult) -> Table:
     """Return how many measurements rest on each basis."""
     counts = res.measurements["basis"].value_counts()
-    rows = [[b, BASIS_TEXT[b], str(int(counts.get(b, 0)))] for b in ("log", "dosimeter", "steady_level")]
+    rows = [[BASIS_LABELS[b], BASIS_TEXT[b], str(int(counts.get(b, 0)))] for b in ("log", "dosimeter", "steady_level")]
     return Table(columns=["Basis", "Meaning", "Measurements"], rows=rows,
                  caption="What each measurement's dose rests on", classes=["", "", "num"])
 
@@ -278,7 +338,7 @@ def measurement_table(m: pd.DataFrame, ctx: SiteContext, redact: Any = str, n: i
              else f"all {len(m):,}, newest first")
     return Table(columns=["Date", "Measurement", "Person", "Kind", "Location", "Run, h", "LAeq", "LEX,8h",
                           "OSHA dose, %", "OSHA TWA", "NIOSH dose, %", "NIOSH TWA", "LCpeak", "Basis",
-                          f"Band ({ctx.headline.short})"], rows=rows,
+                          f"Exposure category ({ctx.headline.short})"], rows=rows,
                  caption=f"Measurements of this group, {which} (levels in dB(A), peaks in dB(C); the dose "
                          "counts the run time, LEX,8h the shift)",
                  classes=["", "", "", "", "", "num", "num", "num", "num", "num", "num", "num", "num", "", ""])
@@ -346,7 +406,8 @@ def task_chart(t: pd.DataFrame, slug: str) -> Chart:
                   caption="Share of the daily dose per task", classes=["", "num", "num"])
     top = df.iloc[0]
     summary = f"The task '{top['task']}' gives {top['share_of_dose'] * 100:.0f} % of the daily dose."
-    return Chart(id=_chart_id(slug, 1), figure=fig, summary=summary, table=table, title="Share of the daily dose")
+    return Chart(id=_chart_id(slug, 1), figure=fig, summary=summary, table=table,
+                 title="Share of the daily noise dose (LEX,8h, ISO 9612 task-based) per task, %")
 
 
 def coarsen_history(h: pd.DataFrame, points: int = HISTORY_POINTS) -> pd.DataFrame:
@@ -371,13 +432,13 @@ def history_chart(mid: str, h: pd.DataFrame, ctx: SiteContext, slug: str, n: int
     h = coarsen_history(h, HISTORY_POINTS)
     x = h["start"].dt.strftime("%Y-%m-%dT%H:%M:%S").to_numpy(dtype=object)
     fig = go.Figure(go.Scatter(x=x, y=h["laeq"].round(1).to_numpy(), mode="lines",
-                               name="LAeq per interval (energy mean)", line=dict(color=charts.PALETTE[0])))
+                               name="LAeq per interval (energy mean)", line=dict(color=charts.category_colour(0))))
     fig.add_trace(go.Scatter(x=x, y=h["lmax"].round(1).to_numpy(), mode="lines",
-                             name="highest interval level", line=dict(color=charts.PALETTE[5], width=1)))
+                             name="highest interval level", line=dict(color=charts.category_colour(6), width=1)))
     charts.base_layout(fig, None, 360, "time", "dB(A)")
-    ref = {f"criterion {head.criterion_level:g}": head.criterion_level}
+    ref = {f"{head.short} criterion level {head.criterion_level:g} dB(A)": head.criterion_level}
     if head.threshold:
-        ref[f"threshold {head.threshold:g}"] = head.threshold
+        ref[f"{head.short} threshold {head.threshold:g} dB(A)"] = head.threshold
     _hlines(fig, ref)
     step = h["n"].max() if len(h) else 0
     rows = [[t, f"{a:.1f}", f"{b:.1f}", str(c)] for t, a, b, c in
@@ -390,8 +451,10 @@ def history_chart(mid: str, h: pd.DataFrame, ctx: SiteContext, slug: str, n: int
                f"(energy means of up to {int(step)} logged intervals per point); dashed lines mark the "
                f"{head.short} criterion level {head.criterion_level:g} dB(A)"
                + (f" and threshold {head.threshold:g} dB(A)." if head.threshold else "."))
+    lines = f"criterion level {head.criterion_level:g}" + (f" and threshold {head.threshold:g}" if head.threshold else "")
     return Chart(id=_chart_id(slug, n), figure=fig, summary=summary, table=table, height=360,
-                 title=f"Time history {mid}")
+                 title=f"Time history of measurement {mid}: LAeq per interval, dB(A); lines: {head.name} dose "
+                 f"{lines} dB(A)")
 
 
 def budget_table(gr: pd.Series, tasks: pd.DataFrame) -> Table:
@@ -418,15 +481,16 @@ def budget_table(gr: pd.Series, tasks: pd.DataFrame) -> Table:
 
 
 def bands_table(gr: pd.Series, ctx: SiteContext) -> Table:
-    """Return the group's band under every rule set, judged on the level and on level + U."""
+    """Return the group's exposure category under every rule set, judged on the level and on level + U."""
     rows = []
     for rid, rule in ctx.rules.items():
         rows.append([rule.name, "LEX,8h" if rule.metric == "lex" else f"TWA ({rule.exchange_rate:g}-dB rule)",
                      _num(gr[f"level_{rid}"]), gr[f"band_{rid}"] or charts.BLANK,
                      _num(gr[f"level_upper_{rid}"]), gr[f"band_upper_{rid}"] or charts.BLANK,
                      "level + U" if rule.judge_with_uncertainty else "level"])
-    return Table(columns=["Rule set", "Metric", "Level, dB(A)", "Band", "Level + U, dB(A)", "Band with U",
-                          "This rule set's practice"], rows=rows, caption="Bands judged both ways",
+    return Table(columns=["Rule set", "Metric", "Level, dB(A)", "Exposure category on the level", "Level + U, dB(A)",
+                          "Exposure category on level + U", "This rule set judges on"], rows=rows,
+                 caption="Exposure categories judged on the level and on the level plus its uncertainty U",
                  classes=["", "", "num", "", "num", "", ""])
 
 
@@ -435,7 +499,8 @@ def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str, 
     code = gr["group"]
     suppressed = code in ctx.suppressed_groups
     context: dict[str, Any] = {"group_code": code, "group_name": gr["name"], "suppressed": suppressed,
-                               "strategy": gr["strategy"], "rules_name": ctx.headline.name,
+                               "strategy": gr["strategy"],
+                               "strategy_words": STRATEGY_WORDS.get(gr["strategy"], gr["strategy"]), "rules_name": ctx.headline.name,
                                "rules_short": ctx.headline.short}
     page_charts: list[Chart] = []
     if not suppressed:
@@ -514,7 +579,19 @@ def noise_map_chart(res: ExposureResult, ctx: SiteContext, redact: Any = str) ->
                f"{pts['laeq'].max():.0f} dB(A)"
                + (f"; the coloured contour between them is {MAP_NOTE}." if nm.z.size else
                   "; too few positions for an interpolated contour."))
-    return Chart(id="noise-map-1", figure=fig, summary=summary, table=table, height=560, title="Noise map")
+    return Chart(id="noise-map-1", figure=fig, summary=summary, table=table, height=560,
+                 title=f"Noise map: area LAeq, dB(A), {survey_words(pts)}")
+
+
+def survey_words(pts: pd.DataFrame) -> str:
+    """Return which survey a map shows: the number of positions and the dates of their latest readings."""
+    n = len(pts)
+    dates = pd.to_datetime(pts["last_date"]).dropna() if n else pd.Series([], dtype="datetime64[ns]")
+    head = f"{n} measured position{'s' if n != 1 else ''}"
+    if dates.empty:
+        return head
+    first, last = dates.min().strftime("%Y-%m-%d"), dates.max().strftime("%Y-%m-%d")
+    return head + (f", latest reading {last}" if first == last else f", latest readings from {first} to {last}")
 
 
 # ---------------------------------------------------------------------------------------
@@ -544,7 +621,8 @@ def build(ctx: SiteContext) -> list[Page]:
             "action_value": action_value(head),
             "tiles": [{"label": "measurements", "value": f"{len(m):,}"},
                       {"label": "groups", "value": f"{len(res.groups):,}"},
-                      {"label": f"groups at or above {action_value(head):g} dB(A)",
+                      {"label": f"groups at or above the {head.short} "
+                                f"{value_name(head, action_value(head)) or 'action value'} {action_value(head):g} dB(A)",
                        "value": f"{int(visible['exposed'].sum()):,}"},
                       {"label": "groups needing a survey", "value": f"{int(res.groups['stale'].sum()):,}"},
                       figure_tiles.tile(ctx, "exposed_top_band", note="")],
@@ -568,8 +646,10 @@ def build(ctx: SiteContext) -> list[Page]:
     for _, gr in res.groups.iterrows():
         pages.append(group_page(gr, res, ctx, f"exposure/{slugs[gr['group']]}", redact))
     chart = noise_map_chart(res, ctx, redact)
-    pages.append(Page(slug="noise-map", title="Noise map", template="noise_map.html", section=SECTION,
-                      context={"has_points": chart is not None, "map_note": MAP_NOTE,
+    survey = survey_words(res.noise_map.points) if not res.noise_map.points.empty else ""
+    pages.append(Page(slug="noise-map", title="Noise map", template="noise_map.html", section="noise-map",
+                      in_nav=chart is not None,
+                      context={"has_points": chart is not None, "map_note": MAP_NOTE, "survey": survey,
                                "n_points": int(len(res.noise_map.points))},
                       charts=[chart] if chart is not None else []))
     log.info("exposure pages: %d", len(pages))

@@ -23,8 +23,7 @@ SUPPRESSED = "suppressed"
 #: years shown in the per-year charts (the latest ones)
 YEARS_SHOWN = 10
 #: colours of the follow-up statuses
-STATUS_COLOURS = {"on time": charts.PALETTE[2], "late": charts.PALETTE[1], "missing": charts.PALETTE[4],
-                  "not yet due": charts.PALETTE[5]}
+STATUS_COLOURS = {k: charts.STATUS_COLOURS[k] for k in ("on time", "late", "missing", "not yet due")}
 KIND_WORDS = {"notice": "written notice", "retest": "retest", "refit": "protector refit", "referral": "referral"}
 BLANK = charts.BLANK
 #: rows shown in a listing on the overview and group pages of a public build (the counts use every row)
@@ -99,7 +98,8 @@ def per_year_chart(pop: pd.DataFrame, group: str, cid: str, label: str) -> Chart
         summary = (f"In {int(last['year'])}, {int(last['n_sts'])} of {int(last['n_tested'])} people tested "
                    f"({label}) had a standard threshold shift in force and {int(last['n_recordable'])} a "
                    "recordable case.")
-    return Chart(cid, fig, summary, table, title="Shifts and recordable cases per year")
+    return Chart(cid, fig, summary, table, title=f"People tested, with a standard threshold shift (STS) and with a recordable hearing-loss case, "
+                 f"per year: {label}, people")
 
 
 def mean_average_chart(pop: pd.DataFrame, groups: list[str], cid: str) -> Chart:
@@ -129,7 +129,8 @@ def mean_average_chart(pop: pd.DataFrame, groups: list[str], cid: str) -> Chart:
         top = last.sort_values("mean_within_change", ascending=False).iloc[0]
         summary = (f"The largest mean change of the same people from one year to the next in the latest year is "
                    f"{float(top['mean_within_change']):.1f} dB ({top['group']}, {int(top['year'])}).")
-    return Chart(cid, fig, summary, table, title="Mean 2000/3000/4000 Hz hearing level per year")
+    return Chart(cid, fig, summary, table, title="Mean 2000/3000/4000 Hz hearing level per year, dB HL, "
+                 + (f"group {groups[0]}" if len(groups) == 1 else "per similar exposure group"))
 
 
 def indicators_chart(ind: pd.DataFrame, group: str, cid: str, label: str) -> Chart:
@@ -139,6 +140,7 @@ def indicators_chart(ind: pd.DataFrame, group: str, cid: str, label: str) -> Cha
     fig = charts.line(years, {"%Worse-sequential": d["pct_worse"].tolist(),
                               "%Better-or-Worse-sequential": d["pct_better_or_worse"].tolist()},
                       xaxis_title="year (later test of the pair)", yaxis_title="% of people")
+    fig.update_xaxes(type="category")
     rows = [[str(r.year), str(r.n_pairs), str(r.n_worse), _num(r.pct_worse), str(r.n_better_or_worse),
              _num(r.pct_better_or_worse), str(r.n_incomplete)] for r in d.itertuples()]
     table = Table(["Year", "Pairs", "Worse", "%Ws", "Better or worse", "%BWs", "Pairs left out (incomplete or NR)"],
@@ -151,7 +153,8 @@ def indicators_chart(ind: pd.DataFrame, group: str, cid: str, label: str) -> Cha
         summary = (f"In {int(last['year'])}, {float(last['pct_worse']):.1f} % of {int(last['n_pairs'])} people "
                    f"were 15 dB or more worse than on their previous test at some frequency, and "
                    f"{float(last['pct_better_or_worse']):.1f} % better or worse ({label}).")
-    return Chart(cid, fig, summary, table, title="Sequential-pair indicators")
+    return Chart(cid, fig, summary, table, title=f"Sequential-pair indicators %Worse-sequential and %Better-or-Worse-sequential per year, "
+                 f"% of people: {label}")
 
 
 def expected_sentence(shown: pd.DataFrame, where: list[str], tolerance: float) -> str:
@@ -220,7 +223,9 @@ def noise_chart(ne: pd.DataFrame, groups: list[str], cid: str, freqs: tuple[int,
                   classes=["", "num"] + ["num"] * 7 + ["", "num", "num"])
     where = [f"{g} at {int(f)} Hz" if len(freqs) > 1 else str(g) for g, f in zip(shown["group"], shown["freq"])]
     summary = expected_sentence(shown, where, tol)
-    title = "Expected and observed change at 4 kHz" if freqs == (4000,) else "Expected and observed change"
+    at = "at 4 kHz" if freqs == (4000,) else "at " + ", ".join(f"{f // 1000} kHz" for f in freqs)
+    title = (f"Mean change of hearing level since baseline {at}, dB: observed against expected from age "
+             "(ISO 7029:2017) and noise (ISO 1999:2013), per similar exposure group")
     return Chart(cid, fig, summary, table, title=title)
 
 
@@ -229,7 +234,7 @@ def age_chart(an: pd.DataFrame, cid: str, freq: int = 4000) -> Chart:
     d = an[an["freq"] == freq].sort_values(["sex", "age_band"])
     bands = sorted(d["age_band"].unique().tolist())
     fig = go.Figure()
-    for sex, word, col in (("M", "men", charts.PALETTE[0]), ("F", "women", charts.PALETTE[1])):
+    for sex, word, col in (("M", "men", charts.category_colour(0)), ("F", "women", charts.category_colour(1))):
         s = d[d["sex"] == sex].set_index("age_band").reindex(bands)
         if not s["n_ears"].notna().any():
             continue
@@ -256,7 +261,7 @@ def age_chart(an: pd.DataFrame, cid: str, freq: int = 4000) -> Chart:
         share = float(np.average(at["share_worse_than_iso_p90"], weights=at["n_ears"]))
         summary = (f"At {freq} Hz, {share * 100:.0f} % of ears are worse than the level ISO 7029:2017 expects "
                    "only the worst 10 % of otologically normal people of the same age and sex to reach.")
-    return Chart(cid, fig, summary, table, title=f"Hearing level by age at {freq} Hz against ISO 7029:2017")
+    return Chart(cid, fig, summary, table, title=f"Median hearing level at {freq} Hz by age band and sex, dB HL, against ISO 7029:2017")
 
 
 def _obs(v: Any) -> str:
@@ -280,7 +285,8 @@ def followup_chart(fu: pd.DataFrame, cid: str) -> Chart:
     bad = int(fu["status"].isin(["late", "missing"]).sum()) if n else 0
     summary = (f"Of {n} follow-ups due in the period, {ok} were done on time and {bad} were late or are not on "
                "record." if n else "No follow-ups fell due in the period.")
-    return Chart(cid, fig, summary, table, title="Follow-up timeliness")
+    return Chart(cid, fig, summary, table, title="Follow-ups of standard threshold shifts due in the review period, by timeliness: "
+                 "number of follow-ups")
 
 
 def rate_by_group_chart(pg: pd.DataFrame, suppressed: frozenset[str], cid: str) -> Chart:
@@ -291,7 +297,7 @@ def rate_by_group_chart(pg: pd.DataFrame, suppressed: frozenset[str], cid: str) 
                            error_y=dict(type="data", symmetric=False,
                                         array=((shown["hi"] - shown["rate"]) * 100).round(2).tolist(),
                                         arrayminus=((shown["rate"] - shown["lo"]) * 100).round(2).tolist()),
-                           marker=dict(color=charts.PALETTE[0]), name="STS rate"))
+                           marker=dict(color=charts.category_colour(0)), name="STS rate"))
     charts.base_layout(fig, None, 420, "similar exposure group", "people with an STS, % of tested")
     rows = []
     for r in agg.itertuples():
@@ -308,7 +314,8 @@ def rate_by_group_chart(pg: pd.DataFrame, suppressed: frozenset[str], cid: str) 
         top = shown.sort_values("rate", ascending=False).iloc[0]
         summary = (f"The highest share with a standard threshold shift in the period is in {top['group']}: "
                    f"{float(top['rate']) * 100:.1f} % (exact 95 % interval {_ci_text(top['lo'], top['hi'])}).")
-    return Chart(cid, fig, summary, table, title="Standard threshold shifts per group in the period")
+    return Chart(cid, fig, summary, table, title="People with a standard threshold shift (STS) in the review period, "
+                 "% of people tested, per similar exposure group")
 
 
 # ---------------------------------------------------------------------------------------
@@ -531,8 +538,8 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
         "retest_days": ctx.programme.config.audiometry.retest_days,
         "notice_days": ctx.programme.config.audiometry.notice_days,
         "group_table": group_table(h.period_groups, h.population, years, hidden_rows),
-        "group_links": [{"group": g, "href": f"hearing/{slugs[g]}.html", "suppressed": g in sup}
-                        for g in sorted(slugs)],
+        "group_links": [{"group": g, "name": _group_names(ctx).get(g, g), "href": f"hearing/{slugs[g]}.html",
+                         "suppressed": g in sup} for g in sorted(slugs)],
         "shifts_table": shifts_table(flagged, ctx),
         "followups_table": followups_table(fu_vis, ctx),
         "notes": list(h.notes),
@@ -545,14 +552,23 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
                 charts=page_charts, in_nav=True)
 
 
+def _group_names(ctx: SiteContext) -> dict[str, str]:
+    """Return the name of each similar exposure group (groups.csv), by code."""
+    groups = ctx.programme.table("groups")
+    if "name" not in groups.columns:
+        return {}
+    return {str(g): str(n) for g, n in zip(groups["group"], groups["name"]) if str(n)}
+
+
 def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Page:
     start, end = _period(ctx)
     full = f"hearing/{slug}"
     cid = "hearing-" + slug
+    name = _group_names(ctx).get(group) or group
     if group in ctx.suppressed_groups:
-        return Page(slug=full, title=f"Hearing: {group}", template="hearing_group.html", section="hearing",
+        return Page(slug=full, title=f"Hearing: {name}", template="hearing_group.html", section="hearing",
                     context={"group": group, "suppressed": True, "tiles": [], "shifts_table": None,
-                             "followups_table": None, "group_name": group})
+                             "followups_table": None, "group_name": name})
     in_group = (h.audiograms["group"] == group).to_numpy(bool)
     a = _in_period(h.audiograms[in_group], "date", start, end)
     fu = _due_followups(h.followups, start, end)
@@ -568,8 +584,8 @@ def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Pa
     flagged = a[(a["shift_status"] != "") | a["recordable"]]
     context = {"group": group, "suppressed": False, "tiles": _public_tiles(ctx, _tiles(h, a, fu, cases), a),
                "shifts_table": shifts_table(flagged, ctx), "followups_table": followups_table(fu, ctx),
-               "group_name": group}
-    return Page(slug=full, title=f"Hearing: {group}", template="hearing_group.html", section="hearing",
+               "group_name": name}
+    return Page(slug=full, title=f"Hearing: {name}", template="hearing_group.html", section="hearing",
                 context=context, charts=page_charts)
 
 

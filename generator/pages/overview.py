@@ -12,6 +12,7 @@ from ..exposure import action_value
 from ..inputs.spec import FILES
 from ..pipeline import Results
 from . import figure_tiles
+from .actions import kind_words
 from .base import Chart, Page, SiteContext
 
 log = logging.getLogger(__name__)
@@ -21,13 +22,13 @@ USED_BY: dict[str, tuple[str, ...]] = {
     "groups": ("Exposure", "Protection"),
     "noise": ("Exposure", "Protection", "Trends"),
     "tasks": ("Exposure",),
-    "audiograms": ("Hearing", "Programme", "Trends"),
+    "audiograms": ("Hearing", "Enrolment and duties", "Trends"),
     "reviews": ("Hearing",),
-    "notices": ("Hearing", "Programme"),
-    "training": ("Programme",),
+    "notices": ("Hearing", "Enrolment and duties"),
+    "training": ("Enrolment and duties",),
     "protectors": ("Protection",),
     "protector_fits": ("Protection",),
-    "audiometers": ("Programme",),
+    "audiometers": ("Enrolment and duties",),
     "people": ("every section",),
 }
 
@@ -37,7 +38,8 @@ BLURBS: dict[str, str] = {
     "protection": "Hearing protectors, their ratings and whether the protected level meets the target.",
     "hearing": "Baselines, threshold shifts and follow-ups, shown by pseudonymous code.",
     "programme": "Enrolment, due audiograms, training and audiometer checks.",
-    "actions": "Everything that needs doing, with due dates.",
+    "noise-map": "Area measurements at their positions on a plan of the site.",
+    "actions": "Every action the records call for, with due dates.",
     "trends": "How the programme's figures changed over the years.",
     "review": "All sections on one page for printing and sign-off.",
     "methods": "Formulas, parameters and the rule sets' values with their clauses.",
@@ -188,8 +190,8 @@ def file_rows(ctx: SiteContext) -> list[dict[str, Any]]:
 def stage_rows(results: Results) -> list[dict[str, Any]]:
     """Return per computed stage: name, findings and actions counts."""
     rows = []
-    stages = (("exposure", results.exposure), ("hearing", results.hearing), ("protection", results.protection),
-              ("compliance", results.compliance))
+    stages = (("noise exposure", results.exposure), ("hearing", results.hearing),
+              ("hearing protection", results.protection), ("enrolment and duties", results.compliance))
     for name, res in stages:
         acts = getattr(res, "actions", None)
         rows.append({"stage": name, "findings": len(getattr(res, "findings", []) or []),
@@ -200,7 +202,7 @@ def stage_rows(results: Results) -> list[dict[str, Any]]:
 def overview_chart(actions: pd.DataFrame | None, files: list[dict[str, Any]]) -> Chart:
     """Return the overview chart: open actions by kind, or records per data file when there are none."""
     if actions is not None and len(actions) and "kind" in actions.columns:
-        counts = actions["kind"].astype(str).value_counts()
+        counts = kind_words(actions["kind"]).value_counts()
         df = pd.DataFrame({"kind": counts.index, "n": counts.values}).sort_values(
             ["n", "kind"], ascending=[False, True], kind="mergesort")
         fig = charts.bar(df["kind"], df["n"], horizontal=True, xaxis_title="open actions",
@@ -210,14 +212,14 @@ def overview_chart(actions: pd.DataFrame | None, files: list[dict[str, Any]]) ->
                    f"'{top['kind']}' with {int(top['n'])}.")
         table = charts.table_from_frame(df, {"kind": "Kind of action", "n": "Open"}, {"n": "d"})
         return Chart("index-1", fig, summary, table, height=max(240, 40 + 28 * len(df)),
-                     title="Open actions by kind")
+                     title="Open actions by kind, number of actions")
     df = pd.DataFrame([f for f in files if f["present"]], columns=["name", "rows"])
     fig = charts.bar(df["name"], df["rows"], horizontal=True, xaxis_title="rows",
                      height=max(240, 40 + 28 * len(df)))
     summary = f"{len(df)} data files were read with {int(df['rows'].sum()):,} rows in all; no actions are open."
     table = charts.table_from_frame(df, {"name": "File", "rows": "Rows"}, {"rows": "d"})
     return Chart("index-1", fig, summary, table, height=max(240, 40 + 28 * len(df)),
-                 title="Records per data file")
+                 title="Records per data file, rows")
 
 
 def build(ctx: SiteContext) -> list[Page]:

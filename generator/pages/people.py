@@ -17,6 +17,7 @@ import pandas as pd
 import plotly.graph_objects as go
 
 from .. import charts
+from ..exposure import BASIS_LABELS
 from ..hearing import EAR_NAMES
 from ..inputs.spec import AUDIO_FREQS
 from ..protection import METHOD_LABELS
@@ -28,7 +29,8 @@ BLANK = charts.BLANK
 #: folder of the person pages in the site
 FOLDER = "people"
 #: audiogram symbols (common practice): right ear red circles, left ear blue crosses
-EAR_STYLE = {"R": dict(color="#c0392b", symbol="circle-open"), "L": dict(color="#1f5fa8", symbol="x")}
+EAR_STYLE = {"R": dict(color=charts.EAR_COLOURS["R"], symbol="circle-open"),
+             "L": dict(color=charts.EAR_COLOURS["L"], symbol="x")}
 #: line style per audiogram shown on a person's chart
 ROLE_DASH = {"baseline in force": "dot", "baseline compared with": "dashdot", "previous": "dash", "latest": "solid"}
 #: the reviewer's decisions in words
@@ -208,7 +210,7 @@ def _exposure_tables(ctx: SiteContext, src: _Sources, pid: str, group: str) -> t
     if m is not None:
         for x in m.sort_values("date", ascending=False).itertuples():
             rows.append([_date(x.date), _text(x.measurement_id), _num(x.duration_h, 2), _num(x.laeq),
-                         _num(x.lex_8h), _num(x.osha_twa), _num(x.lcpeak), _text(x.basis)])
+                         _num(x.lex_8h), _num(x.osha_twa), _num(x.lcpeak), BASIS_LABELS.get(str(x.basis), _text(x.basis))])
     meas = Table(["Date", "Measurement", "Duration, h", "LAeq, dB(A)", "LEX,8h, dB(A)", "OSHA TWA, dB(A)",
                   "LCpeak, dB(C)", "Basis"], rows, caption="This person's own noise measurements",
                  classes=["", "", "num", "num", "num", "num", "num", ""])

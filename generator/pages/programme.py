@@ -136,7 +136,7 @@ def training_chart(tg: pd.DataFrame, suppressed: frozenset[str], slug: str = "pr
                    f"{low['group']}.")
     else:
         summary = "No group with people in the programme can be shown."
-    return Chart(f"{slug}-1", fig, summary, table, title="Training completion per group")
+    return Chart(f"{slug}-1", fig, summary, table, title="People in the programme trained within the last 12 months, %, per similar exposure group")
 
 
 def _share_text(num: float, den: float) -> str:
@@ -165,7 +165,8 @@ def protector_chart(pg: pd.DataFrame, suppressed: frozenset[str], slug: str = "p
                    f"{_share_text(shown['n_fit_tested'].sum(), shown['n_required'].sum())} have a fit test.")
     else:
         summary = "No group with people in the programme can be shown."
-    return Chart(f"{slug}-2", fig, summary, table, title="Protector and fit-test coverage per group")
+    return Chart(f"{slug}-2", fig, summary, table, title="People in the programme with a protector and with a fit test on record, %, "
+                 "per similar exposure group")
 
 
 def audiometer_chart(status: pd.DataFrame, slug: str = "programme") -> Chart | None:
@@ -177,8 +178,8 @@ def audiometer_chart(status: pd.DataFrame, slug: str = "programme") -> Chart | N
     g["not_ok"] = g["size"] - g["sum"]
     fig = charts.stacked_bar(g["audiometer_id"], {"all checks valid": g["sum"], "a check missing or failed":
                                                   g["not_ok"]}, xaxis_title="audiometer", yaxis_title="test days",
-                             colours={"all checks valid": charts.PALETTE[2],
-                                      "a check missing or failed": charts.PALETTE[4]})
+                             colours={k: charts.STATUS_COLOURS[k] for k in
+                                      ("all checks valid", "a check missing or failed")})
     table = charts.table_from_frame(g.rename(columns={"sum": "ok_days", "size": "days"}),
                                     {"audiometer_id": "Audiometer", "days": "Test days",
                                      "ok_days": "All checks valid", "not_ok": "Check missing or failed"},
@@ -190,14 +191,15 @@ def audiometer_chart(status: pd.DataFrame, slug: str = "programme") -> Chart | N
                f"within App. D Table D-1."
                + (f" On {unnamed} further test day{'s' if unnamed != 1 else ''} no audiometer is recorded, so the "
                   "checks cannot be looked up." if unnamed else ""))
-    return Chart(f"{slug}-3", fig, summary, table, title="Test days with valid audiometer checks")
+    return Chart(f"{slug}-3", fig, summary, table, title="Audiometric test days in the review period with valid audiometer checks, "
+                 "number of test days per audiometer")
 
 
 def build(ctx: SiteContext) -> list[Page]:
     """Return the programme page."""
     comp = ctx.results.compliance
     if comp is None:
-        return [Page(slug="programme", title="Programme", template="programme.html", section="programme",
+        return [Page(slug="programme", title="Enrolment and duties", template="programme.html", section="programme",
                      in_nav=True, context={"available": False})]
     sup = ctx.suppressed_groups
     start = pd.Timestamp(ctx.programme.config.period.start)
@@ -302,7 +304,7 @@ def build(ctx: SiteContext) -> list[Page]:
         "period_start": start.strftime("%Y-%m-%d"),
         "booth_limits": [{"band": f, "limit": v} for f, v in sorted(BOOTH_LIMITS.items())],
     }
-    return [Page(slug="programme", title="Programme", template="programme.html", section="programme",
+    return [Page(slug="programme", title="Enrolment and duties", template="programme.html", section="programme",
                  in_nav=True, context=context, charts=page_charts)]
 
 

@@ -16,11 +16,9 @@ from .programme import cap_caption, cap_rows
 log = logging.getLogger(__name__)
 
 SUPPRESSED = "suppressed"
-#: colours of the adequacy classes in the stacked bar (site palette)
-ADEQUACY_COLOURS = {
-    "adequate": charts.PALETTE[2], "insufficient": charts.PALETTE[4], "over-protected": charts.PALETTE[1],
-    "no protector": charts.PALETTE[3], "not exposed": charts.PALETTE[5], "unknown": charts.PALETTE[6],
-}
+#: colours of the adequacy classes in the stacked bar (status colours of the site)
+ADEQUACY_COLOURS = {k: charts.STATUS_COLOURS[k] for k in
+                    ("adequate", "insufficient", "over-protected", "no protector", "not exposed", "unknown")}
 TYPE_LABELS = {"earmuff": "earmuff", "foam_plug": "foam plug", "premolded_plug": "premolded plug",
                "canal_cap": "canal cap", "custom_plug": "custom plug", "other": "other", "dual": "plug + muff"}
 
@@ -50,7 +48,7 @@ def _visible(people: pd.DataFrame, suppressed: frozenset[str]) -> pd.DataFrame:
     return people[~people["group"].isin(sorted(suppressed))]
 
 
-def adequacy_chart(groups: pd.DataFrame, suppressed: frozenset[str]) -> Chart:
+def adequacy_chart(groups: pd.DataFrame, suppressed: frozenset[str], rules_name: str = "") -> Chart:
     """Return the stacked bar of adequacy counts per group (suppressed groups left out)."""
     shown = groups[~groups["group"].isin(sorted(suppressed))]
     series = {a: shown[a].tolist() for a in ADEQUACY}
@@ -71,10 +69,11 @@ def adequacy_chart(groups: pd.DataFrame, suppressed: frozenset[str]) -> Chart:
                f"the target and {n_over} {'is' if n_over == 1 else 'are'} below "
                f"{OVERPROTECTION_BELOW:g} dB(A) (possible over-protection).")
     return Chart(id="protection-1", figure=fig, summary=summary, table=table,
-                 title="Adequacy of protection by group")
+                 title="Adequacy of hearing protection per similar exposure group (estimated level under the "
+                 f"protector against the target{' of ' + rules_name if rules_name else ''}), people")
 
 
-def distribution_chart(people: pd.DataFrame, targets: dict[str, float | None]) -> Chart:
+def distribution_chart(people: pd.DataFrame, targets: dict[str, float | None], rules_name: str = "") -> Chart:
     """Return the distribution of levels under the protector (whole decibels) with the target lines."""
     lv = people["protected_level"].dropna()
     bins = np.floor(lv.to_numpy(dtype=float)).astype(int)
@@ -94,7 +93,8 @@ def distribution_chart(people: pd.DataFrame, targets: dict[str, float | None]) -
     else:
         summary = "No level under a protector could be estimated from the records."
     return Chart(id="protection-2", figure=fig, summary=summary, table=table,
-                 title="Estimated levels under the protector")
+                 title="Estimated A-weighted level under the protector, dB(A), people per 1-dB bin"
+                 + (f"; lines: targets of {rules_name}" if rules_name else ""))
 
 
 def coverage_chart(groups: pd.DataFrame, suppressed: frozenset[str]) -> Chart:
@@ -117,7 +117,8 @@ def coverage_chart(groups: pd.DataFrame, suppressed: frozenset[str]) -> Chart:
     n_p = int(shown["n_par"].sum())
     summary = (f"{n_p} of {n_w} protector wearers in the groups shown have a fit-tested personal "
                f"attenuation rating.")
-    return Chart(id="protection-3", figure=fig, summary=summary, table=table, title="Fit-test coverage")
+    return Chart(id="protection-3", figure=fig, summary=summary, table=table, title="Protector wearers with a fit-tested personal attenuation rating (PAR), %, "
+                 "per similar exposure group")
 
 
 def people_table(people: pd.DataFrame, ctx: SiteContext) -> Table:
@@ -171,16 +172,16 @@ def build(ctx: SiteContext) -> list[Page]:
         return []
     people = res.people
     visible = _visible(people, ctx.suppressed_groups)
-    targets = {f"target {rules.protected_target:g}": rules.protected_target,
-               f"after STS {rules.protected_target_after_sts:g}"
+    targets = {f"{rules.short} target {rules.protected_target:g} dB(A)": rules.protected_target,
+               f"{rules.short} target after STS {rules.protected_target_after_sts:g} dB(A)"
                if rules.protected_target_after_sts is not None else "after STS": rules.protected_target_after_sts,
-               f"over-protection below {OVERPROTECTION_BELOW:g}": OVERPROTECTION_BELOW}
+               f"over-protection below {OVERPROTECTION_BELOW:g} dB(A) (own setting)": OVERPROTECTION_BELOW}
     if rules.protected_target_after_sts == rules.protected_target:
-        targets = {k: v for k, v in targets.items() if not k.startswith("after STS")}
+        targets = {k: v for k, v in targets.items() if "after STS" not in k}
     counts = {a: int((visible["adequacy"] == a).sum()) for a in ADEQUACY}
     has_data = ctx.programme.has("protectors") or ctx.programme.has("protector_fits")
-    page_charts = [adequacy_chart(res.groups, ctx.suppressed_groups),
-                   distribution_chart(visible, targets),
+    page_charts = [adequacy_chart(res.groups, ctx.suppressed_groups, rules.name),
+                   distribution_chart(visible, targets, rules.name),
                    coverage_chart(res.groups, ctx.suppressed_groups)] if has_data else []
     context = {
         "has_data": has_data,

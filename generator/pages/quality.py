@@ -63,9 +63,9 @@ def build(ctx: SiteContext) -> list[Page]:
                f"{f['rows']:,}" if f["present"] else "–", f["doc"]] for f in files],
         caption="Data files read for this review", classes=["", "", "num", ""])
     stages_table = Table(
-        columns=["Stage", "Findings about the data", "Actions raised"],
+        columns=["Calculation", "Warnings about the data", "Actions raised"],
         rows=[[r["stage"], r["findings"], r["actions"]] for r in stage_rows(ctx.results)],
-        caption="What each computation stage added", classes=["", "num", "num"])
+        caption="What each calculation run on the records found: warnings about the data and actions raised", classes=["", "num", "num"])
     return [Page(
         slug="quality", title="Data quality", template="quality.html", section="quality", in_nav=True,
         context={"findings_table": table, "counts_table": counts,

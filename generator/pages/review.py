@@ -22,7 +22,7 @@ PRINT_ORDER: tuple[tuple[str, str], ...] = (
     ("exposure", "Noise exposure"),
     ("protection", "Hearing protection"),
     ("hearing", "Hearing"),
-    ("programme", "Programme"),
+    ("programme", "Enrolment and duties"),
     ("trends", "Trends"),
     ("actions", "Actions"),
     ("methods", "Methods and sources"),
@@ -210,5 +210,5 @@ def build(ctx: SiteContext) -> list[Page]:
         "n_overdue": ctx.results.figures["overdue_actions"].value,
         "signoff": ["Programme manager", "Reviewing audiologist or physician", "Competent noise assessor"],
     }
-    return [Page(slug="review", title="Annual review", template="review.html", section="review", in_nav=True,
+    return [Page(slug="review", title="Printable annual review", template="review.html", section="review", in_nav=True,
                  context=context, charts=review_charts)]

@@ -2,18 +2,22 @@
 from __future__ import annotations
 
 import logging
+from typing import Any
 
 import pandas as pd
 
 from .. import charts
 from .. import figures as F
+from ..exposure import action_value
+from .exposure import value_name
 from . import figure_tiles
 from .base import Chart, Page, SiteContext, Table
 
 log = logging.getLogger(__name__)
 
 #: the charts of the page: (title, y-axis, figure names)
-SHARES = ("current_audiogram_share", "trained_share", "protector_share", "fit_test_share", "audiometer_days_ok_share")
+SHARES = ("current_audiogram_share", "trained_share", "protector_share", "fit_test_share")
+DAYS = ("audiometer_days_ok_share",)
 PEOPLE = ("in_scope", "must_be_enrolled", "exposed_top_band", "people_tested")
 SHIFTS = ("people_with_sts", "recordable_cases")
 OVERDUE = ("overdue_audiograms", "overdue_baselines", "overdue_training", "not_enrolled")
@@ -43,6 +47,22 @@ def _series_chart(t: pd.DataFrame, names: tuple[str, ...], labels: dict[str, str
     rows = [[y] + [_cells(t, n)[i] for n in names] for i, y in enumerate(years)]
     table = Table(["Year"] + [labels[n] for n in names], rows, classes=[""] + ["num"] * len(names))
     return Chart(cid, fig, summary, table, title=title)
+
+
+#: a figure resting on the programme's own setting rather than a rule set
+OWN = "the programme's own setting"
+
+
+def _rules_words(ctx: SiteContext, names: tuple[str, ...]) -> str:
+    """Return the rule set the figures *names* are evaluated under (the headline one), and the own setting if any."""
+    said = {F.BY_NAME[n].described(ctx.headline)["rules"] for n in names if n in F.BY_NAME}
+    return ctx.headline.name + (f"; {OWN}" if OWN in said else "")
+
+
+def _judged(rule: Any) -> str:
+    """Return the metric *rule* judges exposure on."""
+    metric = "LEX,8h" if rule.metric == "lex" else "8-h TWA"
+    return f"{metric} + U" if rule.judge_with_uncertainty else metric
 
 
 def _last(t: pd.DataFrame, name: str) -> str:
@@ -92,23 +112,37 @@ def build(ctx: SiteContext) -> list[Page]:
                      context={"available": False, "changes": [], "table": None})]
     labels = ctx.results.figures.labels
     last = int(t["year"].iloc[-1])
+    head = ctx.headline
+    action, limit = action_value(head), head.limit_value
+    limit_text = f" and the {value_name(head, limit) or 'limit value'} {limit:g} dB(A)" if limit is not None else ""
     page_charts = [
-        _series_chart(t, SHARES, labels, "trends-1", "Audiograms, training, protectors and audiometer checks: "
-                      "shares per year", "%",
+        _series_chart(t, SHARES, labels, "trends-1", "People in the programme with a current audiogram, trained, "
+                      "with a protector and fit-tested, % of people in the programme, at each 31 December "
+                      f"(rule set: {_rules_words(ctx, SHARES)})", "% of people in the programme",
                       f"In {last}, {_last(t, 'current_audiogram_share')} of the people who must be in the programme "
                       f"had a current audiogram and {_last(t, 'trained_share')} of those in it were trained within "
                       "the interval.", share=True),
-        _series_chart(t, PEOPLE, labels, "trends-2", "People in scope and exposed per year", "people",
+        _series_chart(t, PEOPLE, labels, "trends-2", "People in scope: all, exposed at or above the "
+                      f"{value_name(head, action) or 'action value'} {action:g} dB(A){limit_text} ({head.name}, {_judged(head)}, without protectors) "
+                      "and tested, per year, people", "people in scope",
                       f"In {last}, {_last(t, 'must_be_enrolled')} of {_last(t, 'in_scope')} people in scope were "
-                      f"exposed at or above the action value and {_last(t, 'exposed_top_band')} at or above the "
-                      "limit value."),
-        _series_chart(t, SHIFTS, labels, "trends-3", "Threshold shifts and recordable cases per year", "people or cases",
+                      f"exposed at or above the {value_name(head, action) or 'action value'} and "
+                      f"{_last(t, 'exposed_top_band')} at or above the {value_name(head, limit) or 'limit value'}."),
+        _series_chart(t, SHIFTS, labels, "trends-3", "People with a standard threshold shift and recordable "
+                      f"hearing-loss cases per year, people or cases (rule set: {_rules_words(ctx, SHIFTS)})",
+                      "people or cases",
                       f"Over {len(t)} years, {int(t['people_with_sts'].sum())} person-years with a standard threshold "
                       f"shift and {int(t['recordable_cases'].sum())} recordable cases; counts of shifts are not a "
                       "judgement of any person's hearing."),
-        _series_chart(t, OVERDUE, labels, "trends-4", "Overdue items at each year end", "people",
+        _series_chart(t, OVERDUE, labels, "trends-4", "Overdue audiograms and training of people in scope, and people "
+                      "without records, at each 31 December, people or audiograms "
+                      f"(rule set: {_rules_words(ctx, OVERDUE)})", "people or audiograms",
                       f"At the end of {last}, {_last(t, 'overdue_audiograms')} audiograms and "
                       f"{_last(t, 'overdue_training')} people's training were overdue."),
+        _series_chart(t, DAYS, labels, "trends-5", "Audiometric test days with valid audiometer checks, % of the "
+                      f"year's test days (rule set: {_rules_words(ctx, DAYS)})", "% of test days",
+                      f"In {last}, {_last(t, 'audiometer_days_ok_share')} of the test days had a functional check "
+                      "that day, calibrations in date and a booth within its limits.", share=True),
     ]
     context = {
         "available": True,
