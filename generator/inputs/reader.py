@@ -1329,13 +1329,41 @@ def _log_single(raw: bytes, rel: str, idx: int, findings: Findings, today: dt.da
     return table[["start", "laeq", "_row", "_file"]]
 
 
+def _log_cells(raw: bytes, cols: tuple[str, ...], count: int) -> pd.DataFrame | None:
+    """Read joined log bodies: the levels as numbers where each is clean, else every cell as text."""
+    levels = {i: c for i, c in enumerate(cols) for d in NOISE_LOG.columns
+              if d.name == c and (d.kind in _NUMERIC_KINDS or d.kind == "hl")}
+    options: dict[str, Any] = dict(header=None, names=list(cols), engine="c", quoting=csv.QUOTE_NONE,
+                                   encoding="utf-8", keep_default_na=False)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        if levels:
+            try:
+                df = pd.read_csv(io.BytesIO(raw), dtype={c: ("float64" if i in levels else str)
+                                                         for i, c in enumerate(cols)},
+                                 na_values={c: [""] for c in levels.values()}, float_precision="round_trip",
+                                 **options)
+            except (ValueError, TypeError, OverflowError, pd.errors.ParserError):
+                df = None
+            if df is not None and len(df) == count:
+                spec = {c.name: c for c in NOISE_LOG.columns}
+                clean = [_clean_numbers(spec[c], df[c].to_numpy(dtype="float64"),
+                                        lambda: b"nan" not in raw.lower() and b"inf" not in raw.lower())
+                         for c in levels.values()]
+                if all(clean):
+                    return df
+        try:
+            return pd.read_csv(io.BytesIO(raw), dtype=str, na_filter=False, **options)
+        except (ValueError, pd.errors.ParserError):
+            return None
+
+
 def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, str]], findings: Findings,
                today: dt.date) -> list[pd.DataFrame | None]:
     """Parse many quote-free logs with the same header in one pass of the C reader."""
     bodies = [m[2] for m in members]
     counts = np.fromiter((b.count("\n") for b in bodies), dtype=np.int64, count=len(bodies))
-    text = "".join(bodies)
-    raw = text.encode("utf-8")
+    raw = "".join(bodies).encode("utf-8")
     arr = np.frombuffer(raw, dtype=np.uint8)
     nl = np.flatnonzero(arr == 10)
     commas = np.flatnonzero(arr == 44)
@@ -1344,15 +1372,13 @@ def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, str]], findi
     length = nl - starts
     cr = (length > 0) & (arr[np.maximum(nl - 1, 0)] == 13)
     blank = (length - cr) == fields - 1  # empty, or separators only
+    del commas, starts, length, cr
     if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
         # something unusual: read these logs one by one to report exact lines
         return [_log_single((",".join(cols) + "\n" + m[2]).encode("utf-8"), m[1], m[0], findings, today)
                 for m in members]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        df = pd.read_csv(io.StringIO(text), header=None, names=list(cols), dtype=str, keep_default_na=False,
-                         na_filter=False, engine="c", quoting=csv.QUOTE_NONE)
-    if len(df) != nl.size:
+    df = _log_cells(raw, cols, nl.size)
+    if df is None or len(df) != nl.size:
         return [_log_single((",".join(cols) + "\n" + m[2]).encode("utf-8"), m[1], m[0], findings, today)
                 for m in members]
     file_idx = np.repeat(np.arange(len(members)), counts)
