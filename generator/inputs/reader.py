@@ -825,7 +825,7 @@ class _Converter:
         """Return the converted column(s) for declared column *c* (None: column absent)."""
         n = len(self.sink.rows)
         present = raw is not None
-        if present and raw.dtype.kind == "f":
+        if raw is not None and raw.dtype.kind == "f":
             return self._read_numbers(c, raw.to_numpy(dtype="float64"))
         s = _as_text(raw, self.strip) if present else pd.Series([""] * n, dtype=str)
         if present and c.kind in ("id", "text", "choice") and c.default is not None:
