@@ -408,6 +408,10 @@ class Dresser:
 
     # -- cells ---------------------------------------------------------------------------
 
+    def plain(self, spec: FileSpec, rel: str) -> bool:
+        """Return True when no ``files:`` setting changes how the cells of *spec*'s file read."""
+        return self.files.get(spec.name) is None and rel not in self.marked
+
     def standard_grid(self, spec: FileSpec, grid: Any, kind: str = "csv") -> tuple[Any, FileSpec]:
         """Return (grid with standard header and cells, the declaration to read it with)."""
         d = self.files.get(spec.name)
@@ -455,8 +459,8 @@ class Dresser:
         workbook = kind == "xlsx"
         for i, n in enumerate(lowered):
             col_kind = kinds.get(n)
-            if col_kind is None or i not in cells.columns:
-                continue
+            if col_kind is None or i not in cells.columns or cells[i].dtype.kind == "f":
+                continue  # (a column the parser read as numbers holds neither commas nor dates)
             label = own.get(n, header[i])
             if col_kind in NUMBER_KINDS:
                 s = self._numbers(spec, cells[i], d, label, grid, comma_cols, workbook)

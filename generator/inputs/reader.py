@@ -311,8 +311,110 @@ class _Grid:
     hints: tuple[bool, bool] = (True, True)
 
 
-def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings) -> _Grid | None:
-    """Parse quote-free CSV with pandas' C reader; None when a consistency check fails."""
+_NR_TEXTS = ["NR", "nr", "Nr", "nR"]
+
+
+def _typed_columns(text: str, spec: FileSpec | None) -> dict[int, Column]:
+    """Return the columns (by position) of quote-free CSV *text* that may be read as numbers at once.
+
+    These are the numeric and hearing-level columns that *spec* declares under their own
+    name (the first of a repeated name only); none for wide audiograms.
+    """
+    if spec is None:
+        return {}
+    labels = [h.replace("\ufeff", "").strip().lower() for h in text.partition("\n")[0].rstrip("\r").split(",")]
+    if spec.name == "audiograms" and "ear" not in labels:
+        return {}
+    numeric = {c.name: c for c in spec.columns if c.kind in _NUMERIC_KINDS or c.kind == "hl"}
+    out: dict[int, Column] = {}
+    seen: set[str] = set()
+    for i, name in enumerate(labels):
+        if name in numeric and name not in seen:
+            out[i] = numeric[name]
+        seen.add(name)
+    return out
+
+
+def _clean_numbers(c: Column, values: np.ndarray, blanks_only: Callable[[], bool]) -> bool:
+    """Return True when the numbers of a column read at once need no finding but 'blank'.
+
+    A column that fails (a cell that is not a finite number within the declared range, a
+    hearing level that is blank or NR, a NaN that may have been written as text) is read
+    again as text so that its findings quote the cells as written.
+    """
+    nan = np.isnan(values)
+    if nan.any() and (c.kind == "hl" or not blanks_only()):
+        return False
+    v = values[~nan]
+    if not np.isfinite(v).all():
+        return False
+    if c.lo is not None and ((v <= c.lo) if c.lo_open else (v < c.lo)).any():
+        return False
+    if c.hi is not None and (v > c.hi).any():
+        return False
+    return not (c.kind == "int" and (np.mod(v, 1.0) != 0).any())
+
+
+def _csv_read(text: str, raw: bytes, ncols: int, **options: Any) -> pd.DataFrame:
+    """Read quote-free CSV with pandas' C reader (every line a record, long lines skipped).
+
+    The reader takes the UTF-8 bytes *raw* (the same cells as *text*) where it can: a text
+    buffer would hold four bytes per character while it reads.
+    """
+    source: io.IOBase = io.StringIO(text) if raw.startswith(b"\xef\xbb\xbf") else io.BytesIO(raw)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return pd.read_csv(source, header=None, names=list(range(ncols)), skip_blank_lines=False, encoding="utf-8",
+                           on_bad_lines="skip", engine="c", quoting=csv.QUOTE_NONE, **options)
+
+
+def _csv_numbers(text: str, raw: bytes, ncols: int, typed: dict[int, Column], count: int,
+                 drop: np.ndarray) -> pd.DataFrame | None:
+    """Read the body of quote-free CSV with the *typed* columns as float64; None when that fails.
+
+    Columns whose numbers would need a finding are read again as text, so the rest of the
+    reading sees exactly the cells the text path would give it.
+    """
+    dtype = {i: ("float64" if i in typed else str) for i in range(ncols)}
+    na = {i: [""] + (_NR_TEXTS if c.kind == "hl" else []) for i, c in typed.items()}
+    try:
+        df = _csv_read(text, raw, ncols, skiprows=1, dtype=dtype, keep_default_na=False, na_values=na,
+                       float_precision="round_trip")
+    except (ValueError, TypeError, OverflowError, pd.errors.ParserError):
+        return None  # a cell that is not a number: every column is read as text
+    if len(df) != count:
+        return None
+    if drop.any():
+        df = df.loc[~drop]
+    lower: list[bool] = []
+
+    def blanks_only() -> bool:  # no cell written as 'nan' or 'inf' that the reader would take as a number
+        if not lower:
+            low = raw.lower()
+            lower.append(b"nan" not in low and b"inf" not in low)
+        return lower[0]
+
+    again = [i for i, c in typed.items() if not _clean_numbers(c, df[i].to_numpy(dtype="float64"), blanks_only)]
+    if again:
+        try:
+            cells = _csv_read(text, raw, ncols, skiprows=1, usecols=again, dtype=str, keep_default_na=False,
+                              na_filter=False)
+        except (ValueError, pd.errors.ParserError):
+            return None
+        if len(cells) != count:
+            return None
+        if drop.any():
+            cells = cells.loc[~drop]
+        for i in again:
+            df[i] = cells[i]
+    return df.reset_index(drop=True)
+
+
+def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings, spec: FileSpec | None = None) -> _Grid | None:
+    """Parse quote-free CSV with pandas' C reader; None when a consistency check fails.
+
+    With *spec*, its numeric columns are read as numbers at once where every cell allows it.
+    """
     arr = np.frombuffer(raw, dtype=np.uint8)
     nl = np.flatnonzero(arr == 10)
     if not raw.endswith(b"\n"):
@@ -330,11 +432,15 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings) -> _Grid | No
     bad[0] = False
     line_no = np.arange(1, n_lines + 1)
     keep = fields <= ncols
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        df = pd.read_csv(io.StringIO(text), header=None, names=list(range(ncols)), dtype=str,
-                         keep_default_na=False, na_filter=False, skip_blank_lines=False,
-                         on_bad_lines="skip", engine="c", quoting=csv.QUOTE_NONE)
+    hints = _byte_hints(arr)
+    typed = _typed_columns(text, spec) if not hints[0] and not bad.any() and not blank[0] else {}
+    if typed:
+        body = _csv_numbers(text, raw, ncols, typed, int(keep.sum()) - 1, blank[keep][1:])
+        if body is not None:
+            header = text.partition("\n")[0].rstrip("\r").split(",")
+            rows = line_no[keep][1:]
+            return _Grid(header, body, rows[~blank[keep][1:]], rel, hints)
+    df = _csv_read(text, raw, ncols, dtype=str, keep_default_na=False, na_filter=False)
     if len(df) != int(keep.sum()):
         return None  # the C reader saw the lines differently (e.g. lone CR line ends): use the slow path
     if bad.any():
@@ -348,7 +454,7 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings) -> _Grid | No
     if drop.any():
         body = body.loc[~drop]
         rows = rows[~drop]
-    return _Grid(header, body.reset_index(drop=True), rows, rel, _byte_hints(arr))
+    return _Grid(header, body.reset_index(drop=True), rows, rel, hints)
 
 
 def _csv_quoted(text: str, rel: str, findings: Findings) -> _Grid | None:
@@ -405,8 +511,11 @@ def _ragged(findings: Findings, rel: str, lines: np.ndarray, fields: np.ndarray,
     findings.add_rows(rel, lines.tolist(), None, ERROR, msgs, key="ragged row")
 
 
-def _parse_csv(raw: bytes, rel: str, findings: Findings) -> _Grid | None:
-    """Return the cells of CSV bytes, or None after recording why they cannot be read."""
+def _parse_csv(raw: bytes, rel: str, findings: Findings, spec: FileSpec | None = None) -> _Grid | None:
+    """Return the cells of CSV bytes, or None after recording why they cannot be read.
+
+    With *spec*, numeric columns of quote-free CSV may arrive as float64 (see _csv_fast).
+    """
     text = _decode(raw, rel, findings)
     if text is None:
         return None
@@ -420,7 +529,7 @@ def _parse_csv(raw: bytes, rel: str, findings: Findings) -> _Grid | None:
             _too_wide(findings, rel, ncols)
             return None
         try:
-            grid = _csv_fast(text, body_raw, rel, findings)
+            grid = _csv_fast(text, body_raw, rel, findings, spec)
         except (pd.errors.ParserError, ValueError) as exc:
             log.debug("fast CSV path failed for %s: %s", rel, exc)
             grid = None
@@ -642,7 +751,7 @@ def _named(grid: _Grid, spec: FileSpec, findings: Findings) -> tuple[pd.DataFram
     n = len(grid.cells)
     frame = pd.DataFrame({name: grid.cells[i] if i in grid.cells.columns else
                           pd.Series([""] * n, dtype=str) for i, name in names.items()},
-                         index=pd.RangeIndex(n))
+                         index=pd.RangeIndex(n), copy=False)
     if unknown:
         findings.warning(path, 1, None, f"unknown column{'s' if len(unknown) > 1 else ''} "
                          f"{', '.join(repr(u) for u in unknown)} kept but not used (known: "
@@ -716,6 +825,8 @@ class _Converter:
         """Return the converted column(s) for declared column *c* (None: column absent)."""
         n = len(self.sink.rows)
         present = raw is not None
+        if raw is not None and raw.dtype.kind == "f":
+            return self._read_numbers(c, raw.to_numpy(dtype="float64"))
         s = _as_text(raw, self.strip) if present else pd.Series([""] * n, dtype=str)
         if present and c.kind in ("id", "text", "choice") and c.default is not None:
             s = s.where(s.to_numpy(dtype=object) != "", str(c.default))
@@ -738,6 +849,19 @@ class _Converter:
         if kind == "hl":
             return self._hl(c, s, bl)
         raise ValueError(f"column {c.name}: unknown kind {kind!r} in spec")
+
+    def _read_numbers(self, c: Column, values: np.ndarray) -> dict[str, pd.Series]:
+        """Return a column the parser read as numbers: every number is clean, NaN is a blank cell."""
+        bl = np.isnan(values)
+        if c.required:
+            self.sink.add(bl, c.name, ERROR, "required value is blank", key=f"{c.name}: blank")
+        index = pd.RangeIndex(len(values))
+        if c.kind == "hl":
+            return {c.name: pd.Series(values, index=index, dtype="float64"),
+                    "nr_" + c.name[3:]: pd.Series(np.zeros(len(values), dtype=bool), index=index, dtype=bool)}
+        if c.default is not None and isinstance(c.default, (int, float)):
+            values = np.where(bl, float(c.default), values)
+        return {c.name: pd.Series(values, index=index, dtype="float64")}
 
     def _formula(self, name: str, s: pd.Series) -> None:
         """Warn about text cells that a spreadsheet would run as a formula."""
@@ -1085,7 +1209,9 @@ def _read_table(spec: FileSpec, root: Path, inputs: _Inputs, findings: Findings,
     sheet = dresser.sheet(spec, raw) if raw is not None and kind == "xlsx" else 0
     if raw is None or sheet is None:
         return empty_table(spec), rel
-    grid = _parse_xlsx(raw, rel, findings, spec, sheet) if kind == "xlsx" else _parse_csv(raw, rel, findings)
+    plain = dresser.plain(spec, rel)
+    grid = (_parse_xlsx(raw, rel, findings, spec, sheet) if kind == "xlsx"
+            else _parse_csv(raw, rel, findings, spec if plain else None))
     if grid is None:
         return empty_table(spec), rel
     if not grid.header:
@@ -1203,13 +1329,41 @@ def _log_single(raw: bytes, rel: str, idx: int, findings: Findings, today: dt.da
     return table[["start", "laeq", "_row", "_file"]]
 
 
+def _log_cells(raw: bytes, cols: tuple[str, ...], count: int) -> pd.DataFrame | None:
+    """Read joined log bodies: the levels as numbers where each is clean, else every cell as text."""
+    levels = {i: c for i, c in enumerate(cols) for d in NOISE_LOG.columns
+              if d.name == c and (d.kind in _NUMERIC_KINDS or d.kind == "hl")}
+    options: dict[str, Any] = dict(header=None, names=list(cols), engine="c", quoting=csv.QUOTE_NONE,
+                                   encoding="utf-8", keep_default_na=False)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        if levels:
+            try:
+                df = pd.read_csv(io.BytesIO(raw), dtype={c: ("float64" if i in levels else str)
+                                                         for i, c in enumerate(cols)},
+                                 na_values={c: [""] for c in levels.values()}, float_precision="round_trip",
+                                 **options)
+            except (ValueError, TypeError, OverflowError, pd.errors.ParserError):
+                df = None
+            if df is not None and len(df) == count:
+                spec = {c.name: c for c in NOISE_LOG.columns}
+                clean = [_clean_numbers(spec[c], df[c].to_numpy(dtype="float64"),
+                                        lambda: b"nan" not in raw.lower() and b"inf" not in raw.lower())
+                         for c in levels.values()]
+                if all(clean):
+                    return df
+        try:
+            return pd.read_csv(io.BytesIO(raw), dtype=str, na_filter=False, **options)
+        except (ValueError, pd.errors.ParserError):
+            return None
+
+
 def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, str]], findings: Findings,
                today: dt.date) -> list[pd.DataFrame | None]:
     """Parse many quote-free logs with the same header in one pass of the C reader."""
     bodies = [m[2] for m in members]
     counts = np.fromiter((b.count("\n") for b in bodies), dtype=np.int64, count=len(bodies))
-    text = "".join(bodies)
-    raw = text.encode("utf-8")
+    raw = "".join(bodies).encode("utf-8")
     arr = np.frombuffer(raw, dtype=np.uint8)
     nl = np.flatnonzero(arr == 10)
     commas = np.flatnonzero(arr == 44)
@@ -1218,15 +1372,13 @@ def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, str]], findi
     length = nl - starts
     cr = (length > 0) & (arr[np.maximum(nl - 1, 0)] == 13)
     blank = (length - cr) == fields - 1  # empty, or separators only
+    del commas, starts, length, cr
     if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
         # something unusual: read these logs one by one to report exact lines
         return [_log_single((",".join(cols) + "\n" + m[2]).encode("utf-8"), m[1], m[0], findings, today)
                 for m in members]
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        df = pd.read_csv(io.StringIO(text), header=None, names=list(cols), dtype=str, keep_default_na=False,
-                         na_filter=False, engine="c", quoting=csv.QUOTE_NONE)
-    if len(df) != nl.size:
+    df = _log_cells(raw, cols, nl.size)
+    if df is None or len(df) != nl.size:
         return [_log_single((",".join(cols) + "\n" + m[2]).encode("utf-8"), m[1], m[0], findings, today)
                 for m in members]
     file_idx = np.repeat(np.arange(len(members)), counts)
