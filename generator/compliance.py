@@ -229,10 +229,14 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
 def _classify(due: pd.Series, as_of: pd.Timestamp, required: pd.Series, done: pd.Series) -> pd.Series:
     """Return 'not_required' / 'done' / 'overdue' / 'due_soon' / 'scheduled' per row."""
     soon = as_of + pd.Timedelta(days=DUE_SOON_DAYS)
-    out = np.select(
-        [~required, done, due.isna() | (due < as_of), due <= soon],
-        ["not_required", "done", "overdue", "due_soon"], "scheduled")
-    return pd.Series(out, index=due.index)
+    code = np.select(
+        [~required, done, due.isna() | (due < as_of), due <= soon], [0, 1, 2, 3], 4)
+    # the words are taken from one small array (building a text column row by row is slow)
+    return pd.Series(_STATES.array.take(code), index=due.index)
+
+
+#: the states _classify returns, by code
+_STATES = pd.Series(["not_required", "done", "overdue", "due_soon", "scheduled"])
 
 
 def _last_on_or_before(codes: np.ndarray, dates: np.ndarray, q_codes: np.ndarray,
