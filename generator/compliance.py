@@ -281,6 +281,16 @@ def _codes(ids: pd.Index, values: pd.Series) -> np.ndarray:
     return ids.get_indexer(values.astype(str).to_numpy())
 
 
+def _plus_months(dates: pd.Series, months: float | None) -> pd.Series:
+    """Return add_months(*dates*, *months*), computed once per distinct date (a long column has few)."""
+    v = dates.to_numpy(dtype="datetime64[ns]")
+    known = ~np.isnat(v)
+    uniq, pos = np.unique(v[known], return_inverse=True)
+    out = np.full(len(v), np.datetime64("NaT"), dtype="datetime64[ns]")
+    out[known] = add_months(pd.Series(uniq, dtype="datetime64[ns]"), months).to_numpy(dtype="datetime64[ns]")[pos]
+    return pd.Series(out, index=dates.index, dtype="datetime64[ns]")
+
+
 #: most person x date rows evaluated at once (bounds the memory of many as-of dates)
 _CHUNK_ROWS = 2_000_000
 
@@ -347,7 +357,7 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     s["protector_duty"] = (s["protector_duty"] & started) | s["group_protectors"]
 
     # baseline: within baseline_months of first exposure (29 CFR 1910.95(g)(5))
-    s["baseline_due"] = add_months(s["first_exposed_date"], inp.baseline_months) \
+    s["baseline_due"] = _plus_months(s["first_exposed_date"], inp.baseline_months) \
         if inp.baseline_months is not None else pd.Series(pd.NaT, index=s.index, dtype="datetime64[ns]")
     status = _classify(s["baseline_due"], as_of, s["must_enrol"] & (inp.baseline_months is not None), has_aud)
     late = has_aud & s["baseline_due"].notna() & (s["first_audiogram"] > s["baseline_due"])
@@ -357,14 +367,14 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     s["baseline_status"] = status
 
     # periodic: at least every interval_months after the last audiogram (1910.95(g)(6))
-    s["next_audiogram_due"] = add_months(s["last_audiogram"], inp.interval_months)
+    s["next_audiogram_due"] = _plus_months(s["last_audiogram"], inp.interval_months)
     left_first = s["leave_date"].notna() & (s["leave_date"] <= s["next_audiogram_due"])
     periodic_req = s["must_enrol"] & has_aud & (inp.interval_months is not None) & ~left_first
     s["audiogram_status"] = _classify(s["next_audiogram_due"], as_of, periodic_req,
                                       pd.Series(False, index=s.index))
     s.loc[s["audiogram_status"].eq("scheduled"), "audiogram_status"] = "current"
     cur_months = inp.interval_months if inp.interval_months is not None else 12
-    s["current_audiogram"] = has_aud & (add_months(s["last_audiogram"], cur_months) >= as_of)
+    s["current_audiogram"] = has_aud & (_plus_months(s["last_audiogram"], cur_months) >= as_of)
 
     # exit audiogram where a leave date is given (common practice): an audiogram of kind exit,
     # or one dated within the window before the leave date, on or before the as-of date
@@ -384,7 +394,7 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     s["exit_status"] = _classify(s["leave_date"], as_of, exit_req, pd.Series(any_hit[key]))
 
     # training: at least every training_months (1910.95(k)(2)); first training on enrolment
-    s["next_training_due"] = add_months(s["last_training"], inp.training_months).where(
+    s["next_training_due"] = _plus_months(s["last_training"], inp.training_months).where(
         has_tr, s["first_exposed_date"].where(s["first_exposed_date"].notna(), as_of))
     left_before = s["leave_date"].notna() & (s["leave_date"] <= s["next_training_due"])
     # a first training is owed whatever the interval; a rule set with no interval asks for no repeat
@@ -393,7 +403,7 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
                                      pd.Series(False, index=s.index))
     s.loc[s["training_status"].eq("scheduled"), "training_status"] = "current"
     tr_months = inp.training_months if inp.training_months is not None else 12
-    s["trained_current"] = has_tr & (add_months(s["last_training"], tr_months) >= as_of)
+    s["trained_current"] = has_tr & (_plus_months(s["last_training"], tr_months) >= as_of)
     s["active"] = active
 
     # protectors: issued or fitted on or before the as-of date (blank date counts)
