@@ -223,7 +223,7 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
 
 
 # ---------------------------------------------------------------------------------------
-# per-person status as of one date
+# per-person status as of one date, or of many dates in one pass
 
 
 def _classify(due: pd.Series, as_of: pd.Timestamp, required: pd.Series, done: pd.Series) -> pd.Series:
@@ -262,9 +262,10 @@ def _last_on_or_before(codes: np.ndarray, dates: np.ndarray, q_codes: np.ndarray
 
 
 def _first_by_code(codes: np.ndarray, dates: np.ndarray, n: int) -> np.ndarray:
-    """Return the earliest event date of each person code 0..n-1 (NaT: no event; a blank date is earliest).
+    """Return the earliest event date of each person code 0..n-1 as int64 nanoseconds.
 
-    The answer is compared with an as-of date with `_present`.
+    The int64 maximum means no event; a blank event date (NaT, the smallest int64) counts as
+    the earliest. The answer is compared with the as-of dates by `_present`.
     """
     vals = dates.astype("datetime64[ns]").astype(np.int64)  # a blank date (NaT) is the smallest int64
     first = np.full(n, np.iinfo(np.int64).max, dtype=np.int64)
@@ -411,7 +412,8 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     fcode = _codes(ids, f["person_id"])
     fdate = f["date"].to_numpy(dtype="datetime64[ns]")
     never = np.iinfo(np.int64).max
-    for col, keep in (("has_protector", f["protector_id"].ne("").to_numpy()), ("has_fit_test", f["par"].notna().to_numpy())):
+    for col, keep in (("has_protector", f["protector_id"].ne("").to_numpy()),
+                      ("has_fit_test", f["par"].notna().to_numpy())):
         sel = keep & (fcode >= 0)
         firstf = _first_by_code(fcode[sel], fdate[sel], len(ids))[pcode]
         s[col] = pd.Series(_present(firstf, q) & (firstf != never))
