@@ -223,33 +223,128 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
 
 
 # ---------------------------------------------------------------------------------------
-# per-person status as of one date
+# per-person status as of one date, or of many dates in one pass
 
 
 def _classify(due: pd.Series, as_of: pd.Timestamp, required: pd.Series, done: pd.Series) -> pd.Series:
     """Return 'not_required' / 'done' / 'overdue' / 'due_soon' / 'scheduled' per row."""
     soon = as_of + pd.Timedelta(days=DUE_SOON_DAYS)
-    out = np.select(
-        [~required, done, due.isna() | (due < as_of), due <= soon],
-        ["not_required", "done", "overdue", "due_soon"], "scheduled")
-    return pd.Series(out, index=due.index)
+    code = np.select(
+        [~required, done, due.isna() | (due < as_of), due <= soon], [0, 1, 2, 3], 4)
+    # the words are taken from one small array (building a text column row by row is slow)
+    return pd.Series(_STATES.array.take(code), index=due.index)
+
+
+#: the states _classify returns, by code
+_STATES = pd.Series(["not_required", "done", "overdue", "due_soon", "scheduled"])
+
+
+def _last_on_or_before(codes: np.ndarray, dates: np.ndarray, q_codes: np.ndarray,
+                       q_dates: np.ndarray) -> np.ndarray:
+    """Return per query the latest event date on or before the query's date, for the same person code.
+
+    *codes*, *dates*: the events (no NaT); *q_codes*, *q_dates*: the queries. NaT where the
+    person has no such event. One sorted search answers every query.
+    """
+    out = np.full(len(q_codes), np.datetime64("NaT"), dtype="datetime64[ns]")
+    if len(codes) == 0 or len(q_codes) == 0:
+        return out
+    uniq = np.unique(np.concatenate([dates, q_dates]))
+    width = np.int64(len(uniq) + 1)
+    ekey = codes.astype(np.int64) * width + np.searchsorted(uniq, dates)
+    order = np.argsort(ekey, kind="stable")
+    ekey, edates = ekey[order], dates[order]
+    pos = np.searchsorted(ekey, q_codes.astype(np.int64) * width + np.searchsorted(uniq, q_dates), "right") - 1
+    hit = pos >= 0
+    hit[hit] = ekey[pos[hit]] // width == q_codes[hit]
+    out[hit] = edates[pos[hit]]
+    return out
+
+
+def _first_by_code(codes: np.ndarray, dates: np.ndarray, n: int) -> np.ndarray:
+    """Return the earliest event date of each person code 0..n-1 as int64 nanoseconds.
+
+    The int64 maximum means no event; a blank event date (NaT, the smallest int64) counts as
+    the earliest. The answer is compared with the as-of dates by `_present`.
+    """
+    vals = dates.astype("datetime64[ns]").astype(np.int64)  # a blank date (NaT) is the smallest int64
+    first = np.full(n, np.iinfo(np.int64).max, dtype=np.int64)
+    np.minimum.at(first, codes, vals)
+    return first
+
+
+def _present(first: np.ndarray, q_dates: np.ndarray) -> np.ndarray:
+    """Return whether the earliest event (from _first_by_code) is on or before each as-of date."""
+    return first <= q_dates.astype("datetime64[ns]").astype(np.int64)
+
+
+def _codes(ids: pd.Index, values: pd.Series) -> np.ndarray:
+    return ids.get_indexer(values.astype(str).to_numpy())
+
+
+def _plus_months(dates: pd.Series, months: float | None) -> pd.Series:
+    """Return add_months(*dates*, *months*), computed once per distinct date (a long column has few)."""
+    v = dates.to_numpy(dtype="datetime64[ns]")
+    known = ~np.isnat(v)
+    uniq, pos = np.unique(v[known], return_inverse=True)
+    out = np.full(len(v), np.datetime64("NaT"), dtype="datetime64[ns]")
+    out[known] = add_months(pd.Series(uniq, dtype="datetime64[ns]"), months).to_numpy(dtype="datetime64[ns]")[pos]
+    return pd.Series(out, index=dates.index, dtype="datetime64[ns]")
+
+
+#: most person x date rows evaluated at once (bounds the memory of many as-of dates)
+_CHUNK_ROWS = 2_000_000
 
 
 def person_status(inp: ComplianceInputs, as_of: pd.Timestamp, start: pd.Timestamp) -> pd.DataFrame:
     """Return every in-scope person's enrolment, audiometry, training and protector status."""
-    p = inp.people
-    in_scope = (p["hire_date"].isna() | (p["hire_date"] <= as_of)) & \
-               (p["leave_date"].isna() | (p["leave_date"] >= start))
-    s = p.loc[in_scope].copy()
+    return person_statuses(inp, [(as_of, start)])[0]
+
+
+def person_statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestamp]]) -> list[pd.DataFrame]:
+    """Return person_status() at each (as_of, start) of *dates*, evaluated in one pass.
+
+    The rules are evaluated on one frame of every person at every as-of date (people x dates);
+    each person's records as of each date come from one sorted search over all dates at once.
+    """
+    n = len(inp.people)
+    step = max(1, _CHUNK_ROWS // max(n, 1))
+    out: list[pd.DataFrame] = []
+    for i in range(0, len(dates), step):
+        out.extend(_statuses(inp, dates[i:i + step]))
+    return out
+
+
+def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestamp]]) -> list[pd.DataFrame]:
+    p = inp.people.sort_values("person_id", kind="mergesort").reset_index(drop=True)
+    n, k = len(p), len(dates)
+    ids = pd.Index(p["person_id"].astype(str).to_numpy())
+    if not ids.is_unique:  # one person on several rows: each row gets the person's records
+        ids = pd.Index(ids.drop_duplicates())
+    pcode = np.tile(_codes(ids, p["person_id"]), k)
+    row = np.tile(np.arange(n), k)
+    when = np.repeat(np.arange(k), n)
+    q = np.asarray([pd.Timestamp(a) for a, _ in dates], dtype="datetime64[ns]")[when]
+    as_of = pd.Series(q)
+    begin = pd.Series(np.asarray([pd.Timestamp(b) for _, b in dates], dtype="datetime64[ns]")[when])
+    s = p.iloc[row].reset_index(drop=True)
+    in_scope = ((s["hire_date"].isna() | (s["hire_date"] <= as_of)) &
+                (s["leave_date"].isna() | (s["leave_date"] >= begin))).to_numpy()
     active = s["leave_date"].isna() | (s["leave_date"] >= as_of)
     s["must_enrol"] = s["must_enrol"] & (s["first_exposed_date"].isna() | (s["first_exposed_date"] <= as_of))
 
-    aud = inp.audiograms[inp.audiograms["date"] <= as_of]
-    by_person = aud.groupby("person_id")["date"]
-    s["first_audiogram"] = _as_dates(_lookup(s["person_id"], by_person.min()))
-    s["last_audiogram"] = _as_dates(_lookup(s["person_id"], by_person.max()))
-    tr = inp.training[inp.training["date"] <= as_of]
-    s["last_training"] = _as_dates(_lookup(s["person_id"], tr.groupby("person_id")["date"].max()))
+    a = inp.audiograms
+    acode = _codes(ids, a["person_id"])
+    known = acode >= 0
+    acode, adate = acode[known], a["date"].to_numpy(dtype="datetime64[ns]")[known]
+    first = _first_by_code(acode, adate, len(ids))[pcode]
+    s["first_audiogram"] = pd.Series(np.where(_present(first, q), first.view("datetime64[ns]"),
+                                              np.datetime64("NaT")), dtype="datetime64[ns]")
+    s["last_audiogram"] = pd.Series(_last_on_or_before(acode, adate, pcode, q), dtype="datetime64[ns]")
+    t = inp.training
+    tcode = _codes(ids, t["person_id"])
+    s["last_training"] = pd.Series(_last_on_or_before(tcode[tcode >= 0], t["date"].to_numpy(
+        dtype="datetime64[ns]")[tcode >= 0], pcode, q), dtype="datetime64[ns]")
     has_aud = s["last_audiogram"].notna()
     has_tr = s["last_training"].notna()
     s["has_records"] = has_aud | has_tr
@@ -263,7 +358,7 @@ def person_status(inp: ComplianceInputs, as_of: pd.Timestamp, start: pd.Timestam
     s["protector_duty"] = (s["protector_duty"] & started) | s["group_protectors"]
 
     # baseline: within baseline_months of first exposure (29 CFR 1910.95(g)(5))
-    s["baseline_due"] = add_months(s["first_exposed_date"], inp.baseline_months) \
+    s["baseline_due"] = _plus_months(s["first_exposed_date"], inp.baseline_months) \
         if inp.baseline_months is not None else pd.Series(pd.NaT, index=s.index, dtype="datetime64[ns]")
     status = _classify(s["baseline_due"], as_of, s["must_enrol"] & (inp.baseline_months is not None), has_aud)
     late = has_aud & s["baseline_due"].notna() & (s["first_audiogram"] > s["baseline_due"])
@@ -273,25 +368,34 @@ def person_status(inp: ComplianceInputs, as_of: pd.Timestamp, start: pd.Timestam
     s["baseline_status"] = status
 
     # periodic: at least every interval_months after the last audiogram (1910.95(g)(6))
-    s["next_audiogram_due"] = add_months(s["last_audiogram"], inp.interval_months)
+    s["next_audiogram_due"] = _plus_months(s["last_audiogram"], inp.interval_months)
     left_first = s["leave_date"].notna() & (s["leave_date"] <= s["next_audiogram_due"])
     periodic_req = s["must_enrol"] & has_aud & (inp.interval_months is not None) & ~left_first
     s["audiogram_status"] = _classify(s["next_audiogram_due"], as_of, periodic_req,
                                       pd.Series(False, index=s.index))
     s.loc[s["audiogram_status"].eq("scheduled"), "audiogram_status"] = "current"
     cur_months = inp.interval_months if inp.interval_months is not None else 12
-    s["current_audiogram"] = has_aud & (add_months(s["last_audiogram"], cur_months) >= as_of)
+    s["current_audiogram"] = has_aud & (_plus_months(s["last_audiogram"], cur_months) >= as_of)
 
-    # exit audiogram where a leave date is given (common practice)
+    # exit audiogram where a leave date is given (common practice): an audiogram of kind exit,
+    # or one dated within the window before the leave date, on or before the as-of date
     exit_req = s["must_enrol"] & s["leave_date"].notna() & (s["leave_date"] <= as_of + pd.Timedelta(
         days=DUE_SOON_DAYS))
-    ex = aud.merge(s[["person_id", "leave_date"]], on="person_id", how="inner")
-    ex_ok = ex["is_exit"] | (ex["date"] >= ex["leave_date"] - pd.Timedelta(days=EXIT_WINDOW_DAYS))
-    exit_done = s["person_id"].isin(ex.loc[ex_ok, "person_id"])
-    s["exit_status"] = _classify(s["leave_date"], as_of, exit_req, exit_done)
+    rows = pd.DataFrame({"code": _codes(ids, p["person_id"]), "row": np.arange(n),
+                         "leave": p["leave_date"].to_numpy(dtype="datetime64[ns]")})
+    ex = pd.DataFrame({"code": acode, "date": adate, "is_exit": a["is_exit"].to_numpy(dtype=bool)[known]}
+                      ).merge(rows, on="code", how="inner")
+    ex = ex[ex["is_exit"] | (ex["date"] >= ex["leave"] - pd.Timedelta(days=EXIT_WINDOW_DAYS))]
+    exit_first = _first_by_code(ex["row"].to_numpy(), ex["date"].to_numpy(dtype="datetime64[ns]"), n)[row]
+    # done when any in-scope row of the person has such an audiogram by the as-of date
+    hit = _present(exit_first, q) & (exit_first != np.iinfo(np.int64).max) & in_scope
+    key = when * len(ids) + pcode
+    any_hit = np.zeros(k * len(ids), dtype=bool)
+    any_hit[key[hit]] = True
+    s["exit_status"] = _classify(s["leave_date"], as_of, exit_req, pd.Series(any_hit[key]))
 
     # training: at least every training_months (1910.95(k)(2)); first training on enrolment
-    s["next_training_due"] = add_months(s["last_training"], inp.training_months).where(
+    s["next_training_due"] = _plus_months(s["last_training"], inp.training_months).where(
         has_tr, s["first_exposed_date"].where(s["first_exposed_date"].notna(), as_of))
     left_before = s["leave_date"].notna() & (s["leave_date"] <= s["next_training_due"])
     # a first training is owed whatever the interval; a rule set with no interval asks for no repeat
@@ -300,15 +404,21 @@ def person_status(inp: ComplianceInputs, as_of: pd.Timestamp, start: pd.Timestam
                                      pd.Series(False, index=s.index))
     s.loc[s["training_status"].eq("scheduled"), "training_status"] = "current"
     tr_months = inp.training_months if inp.training_months is not None else 12
-    s["trained_current"] = has_tr & (add_months(s["last_training"], tr_months) >= as_of)
+    s["trained_current"] = has_tr & (_plus_months(s["last_training"], tr_months) >= as_of)
     s["active"] = active
 
     # protectors: issued or fitted on or before the as-of date (blank date counts)
-    fits = inp.fits[inp.fits["date"].isna() | (inp.fits["date"] <= as_of)]
-    s["has_protector"] = s["person_id"].isin(fits.loc[fits["protector_id"].ne(""), "person_id"])
-    s["has_fit_test"] = s["person_id"].isin(fits.loc[fits["par"].notna(), "person_id"])
+    f = inp.fits
+    fcode = _codes(ids, f["person_id"])
+    fdate = f["date"].to_numpy(dtype="datetime64[ns]")
+    never = np.iinfo(np.int64).max
+    for col, keep in (("has_protector", f["protector_id"].ne("").to_numpy()),
+                      ("has_fit_test", f["par"].notna().to_numpy())):
+        sel = keep & (fcode >= 0)
+        firstf = _first_by_code(fcode[sel], fdate[sel], len(ids))[pcode]
+        s[col] = pd.Series(_present(firstf, q) & (firstf != never))
     s["protector_required"] = s["protector_duty"] & active
-    return s.sort_values("person_id", kind="mergesort").reset_index(drop=True)
+    return [s.loc[in_scope & (when == j)].reset_index(drop=True) for j in range(k)]
 
 
 # ---------------------------------------------------------------------------------------

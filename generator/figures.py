@@ -122,8 +122,9 @@ def _share(name: str, num: Any, den: Any) -> FigureValue:
     return FigureValue(name, None if den == 0 else round(num / den, 4), num, den)
 
 
-def _in(d: pd.Series, snap: Snapshot) -> pd.Series:
-    return (d >= snap.start) & (d <= snap.as_of)
+def _in(d: pd.Series, snap: Snapshot) -> np.ndarray:
+    v = d.to_numpy(dtype="datetime64[ns]")  # numpy compares a long column several times faster
+    return (v >= np.datetime64(snap.start, "ns")) & (v <= np.datetime64(snap.as_of, "ns"))
 
 
 def _must_active(s: pd.DataFrame) -> pd.Series:

@@ -16,7 +16,7 @@ import pandas as pd
 
 from . import figures as F
 from .audiometers import AudiometerChecks
-from .compliance import ComplianceInputs, ComplianceResult, clause_for, person_status
+from .compliance import ComplianceInputs, ComplianceResult, clause_for, person_status, person_statuses
 from .exposure import ExposureResult
 from .frames import dates as _dates, table as _table
 from .hearing import HearingResult
@@ -61,11 +61,13 @@ def compute_trends(inp: ComplianceInputs, period: F.Snapshot, *, hearing: Any, e
     if first_year is None or first_year > as_of.year:
         return pd.DataFrame(columns=["year", "as_of", *names]), {}
     years: dict[int, dict[str, F.FigureValue]] = {}
-    for year in range(first_year, as_of.year):  # one snapshot per earlier calendar year (a handful)
-        snap = snapshot(inp, start=pd.Timestamp(year=year, month=1, day=1),
-                        as_of=pd.Timestamp(year=year, month=12, day=31), hearing=hearing, exposure=exposure,
-                        checks=checks)
-        years[year] = F.evaluate(snap, F.yearly())
+    ends = [(pd.Timestamp(year=y, month=12, day=31), pd.Timestamp(year=y, month=1, day=1))
+            for y in range(first_year, as_of.year)]
+    # every earlier year end's per-person status in one pass; each year then only counts
+    for (end, start), status in zip(ends, person_statuses(inp, ends)):
+        snap = snapshot(inp, start=start, as_of=end, hearing=hearing, exposure=exposure, checks=checks,
+                        status=status)
+        years[end.year] = F.evaluate(snap, F.yearly())
     years[as_of.year] = F.evaluate(period, F.yearly())
     rows = [{"year": y, "as_of": as_of if y == as_of.year else pd.Timestamp(year=y, month=12, day=31),
              **F.row(v)} for y, v in sorted(years.items())]

@@ -793,3 +793,75 @@ def test_review_prints_no_per_person_list(small_site: tuple[Path, Path]) -> None
     rows = re.search(r"<tbody>(.*?)</tbody>", body.split(">Subject</th>")[1], flags=re.S).group(1)
     assert 1 <= rows.count("<tr>") <= 50
     assert "Not printed here" in html
+
+
+# ---------------------------------------------------------------------------------------
+# every year end in one pass (the trends stage): the same status as one date at a time
+
+
+def _year_ends(years: range) -> list[tuple[pd.Timestamp, pd.Timestamp]]:
+    return [(pd.Timestamp(year=y, month=12, day=31), pd.Timestamp(year=y, month=1, day=1)) for y in years]
+
+
+def test_status_at_every_year_end_in_one_pass() -> None:
+    # 29 CFR 1910.95(g)(6): an audiogram at least annually after the baseline; common practice:
+    # an exit audiogram when employment ends
+    people = [{"person_id": "E1", "group": "G1", "hire_date": "2020-01-01", "leave_date": "2023-09-30"}]
+    prog = make(people, audiograms=aud("2020-02-01", "baseline") + aud("2021-01-15") + aud("2023-09-20", "exit"))
+    inp = compliance.compute(prog, exposure=exposed("2020-01-01")).inputs
+    ends = _year_ends(range(2020, 2025))
+    got = {a.year: s for (a, _), s in zip(ends, compliance.person_statuses(inp, ends))}
+    e1 = {y: s.set_index("person_id").loc["E1"] for y, s in got.items() if len(s)}
+    # next annual audiogram 2021-02-01, within 60 days of 2020-12-31
+    assert e1[2020]["audiogram_status"] == "due_soon"
+    assert e1[2020]["last_audiogram"] == pd.Timestamp("2020-02-01")
+    assert e1[2021]["audiogram_status"] == "due_soon"  # next due 2022-01-15
+    assert e1[2022]["audiogram_status"] == "overdue"   # 2022-01-15 has passed
+    assert e1[2022]["exit_status"] == "not_required"   # leave date not yet within 60 days
+    assert e1[2023]["exit_status"] == "done"           # exit audiogram 2023-09-20
+    assert e1[2021]["exit_status"] == "not_required"
+    assert got[2024].empty                             # gone before 2024 began
+    assert e1[2020]["first_audiogram"] == e1[2023]["first_audiogram"] == pd.Timestamp("2020-02-01")
+
+
+def test_one_pass_equals_one_date_at_a_time() -> None:
+    people = [{"person_id": "E1", "group": "G1", "hire_date": "2020-01-01", "leave_date": "2023-09-30"},
+              {"person_id": "E2", "group": "G1", "hire_date": "2022-06-01"},
+              {"person_id": "E3", "group": "G1", "hire_date": "2019-06-01", "leave_date": "2021-03-01"}]
+    audiograms = (aud("2020-02-01", "baseline") + aud("2021-01-15") + aud("2023-09-01")
+                  + [dict(r, person_id="E2") for r in aud("2022-07-01", "baseline")]
+                  + [dict(r, person_id="E3") for r in aud("2021-02-20")])
+    training = [{"person_id": "E1", "date": "2020-03-01"}, {"person_id": "E2", "date": "2023-05-05"}]
+    fits = [{"person_id": "E1", "protector_id": "PR1", "date": "2021-04-01", "par": 20},
+            {"person_id": "E2", "protector_id": "PR1", "date": None, "par": None}]
+    prog = make(people, audiograms=audiograms, training=training, fits=fits)
+    ex = exposure([{"person_id": p, "group": "G1", "exposed": True, "first_exposed_date": "2020-01-01"}
+                   for p in ("E1", "E2", "E3")])
+    inp = compliance.compute(prog, exposure=ex).inputs
+    ends = _year_ends(range(2019, 2026)) + [(pd.Timestamp("2023-06-30"), pd.Timestamp("2018-01-01")),
+                                            (pd.Timestamp("2022-06-30"), pd.Timestamp("2022-01-01")),
+                                            (pd.Timestamp("2021-01-15"), pd.Timestamp("2021-01-01"))]
+    many = compliance.person_statuses(inp, ends)
+    assert len(many) == len(ends)
+    for (as_of, start), s in zip(ends, many):
+        pd.testing.assert_frame_equal(s, compliance.person_status(inp, as_of, start), check_exact=True)
+    by_year = {a: s.set_index("person_id") for (a, _), s in zip(ends, many)}
+    y21 = by_year[pd.Timestamp("2021-12-31")]
+    assert bool(y21.loc["E1", "has_protector"]) and bool(y21.loc["E1", "has_fit_test"])
+    assert not bool(by_year[pd.Timestamp("2020-12-31")].loc["E1", "has_protector"])  # issued 2021-04-01
+    assert bool(by_year[pd.Timestamp("2022-12-31")].loc["E2", "has_protector"])       # blank date counts
+    assert not bool(by_year[pd.Timestamp("2022-12-31")].loc["E2", "has_fit_test"])
+    assert y21.loc["E3", "exit_status"] == "done"  # audiogram within 30 days before leaving
+    # a record dated on the as-of date counts; nobody gets another person's records
+    assert by_year[pd.Timestamp("2021-01-15")].loc["E1", "last_audiogram"] == pd.Timestamp("2021-01-15")
+    assert pd.isna(by_year[pd.Timestamp("2022-06-30")].loc["E2", "last_audiogram"])
+    assert pd.isna(by_year[pd.Timestamp("2022-06-30")].loc["E2", "first_audiogram"])
+    # one person on two rows: each row is judged with the person's records
+    twice = compliance.ComplianceInputs(pd.concat([inp.people, inp.people.iloc[[0]]], ignore_index=True),
+                                        inp.audiograms, inp.training, inp.fits, inp.rule, inp.baseline_months,
+                                        inp.interval_months, inp.training_months)
+    for (as_of, _), s in zip(ends, compliance.person_statuses(twice, ends)):
+        one = by_year[as_of]
+        if "E1" in one.index:
+            rows = s[s["person_id"].eq("E1")]
+            assert len(rows) == 2 and (rows["audiogram_status"] == one.loc["E1", "audiogram_status"]).all()
