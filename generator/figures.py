@@ -5,7 +5,7 @@ an as-of date or all years), against what (denominator), under which rule set, i
 unit, with which label and the clause or standard it answers to, and where it is shown and
 explained. :func:`evaluate` computes every figure for one *snapshot*: the people in scope
 between a start and an as-of date. The review period is one snapshot; the trends stage
-evaluates the same definitions at each calendar year end (:func:`evaluate_years`), so a
+evaluates the same definitions at each calendar year end (trends.compute_trends), so a
 year's row on the trends page is the figure the overview shows for that year.
 
 Public figures count people in scope in the period: hired on or before its end and not
