@@ -191,9 +191,9 @@ def make_parser() -> argparse.ArgumentParser:
                         "build (default: off)")
     s.set_defaults(func=cmd_build)
 
-    s = command("export", "write the computed results as CSV/JSON",
+    s = command("export", "write the computed results as CSV, an xlsx workbook and JSON",
                 "Write the computed results (exposure, group exposure, hearing, actions and a summary) as CSV "
-                "and JSON files, for records and for other tools.")
+                "files, one xlsx workbook (results.xlsx) and JSON, for records and for other tools.")
     s.add_argument("dir", type=_folder, metavar="DIR", help=DIR_HELP)
     s.add_argument("--to", type=_folder, required=True, metavar="FOLDER",
                    help="the folder to write the files into (required; no default)")
