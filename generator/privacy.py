@@ -13,7 +13,7 @@ import hashlib
 import hmac
 import logging
 import re
-from functools import lru_cache, partial
+from functools import lru_cache
 from typing import Any, Callable, Iterable
 
 import numpy as np
@@ -34,19 +34,34 @@ NO_KEY_MESSAGE = ("person codes are stable but can be linked across builds of an
 
 def digest32(key: str, person_id: str) -> str:
     """Return the base32 text of HMAC-SHA256(key, person_id), without padding."""
-    mac = hmac.new(key.encode("utf-8"), str(person_id).encode("utf-8"), hashlib.sha256).digest()
+    mac = hmac.digest(key.encode("utf-8"), str(person_id).encode("utf-8"), "sha256")
     return base64.b32encode(mac).decode("ascii").rstrip("=")
+
+
+#: base32 characters of a whole HMAC-SHA256 (32 bytes), without padding
+_FULL = 52
+
+
+def _prefixes(macs: list[bytes], n: int) -> list[str]:
+    """Return the first *n* base32 characters of each of *macs*, encoded together in one call."""
+    if n > 48:
+        return [base64.b32encode(m).decode("ascii")[:n] for m in macs]
+    # base32 turns each 5 bytes into 8 characters: the first 5k bytes of every mac encode alone alike
+    size = 5 * -(-n // 8)
+    width = size // 5 * 8
+    text = base64.b32encode(b"".join(m[:size] for m in macs)).decode("ascii")
+    return [text[i:i + n] for i in range(0, len(text), width)]
 
 
 def code_table(person_ids: Iterable[str], key: str, length: int = CODE_LENGTH) -> dict[str, str]:
     """Return person_id -> code, lengthening all codes until no two people share one."""
     ids = sorted({str(p) for p in person_ids})
-    digests = {p: digest32(key, p) for p in ids}
-    full = len(next(iter(digests.values()), "A" * 52))
+    secret = key.encode("utf-8")
+    macs = [hmac.digest(secret, p.encode("utf-8"), "sha256") for p in ids]
     n = length
     while True:
-        codes = {p: CODE_PREFIX + d[:n] for p, d in digests.items()}
-        if len(set(codes.values())) == len(codes) or n >= full:
+        codes = {p: CODE_PREFIX + d for p, d in zip(ids, _prefixes(macs, n))}
+        if len(set(codes.values())) == len(codes) or n >= _FULL:
             return codes
         log.info("person code collision at %d characters; lengthening", n)
         n += 1
@@ -94,41 +109,73 @@ def small_groups(people: pd.DataFrame, min_size: int) -> frozenset[str]:
 #: texts remembered by one redactor (repeated cells such as locations are redacted once)
 REDACT_CACHE_SIZE = 65536
 
-
-def trie_pattern(keys: Iterable[str]) -> str:
-    """Return a regex alternation of *keys* folded into a prefix tree (longest key preferred)."""
-    root: dict[str, dict] = {}
-    for k in keys:
-        node = root
-        for ch in k:
-            node = node.setdefault(ch, {})
-        node[""] = {}
-
-    def emit(node: dict[str, dict]) -> str:
-        end = "" in node
-        alts = [re.escape(ch) + emit(sub) for ch, sub in sorted(node.items()) if ch]
-        if not alts:
-            return ""
-        body = alts[0] if len(alts) == 1 else "(?:" + "|".join(alts) + ")"
-        if end:
-            # greedy: the longer key is tried first, the shorter one when the rest does not match
-            return (body if len(alts) > 1 else "(?:" + body + ")") + "?"
-        return body
-
-    return emit(root)
-
-
-#: a key made of word characters and hyphens only: matched whole exactly when it is a whole run of them
+#: a run of word characters and hyphens: a key made only of them is matched exactly when it is a whole run
 _RUN = re.compile(r"[\w-]+")
+#: one character of a run
+_RUN_CHAR = re.compile(r"[\w-]")
 
 
-@lru_cache(maxsize=8)
-def _word_pattern(keys: tuple[str, ...]) -> re.Pattern[str]:
-    """Return the compiled pattern of whole *keys* containing other characters, or else of any run of [\\w-]."""
-    # keys such as ids and dates are whole runs of [\w-] and are looked up in a dict; only the others
-    # (names with spaces, ...) go into the prefix tree, tried first since they are longer at any position
-    tree = trie_pattern(keys)
-    return re.compile(r"(?<![\w-])(?:" + (tree + "|" if tree else "") + r"[\w-]+)(?![\w-])")
+class _Redactor:
+    """Replace whole known words (ids, names, dates) in free text by a dictionary lookup over its words.
+
+    A key is replaced where it stands whole: not preceded nor followed by a word character or a
+    hyphen. Keys made of word characters and hyphens only (ids, dates, one-word names) are found
+    as whole runs of the text; a key holding other characters (a name with a space, an
+    apostrophe, a dot) is tried at the start of the run it begins with (or at its first
+    character when that is not a word character), the longest key first. The text is read once,
+    left to right, and a replaced key is not read again.
+    """
+
+    def __init__(self, subs: dict[str, str]) -> None:
+        self.subs = subs
+        #: keys with other characters, by the run they begin with (longest first)
+        self.by_run: dict[str, list[str]] = {}
+        #: keys beginning with a character that is not a word character or hyphen, by that character
+        self.by_char: dict[str, list[str]] = {}
+        for key in subs:
+            if _RUN.fullmatch(key):
+                continue
+            lead = _RUN.match(key)
+            bucket = self.by_run.setdefault(lead.group(0), []) if lead else self.by_char.setdefault(key[0], [])
+            bucket.append(key)
+        for bucket in (*self.by_run.values(), *self.by_char.values()):
+            bucket.sort(key=lambda k: (-len(k), k))
+        #: every run that may start a replacement
+        self.words = frozenset(k for k in subs if _RUN.fullmatch(k)) | frozenset(self.by_run)
+        chars = "".join(sorted(self.by_char))
+        # where a replacement may start: a whole run, or a character some key starts with, not after a run
+        self.start = re.compile(r"(?<![\w-])(?:[\w-]+" + ("|[" + re.escape(chars) + "]" if chars else "") + ")")
+
+    def __call__(self, text: str) -> str:
+        if self.words.isdisjoint(_RUN.findall(text)) and not any(c in text for c in self.by_char):
+            return text
+        return self._scan(text)
+
+    def _scan(self, text: str) -> str:
+        out: list[str] = []
+        last = pos = 0
+        subs, search = self.subs, self.start.search
+        while True:
+            m = search(text, pos)
+            if m is None:
+                break
+            at, word = m.start(), m.group(0)
+            run = _RUN_CHAR.match(word) is not None
+            hit = None
+            for key in (self.by_run if run else self.by_char).get(word, ()):
+                if text.startswith(key, at) and _RUN_CHAR.match(text, at + len(key)) is None:
+                    hit = key
+                    break
+            if hit is None and run and word in subs:
+                hit = word
+            if hit is None:
+                pos = m.end()
+                continue
+            out.append(text[last:at])
+            out.append(subs[hit])
+            last = pos = at + len(hit)
+        out.append(text[last:])
+        return "".join(out)
 
 
 def redactor(people: pd.DataFrame, code: Callable[[str], str]) -> Callable[[str], str]:
@@ -147,14 +194,8 @@ def redactor(people: pd.DataFrame, code: Callable[[str], str]) -> Callable[[str]
             subs.setdefault(text, "[date withheld]")
     if not subs:
         return lambda text: text
-    # one compiled pattern: each position costs the depth of a prefix tree, not the number of keys
-    pattern = _word_pattern(tuple(sorted(k for k in subs if not _RUN.fullmatch(k))))
-
-    def swap(m: re.Match[str]) -> str:
-        g = m.group(0)
-        return subs.get(g, g)
-
-    replace = partial(pattern.sub, swap)
+    # built once per build: a dictionary over the text's words, not a pattern over every key
+    replace = _Redactor(subs)
 
     @lru_cache(maxsize=REDACT_CACHE_SIZE)
     def _redact(text: str) -> str:
@@ -348,8 +389,11 @@ def redact_value(value: Any, redact: Callable[[str], str]) -> Any:
             return out
 
         clean = redact_value(value.to_plotly_json(), noting)
-        # rebuilt only when a text changed, so the figure's JSON keeps its order otherwise
-        return go.Figure(clean, skip_invalid=False) if changed else value
+        if not changed:
+            return value
+        # rebuilt from the whole dict only when a text changed (so the figure's JSON keeps its order otherwise)
+        rebuild = getattr(type(value), "from_dict", None)
+        return rebuild(clean) if rebuild is not None else go.Figure(clean, skip_invalid=False)
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
         changes = {f.name: redact_value(getattr(value, f.name), redact) for f in dataclasses.fields(value)
                    if f.init}

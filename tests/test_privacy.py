@@ -163,3 +163,13 @@ def test_example_export_carries_no_raw_ids(built_example) -> None:
     for name, text in sorted(export_texts(files).items()):
         hit = id_re.search(text)
         assert hit is None, f"{name} shows the raw person id {hit.group(1)!r}"
+
+
+def test_codes_of_every_length_are_the_digest_prefix() -> None:
+    # the codes are encoded for all people at once: each must still be its own HMAC's base32 text (RFC 4648)
+    ids = ["E1", "E2", "Ann Example", "ü-9"]
+    for n in range(6, 53):
+        table = code_table(ids, "k", length=n)
+        n_got = len(next(iter(table.values()))) - 2
+        assert table == {p: "P-" + digest32("k", p)[:n_got] for p in ids}
+        assert n_got >= n

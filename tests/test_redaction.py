@@ -78,3 +78,50 @@ def test_restricted_build_keeps_the_texts(tmp_path: Path) -> None:
     build_fixed(root, out, restricted=True)
     exposure = "\n".join(p.read_text(encoding="utf-8") for p in sorted(out.rglob("exposure*.html")))
     assert f"{person['name']} {person['person_id']}" in exposure
+
+
+# ---------------------------------------------------------------------------------------
+# the redactor against an independent oracle: one regular expression over every key
+
+def _oracle(subs: dict[str, str]):
+    """Return the reference redaction: a regex alternation of every key, longest first, whole words only.
+
+    Python's ``re`` is the oracle: at each position not preceded by a word character or a hyphen
+    the longest key followed by no word character or hyphen is replaced, else the whole run of
+    word characters and hyphens there is replaced when it is a key (read left to right, a
+    replaced text not read again).
+    """
+    keys = sorted(subs, key=lambda k: (-len(k), k))
+    alt = "|".join(re.escape(k) for k in keys)
+    pattern = re.compile(r"(?<![\w-])(?:(?:" + alt + r")(?![\w-])|[\w-]+(?![\w-]))")
+    return lambda text: pattern.sub(lambda m: subs.get(m.group(0), m.group(0)), text)
+
+
+def test_redactor_matches_a_regex_over_every_key() -> None:
+    import random
+
+    from generator.privacy import redactor
+
+    rng = random.Random(12)
+    alphabet = ["a", "b", "n", "A", "é", "1", "2", "-", "_", " ", " ", ".", ",", "'", "/", "(", ")", "\n"]
+    for case in range(60):
+        ids = sorted({"".join(rng.choice("ab12-_") for _ in range(rng.randint(1, 4))) for _ in range(8)})
+        ids = [i for i in ids if i.strip("-_")] or ["a1"]
+        names = {"".join(rng.choice(alphabet) for _ in range(rng.randint(1, 7))) for _ in range(10)}
+        names |= {"Ann", "Ann B", "Ann B.", "Ann Bn", " Ann", "'a", ".n", "b-a n", "A, 1"}
+        names = sorted(n for n in names if n.strip() and n not in ids)
+        births = ["1980-05-01", "1980-05-10", "2000-01-02"]
+        n = max(len(ids), len(names))
+        people = pd.DataFrame({"person_id": ids + [""] * (n - len(ids)), "name": names + [""] * (n - len(names))})
+        people["birth_date"] = pd.to_datetime([births[i % 3] if i % 2 else None for i in range(n)])
+        code = {p: f"P-{i:04d}" for i, p in enumerate(ids)}.get
+        clean = redactor(people, lambda p: code(p) or "P-????")
+        subs = {p: code(p) for p in ids if p}
+        subs.update((n, "[name withheld]") for n in names if n not in subs)
+        for b in sorted(set(people["birth_date"].dropna().dt.strftime("%Y-%m-%d"))):
+            subs.setdefault(b, "[date withheld]")
+        expected = _oracle(subs)
+        pieces = sorted(subs) + alphabet + ["E", "x", "ab", "-a", "1980-05-01x", "1980-05-1"]
+        for _ in range(150):
+            text = "".join(rng.choice(pieces) for _ in range(rng.randint(0, 12)))
+            assert clean(text) == expected(text), (case, text)
