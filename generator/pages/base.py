@@ -2,7 +2,7 @@
 
 A section module ``generator/pages/<section>.py`` exposes ``build(ctx: SiteContext) ->
 list[Page]``. It reads computed results from ``ctx.results`` and turns them into tables,
-charts (plotly figures made by ``generator.charts``) and plain values for its template.
+charts (figures made by ``generator.charts``) and plain values for its template.
 """
 from __future__ import annotations
 
@@ -39,13 +39,29 @@ class Table:
     #: optional per-column CSS class (e.g. "num" for right alignment)
     classes: list[str] | None = None
 
+    @property
+    def cells(self) -> list[list[tuple[Any, Any, str | None]]]:
+        """Return the rows as ``(class, text, href)`` per cell (href None unless the cell is a :class:`Link`).
+
+        A template reads a long table through this: plain tuples, so a cell costs no attribute lookup.
+        """
+        classes = list(self.classes or ())
+        out: list[list[tuple[Any, Any, str | None]]] = []
+        for row in self.rows:
+            width = len(row)
+            if len(classes) < width:
+                classes += [""] * (width - len(classes))
+            out.append([(cls, cell.text, cell.href) if isinstance(cell, Link) else (cls, cell, None)
+                        for cls, cell in zip(classes, row)])
+        return out
+
 
 @dataclass
 class Chart:
     """One interactive chart with its text summary and its data as a table."""
 
     id: str  # stable: page slug + position, e.g. "exposure-1"
-    figure: Any  # plotly.graph_objects.Figure
+    figure: Any  # generator.charts.Figure
     summary: str  # one sentence a screen reader and a printout can use
     table: Table
     height: int = 420
