@@ -9,7 +9,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-import plotly.graph_objects as go
 
 from .. import charts
 from ..hearing import EAR_NAMES, LEFT_STATUS, SETTINGS, HearingResult, expected_verdict
@@ -28,6 +27,9 @@ KIND_WORDS = {"notice": "written notice", "retest": "retest", "refit": "protecto
 BLANK = charts.BLANK
 #: rows shown in a listing on the overview and group pages of a public build (the counts use every row)
 MAX_ROWS = LIST_CAP
+#: the columns of the per-ear audiograms the hearing pages read
+LISTED = ("person_id", "ear", "date", "group", "sts", "niosh_shift", "recordable", "shift_status", "avg_234",
+          "shift_234", "shift_234_age_corrected", "retest_status")
 
 
 def _num(v: Any, digits: int = 1) -> str:
@@ -233,7 +235,7 @@ def age_chart(an: pd.DataFrame, cid: str, freq: int = 4000) -> Chart:
     """Return observed median hearing level by age band and sex vs ISO 7029:2017 at *freq*."""
     d = an[an["freq"] == freq].sort_values(["sex", "age_band"])
     bands = sorted(d["age_band"].unique().tolist())
-    fig = go.Figure()
+    fig = charts.Figure()
     for sex, word, col in (("M", "men", charts.category_colour(0)), ("F", "women", charts.category_colour(1))):
         s = d[d["sex"] == sex].set_index("age_band").reindex(bands)
         if not s["n_ears"].notna().any():
@@ -242,8 +244,8 @@ def age_chart(an: pd.DataFrame, cid: str, freq: int = 4000) -> Chart:
                                           ("ISO 7029 median", "iso_median", "dash", "lines"),
                                           ("ISO 7029 10 % worst", "iso_p90", "dot", "lines")):
             ys = [None if not np.isfinite(v) else float(v) for v in s[column].to_numpy(float)]
-            fig.add_trace(go.Scatter(x=bands, y=ys, name=f"{label}, {word}", mode=mode,
-                                     line=dict(color=col, dash=dash)))
+            fig.add_trace(charts.trace("scatter", x=bands, y=ys, name=f"{label}, {word}", mode=mode,
+                                       line=dict(color=col, dash=dash)))
     charts.base_layout(fig, None, 440, "age band, years", f"hearing level at {freq} Hz, dB")
     fig.update_yaxes(autorange="reversed")
     rows = [[r.age_band, r.sex, str(int(r.freq)), str(int(r.n_ears)), _num(r.mean_age), _obs(r.observed_median),
@@ -293,11 +295,11 @@ def rate_by_group_chart(pg: pd.DataFrame, suppressed: frozenset[str], cid: str) 
     """Return the STS rate per group in the period with exact 95 % intervals (suppressed groups left out)."""
     agg = pg[pg["group"] != "all"].rename(columns={"sts_rate": "rate", "sts_ci_low": "lo", "sts_ci_high": "hi"})
     shown = agg[~agg["group"].isin(sorted(suppressed))]
-    fig = go.Figure(go.Bar(x=shown["group"].tolist(), y=(shown["rate"] * 100).round(2).tolist(),
-                           error_y=dict(type="data", symmetric=False,
-                                        array=((shown["hi"] - shown["rate"]) * 100).round(2).tolist(),
-                                        arrayminus=((shown["rate"] - shown["lo"]) * 100).round(2).tolist()),
-                           marker=dict(color=charts.category_colour(0)), name="STS rate"))
+    fig = charts.Figure(charts.trace("bar", x=shown["group"].tolist(), y=(shown["rate"] * 100).round(2).tolist(),
+                                     error_y=dict(type="data", symmetric=False,
+                                                  array=((shown["hi"] - shown["rate"]) * 100).round(2).tolist(),
+                                                  arrayminus=((shown["rate"] - shown["lo"]) * 100).round(2).tolist()),
+                                     marker=dict(color=charts.category_colour(0)), name="STS rate"))
     charts.base_layout(fig, None, 420, "similar exposure group", "people with an STS, % of tested")
     rows = []
     for r in agg.itertuples():
@@ -599,6 +601,8 @@ def build(ctx: SiteContext) -> list[Page]:
     groups = sorted(set(h.audiograms["group"].astype(str).unique()) - {""}) if not h.audiograms.empty else []
     slugs = group_slugs(groups)
     h = public_hearing(h, ctx)
+    # the pages list a few columns of the per-ear audiograms: filtered by group and period without the rest
+    h = dataclasses.replace(h, audiograms=h.audiograms[[c for c in LISTED if c in h.audiograms.columns]])
     pages = [_overview(ctx, h, slugs)]
     pages += [_group_page(ctx, h, g, slugs[g]) for g in groups]
     log.info("hearing pages: %d", len(pages))
