@@ -1,21 +1,28 @@
 """Plotly figure helpers shared by every section, and one small site template.
 
 Helpers take plain sequences or DataFrames of already computed values (never one point
-per raw record) and return ``plotly.graph_objects.Figure`` objects; page builders wrap
-them in :class:`~generator.pages.base.Chart` with a summary sentence and a data table
-(:func:`table_from_frame`). Importing this module registers the site template and makes
-it the default, so figures stay small and look alike.
+per raw record) and return :class:`Figure` objects: a chart's data as plain dicts and lists,
+written as JSON without going through plotly's per-property validators. A figure holds
+its properties in the order plotly itself would write them (a trace's or a whole compound
+property's keys in alphabetical order, a trace's type last, later updates appended), so
+the page is the same byte for byte; tests check each helper against plotly's own figure
+objects. Page builders wrap figures in :class:`~generator.pages.base.Chart` with a summary
+sentence and a data table (:func:`table_from_frame`). Importing this module registers the
+site template and makes it the default, so figures stay small and look alike.
 """
 from __future__ import annotations
 
+import copy
 import html
 import math
+from functools import lru_cache
 from typing import Any, Callable, Mapping, Sequence
 
 import numpy as np
 import pandas as pd
 import plotly.graph_objects as go
 import plotly.io as pio
+from _plotly_utils.utils import convert_to_base64
 
 from .pages.base import Table
 from .portable import round_floats
@@ -95,6 +102,135 @@ def register_template() -> None:
 register_template()
 
 
+@lru_cache(maxsize=1)
+def _template_json() -> dict[str, Any]:
+    """Return the site template as a new figure carries it (``layout.template``)."""
+    return go.Figure().to_dict()["layout"]["template"]
+
+
+def _whole(value: Any) -> Any:
+    """Return *value* as plotly stores a compound property set whole: dict keys in alphabetical order, no None."""
+    if isinstance(value, dict) and "bdata" not in value:  # a typed array (dtype, bdata) is a value
+        return {k: _whole(value[k]) for k in sorted(value) if value[k] is not None}
+    return value
+
+
+def trace(kind: str, **props: Any) -> dict[str, Any]:
+    """Return a trace of type *kind* ("bar", "scatter", "box", "contour") as plotly's constructor stores it."""
+    out = {k: _whole(v) for k, v in sorted(props.items()) if v is not None}
+    out["type"] = kind
+    return out
+
+
+def contour(**props: Any) -> dict[str, Any]:
+    """Return a contour trace (the noise map's one): plotly's own, which expands a named colour scale."""
+    return go.Contour(**props).to_plotly_json()
+
+
+#: layout properties that are lists of objects (an empty one is not written)
+_OBJECT_LISTS = frozenset({"shapes", "annotations"})
+
+
+def _update(target: dict[str, Any], props: Mapping[str, Any], by_name: bool = False) -> None:
+    """Update *target* as one plotly update call does.
+
+    Nested objects that are missing are made at once, in the order met; the values are then
+    set after them in the order met (in the alphabetical order of their paths with *by_name*,
+    as plotly applies a figure's trace edits). A list of objects (shapes, annotations) is set
+    whole, each with its keys in alphabetical order.
+    """
+    leaves: list[tuple[str, dict[str, Any], str, Any]] = []
+
+    def walk(node: dict[str, Any], update: Mapping[str, Any], path: str) -> None:
+        for key, value in update.items():
+            if value is None:
+                continue
+            if isinstance(value, dict):
+                walk(node.setdefault(key, {}), value, path + key + ".")
+            elif key in _OBJECT_LISTS and isinstance(value, (list, tuple)):
+                if value:
+                    leaves.append((path + key, node, key, [_whole(v) for v in value]))
+            else:
+                leaves.append((path + key, node, key, value))
+
+    walk(target, props, "")
+    for _, node, key, value in (sorted(leaves, key=lambda leaf: leaf[0]) if by_name else leaves):
+        node[key] = value
+
+
+class Figure:
+    """A chart as plain data: ``data`` (list of trace dicts) and ``layout`` (dict, the site template first).
+
+    The methods are the few of ``plotly.graph_objects.Figure`` the pages use, with the same
+    effect on the figure's JSON.
+    """
+
+    def __init__(self, data: dict[str, Any] | Sequence[dict[str, Any]] | None = None) -> None:
+        self.data: list[dict[str, Any]] = [] if data is None else [data] if isinstance(data, dict) else list(data)
+        self.layout: dict[str, Any] = {"template": copy.deepcopy(_template_json())}
+
+    @classmethod
+    def from_dict(cls, fig: Mapping[str, Any]) -> Figure:
+        """Return the figure plotly makes of a whole figure dict: every key in alphabetical order, a trace's type last."""
+        out = cls.__new__(cls)
+        out.data = [trace(str(t.get("type", "scatter")), **{k: v for k, v in t.items() if k != "type"})
+                    for t in fig.get("data", [])]
+        out.layout = _whole(_sorted_lists(dict(fig.get("layout", {}))))
+        return out
+
+    def add_trace(self, trace: dict[str, Any]) -> Figure:
+        """Append *trace* (made by :func:`trace`)."""
+        self.data.append(trace)
+        return self
+
+    def update_layout(self, **props: Any) -> Figure:
+        """Update the layout (nested dicts merged)."""
+        _update(self.layout, props)
+        return self
+
+    def update_xaxes(self, **props: Any) -> Figure:
+        """Update the x axis."""
+        _update(self.layout, {"xaxis": props})
+        return self
+
+    def update_yaxes(self, **props: Any) -> Figure:
+        """Update the y axis."""
+        _update(self.layout, {"yaxis": props})
+        return self
+
+    def update_traces(self, **props: Any) -> Figure:
+        """Update every trace (plotly applies a figure's trace edits in the alphabetical order of their names)."""
+        for t in self.data:
+            _update(t, props, by_name=True)
+        return self
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return ``{"data": ..., "layout": ...}`` as plotly writes it: numeric arrays as base64 typed arrays."""
+        res = _tree_copy({"data": self.data, "layout": self.layout})
+        convert_to_base64(res)
+        return res
+
+    to_plotly_json = to_dict
+
+
+def _tree_copy(value: Any) -> Any:
+    """Return *value* with its dicts and lists copied (arrays and scalars shared)."""
+    if isinstance(value, dict):
+        return {k: _tree_copy(v) for k, v in value.items()}
+    if isinstance(value, list):
+        return [_tree_copy(v) for v in value]
+    return value
+
+
+def _sorted_lists(value: Any) -> Any:
+    """Return *value* with the dicts inside lists (shapes, annotations) in alphabetical key order too."""
+    if isinstance(value, dict):
+        return {k: _sorted_lists(v) for k, v in value.items()}
+    if isinstance(value, list) and value and all(isinstance(v, dict) for v in value):
+        return [_whole(_sorted_lists(v)) for v in value]
+    return value
+
+
 #: figure keys whose strings are written by the program as plotly markup (they may hold
 #: ``<br>`` and ``<extra>``, and the values they show are escaped); every other string is data.
 MARKUP_KEYS = frozenset({"hovertemplate", "texttemplate", "template"})
@@ -113,7 +249,7 @@ def _escape_tree(value: Any) -> Any:
     return value
 
 
-def finalise(fig: go.Figure | dict) -> dict:
+def finalise(fig: Figure | go.Figure | dict) -> dict:
     """Return the figure as a dict with every text shown by the chart HTML-escaped.
 
     Plotly renders trace names, tick and category labels, hover text, annotations and
@@ -122,11 +258,11 @@ def finalise(fig: go.Figure | dict) -> dict:
     here (plotly shows ``&lt;`` as ``<``), except the program's own templates
     (``MARKUP_KEYS``). Every chart passes through this function before it is written.
     """
-    data = fig.to_dict() if isinstance(fig, go.Figure) else dict(fig)
+    data = fig.to_dict() if isinstance(fig, (Figure, go.Figure)) else dict(fig)
     return _escape_tree(data)
 
 
-def figure_html(fig: go.Figure, div_id: str, height: int | str | None, config: Mapping[str, Any]) -> str:
+def figure_html(fig: Figure | go.Figure, div_id: str, height: int | str | None, config: Mapping[str, Any]) -> str:
     """Return the plot div and script of *fig* (escaped by :func:`finalise`); plotly.js is loaded by the page."""
     # numbers rounded to what every environment computes alike (generator/portable.py)
     return pio.to_html(round_floats(finalise(fig)), include_plotlyjs=False, full_html=False, div_id=div_id,
@@ -155,22 +291,22 @@ def _values(seq: Any) -> list:
     return out
 
 
-def base_layout(fig: go.Figure, title: str | None = None, height: int = 420,
-                xaxis_title: str | None = None, yaxis_title: str | None = None) -> go.Figure:
+def base_layout(fig: Figure, title: str | None = None, height: int = 420,
+                xaxis_title: str | None = None, yaxis_title: str | None = None) -> Figure:
     """Apply the common layout (title, height, axis titles) to *fig* and return it."""
     fig.update_layout(height=height)
     if title:
         fig.update_layout(title=dict(text=title))
     if xaxis_title is not None:
-        fig.update_xaxes(title_text=xaxis_title)
+        fig.update_xaxes(title=dict(text=xaxis_title))
     if yaxis_title is not None:
-        fig.update_yaxes(title_text=yaxis_title)
+        fig.update_yaxes(title=dict(text=yaxis_title))
     return fig
 
 
 def bar(x: Sequence, y: Sequence, *, name: str | None = None, title: str | None = None,
         xaxis_title: str | None = None, yaxis_title: str | None = None, horizontal: bool = False,
-        text: Sequence | None = None, colour: str | None = None, height: int = 420) -> go.Figure:
+        text: Sequence | None = None, colour: str | None = None, height: int = 420) -> Figure:
     """Return a single-series bar chart."""
     xs, ys = _values(x), _values(y)
     kw: dict[str, Any] = dict(name=name or "", showlegend=bool(name))
@@ -178,8 +314,7 @@ def bar(x: Sequence, y: Sequence, *, name: str | None = None, title: str | None 
         kw.update(text=_values(text), textposition="auto")
     if colour:
         kw["marker"] = dict(color=colour)
-    trace = go.Bar(x=ys, y=xs, orientation="h", **kw) if horizontal else go.Bar(x=xs, y=ys, **kw)
-    fig = go.Figure(trace)
+    fig = Figure(trace("bar", x=ys, y=xs, orientation="h", **kw) if horizontal else trace("bar", x=xs, y=ys, **kw))
     if horizontal:
         fig.update_yaxes(autorange="reversed")
     return base_layout(fig, title, height, xaxis_title, yaxis_title)
@@ -187,16 +322,16 @@ def bar(x: Sequence, y: Sequence, *, name: str | None = None, title: str | None 
 
 def _multi_bar(categories: Sequence, series: Mapping[str, Sequence], mode: str, title: str | None,
                xaxis_title: str | None, yaxis_title: str | None, horizontal: bool, height: int,
-               colours: Mapping[str, str] | None) -> go.Figure:
+               colours: Mapping[str, str] | None) -> Figure:
     cats = _values(categories)
-    fig = go.Figure()
+    fig = Figure()
     for i, (label, vals) in enumerate(series.items()):
         colour = (colours or {}).get(label, PALETTE[i % len(PALETTE)])
         vs = _values(vals)
         if horizontal:
-            fig.add_trace(go.Bar(x=vs, y=cats, name=str(label), orientation="h", marker=dict(color=colour)))
+            fig.add_trace(trace("bar", x=vs, y=cats, name=str(label), orientation="h", marker=dict(color=colour)))
         else:
-            fig.add_trace(go.Bar(x=cats, y=vs, name=str(label), marker=dict(color=colour)))
+            fig.add_trace(trace("bar", x=cats, y=vs, name=str(label), marker=dict(color=colour)))
     fig.update_layout(barmode=mode)
     if horizontal:
         fig.update_yaxes(autorange="reversed")
@@ -206,7 +341,7 @@ def _multi_bar(categories: Sequence, series: Mapping[str, Sequence], mode: str, 
 def grouped_bar(categories: Sequence, series: Mapping[str, Sequence], *, title: str | None = None,
                 xaxis_title: str | None = None, yaxis_title: str | None = None,
                 horizontal: bool = False, height: int = 420,
-                colours: Mapping[str, str] | None = None) -> go.Figure:
+                colours: Mapping[str, str] | None = None) -> Figure:
     """Return a bar chart with one bar per series side by side in each category."""
     return _multi_bar(categories, series, "group", title, xaxis_title, yaxis_title, horizontal,
                       height, colours)
@@ -215,7 +350,7 @@ def grouped_bar(categories: Sequence, series: Mapping[str, Sequence], *, title: 
 def stacked_bar(categories: Sequence, series: Mapping[str, Sequence], *, title: str | None = None,
                 xaxis_title: str | None = None, yaxis_title: str | None = None,
                 horizontal: bool = False, height: int = 420,
-                colours: Mapping[str, str] | None = None) -> go.Figure:
+                colours: Mapping[str, str] | None = None) -> Figure:
     """Return a bar chart with the series stacked in each category."""
     return _multi_bar(categories, series, "stack", title, xaxis_title, yaxis_title, horizontal,
                       height, colours)
@@ -223,7 +358,7 @@ def stacked_bar(categories: Sequence, series: Mapping[str, Sequence], *, title: 
 
 def box_from_stats(stats: pd.DataFrame, *, label: str = "label", title: str | None = None,
                    xaxis_title: str | None = None, yaxis_title: str | None = None,
-                   height: int = 420, name: str | None = None) -> go.Figure:
+                   height: int = 420, name: str | None = None) -> Figure:
     """Return a box plot drawn from precomputed quartiles.
 
     *stats* has one row per box with columns *label*, ``q1``, ``median``, ``q3`` and
@@ -237,53 +372,68 @@ def box_from_stats(stats: pd.DataFrame, *, label: str = "label", title: str | No
     kw: dict[str, Any] = {}
     if "mean" in stats:
         kw["mean"] = _values(stats["mean"])
-    fig = go.Figure(go.Box(x=labels, q1=q1, median=med, q3=q3, lowerfence=lo, upperfence=hi,
-                           name=name or "", showlegend=bool(name), boxpoints=False, **kw))
+    fig = Figure(trace("box", x=labels, q1=q1, median=med, q3=q3, lowerfence=lo, upperfence=hi,
+                       name=name or "", showlegend=bool(name), boxpoints=False, **kw))
     return base_layout(fig, title, height, xaxis_title, yaxis_title)
 
 
 def line(x: Sequence, series: Mapping[str, Sequence], *, title: str | None = None,
          xaxis_title: str | None = None, yaxis_title: str | None = None, height: int = 420,
-         markers: bool = True, colours: Mapping[str, str] | None = None) -> go.Figure:
+         markers: bool = True, colours: Mapping[str, str] | None = None) -> Figure:
     """Return a line chart with one line per series over the shared *x*."""
     xs = _values(x)
-    fig = go.Figure()
+    fig = Figure()
     for i, (label, vals) in enumerate(series.items()):
         colour = (colours or {}).get(label, PALETTE[i % len(PALETTE)])
-        fig.add_trace(go.Scatter(x=xs, y=_values(vals), name=str(label),
-                                 mode="lines+markers" if markers else "lines",
-                                 line=dict(color=colour)))
+        fig.add_trace(trace("scatter", x=xs, y=_values(vals), name=str(label),
+                            mode="lines+markers" if markers else "lines", line=dict(color=colour)))
     return base_layout(fig, title, height, xaxis_title, yaxis_title)
 
 
 def scatter(x: Sequence, y: Sequence, *, text: Sequence | None = None, name: str | None = None,
             title: str | None = None, xaxis_title: str | None = None,
             yaxis_title: str | None = None, height: int = 420, colour: str | None = None,
-            size: float = 8) -> go.Figure:
+            size: float = 8) -> Figure:
     """Return a scatter chart of (x, y) points (aggregate points, never raw records)."""
     kw: dict[str, Any] = dict(mode="markers", name=name or "", showlegend=bool(name),
                               marker=dict(size=size, color=colour or PALETTE[0]))
     if text is not None:
         kw.update(text=_values(text), hovertemplate="%{text}<br>%{x}, %{y}<extra></extra>")
-    fig = go.Figure(go.Scatter(x=_values(x), y=_values(y), **kw))
+    fig = Figure(trace("scatter", x=_values(x), y=_values(y), **kw))
     return base_layout(fig, title, height, xaxis_title, yaxis_title)
 
 
-def reference_lines(fig: go.Figure, values: Mapping[str, float | None], axis: str = "y",
-                    colour: str = REFERENCE_COLOUR) -> go.Figure:
-    """Draw a labelled dashed line across the plot at each level of *values* and return *fig*."""
+def reference_lines(fig: Figure, values: Mapping[str, float | None], axis: str = "y",
+                    colour: str = REFERENCE_COLOUR) -> Figure:
+    """Draw a labelled dashed line across the plot at each level of *values* and return *fig*.
+
+    The shapes and labels are those of plotly's ``add_hline``/``add_vline`` with the label at
+    the top left or right of the line.
+    """
     # labels alternate sides so that close values stay readable
+    had = "shapes" in fig.layout
+    shapes = fig.layout.setdefault("shapes", [])
+    notes = None
     for i, (label, level) in enumerate(sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0, kv[0]))):
         if level is None or (isinstance(level, float) and math.isnan(level)):
             continue
+        v = float(level)
+        line = dict(color=colour, dash="dash", width=1)
+        font = dict(color=colour, size=11)
         if axis == "y":
-            fig.add_hline(y=float(level), line=dict(color=colour, dash="dash", width=1),
-                          annotation_text=str(label), annotation_position="top right" if i % 2 else "top left",
-                          annotation_font=dict(color=colour, size=11))
+            right = bool(i % 2)
+            shapes.append(_whole(dict(type="line", line=line, x0=0, x1=1, xref="x domain", y0=v, y1=v, yref="y")))
+            note = dict(font=font, showarrow=False, text=str(label), x=1 if right else 0,
+                        xanchor="right" if right else "left", xref="x domain", y=v, yanchor="bottom", yref="y")
         else:
-            fig.add_vline(x=float(level), line=dict(color=colour, dash="dash", width=1),
-                          annotation_text=str(label), annotation_position="top left" if i % 2 else "top right",
-                          annotation_font=dict(color=colour, size=11))
+            left = bool(i % 2)
+            shapes.append(_whole(dict(type="line", line=line, x0=v, x1=v, xref="x", y0=0, y1=1, yref="y domain")))
+            note = dict(font=font, showarrow=False, text=str(label), x=v, xanchor="right" if left else "left",
+                        xref="x", y=1, yanchor="top", yref="y domain")
+        notes = fig.layout.setdefault("annotations", []) if notes is None else notes
+        notes.append(_whole(note))
+    if not had and not shapes:
+        del fig.layout["shapes"]
     return fig
 
 

@@ -554,7 +554,7 @@ def test_group_page_stays_small_and_aggregates(tmp_path: Path) -> None:
     titles = [ch.title for ch in pg.charts]
     assert [t.split(":")[0] for t in titles] == [f"Time history of measurement M0{i}0" for i in (1, 2, 3, 4)]
     for ch in pg.charts:
-        assert len(ch.figure.data[0].x) <= pages.HISTORY_POINTS and len(ch.table.rows) <= pages.HISTORY_POINTS
+        assert len(ch.figure.data[0]["x"]) <= pages.HISTORY_POINTS and len(ch.table.rows) <= pages.HISTORY_POINTS
     # the other logs are listed: highest dose first, with the highest logged interval (the +5 dB minute)
     lt = c["logged_table"]
     assert [r[0] for r in lt.rows] == ["M050", "M060"]

@@ -107,7 +107,7 @@ def test_chart_draws_the_combined_expected_change() -> None:
                        "mean_years": [10.0], "nipts_at_mean_years": [12.0], "expected_noise_change": [4.0],
                        "expected_age_change": [3.0], "expected_change": [6.9], "observed_change": [12.0]})
     chart = noise_chart(ne, ["G1"], "hearing-7")
-    names = [t.name for t in chart.figure.data]
+    names = [t["name"] for t in chart.figure.data]
     assert "expected from age and noise (ISO 1999 Formula 1)" in names
     assert "larger than" in chart.summary and "12.0 dB observed against 6.9 dB expected" in chart.summary
     assert chart.table.rows[0][9] == "above by more than 3 dB"

@@ -233,17 +233,17 @@ def test_box_from_stats_draws_precomputed_quartiles() -> None:
                           "q3": [88.0, 89.0], "lowerfence": [75.0, 79.0], "upperfence": [93.0, 95.0]})
     fig = charts.box_from_stats(stats)
     (trace,) = fig.data
-    assert list(trace.q1) == [80.0, 82.0] and list(trace.median) == [84.0, 85.0]
-    assert trace.y is None  # no raw points are sent to the page
+    assert list(trace["q1"]) == [80.0, 82.0] and list(trace["median"]) == [84.0, 85.0]
+    assert "y" not in trace  # no raw points are sent to the page
     charts.reference_lines(fig, {"action": 85.0, "limit": 90.0, "unset": None})
-    assert sorted(s.y0 for s in fig.layout.shapes) == [85.0, 90.0]
+    assert sorted(s["y0"] for s in fig.layout["shapes"]) == [85.0, 90.0]
 
 
 def test_site_template_is_the_default_and_small() -> None:
     import plotly.io as pio
     assert pio.templates.default == charts.TEMPLATE_NAME
     fig = charts.line([2021, 2022], {"a": [1.0, 2.0]})
-    assert len(pio.to_json(fig.layout.template)) < 2000
+    assert len(pio.to_json(fig.layout["template"])) < 2000
     assert go.Figure().layout.template.layout.colorway == tuple(charts.PALETTE)
 
 

@@ -8,7 +8,6 @@ from typing import Any
 
 import numpy as np
 import pandas as pd
-import plotly.graph_objects as go
 
 from .. import charts
 from .. import levels as lv
@@ -99,7 +98,7 @@ def lex_rule(ctx: SiteContext) -> Any:
     return next((r for r in ordered if r.metric == "lex"), None)
 
 
-def _hlines(fig: go.Figure, values: Mapping[str, float | None]) -> go.Figure:
+def _hlines(fig: charts.Figure, values: Mapping[str, float | None]) -> charts.Figure:
     """Add labelled dashed horizontal lines at *values* in one layout update (cheaper than add_hline)."""
     shapes, notes = [], []
     for i, (label, y) in enumerate(sorted(values.items(), key=lambda kv: (kv[1] is None, kv[1] or 0.0, kv[0]))):
@@ -137,12 +136,13 @@ def distribution_chart(res: ExposureResult, ctx: SiteContext) -> Chart:
     m = res.measurements
     m = m[(m["kind"] == "personal") & m["group"].isin(g["group"]) & m["lex_8h"].notna()]
     stats = m.groupby("group")["lex_8h"].describe()
-    fig = go.Figure()
+    fig = charts.Figure()
     if len(stats):
         st = stats.reindex(g["group"]).dropna(subset=["count"])
-        fig.add_trace(go.Box(x=list(st.index), q1=st["25%"].tolist(), median=st["50%"].tolist(),
-                             q3=st["75%"].tolist(), lowerfence=st["min"].tolist(), upperfence=st["max"].tolist(),
-                             name="measurements (LEX,8h)", boxpoints=False, marker=dict(color=charts.category_colour(6))))
+        fig.add_trace(charts.trace("box", x=list(st.index), q1=st["25%"].tolist(), median=st["50%"].tolist(),
+                                   q3=st["75%"].tolist(), lowerfence=st["min"].tolist(),
+                                   upperfence=st["max"].tolist(), name="measurements (LEX,8h)", boxpoints=False,
+                                   marker=dict(color=charts.category_colour(6))))
     point: dict[str, Any] = dict(x=g["group"].tolist(), y=_list(g["lex_8h"]), mode="markers",
                                  marker=dict(size=10, color=charts.category_colour(0)))
     if with_u:
@@ -151,7 +151,7 @@ def distribution_chart(res: ExposureResult, ctx: SiteContext) -> Chart:
                                   arrayminus=[0.0] * len(g), color=charts.category_colour(0)))
     else:
         point.update(name="group LEX,8h")
-    fig.add_trace(go.Scatter(**point))
+    fig.add_trace(charts.trace("scatter", **point))
     charts.base_layout(fig, None, 440, "similar exposure group", "LEX,8h, dB(A)")
     if ref is not None:
         _hlines(fig, _reference_values(ref))
@@ -182,15 +182,15 @@ def band_counts(res: ExposureResult, ctx: SiteContext) -> tuple[Chart, Table]:
     """Return the chart and table of groups and people per exposure category for every rule set, side by side."""
     g = res.groups[~res.groups["group"].isin(sorted(ctx.suppressed_groups))]
     xr, xb, ys, rows = [], [], [], []
-    fig = go.Figure()
+    fig = charts.Figure()
     for i, (rid, rule) in enumerate(ctx.rules.items()):
         col = _judged_band_col(rule)
         names = band_names(rule)
         people = [int(g.loc[g[col] == b, "n_people"].sum()) for b in names]
         groups = [int((g[col] == b).sum()) for b in names]
         plain = [int((g[f"band_{rid}"] == b).sum()) for b in names]
-        fig.add_trace(go.Bar(x=[[rule.short] * len(names), names], y=people, name=rule.short,
-                             marker=dict(color=charts.rule_colour(rule.short, i))))
+        fig.add_trace(charts.trace("bar", x=[[rule.short] * len(names), names], y=people, name=rule.short,
+                                   marker=dict(color=charts.rule_colour(rule.short, i))))
         how = _judged_on(rule)
         for b, n_g, n_p, n_plain in zip(names, groups, people, plain):
             rows.append([rule.short, how, b, str(n_g), str(n_p), str(n_plain)])
@@ -431,10 +431,11 @@ def history_chart(mid: str, h: pd.DataFrame, ctx: SiteContext, slug: str, n: int
     mid = redact(mid)
     h = coarsen_history(h, HISTORY_POINTS)
     x = h["start"].dt.strftime("%Y-%m-%dT%H:%M:%S").to_numpy(dtype=object)
-    fig = go.Figure(go.Scatter(x=x, y=h["laeq"].round(1).to_numpy(), mode="lines",
-                               name="LAeq per interval (energy mean)", line=dict(color=charts.category_colour(0))))
-    fig.add_trace(go.Scatter(x=x, y=h["lmax"].round(1).to_numpy(), mode="lines",
-                             name="highest interval level", line=dict(color=charts.category_colour(6), width=1)))
+    fig = charts.Figure(charts.trace("scatter", x=x, y=h["laeq"].round(1).to_numpy(), mode="lines",
+                                     name="LAeq per interval (energy mean)",
+                                     line=dict(color=charts.category_colour(0))))
+    fig.add_trace(charts.trace("scatter", x=x, y=h["lmax"].round(1).to_numpy(), mode="lines",
+                               name="highest interval level", line=dict(color=charts.category_colour(6), width=1)))
     charts.base_layout(fig, None, 360, "time", "dB(A)")
     ref = {f"{head.short} criterion level {head.criterion_level:g} dB(A)": head.criterion_level}
     if head.threshold:
@@ -556,19 +557,20 @@ def noise_map_chart(res: ExposureResult, ctx: SiteContext, redact: Any = str) ->
     pts = nm.points.assign(location=[redact(v) for v in nm.points["location"]])
     if pts.empty:
         return None
-    fig = go.Figure()
+    fig = charts.Figure()
     if nm.z.size:
-        fig.add_trace(go.Contour(x=nm.x.round(2).tolist(), y=nm.y.round(2).tolist(), z=np.round(nm.z, 1).tolist(),
-                                 colorscale="YlOrRd", opacity=0.75, name=MAP_NOTE,
-                                 contours=dict(showlabels=True, start=float(np.floor(nm.z.min())),
-                                               end=float(np.ceil(nm.z.max())), size=1.0 if np.ptp(nm.z) < 10 else 2.0),
-                                 colorbar=dict(title=dict(text="dB(A), " + MAP_NOTE, side="right")),
-                                 hovertemplate="%{x} m, %{y} m: %{z} dB(A) (" + MAP_NOTE + ")<extra></extra>"))
-    fig.add_trace(go.Scatter(x=pts["x_m"].tolist(), y=pts["y_m"].tolist(), mode="markers+text",
-                             text=[f"{v:.0f}" for v in pts["laeq"]], textposition="top center",
-                             name="measured points", marker=dict(size=9, color="#1d2730", symbol="x"),
-                             customdata=pts["location"].tolist(),
-                             hovertemplate="%{customdata}: %{text} dB(A) measured<extra></extra>"))
+        fig.add_trace(charts.contour(x=nm.x.round(2).tolist(), y=nm.y.round(2).tolist(), z=np.round(nm.z, 1).tolist(),
+                                     colorscale="YlOrRd", opacity=0.75, name=MAP_NOTE,
+                                     contours=dict(showlabels=True, start=float(np.floor(nm.z.min())),
+                                                   end=float(np.ceil(nm.z.max())),
+                                                   size=1.0 if np.ptp(nm.z) < 10 else 2.0),
+                                     colorbar=dict(title=dict(text="dB(A), " + MAP_NOTE, side="right")),
+                                     hovertemplate="%{x} m, %{y} m: %{z} dB(A) (" + MAP_NOTE + ")<extra></extra>"))
+    fig.add_trace(charts.trace("scatter", x=pts["x_m"].tolist(), y=pts["y_m"].tolist(), mode="markers+text",
+                               text=[f"{v:.0f}" for v in pts["laeq"]], textposition="top center",
+                               name="measured points", marker=dict(size=9, color="#1d2730", symbol="x"),
+                               customdata=pts["location"].tolist(),
+                               hovertemplate="%{customdata}: %{text} dB(A) measured<extra></extra>"))
     charts.base_layout(fig, None, 560, "east, m", "north, m")
     fig.update_yaxes(scaleanchor="x", scaleratio=1)
     table = charts.table_from_frame(pts, {"location": "Location", "x_m": "East, m", "y_m": "North, m",

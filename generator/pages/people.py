@@ -14,7 +14,6 @@ import re
 from typing import Any, Iterator
 
 import pandas as pd
-import plotly.graph_objects as go
 
 from .. import charts
 from ..exposure import BASIS_LABELS
@@ -106,7 +105,7 @@ def _facts(rows: list[tuple[str, str]]) -> Table:
 def audiogram_chart(rows: pd.DataFrame, baselines: pd.DataFrame | None, cid: str, code: str) -> Chart:
     """Return one person's audiogram chart per ear: the baseline in force, the baseline the latest
     test was compared with (when a revision came later), the previous and the latest test."""
-    fig = go.Figure()
+    fig = charts.Figure()
     table_rows = []
     in_force = {} if baselines is None or baselines.empty else dict(
         zip(baselines["ear"].astype(str), pd.to_datetime(baselines["baseline_date"])))
@@ -138,14 +137,14 @@ def audiogram_chart(rows: pd.DataFrame, baselines: pd.DataFrame | None, cid: str
             if role == "latest" and now is not None and not pd.isna(now) and now == r["date"]:
                 label = "latest, now the baseline in force"
             name = f"{EAR_NAMES[ear]}, {label} {_date(r['date'])}"
-            fig.add_trace(go.Scatter(x=list(AUDIO_FREQS), y=ys, name=name, mode="lines+markers",
-                                     line=dict(color=style["color"], dash=ROLE_DASH[role], width=1.5),
-                                     marker=dict(symbol=style["symbol"], size=10, color=style["color"])))
+            fig.add_trace(charts.trace("scatter", x=list(AUDIO_FREQS), y=ys, name=name, mode="lines+markers",
+                                       line=dict(color=style["color"], dash=ROLE_DASH[role], width=1.5),
+                                       marker=dict(symbol=style["symbol"], size=10, color=style["color"])))
             table_rows.append([EAR_NAMES[ear], label, _date(r["date"])]
                               + ["NR" if bool(r[f"nr_{f}"]) else _num(r[f"hl_{f}"], 0) for f in AUDIO_FREQS])
     fig.update_xaxes(type="log", tickvals=list(AUDIO_FREQS), ticktext=[f"{f:g}" for f in AUDIO_FREQS],
-                     title_text="frequency, Hz")
-    fig.update_yaxes(autorange="reversed", title_text="hearing level, dB HL", dtick=10)
+                     title=dict(text="frequency, Hz"))
+    fig.update_yaxes(autorange="reversed", title=dict(text="hearing level, dB HL"), dtick=10)
     charts.base_layout(fig, None, 460)
     table = Table(["Ear", "Audiogram", "Date"] + [f"{f} Hz" for f in AUDIO_FREQS], table_rows,
                   caption="Hearing levels shown in the chart, dB HL (NR = no response at the audiometer's limit)",
