@@ -512,13 +512,34 @@ def _hidden_rows(ctx: SiteContext, pg: pd.DataFrame) -> frozenset[str]:
     return frozenset(ctx.suppressed_groups) | frozenset(few)
 
 
-def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page:
+@dataclasses.dataclass(frozen=True)
+class _Listing:
+    """The audiograms and follow-ups the hearing pages list, selected once for all of them."""
+
+    #: audiograms of the review period (the LISTED columns)
+    period: pd.DataFrame
+    #: follow-ups due in the review period
+    due: pd.DataFrame
+    #: group -> its people (every audiogram, any date)
+    people: dict[str, np.ndarray]
+
+
+def _listing(ctx: SiteContext, h: HearingResult) -> _Listing:
     start, end = _period(ctx)
+    a = h.audiograms
+    groups, names = pd.factorize(a["group"].to_numpy(object), sort=True)
+    ids = a["person_id"].to_numpy(object)
+    people = {str(g): pd.unique(ids[groups == k]) for k, g in enumerate(names)}
+    return _Listing(period=_in_period(a, "date", start, end), due=_due_followups(h.followups, start, end),
+                    people=people)
+
+
+def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str], listing: _Listing) -> Page:
     years = _years(ctx)
     sup = ctx.suppressed_groups
     hidden_rows = _hidden_rows(ctx, h.period_groups)
-    a = _in_period(h.audiograms, "date", start, end)
-    fu = _due_followups(h.followups, start, end)
+    a = listing.period
+    fu = listing.due
     shown_groups = [g for g in sorted(slugs) if g not in sup]
     page_charts = [
         per_year_chart(h.population, "all", "hearing-1", "all groups"),
@@ -530,7 +551,7 @@ def _overview(ctx: SiteContext, h: HearingResult, slugs: dict[str, str]) -> Page
         noise_chart(h.noise_expected, shown_groups, "hearing-7"),
     ]
     a_vis = a[~a["group"].isin(sorted(sup))]
-    hidden = set(h.audiograms.loc[h.audiograms["group"].isin(sorted(sup)), "person_id"])
+    hidden = {p for g in sorted(sup) for p in listing.people.get(g, ())}
     fu_vis = fu[~fu["person_id"].isin(hidden)] if not fu.empty else fu
     flagged = a_vis[(a_vis["shift_status"] != "") | a_vis["recordable"]]
     context = {
@@ -562,7 +583,7 @@ def _group_names(ctx: SiteContext) -> dict[str, str]:
     return {str(g): str(n) for g, n in zip(groups["group"], groups["name"]) if str(n)}
 
 
-def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Page:
+def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str, listing: _Listing) -> Page:
     start, end = _period(ctx)
     full = f"hearing/{slug}"
     cid = "hearing-" + slug
@@ -571,10 +592,9 @@ def _group_page(ctx: SiteContext, h: HearingResult, group: str, slug: str) -> Pa
         return Page(slug=full, title=f"Hearing: {name}", template="hearing_group.html", section="hearing",
                     context={"group": group, "suppressed": True, "tiles": [], "shifts_table": None,
                              "followups_table": None, "group_name": name})
-    in_group = (h.audiograms["group"] == group).to_numpy(bool)
-    a = _in_period(h.audiograms[in_group], "date", start, end)
-    fu = _due_followups(h.followups, start, end)
-    fu = fu[fu["person_id"].isin(h.audiograms.loc[in_group, "person_id"].unique())]
+    a = listing.period[(listing.period["group"] == group).to_numpy(bool)]
+    fu = listing.due
+    fu = fu[fu["person_id"].isin(listing.people.get(group, np.array([], dtype=object)))]
     cases = _in_period(h.cases, "date", start, end)
     cases = cases[cases["group"] == group]
     page_charts = [
@@ -603,7 +623,8 @@ def build(ctx: SiteContext) -> list[Page]:
     h = public_hearing(h, ctx)
     # the pages list a few columns of the per-ear audiograms: filtered by group and period without the rest
     h = dataclasses.replace(h, audiograms=h.audiograms[[c for c in LISTED if c in h.audiograms.columns]])
-    pages = [_overview(ctx, h, slugs)]
-    pages += [_group_page(ctx, h, g, slugs[g]) for g in groups]
+    listing = _listing(ctx, h)
+    pages = [_overview(ctx, h, slugs, listing)]
+    pages += [_group_page(ctx, h, g, slugs[g], listing) for g in groups]
     log.info("hearing pages: %d", len(pages))
     return pages
