@@ -365,45 +365,73 @@ _NUMBER_TEXT = re.compile(r"[\d\s.,%+\-–−]*")
 
 def redact_value(value: Any, redact: Callable[[str], str]) -> Any:
     """Return *value* with every text inside it redacted (dicts, lists, tuples, tables, charts, figures)."""
-    from markupsafe import Markup
-    if isinstance(value, Markup):
-        return Markup(redact(str(value)))
-    if isinstance(value, str):
-        return value if _NUMBER_TEXT.fullmatch(value) else redact(value)
-    if isinstance(value, dict):
-        return {k: redact_value(v, redact) for k, v in value.items()}
-    if isinstance(value, list):
-        return [redact_value(v, redact) for v in value]
-    if isinstance(value, tuple):
-        return tuple(redact_value(v, redact) for v in value)
-    if isinstance(value, np.ndarray) and value.dtype == object:
-        return np.array([redact_value(v, redact) for v in value.tolist()], dtype=object)
-    if hasattr(value, "to_plotly_json") and hasattr(value, "data") and hasattr(value, "layout"):
-        import plotly.graph_objects as go
-        changed: list[bool] = []
+    return _Walk(redact)(value)
 
-        def noting(text: str) -> str:
-            out = redact(text)
-            if out != text:
-                changed.append(True)
-            return out
 
-        clean = redact_value(value.to_plotly_json(), noting)
-        if not changed:
-            return value
-        # rebuilt from the whole dict only when a text changed (so the figure's JSON keeps its order otherwise)
-        rebuild = getattr(type(value), "from_dict", None)
-        return rebuild(clean) if rebuild is not None else go.Figure(clean, skip_invalid=False)
-    if dataclasses.is_dataclass(value) and not isinstance(value, type):
-        changes = {f.name: redact_value(getattr(value, f.name), redact) for f in dataclasses.fields(value)
-                   if f.init}
-        return dataclasses.replace(value, **changes)
-    return value
+class _Walk:
+    """Redact every text inside a value; each distinct text is looked at once per walk."""
+
+    def __init__(self, redact: Callable[[str], str]) -> None:
+        self.redact = redact
+        self.memo: dict[str, str] = {}
+
+    def text(self, value: str) -> str:
+        got = self.memo.get(value)
+        if got is None:
+            got = self.memo[value] = value if _NUMBER_TEXT.fullmatch(value) else self.redact(value)
+        return got
+
+    def __call__(self, value: Any) -> Any:
+        kind = type(value)
+        # the common kinds first, by exact type (a subclass takes the general path below)
+        if kind is str:
+            return self.text(value)
+        if kind is list:
+            return [self(v) for v in value]
+        if kind is dict:
+            return {k: self(v) for k, v in value.items()}
+        return self._other(value)
+
+    def _other(self, value: Any) -> Any:
+        from markupsafe import Markup
+        if isinstance(value, Markup):
+            return Markup(self.redact(str(value)))
+        if isinstance(value, str):
+            return self.text(value)
+        if isinstance(value, dict):
+            return {k: self(v) for k, v in value.items()}
+        if isinstance(value, list):
+            return [self(v) for v in value]
+        if isinstance(value, tuple):
+            return tuple(self(v) for v in value)
+        if isinstance(value, np.ndarray) and value.dtype == object:
+            return np.array([self(v) for v in value.tolist()], dtype=object)
+        if hasattr(value, "to_plotly_json") and hasattr(value, "data") and hasattr(value, "layout"):
+            import plotly.graph_objects as go
+            changed: list[bool] = []
+
+            def noting(text: str) -> str:
+                out = self.redact(text)
+                if out != text:
+                    changed.append(True)
+                return out
+
+            clean = redact_value(value.to_plotly_json(), noting)
+            if not changed:
+                return value
+            # rebuilt from the whole dict only when a text changed (so the figure's JSON keeps its order otherwise)
+            rebuild = getattr(type(value), "from_dict", None)
+            return rebuild(clean) if rebuild is not None else go.Figure(clean, skip_invalid=False)
+        if dataclasses.is_dataclass(value) and not isinstance(value, type):
+            changes = {f.name: self(getattr(value, f.name)) for f in dataclasses.fields(value) if f.init}
+            return dataclasses.replace(value, **changes)
+        return value
 
 
 def redact_pages(pages: list[Any], redact: Callable[[str], str]) -> None:
     """Redact, in place, every text a public page shows: its title, context, tables and charts."""
+    walk = _Walk(redact)
     for page in pages:
-        page.title = redact_value(page.title, redact)
-        page.context = redact_value(page.context, redact)
-        page.charts = [redact_value(c, redact) for c in page.charts]
+        page.title = walk(page.title)
+        page.context = walk(page.context)
+        page.charts = [walk(c) for c in page.charts]
