@@ -317,7 +317,10 @@ def findings_table(res: ExposureResult, suppressed: frozenset[str] = frozenset()
 
 def recent_measurements(m: pd.DataFrame, n: int = MEASUREMENT_ROWS) -> pd.DataFrame:
     """Return the *n* most recent measurements of *m*, newest first."""
-    return m.sort_values(["date", "measurement_id"], ascending=False, kind="stable").head(n)
+    # the order is found on the two keys alone; only the rows shown are taken from the wide frame
+    keys = m[["date", "measurement_id"]].reset_index(drop=True)
+    order = keys.sort_values(["date", "measurement_id"], ascending=False, kind="stable").index.to_numpy()
+    return m.iloc[order[:n]]
 
 
 def measurement_table(m: pd.DataFrame, ctx: SiteContext, redact: Any = str, n: int = MEASUREMENT_ROWS) -> Table:
