@@ -132,16 +132,18 @@ class _Redactor:
         self.by_run: dict[str, list[str]] = {}
         #: keys beginning with a character that is not a word character or hyphen, by that character
         self.by_char: dict[str, list[str]] = {}
+        words = []
         for key in subs:
-            if _RUN.fullmatch(key):
-                continue
             lead = _RUN.match(key)
+            if lead is not None and lead.end() == len(key):
+                words.append(key)
+                continue
             bucket = self.by_run.setdefault(lead.group(0), []) if lead else self.by_char.setdefault(key[0], [])
             bucket.append(key)
         for bucket in (*self.by_run.values(), *self.by_char.values()):
             bucket.sort(key=lambda k: (-len(k), k))
         #: every run that may start a replacement
-        self.words = frozenset(k for k in subs if _RUN.fullmatch(k)) | frozenset(self.by_run)
+        self.words = frozenset(words) | frozenset(self.by_run)
         chars = "".join(sorted(self.by_char))
         # where a replacement may start: a whole run, or a character some key starts with, not after a run
         self.start = re.compile(r"(?<![\w-])(?:[\w-]+" + ("|[" + re.escape(chars) + "]" if chars else "") + ")")
@@ -189,8 +191,8 @@ def redactor(people: pd.DataFrame, code: Callable[[str], str]) -> Callable[[str]
             if name.strip() and name not in subs:
                 subs[name] = "[name withheld]"
     if "birth_date" in people.columns:
-        births = pd.to_datetime(people["birth_date"], errors="coerce").dropna()
-        for text in pd.unique(births.dt.strftime("%Y-%m-%d")):
+        births = pd.Series(pd.unique(pd.to_datetime(people["birth_date"], errors="coerce").dropna()))
+        for text in births.dt.strftime("%Y-%m-%d"):
             subs.setdefault(text, "[date withheld]")
     if not subs:
         return lambda text: text
