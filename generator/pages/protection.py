@@ -151,10 +151,13 @@ def people_table(people: pd.DataFrame, ctx: SiteContext) -> Table:
 
 def methods_table(res: ProtectionResult, visible_ids: set[str]) -> Table:
     """Return per method how many people it could be applied to and how often it governs."""
-    m = res.methods[res.methods["person_id"].isin(sorted(visible_ids))]
+    methods = res.methods
+    keep = methods["person_id"].isin(visible_ids).to_numpy(bool)
+    m = methods[["governs", "protected_level"]][keep]
+    method = methods["method"].to_numpy(object)[keep]
     rows = []
     for key, label in METHOD_LABELS.items():
-        sub = m[m["method"] == key]
+        sub = m[method == key]
         if sub.empty:
             continue
         rows.append([label, str(len(sub)), str(int(sub["governs"].sum())),
