@@ -59,7 +59,7 @@ HIRE_AGE_MIN, HIRE_AGE_MAX = 14.0, 90.0
 #: Longest cell text quoted back in a message.
 SHOWN_CHARS = 40
 #: Largest data file read (CSV, xlsx, noise log); larger files are refused, not read in part.
-MAX_FILE_BYTES = 256 * 1024 * 1024
+MAX_FILE_BYTES = 512 * 1024 * 1024
 #: Largest narrative page or template read.
 MAX_PAGE_BYTES = 4 * 1024 * 1024
 #: Longest line of a CSV file or noise log (a file holding a longer one is not read).
