@@ -368,24 +368,47 @@ def clopper_pearson(k: Any, n: Any, level: float = 0.95) -> tuple[np.ndarray, np
 
 
 def _prepare(programme: Programme) -> pd.DataFrame:
-    """Return audiograms joined with people, sorted by person, ear and date."""
+    """Return audiograms joined with people, sorted by person, ear and date.
+
+    One pass: the rows kept (a date and an ear L or R) are put in order once and every
+    column is taken by position; person ids become integer codes (``_pid``, in sorted id
+    order) and person-and-ear keys (``_key``) that every later step sorts, joins and groups on.
+    """
     raw = programme.table("audiograms")
     people = programme.table("people")
+    ear_all = _upper(_col(raw, "ear", "").astype(str))
+    date_all = _dates(_col(raw, "date", pd.NaT))
+    kept = np.flatnonzero(date_all.notna().to_numpy() & ear_all.isin(["L", "R"]).to_numpy())
+    ids_all = _col(raw, "person_id", "").astype(str)
+    # person ids become integers once (codes in sorted id order); every later step keys,
+    # sorts and groups on them, never on the id text
+    codes, uniques = pd.factorize(ids_all.take(kept), sort=True)
+    pid = codes.astype(np.int64)
+    right = ear_all.take(kept).eq("R").to_numpy(bool)
+    t = date_all.to_numpy("datetime64[ns]")[kept]
+    order = np.lexsort((t, right, pid))
+    pos = kept[order]
+    pid = pid[order]
+    right = right[order]
+
+    def take(s: pd.Series) -> pd.Series:
+        return s.take(pos).reset_index(drop=True)
+
     ag = pd.DataFrame({
-        "person_id": _col(raw, "person_id", "").astype(str),
-        "ear": _upper(_col(raw, "ear", "").astype(str)),
-        "date": _dates(_col(raw, "date", pd.NaT)),
-        "kind": _col(raw, "kind", "").astype(str).replace("", "periodic"),
-        "quiet_hours": pd.to_numeric(_col(raw, "quiet_hours"), errors="coerce"),
-        "audiometer_id": _col(raw, "audiometer_id", "").fillna("").astype(str),
-        "_row": pd.to_numeric(_col(raw, "_row"), errors="coerce"),
+        "person_id": take(ids_all),
+        "ear": take(ear_all),
+        "date": pd.Series(t[order], dtype="datetime64[ns]"),
+        "kind": take(_col(raw, "kind", "")).astype(str).replace("", "periodic"),
+        "quiet_hours": pd.to_numeric(take(_col(raw, "quiet_hours")), errors="coerce"),
+        "audiometer_id": take(_col(raw, "audiometer_id", "")).fillna("").astype(str),
+        "_row": pd.to_numeric(take(_col(raw, "_row")), errors="coerce"),
     })
     for f in AUDIO_FREQS:
-        ag[f"hl_{f}"] = pd.to_numeric(_col(raw, f"hl_{f}"), errors="coerce").astype(float)
-        ag[f"nr_{f}"] = _col(raw, f"nr_{f}", False).fillna(False).astype(bool)
+        nr = take(_col(raw, f"nr_{f}", False)).fillna(False).astype(bool).to_numpy(bool)
+        hl = pd.to_numeric(take(_col(raw, f"hl_{f}")), errors="coerce").to_numpy(float)
         # NR is never a number, whatever the reader left in the cell
-        ag.loc[ag[f"nr_{f}"], f"hl_{f}"] = np.nan
-    ag = ag[ag["date"].notna() & ag["ear"].isin(["L", "R"])]
+        ag[f"hl_{f}"] = np.where(nr, np.nan, hl)
+        ag[f"nr_{f}"] = nr
     pp = pd.DataFrame({
         "person_id": _col(people, "person_id", "").astype(str),
         "group": _col(people, "group", "").astype(str),
@@ -393,31 +416,38 @@ def _prepare(programme: Programme) -> pd.DataFrame:
         "birth_date": _dates(_col(people, "birth_date", pd.NaT)),
         "hire_date": _dates(_col(people, "hire_date", pd.NaT)),
     }).drop_duplicates("person_id")
-    # person ids become integers once (codes in sorted id order); every later step keys,
-    # sorts and groups on them, never on the id text
-    codes, uniques = pd.factorize(ag["person_id"], sort=True)
-    pid = codes.astype(np.int64)
-    right = ag["ear"].eq("R").to_numpy()
-    order = np.lexsort((ag["date"].to_numpy("datetime64[ns]"), right, pid))
-    ag = ag.take(order).reset_index(drop=True)
-    pid = pid[order]
-    # people's attributes joined by position (one hash of the ids, no frame merge)
-    at = pd.Index(pp["person_id"]).get_indexer(pd.Index(uniques))[pid]
+    # people's attributes joined by position: one value per person code, then per row
+    at = pd.Index(pp["person_id"]).get_indexer(pd.Index(uniques))
     found = at >= 0
     at0 = np.where(found, at, 0)
-    for c, empty in (("group", ""), ("sex", ""), ("birth_date", pd.NaT), ("hire_date", pd.NaT)):
+    nat = np.datetime64("NaT", "ns")
+    birth = None
+    for c, empty in (("group", ""), ("sex", ""), ("birth_date", nat), ("hire_date", nat)):
         src = pp[c].to_numpy()
-        vals = src[at0] if len(src) else np.full(len(at0), empty, dtype=object)
         if c.endswith("_date"):
-            ag[c] = _dates(pd.Series(np.where(found, vals, np.datetime64("NaT", "ns")), dtype="datetime64[ns]"))
+            vals = src[at0] if len(src) else np.full(len(at0), nat, dtype="datetime64[ns]")
+            per = np.where(found, vals, nat).astype("datetime64[ns]")[pid]
+            if c == "birth_date":
+                birth = per
+            else:
+                ag[c] = pd.Series(per, dtype="datetime64[ns]")
         else:
-            ag[c] = pd.Series(np.where(found, vals, empty), dtype=object).astype(str)
+            vals = src[at0] if len(src) else np.full(len(at0), empty, dtype=object)
+            per_person = pd.Series(np.where(found, vals, empty), dtype=object).astype(str)
+            ag[c] = per_person.take(pid).reset_index(drop=True)
     ag["year"] = ag["date"].dt.year.astype(int)
-    ag["age"] = age_at(ag["birth_date"], ag["date"])
-    ag["nr_any"] = ag[[f"nr_{f}" for f in AUDIO_FREQS]].any(axis=1)
-    ag["nr_234"] = ag[[f"nr_{f}" for f in STS_FREQS]].any(axis=1)
+    ag["age"] = age_at(pd.Series(birth, dtype="datetime64[ns]"), ag["date"])
+    nr_any = np.zeros(len(ag), dtype=bool)
+    for f in AUDIO_FREQS:
+        nr_any |= ag[f"nr_{f}"].to_numpy(bool)
+    ag["nr_any"] = nr_any
+    ag["nr_234"] = ag["nr_2000"].to_numpy(bool) | ag["nr_3000"].to_numpy(bool) | ag["nr_4000"].to_numpy(bool)
     ag["_pid"] = pid
-    key = pid * 2 + ag["ear"].eq("R").to_numpy()
+    key = pid * 2 + right
+    ag["_key"] = key
+    # the rank of each test date among the distinct dates: (key, rank) is one sorted integer
+    ag["_drank"] = np.unique(t, return_inverse=True)[1].reshape(-1)[order].astype(np.int64) if len(t) else \
+        np.zeros(0, dtype=np.int64)
     same = np.zeros(len(ag), dtype=bool)
     if len(ag) > 1:
         same[1:] = key[1:] == key[:-1]
@@ -443,16 +473,16 @@ def _reviews(programme: Programme, ag: pd.DataFrame, findings: list[Finding]) ->
         "_row": pd.to_numeric(_col(rv, "_row"), errors="coerce"),
     })
     r["order"] = np.arange(len(r))
-    keyed = ag[["person_id", "ear", "date"]].reset_index().rename(columns={"index": "idx"})
-    # decisions naming an audiogram date
-    named = r[r["audiogram_date"].notna()].merge(
-        keyed, left_on=["person_id", "ear", "audiogram_date"], right_on=["person_id", "ear", "date"], how="left")
+    # decisions naming an audiogram date: that audiogram of the person and ear
+    named = r[r["audiogram_date"].notna()].copy()
+    named["idx"] = _row_of(ag, named["person_id"].to_numpy(object), named["ear"].to_numpy(object),
+                           named["audiogram_date"])
     # decisions without one: the latest audiogram of that ear on or before the decision
     unnamed = r[r["audiogram_date"].isna() & r["review_date"].notna()].sort_values("review_date", kind="mergesort")
-    if not unnamed.empty:
-        k2 = keyed.sort_values("date", kind="mergesort")
-        unnamed = pd.merge_asof(unnamed, k2, left_on="review_date", right_on="date", by=["person_id", "ear"],
-                                direction="backward")
+    unnamed = unnamed.assign(idx=_row_on_or_before(ag, unnamed["person_id"].to_numpy(object),
+                                                   unnamed["ear"].to_numpy(object), unnamed["review_date"]))
+    named["idx"] = named["idx"].where(named["idx"] >= 0)
+    unnamed["idx"] = unnamed["idx"].where(unnamed["idx"] >= 0)
     m = pd.concat([named, unnamed], ignore_index=True)
     missing = m[m["idx"].isna()]
     if not missing.empty:
@@ -468,30 +498,39 @@ def _reviews(programme: Programme, ag: pd.DataFrame, findings: list[Finding]) ->
 
 def _baseline_events(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
     """Return every baseline event per person and ear: [person_id, ear, baseline_date, source, decided]."""
-    cand = ag.loc[ag["valid_234"], ["person_id", "ear", "date", "kind"]].copy()
-    cand["prio"] = (cand["kind"] != "baseline").astype(int)
-    first = cand.sort_values(["person_id", "ear", "prio", "date"], kind="mergesort").drop_duplicates(
-        ["person_id", "ear"])
+    key = _ear_key(ag)
+    valid = np.flatnonzero(ag["valid_234"].to_numpy(bool))
+    prio = (ag["kind"].to_numpy(object)[valid] != "baseline").astype(np.int64)
+    # rows are in person, ear and date order: a stable sort on (key, prio) keeps the date order
+    o = np.lexsort((prio, key[valid]))
+    kv = key[valid][o]
+    first = valid[o][np.r_[True, kv[1:] != kv[:-1]]] if len(kv) else valid[:0]
+    fprio = (ag["kind"].to_numpy(object)[first] != "baseline")
     ev = pd.DataFrame({
-        "person_id": first["person_id"], "ear": first["ear"], "baseline_date": first["date"],
-        "source": np.where(first["prio"].eq(0), "baseline kind", "first"),
-        "decided": pd.Series(pd.NaT, index=first.index, dtype="datetime64[ns]"),
+        "person_id": ag["person_id"].take(first).to_numpy(), "ear": ag["ear"].take(first).to_numpy(),
+        "baseline_date": ag["date"].to_numpy("datetime64[ns]")[first],
+        "source": np.where(fprio, "first", "baseline kind"),
+        "decided": pd.Series(pd.NaT, index=range(len(first)), dtype="datetime64[ns]"),
+        "_at": first,
     })
     rev = decisions[decisions["decision"].eq("revise_baseline")]
     if not rev.empty:
-        rows = ag.loc[rev["idx"].to_numpy()]
-        ok = rows["valid_234"].to_numpy()
+        at = rev["idx"].to_numpy(np.int64)
+        ok = ag["valid_234"].to_numpy(bool)[at]
+        at = at[ok]
         ev2 = pd.DataFrame({
-            "person_id": rows["person_id"].to_numpy()[ok], "ear": rows["ear"].to_numpy()[ok],
-            "baseline_date": rows["date"].to_numpy()[ok], "source": "revised by review",
-            "decided": rev["review_date"].to_numpy()[ok],
+            "person_id": ag["person_id"].take(at).to_numpy(), "ear": ag["ear"].take(at).to_numpy(),
+            "baseline_date": ag["date"].to_numpy("datetime64[ns]")[at], "source": "revised by review",
+            "decided": rev["review_date"].to_numpy()[ok], "_at": at,
         })
         ev = pd.concat([ev, ev2], ignore_index=True)
     ev["baseline_date"] = _dates(ev["baseline_date"])
     ev["decided"] = _dates(ev["decided"])
-    ev = ev.sort_values(["person_id", "ear", "baseline_date", "decided"], kind="mergesort", na_position="first")
-    ev = ev.drop_duplicates(["person_id", "ear", "baseline_date"], keep="last").reset_index(drop=True)
-    return ev
+    # person codes follow the sorted ids: sorting on the row's key equals sorting on (person_id, ear)
+    ev["_key"] = key[ev["_at"].to_numpy(np.int64)]
+    ev = ev.sort_values(["_key", "baseline_date", "decided"], kind="mergesort", na_position="first")
+    ev = ev.drop_duplicates(["_key", "baseline_date"], keep="last").reset_index(drop=True)
+    return ev.drop(columns=["_at", "_key"])
 
 
 def _person_rows(ag: pd.DataFrame) -> np.ndarray:
@@ -502,20 +541,59 @@ def _person_rows(ag: pd.DataFrame) -> np.ndarray:
 
 def _ear_key(ag: pd.DataFrame) -> np.ndarray:
     """Return the integer key of each row's person and ear (non-decreasing in the sorted frame)."""
+    if "_key" in ag.columns:
+        return ag["_key"].to_numpy(np.int64)
     return ag["_pid"].to_numpy(np.int64) * 2 + ag["ear"].eq("R").to_numpy()
+
+
+def _date_index(ag: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Return the distinct test dates (int64 ns, ascending) and the sorted (person, ear, date) code of each row."""
+    t = ag["date"].to_numpy("datetime64[ns]").view(np.int64)
+    if "_drank" in ag.columns:
+        rank = ag["_drank"].to_numpy(np.int64)
+        ud = np.zeros(int(rank.max()) + 1 if len(rank) else 0, dtype=np.int64)
+        ud[rank] = t
+    else:
+        ud, rank = np.unique(t, return_inverse=True)
+        rank = rank.reshape(-1)
+    return ud, _ear_key(ag) * max(len(ud), 1) + rank
 
 
 def _row_of(ag: pd.DataFrame, person_id: Any, ear: Any, date: Any) -> np.ndarray:
     """Return the position in *ag* of each (person_id, ear, date), -1 where there is none."""
     if not len(ag):
         return np.full(len(np.asarray(person_id)), -1, dtype=np.int64)
-    key = _ear_key(ag)
     ids = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)])  # id of each person code
     pid = ids.get_indexer(pd.Index(np.asarray(person_id, dtype=object)))
-    k = np.where(pid >= 0, pid.astype(np.int64) * 2 + (np.asarray(ear, dtype=object) == "R"), -1)
-    index = pd.MultiIndex.from_arrays([key, ag["date"].to_numpy("datetime64[ns]")])
-    pos = index.get_indexer(pd.MultiIndex.from_arrays([k, _dates(pd.Series(date)).to_numpy("datetime64[ns]")]))
-    return np.where(pid >= 0, pos, -1).astype(np.int64)
+    e = np.asarray(ear, dtype=object)
+    k = pid.astype(np.int64) * 2 + (e == "R")
+    ud, code = _date_index(ag)
+    d = _dates(pd.Series(date)).to_numpy("datetime64[ns]")
+    q = d.view(np.int64)
+    qr = np.clip(np.searchsorted(ud, q), 0, max(len(ud) - 1, 0))
+    # rows are sorted by person, ear and date: one binary search on the combined code
+    want = k * max(len(ud), 1) + qr
+    pos = np.clip(np.searchsorted(code, want), 0, len(code) - 1)
+    hit = (pid >= 0) & ((e == "R") | (e == "L")) & ~np.isnat(d) & (ud[qr] == q) & (code[pos] == want)
+    return np.where(hit, pos, -1).astype(np.int64)
+
+
+def _row_on_or_before(ag: pd.DataFrame, person_id: Any, ear: Any, date: Any) -> np.ndarray:
+    """Return the position of the latest row of each (person_id, ear) dated on or before *date*, else -1."""
+    if not len(ag):
+        return np.full(len(np.asarray(person_id)), -1, dtype=np.int64)
+    ids = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)])
+    pid = ids.get_indexer(pd.Index(np.asarray(person_id, dtype=object)))
+    e = np.asarray(ear, dtype=object)
+    k = pid.astype(np.int64) * 2 + (e == "R")
+    ud, code = _date_index(ag)
+    d = _dates(pd.Series(date)).to_numpy("datetime64[ns]")
+    qr = np.searchsorted(ud, d.view(np.int64), side="right") - 1  # latest distinct date on or before
+    pos = np.searchsorted(code, k * max(len(ud), 1) + qr, side="right") - 1
+    key = _ear_key(ag)
+    hit = (pid >= 0) & ((e == "R") | (e == "L")) & ~np.isnat(d) & (qr >= 0) & (pos >= 0)
+    hit[hit] = key[pos[hit]] == k[hit]
+    return np.where(hit, pos, -1).astype(np.int64)
 
 
 def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
@@ -749,6 +827,42 @@ def _status_and_cases(ag: pd.DataFrame) -> pd.DataFrame:
 # audiometer checks
 
 
+def _meter_rows(ag: pd.DataFrame, meters: pd.DataFrame) -> np.ndarray:
+    """Return, per audiogram row, the row of *meters* for its audiometer and test day (-1 where none)."""
+    if not len(ag) or meters.empty:
+        return np.full(len(ag), -1, dtype=np.int64)
+    ud, _ = _date_index(ag)
+    nd = max(len(ud), 1)
+    ids = pd.Index(pd.unique(meters["audiometer_id"].to_numpy(object)))
+    code = ids.get_indexer(ag["audiometer_id"].to_numpy(object))
+    mt = meters["date"].to_numpy("datetime64[ns]")
+    mr = np.clip(np.searchsorted(ud, mt.view(np.int64)), 0, nd - 1)
+    ok = ~np.isnat(mt) & (ud[mr] == mt.view(np.int64)) if len(ud) else np.zeros(len(mt), dtype=bool)
+    mkey = ids.get_indexer(meters["audiometer_id"].to_numpy(object)).astype(np.int64) * nd + mr
+    first = pd.Series(np.arange(len(meters)), index=mkey)[ok]
+    first = first[~first.index.duplicated(keep="first")]
+    at = pd.Index(first.index).get_indexer(code.astype(np.int64) * nd + ag["_drank"].to_numpy(np.int64))
+    return np.where((code >= 0) & (at >= 0), first.to_numpy()[np.clip(at, 0, None)], -1).astype(np.int64)
+
+
+def _case_rows(ag: pd.DataFrame, cases: pd.DataFrame) -> np.ndarray:
+    """Return the recordable ear rows whose person and date make a case (CASE_COLUMNS rows)."""
+    rec = ag["recordable"].to_numpy(bool)
+    out = np.zeros(len(ag), dtype=bool)
+    if cases.empty or not rec.any():
+        return out
+    ud, _ = _date_index(ag)
+    nd = max(len(ud), 1)
+    ids = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)])
+    cp = ids.get_indexer(pd.Index(cases["person_id"].astype(str).to_numpy(object))).astype(np.int64)
+    ct = cases["date"].to_numpy("datetime64[ns]").view(np.int64)
+    cr = np.clip(np.searchsorted(ud, ct), 0, nd - 1)
+    made = (cp * nd + cr)[(cp >= 0) & (ud[cr] == ct)]
+    pos = np.flatnonzero(rec)
+    out[pos] = np.isin(ag["_pid"].to_numpy(np.int64)[pos] * nd + ag["_drank"].to_numpy(np.int64)[pos], made)
+    return out
+
+
 def _audiometer_status(checks: AudiometerChecks) -> pd.DataFrame:
     """Return [audiometer_id, date, valid, reason] per test day (empty without audiometers.csv)."""
     cols = ["audiometer_id", "date", "valid", "reason"]
@@ -775,7 +889,7 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
         .loc[cur.index].to_numpy()
     # the baseline audiogram of each ear, by position (every event names an audiogram row)
     pos = _row_of(ag, cur["person_id"].to_numpy(object), cur["ear"].to_numpy(object), cur["baseline_date"])
-    rcols = ["person_id", "ear", "baseline_date", "sts", "retest_status", "sts_computed", "shift_234", "date"]
+    rcols = ["person_id", "ear", "baseline_date", "sts", "retest_status", "sts_computed", "shift_234", "date", "_key"]
     if (pos >= 0).all():
         cur = cur.reset_index(drop=True)
         for c in ("group", "quiet_hours", "valid_check"):
@@ -793,22 +907,28 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
         rows = ag[rcols].merge(cur[["person_id", "ear", "baseline_date"]], on=["person_id", "ear", "baseline_date"])
     q = cur["quiet_hours"]
     cur["quiet_ok"] = _nbool(_ge(q, min_quiet), q.notna())
-    def keys(df: pd.DataFrame) -> pd.Series:
-        return df["person_id"].astype(str) + "\x1f" + df["ear"].astype(str)
-
-    shift_rows = rows[rows["sts"]]
-    n_det = shift_rows.groupby(keys(shift_rows), sort=True).size()
-    confirmed = shift_rows[shift_rows["retest_status"].eq("confirmed")]
-    computed = rows[rows["sts_computed"].fillna(False).astype(bool)]
-    latest_shift = computed.groupby(keys(computed), sort=True)["date"].max()
-    persistent = set(n_det.index[n_det >= 2]) | set(keys(confirmed))
-    better = (rows["shift_234"] <= -SETTINGS["improvement_db"]).astype(bool)
-    prev_better = better.groupby([rows["person_id"], rows["ear"]], sort=False).shift(1, fill_value=False)
-    imp_rows = rows[better & prev_better.astype(bool)]
-    impr = imp_rows.groupby(keys(imp_rows), sort=True)["date"].max()
-    key = keys(cur)
-    is_pers = key.isin(persistent).to_numpy()
-    is_impr = key.isin(set(impr.index)).to_numpy()
+    # person and ear as one integer (codes in sorted id order, so sorted keys follow the ids)
+    ids = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)]) if len(ag) else pd.Index([], dtype=object)
+    rkey = rows["_key"].to_numpy(np.int64)
+    ckey = ids.get_indexer(pd.Index(cur["person_id"].to_numpy(object))).astype(np.int64) * 2 \
+        + (cur["ear"].to_numpy(object) == "R")
+    sts = rows["sts"].to_numpy(bool)
+    n_det = np.bincount(rkey[sts], minlength=len(ids) * 2) if len(ids) else np.zeros(0, dtype=np.int64)
+    confirmed = sts & (rows["retest_status"].to_numpy(object) == "confirmed")
+    pers_keys = np.zeros(len(n_det), dtype=bool)
+    pers_keys[n_det >= 2] = True
+    pers_keys[rkey[confirmed]] = True
+    computed = rows["sts_computed"].fillna(False).to_numpy(bool)
+    rdate = rows["date"].to_numpy("datetime64[ns]")
+    latest_shift = pd.Series(rdate[computed]).groupby(rkey[computed], sort=True).max()
+    better = rows["shift_234"].to_numpy(float) <= -SETTINGS["improvement_db"]
+    same_prev = np.r_[False, rkey[1:] == rkey[:-1]] if len(rkey) else np.zeros(0, dtype=bool)
+    prev_better = np.r_[False, better[:-1]] & same_prev if len(rkey) else better
+    imp = better & prev_better
+    impr = pd.Series(rdate[imp]).groupby(rkey[imp], sort=True).max()
+    is_pers = (ckey >= 0) & pers_keys[np.clip(ckey, 0, None)] if len(pers_keys) else np.zeros(len(cur), dtype=bool)
+    is_impr = np.isin(ckey, impr.index.to_numpy())
+    key = pd.Series(ckey, index=cur.index)
     cur["candidate"] = np.where(is_pers, "persistent shift", np.where(is_impr, "improvement", ""))
     def at(dates: pd.Series) -> pd.Series:
         if dates.empty:
@@ -1363,17 +1483,17 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
             notes.append("No audiometer records (data/audiometers.csv): audiograms are not checked against "
                          "the audiometer's daily check, calibrations and booth levels.")
     else:
-        m = ag[["audiometer_id", "date"]].merge(meters, on=["audiometer_id", "date"], how="left")
-        known = ag["audiometer_id"].ne("").to_numpy() & m["valid"].notna().to_numpy()
-        ag["valid_check"] = _nbool(m["valid"].fillna(False).to_numpy(bool), known)
-        ag["check_reason"] = m["reason"].fillna("").to_numpy()
+        at = _meter_rows(ag, meters)
+        found = at >= 0
+        at0 = np.clip(at, 0, None)
+        known = ag["audiometer_id"].ne("").to_numpy() & found
+        ag["valid_check"] = _nbool(found & meters["valid"].to_numpy(bool)[at0], known)
+        ag["check_reason"] = np.where(found, meters["reason"].to_numpy(object)[at0], "")
 
     baselines = _baselines(ag, events, cfg.audiometry.min_quiet_hours, cl)
     cases = person_cases(ag)
     # the ear rows that make a person's case (the population counts people with a case)
-    made = pd.MultiIndex.from_frame(cases[["person_id", "date"]].astype({"person_id": str}))
-    ag["case"] = ag["recordable"].astype(bool).to_numpy() & pd.MultiIndex.from_frame(
-        ag[["person_id", "date"]].astype({"person_id": str})).isin(made)
+    ag["case"] = _case_rows(ag, cases)
     incidence, period_cases, period_rate = _incidence(cases, sorted(ag["year"].unique().tolist()),
                                                       cfg.hours_worked, start, as_of)
     followups = _followups(programme, ag, decisions, as_of, cl)
@@ -1393,13 +1513,16 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
     inper = (ag["date"] >= start) & (ag["date"] <= as_of)
     fu_p = followups[(followups["due_date"] >= start) & (followups["due_date"] <= as_of)
                      & followups["status"].ne(LEFT_STATUS)] if not followups.empty else followups
+    inp = inper.to_numpy(bool)
+    pid = ag["_pid"].to_numpy(np.int64)
+    ud, _ = _date_index(ag)
     summary = {
-        "people_tested": int(ag.loc[inper, "person_id"].nunique()),
-        "audiograms": int(ag.loc[inper, ["person_id", "date"]].drop_duplicates().shape[0]),
-        "people_with_sts": int(ag.loc[inper & ag["sts"], "person_id"].nunique()),
+        "people_tested": int(np.unique(pid[inp]).size),
+        "audiograms": int(np.unique(pid[inp] * max(len(ud), 1) + ag["_drank"].to_numpy(np.int64)[inp]).size),
+        "people_with_sts": int(np.unique(pid[inp & ag["sts"].to_numpy(bool)]).size),
         "recordable_cases": int(period_cases),
         "recordable_rate_per_200k": None if period_rate is None else round(float(period_rate), 3),
-        "niosh_shifts": int(ag.loc[inper & ag["niosh_shift"], "person_id"].nunique()),
+        "niosh_shifts": int(np.unique(pid[inp & ag["niosh_shift"].to_numpy(bool)]).size),
         "followups_due": int(len(fu_p)),
         "followups_on_time": int((fu_p["status"] == "on time").sum()) if len(fu_p) else 0,
         "followups_late_or_missing": int(fu_p["status"].isin(["late", "missing"]).sum()) if len(fu_p) else 0,
@@ -1407,7 +1530,6 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
         "age_correction": bool(cfg.audiometry.age_correction),
     }
     summary = dict(sorted(summary.items()))
-    ag = ag.drop(columns=["birth_date"])
     log.info("hearing: %d audiogram rows, %d recordable cases", len(ag), len(cases))
     return HearingResult(audiograms=ag, baselines=baselines, baseline_history=events, cases=cases,
                          incidence=incidence, followups=followups, population=population, period_groups=period_groups,
