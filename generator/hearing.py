@@ -259,6 +259,17 @@ def age_at(birth: pd.Series, date: pd.Series) -> pd.Series:
     return years.where(b.notna() & d.notna())
 
 
+def _age_years(birth: pd.Series, dates: pd.Series, who: np.ndarray, when: np.ndarray) -> np.ndarray:
+    """Return age_at(birth[who], dates[when]) from the calendar parts of each birth and date once."""
+    by, bm, bd = (birth.dt.year.to_numpy(float)[who], birth.dt.month.to_numpy(float)[who],
+                  birth.dt.day.to_numpy(float)[who])
+    dy, dm, dd = (dates.dt.year.to_numpy(float)[when], dates.dt.month.to_numpy(float)[when],
+                  dates.dt.day.to_numpy(float)[when])
+    before = (dm < bm) | ((dm == bm) & (dd < bd))
+    years = dy - by - before.astype(float)
+    return np.where(np.isnan(by) | np.isnan(dy), np.nan, years)
+
+
 def years_between(start: pd.Series, end: pd.Series) -> pd.Series:
     """Return (end - start) in years of 365.25 days (NaN where missing)."""
     return (_dates(end) - _dates(start)).dt.days / 365.25
@@ -391,15 +402,18 @@ def _prepare(programme: Programme) -> pd.DataFrame:
     """
     raw = programme.table("audiograms")
     people = programme.table("people")
-    ear_all = _upper(_col(raw, "ear", "").astype(str))
+    # the ear, upper-cased: each distinct text folded once (0 left, 1 right, -1 neither)
+    ecode, etext = pd.factorize(_col(raw, "ear", "").astype(str))
+    efold = pd.Series(etext, dtype=object).astype(str).str.upper().to_numpy(object)
+    side = np.r_[np.where(efold == "L", 0, np.where(efold == "R", 1, -1)), -1][ecode]
     date_all = _dates(_col(raw, "date", pd.NaT))
-    kept = np.flatnonzero(date_all.notna().to_numpy() & ear_all.isin(["L", "R"]).to_numpy())
+    kept = np.flatnonzero(date_all.notna().to_numpy() & (side >= 0))
     ids_all = _col(raw, "person_id", "").astype(str)
     # person ids become integers once (codes in sorted id order); every later step keys,
     # sorts and groups on them, never on the id text
     codes, uniques = pd.factorize(ids_all.take(kept), sort=True)
     pid = codes.astype(np.int64)
-    right = ear_all.take(kept).eq("R").to_numpy(bool)
+    right = side[kept] == 1
     t = date_all.to_numpy("datetime64[ns]")[kept]
     order = np.lexsort((t, right, pid))
     pos = kept[order]
@@ -411,7 +425,7 @@ def _prepare(programme: Programme) -> pd.DataFrame:
 
     ag = pd.DataFrame({
         "person_id": take(ids_all),
-        "ear": take(ear_all),
+        "ear": _words(right.astype(np.int64), ["L", "R"]),
         "date": pd.Series(t[order], dtype="datetime64[ns]"),
         "kind": take(_col(raw, "kind", "")).astype(str).replace("", "periodic"),
         "quiet_hours": pd.to_numeric(take(_col(raw, "quiet_hours")), errors="coerce"),
@@ -441,17 +455,21 @@ def _prepare(programme: Programme) -> pd.DataFrame:
         src = pp[c].to_numpy()
         if c.endswith("_date"):
             vals = src[at0] if len(src) else np.full(len(at0), nat, dtype="datetime64[ns]")
-            per = np.where(found, vals, nat).astype("datetime64[ns]")[pid]
+            per = np.where(found, vals, nat).astype("datetime64[ns]")
             if c == "birth_date":
                 birth = per
             else:
-                ag[c] = pd.Series(per, dtype="datetime64[ns]")
+                ag[c] = pd.Series(per[pid], dtype="datetime64[ns]")
         else:
             vals = src[at0] if len(src) else np.full(len(at0), empty, dtype=object)
             per_person = pd.Series(np.where(found, vals, empty), dtype=object).astype(str)
             ag[c] = per_person.take(pid).reset_index(drop=True)
-    ag["year"] = ag["date"].dt.year.astype(int)
-    ag["age"] = age_at(pd.Series(birth, dtype="datetime64[ns]"), ag["date"])
+    # calendar parts worked out once per distinct test date and once per person
+    drank, udates = pd.factorize(t[order], sort=True)
+    ud = pd.Series(np.asarray(udates, dtype="datetime64[ns]"))
+    bp = pd.Series(birth if birth is not None else np.zeros(0, dtype="datetime64[ns]"), dtype="datetime64[ns]")
+    ag["year"] = ud.dt.year.to_numpy(np.int64)[drank]
+    ag["age"] = _age_years(bp, ud, pid, drank)
     nr_any = np.zeros(len(ag), dtype=bool)
     for f in AUDIO_FREQS:
         nr_any |= ag[f"nr_{f}"].to_numpy(bool)
@@ -461,7 +479,7 @@ def _prepare(programme: Programme) -> pd.DataFrame:
     key = pid * 2 + right
     ag["_key"] = key
     # the rank of each test date among the distinct dates: (key, rank) is one sorted integer
-    ag["_drank"] = pd.factorize(t[order], sort=True)[0].astype(np.int64)
+    ag["_drank"] = drank.astype(np.int64)
     same = np.zeros(len(ag), dtype=bool)
     if len(ag) > 1:
         same[1:] = key[1:] == key[:-1]
@@ -613,8 +631,9 @@ def _row_on_or_before(ag: pd.DataFrame, person_id: Any, ear: Any, date: Any) -> 
 def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
     """Add baseline_date, baseline_source and the baseline thresholds to each audiogram row.
 
-    One pass over integer keys: the event in force for each row is found by one stable sort
-    of rows and events together; the baseline's thresholds are taken by position.
+    One pass over integer keys: the rows are in person, ear and date order, each event is
+    placed among them by a binary search, and the latest event placed before a row is in
+    force for it; the baseline's thresholds are read by position (_base).
     """
     n = len(ag)
     key = _ear_key(ag)
@@ -626,25 +645,21 @@ def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
     # The first baseline of an ear applies to its own date (it is compared with itself).
     first = ~events.duplicated(["person_id", "ear"], keep="first").to_numpy()
     later = events["source"].eq("revised by review").to_numpy() & ~first
-    eff = _dates(events["baseline_date"]).to_numpy("datetime64[ns]").view(np.int64)
-    # rows and events in one order: by key, then time; at equal time an event that takes
-    # effect on the day (not a later revision) comes before the row
+    # rows and events in one order: by key, then date; at equal date an event that takes
+    # effect on the day (not a later revision) comes before the row, a later revision after it.
+    # Rows are in that order already: each event's place among them is one binary search.
     m = len(events)
-    t_all = np.r_[eff, ag["date"].to_numpy("datetime64[ns]").view(np.int64)]
-    k_all = np.r_[ev_key, key]
-    kind = np.r_[np.where(later, 2, 0), np.ones(n, dtype=np.int64)]
-    order = np.lexsort((kind, t_all, k_all))
-    is_ev = order < m
-    last_ev = np.where(is_ev, np.arange(len(order)), -1)
-    last_ev = np.maximum.accumulate(last_ev) if len(order) else last_ev
-    rows = ~is_ev
-    cand = last_ev[rows]
-    ev_of = np.where(cand >= 0, order[np.clip(cand, 0, None)], -1)
-    row_at = order[rows] - m
-    in_force = np.full(n, -1, dtype=np.int64)
-    ok = (ev_of >= 0)
-    ok[ok] = ev_key[ev_of[ok]] == key[row_at[ok]]
-    in_force[row_at[ok]] = ev_of[ok]
+    _, code = _date_index(ag)
+    e_idx = np.flatnonzero(ev_pos >= 0)  # an event naming no audiogram row is never in force
+    e_code = code[ev_pos[e_idx]]
+    e_later = later[e_idx]
+    ins = np.where(e_later, np.searchsorted(code, e_code, side="right"), np.searchsorted(code, e_code, side="left"))
+    o = np.lexsort((e_later, e_code))
+    mark = np.full(n + 1, -1, dtype=np.int64)
+    np.maximum.at(mark, ins[o], np.arange(len(o)))
+    latest = np.maximum.accumulate(mark)[:n] if n else mark[:0]
+    ev_of = np.where(latest >= 0, e_idx[o][np.clip(latest, 0, None)] if len(o) else -1, -1)
+    in_force = np.where((ev_of >= 0) & (ev_key[np.clip(ev_of, 0, None)] == key if m else False), ev_of, -1)
     has = in_force >= 0
     ev_i = np.clip(in_force, 0, None)
     bdate = _dates(events["baseline_date"]).to_numpy("datetime64[ns]")
@@ -814,7 +829,10 @@ def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
 
 
 def _apply_reviews(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
-    """Add review_decision (as named), _shift_decision (1 confirm, 2 cancel) and not_work_related (on determination rows)."""
+    """Add review_decision (as named), _shift_decision (1 confirm, 2 cancel) and not_work_related.
+
+    The shift decisions and not_work_related are set on the determination rows.
+    """
     n = len(ag)
     shift_decision = np.zeros(n, dtype=np.int8)  # 1 confirm_shift, 2 cancel_shift (the later decision)
     not_work_related = np.zeros(n, dtype=bool)
@@ -951,9 +969,9 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
         key = _ear_key(ag)
         in_force = np.full(int(key.max()) + 1 if len(key) else 0, np.datetime64("NaT", "ns"), dtype="datetime64[ns]")
         in_force[key[pos]] = cur["baseline_date"].to_numpy("datetime64[ns]")
-        # candidates among rows compared with the baseline now in force
+        # candidates among rows compared with the baseline now in force (the columns read below)
         now = ag["baseline_date"].to_numpy("datetime64[ns]") == in_force[key]
-        rows = ag.loc[now, rcols].reset_index(drop=True)
+        rows = ag.loc[now, rcols[3:]].reset_index(drop=True)
     else:
         info = ag[["person_id", "ear", "date", "group", "quiet_hours", "valid_check"]].rename(
             columns={"date": "baseline_date"})
@@ -1033,14 +1051,15 @@ def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
     fits = pd.DataFrame({"person_id": _col(fits, "person_id", "").astype(str),
                          "date": _dates(_col(fits, "date", pd.NaT))}).dropna(subset=["date"])
     parts = []
-    det = ag[ag["determination"]]
+    # only the columns each follow-up reads: no copy of the wide frame
+    det = ag.loc[ag["determination"].to_numpy(bool), ["person_id", "ear", "date", "next_date"]]
     if not det.empty:
         due = det["date"] + pd.Timedelta(days=int(cfg.retest_days))
         done = det["next_date"]
         parts.append(pd.DataFrame({"person_id": det["person_id"], "ear": det["ear"], "kind": "retest",
                                    "trigger_date": det["date"], "due_date": due, "done_date": done,
                                    "clause": cl["retest"]}))
-    act = ag[ag["sts"]]
+    act = ag.loc[ag["sts"].to_numpy(bool), ["person_id", "ear", "date", "determined_on", "not_work_related"]]
     if not act.empty:
         trig = act["determined_on"]
         due = trig + pd.Timedelta(days=int(cfg.notice_days))
@@ -1058,7 +1077,7 @@ def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
                                        "clause": cl["refit"]}))
     ref = decisions[decisions["decision"].eq("refer")] if not decisions.empty else decisions
     if not ref.empty:
-        rows = ag.loc[ref["idx"].to_numpy()]
+        rows = ag[["person_id", "ear"]].take(ref["idx"].to_numpy())
         rr = pd.DataFrame({"person_id": rows["person_id"].to_numpy(), "ear": rows["ear"].to_numpy(),
                            "trigger_date": _dates(ref["review_date"]).to_numpy()})
         due = rr["trigger_date"] + pd.Timedelta(days=int(SETTINGS["referral_days"]))
@@ -1121,7 +1140,8 @@ def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start:
                 "detail": b["ear"].map(EAR_NAMES) + ": " + b["candidate"] + " (latest "
                 + _fmt_date(b["candidate_date"]) + "); " + b["candidate_detail"],
                 "due_date": pd.NaT, "clause": cl["baseline_revision"]}))
-    nr = ag[ag["shift_status"].eq("not computed (NR)") & (ag["date"] >= start) & (ag["date"] <= as_of)]
+    pending = ag["shift_status"].eq("not computed (NR)") & (ag["date"] >= start) & (ag["date"] <= as_of)
+    nr = ag.loc[pending.to_numpy(bool), ["person_id", "ear", "date"]]
     if not nr.empty:
         parts.append(pd.DataFrame({
             "subject": nr["person_id"], "subject_type": "person", "kind": "shift review (NR)",
@@ -1255,12 +1275,14 @@ def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     if last.empty:
         return pd.DataFrame(columns=cols)
     k = last["_pid"].to_numpy() * 10000 + last["year"].to_numpy()
-    uk = np.unique(k)
+    kcode, uk = pd.factorize(k, sort=True)
     vals = np.full((len(uk), 2 * len(hl)), np.nan)
     right = (last["_key"].to_numpy(np.int64) & 1).astype(bool)
     for j, r in enumerate((False, True)):  # left ear, then right ear
         sel = right == r
-        vals[np.searchsorted(uk, k[sel]), j * len(hl):(j + 1) * len(hl)] = last.loc[sel, hl].to_numpy(float)
+        at = kcode[sel]
+        for i, c in enumerate(hl):
+            vals[at, j * len(hl) + i] = last[c].to_numpy(float)[sel]
     firsts = _person_rows(ag)  # person code -> first row of that person
     pids = uk // 10000
     years = uk % 10000
@@ -1270,16 +1292,19 @@ def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     if not len(pair):
         return pd.DataFrame(columns=cols)
     # the change from the previous year, on the pair rows only
-    diff = vals[pair] - vals[pair - 1]
+    diff = vals[pair]
+    diff -= vals[pair - 1]
     del vals
     complete = np.isfinite(diff).all(axis=1)
     lim = SETTINGS["indicator_db"]
     # judged only on the complete sequential pairs (the only rows counted below)
-    rounded = np.round(diff[complete], 6)
+    rounded = diff[complete]
+    del diff
+    np.round(rounded, 6, out=rounded)
     worse = np.zeros(len(pair), dtype=bool)
     bw = np.zeros(len(pair), dtype=bool)
     worse[complete] = (rounded >= lim).any(axis=1)
-    bw[complete] = (np.abs(rounded) >= lim).any(axis=1)
+    bw[complete] = (np.abs(rounded, out=rounded) >= lim).any(axis=1)
     # one group per person (people.csv), as an integer code in the order of the group text
     gcode, glabel = pd.factorize(pd.Series(ag["group"].to_numpy(object)[firsts], dtype=object).fillna(""),
                                  sort=True)
@@ -1609,10 +1634,12 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
     followups = _followups(programme, ag, decisions, as_of, cl)
     actions = _actions(ag, followups, baselines, start, as_of, cl)
     last = _last_per_year(ag)
+    indicators = _indicators(ag, last)
     py = _per_person_year(ag, last)
+    del last
     population = _population(py)
     period_groups = _period_groups(py, start, as_of)
-    indicators = _indicators(ag, last)
+    del py
     age_norms = _age_norms(ag, as_of)
     noise_expected, n_notes = _noise_expected(ag, exposure, as_of)
     notes.extend(n_notes)

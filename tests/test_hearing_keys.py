@@ -110,3 +110,15 @@ def test_appf_rows_match_the_table_function():
         np.testing.assert_array_equal(got[:, j], norms.appf_correction(age, f, sex))
     # 29 CFR 1910.95 App. F Table F-1 (males), age 40, 4000 Hz: 14 dB (as 30 CFR 62 Table 62-3)
     assert hearing._appf(np.array([40.0]), norms._sex_codes(np.array(["M"], dtype=object)))[0, 2] == 14
+
+
+def test_age_from_calendar_parts_matches_age_at():
+    """Ages worked out from each distinct birth and test date once equal age_at row by row (leap days too)."""
+    rng = np.random.default_rng(11)
+    births = pd.Series(pd.to_datetime(["1960-02-29", "1971-12-31", "1985-06-15", None, "2000-03-01"]))
+    dates = pd.Series(pd.to_datetime(["2020-02-28", "2020-02-29", "2021-03-01", "2023-12-30", "2024-06-15"]))
+    who = rng.integers(0, len(births), 300)
+    when = rng.integers(0, len(dates), 300)
+    got = hearing._age_years(births.astype("datetime64[ns]"), dates.astype("datetime64[ns]"), who, when)
+    want = hearing.age_at(births.iloc[who].reset_index(drop=True), dates.iloc[when].reset_index(drop=True))
+    np.testing.assert_array_equal(got, want.to_numpy(float))
