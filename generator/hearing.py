@@ -971,7 +971,7 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
         in_force[key[pos]] = cur["baseline_date"].to_numpy("datetime64[ns]")
         # candidates among rows compared with the baseline now in force (the columns read below)
         now = ag["baseline_date"].to_numpy("datetime64[ns]") == in_force[key]
-        rows = ag.loc[now, rcols[3:]].reset_index(drop=True)
+        rows = ag[rcols[3:]][now].reset_index(drop=True)
     else:
         info = ag[["person_id", "ear", "date", "group", "quiet_hours", "valid_check"]].rename(
             columns={"date": "baseline_date"})
@@ -1052,14 +1052,14 @@ def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
                          "date": _dates(_col(fits, "date", pd.NaT))}).dropna(subset=["date"])
     parts = []
     # only the columns each follow-up reads: no copy of the wide frame
-    det = ag.loc[ag["determination"].to_numpy(bool), ["person_id", "ear", "date", "next_date"]]
+    det = ag[["person_id", "ear", "date", "next_date"]][ag["determination"].to_numpy(bool)]
     if not det.empty:
         due = det["date"] + pd.Timedelta(days=int(cfg.retest_days))
         done = det["next_date"]
         parts.append(pd.DataFrame({"person_id": det["person_id"], "ear": det["ear"], "kind": "retest",
                                    "trigger_date": det["date"], "due_date": due, "done_date": done,
                                    "clause": cl["retest"]}))
-    act = ag.loc[ag["sts"].to_numpy(bool), ["person_id", "ear", "date", "determined_on", "not_work_related"]]
+    act = ag[["person_id", "ear", "date", "determined_on", "not_work_related"]][ag["sts"].to_numpy(bool)]
     if not act.empty:
         trig = act["determined_on"]
         due = trig + pd.Timedelta(days=int(cfg.notice_days))
@@ -1141,7 +1141,7 @@ def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start:
                 + _fmt_date(b["candidate_date"]) + "); " + b["candidate_detail"],
                 "due_date": pd.NaT, "clause": cl["baseline_revision"]}))
     pending = ag["shift_status"].eq("not computed (NR)") & (ag["date"] >= start) & (ag["date"] <= as_of)
-    nr = ag.loc[pending.to_numpy(bool), ["person_id", "ear", "date"]]
+    nr = ag[["person_id", "ear", "date"]][pending.to_numpy(bool)]
     if not nr.empty:
         parts.append(pd.DataFrame({
             "subject": nr["person_id"], "subject_type": "person", "kind": "shift review (NR)",
@@ -1162,20 +1162,19 @@ def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start:
 # population views
 
 
-def _last_per_year(ag: pd.DataFrame) -> pd.DataFrame:
-    """Return the latest audiogram per person, ear and year, retests of a shift left out."""
+def _last_per_year(ag: pd.DataFrame) -> np.ndarray:
+    """Return the positions of the latest audiogram per person, ear and year, retests of a shift left out."""
     pos = np.flatnonzero(~ag["is_retest_of_shift"].to_numpy(bool))
     key = _ear_key(ag)[pos]
     yr = ag["year"].to_numpy()[pos]
     last = np.ones(len(pos), dtype=bool)
     if len(pos) > 1:
         last[:-1] = (key[1:] != key[:-1]) | (yr[1:] != yr[:-1])
-    # only the columns the population views read: no copy of the wide frame
-    cols = ["_pid", "year", "_key", "avg_234", "nr_234"] + [f"hl_{f}" for f in NIOSH_FREQS]
-    return ag[cols].take(pos[last])
+    # positions only: the population views read the few columns they need from the frame
+    return pos[last]
 
 
-def _per_person_year(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
+def _per_person_year(ag: pd.DataFrame, last: np.ndarray) -> pd.DataFrame:
     """Return one row per person and year: group, tested, sts, recordable, mean 2/3/4 kHz average."""
     cols = ["_pid", "year", "person_id", "group", "sts", "recordable", "avg_234", "n_nr", "prev_avg", "prev_year",
             "within_change"]
@@ -1191,8 +1190,8 @@ def _per_person_year(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     rec = np.bincount(gid, weights=ag["case"].to_numpy(bool), minlength=len(u)) > 0
     pids = u // ny
     firsts = _person_rows(ag)  # person code -> first row (id and group are the person's)
-    lcode = last["_pid"].to_numpy(np.int64) * ny + (last["year"].to_numpy(np.int64) - y0)
-    avg = last[["avg_234", "nr_234"]].groupby(lcode, sort=True).agg(avg_234=("avg_234", "mean"),
+    lcode = code[last]
+    avg = ag[["avg_234", "nr_234"]].take(last).groupby(lcode, sort=True).agg(avg_234=("avg_234", "mean"),
                                                                      n_nr=("nr_234", "sum")).reindex(u)
     py = pd.DataFrame({"_pid": pids, "year": u % ny + y0,
                        "person_id": ag["person_id"].take(firsts).to_numpy()[pids],
@@ -1267,22 +1266,22 @@ def _period_groups(py: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp) -> 
     return p[cols]
 
 
-def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
+def _indicators(ag: pd.DataFrame, last: np.ndarray) -> pd.DataFrame:
     """Return %Worse-sequential and %Better-or-Worse-sequential per group and year."""
     cols = ["group", "year", "n_pairs", "n_worse", "pct_worse", "n_better_or_worse", "pct_better_or_worse",
             "n_incomplete"]
     hl = [f"hl_{f}" for f in NIOSH_FREQS]
-    if last.empty:
+    if not len(last):
         return pd.DataFrame(columns=cols)
-    k = last["_pid"].to_numpy() * 10000 + last["year"].to_numpy()
+    k = ag["_pid"].to_numpy(np.int64)[last] * 10000 + ag["year"].to_numpy(np.int64)[last]
     kcode, uk = pd.factorize(k, sort=True)
     vals = np.full((len(uk), 2 * len(hl)), np.nan)
-    right = (last["_key"].to_numpy(np.int64) & 1).astype(bool)
+    right = (_ear_key(ag)[last] & 1).astype(bool)
     for j, r in enumerate((False, True)):  # left ear, then right ear
         sel = right == r
         at = kcode[sel]
         for i, c in enumerate(hl):
-            vals[at, j * len(hl) + i] = last[c].to_numpy(float)[sel]
+            vals[at, j * len(hl) + i] = ag[c].to_numpy(float)[last[sel]]
     firsts = _person_rows(ag)  # person code -> first row of that person
     pids = uk // 10000
     years = uk % 10000
@@ -1493,10 +1492,14 @@ def person_cases(ag: pd.DataFrame) -> pd.DataFrame:
     first = r.groupby(["person_id", "_epoch"], sort=False)["date"].transform("min")
     r = r[r["date"].eq(first)]
     shift = r["shift_driving"] if "shift_driving" in r.columns else r.get("shift_234")
-    r = r.assign(_shift=pd.to_numeric(shift, errors="coerce"))
+    ear = r["ear"].astype(str)
+    r = r.assign(_shift=pd.to_numeric(shift, errors="coerce"), _l=ear.eq("L").to_numpy(bool),
+                 _r=ear.eq("R").to_numpy(bool))
     out = r.groupby(["person_id", "date"], sort=True, as_index=False).agg(
-        ear=("ear", lambda e: " ".join(sorted(set(map(str, e))))), avg_234=("avg_234", "max"),
+        _l=("_l", "any"), _r=("_r", "any"), avg_234=("avg_234", "max"),
         shift=("_shift", "max"), year=("year", "first"), group=("group", "first"))
+    # the ears of the case, in text order: "L", "R" or "L R"
+    out["ear"] = _words(out.pop("_l").to_numpy(bool) + 2 * out.pop("_r").to_numpy(bool), ["", "L", "R", "L R"])
     return out[CASE_COLUMNS].sort_values(["date", "person_id"], kind="mergesort").reset_index(drop=True)
 
 
