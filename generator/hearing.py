@@ -120,6 +120,14 @@ ACTION_COLUMNS = ["subject", "subject_type", "kind", "detail", "due_date", "clau
 #: one row per case of a person: ``ear`` is "L", "R" or "L R" (both ears on the same audiogram)
 CASE_COLUMNS = ["person_id", "ear", "date", "avg_234", "shift", "year", "group"]
 EAR_NAMES = {"R": "right ear", "L": "left ear"}
+#: columns of the working audiogram frame that the published one leaves out (keys, positions,
+#: inputs of the follow-ups and findings, intermediate shifts)
+WORK_COLUMNS = frozenset({
+    "quiet_hours", "audiometer_id", "_row", "hire_date", "nr_234", "_pid", "_key", "_drank", "_same_prev",
+    "_same_next", "valid_234", "_bpos", "shift_driving", "_sts_vs_prev_base", "retest_date", "next_date",
+    "det_idx", "_shift_decision", "determined_on", "check_reason"})
+#: retest_status of an audiogram: not a determination, then a determination's retest outcome
+RETEST_WORDS = ("", "no retest", "confirmed", "cancelled")
 #: follow-up status of a retest or refit that fell due after the person left employment
 LEFT_STATUS = "not applicable (left)"
 
@@ -129,8 +137,10 @@ class HearingResult:
     """Everything the hearing pages, the export and the compliance stage read."""
 
     #: one row per audiogram and ear: HEARING_RESULTS_COLUMNS plus group, year, sex, age,
-    #: nr_any, sts, sts_computed, retest_status, review_decision, shift_status, valid_check,
-    #: hl_<f>/nr_<f>, base_hl_<f>, recordable_criteria, niosh_15 ...
+    #: base_age, nr_any, sts, sts_computed, sts_basis, retest_status, review_decision,
+    #: shift_status, valid_check, hl_<f>/nr_<f>, shift_<f>[_age_corrected] at 2/3/4 kHz,
+    #: recordable_criteria, niosh_15, niosh_freqs, determination, is_retest_of_shift,
+    #: not_work_related, case (no working column: WORK_COLUMNS)
     audiograms: pd.DataFrame
     #: one row per person and ear: baseline in force and revision candidates
     baselines: pd.DataFrame
@@ -192,7 +202,12 @@ def _nbool(values: np.ndarray | pd.Series, known: np.ndarray | pd.Series) -> pd.
     """Return a nullable boolean Series: *values* where *known*, else NA."""
     v = np.asarray(values, dtype=bool)
     k = np.asarray(known, dtype=bool)
-    return pd.Series(pd.array(np.where(k, v, False), dtype="boolean")).where(k, pd.NA).astype("boolean")
+    return pd.Series(pd.arrays.BooleanArray(v & k, ~k))
+
+
+def _words(codes: np.ndarray, words: Any) -> pd.Series:
+    """Return words[codes] as a text column (each word made once, rows share it; no per-row parsing)."""
+    return pd.Series(np.asarray(words, dtype=object)).take(np.asarray(codes, dtype=np.int64)).reset_index(drop=True)
 
 
 def _ge(x: pd.Series | np.ndarray, limit: float) -> np.ndarray:
@@ -242,6 +257,17 @@ def age_at(birth: pd.Series, date: pd.Series) -> pd.Series:
     before = (d.dt.month < b.dt.month) | ((d.dt.month == b.dt.month) & (d.dt.day < b.dt.day))
     years = (d.dt.year - b.dt.year - before.astype(float)).astype(float)
     return years.where(b.notna() & d.notna())
+
+
+def _age_years(birth: pd.Series, dates: pd.Series, who: np.ndarray, when: np.ndarray) -> np.ndarray:
+    """Return age_at(birth[who], dates[when]) from the calendar parts of each birth and date once."""
+    by, bm, bd = (birth.dt.year.to_numpy(float)[who], birth.dt.month.to_numpy(float)[who],
+                  birth.dt.day.to_numpy(float)[who])
+    dy, dm, dd = (dates.dt.year.to_numpy(float)[when], dates.dt.month.to_numpy(float)[when],
+                  dates.dt.day.to_numpy(float)[when])
+    before = (dm < bm) | ((dm == bm) & (dd < bd))
+    years = dy - by - before.astype(float)
+    return np.where(np.isnan(by) | np.isnan(dy), np.nan, years)
 
 
 def years_between(start: pd.Series, end: pd.Series) -> pd.Series:
@@ -368,24 +394,50 @@ def clopper_pearson(k: Any, n: Any, level: float = 0.95) -> tuple[np.ndarray, np
 
 
 def _prepare(programme: Programme) -> pd.DataFrame:
-    """Return audiograms joined with people, sorted by person, ear and date."""
+    """Return audiograms joined with people, sorted by person, ear and date.
+
+    One pass: the rows kept (a date and an ear L or R) are put in order once and every
+    column is taken by position; person ids become integer codes (``_pid``, in sorted id
+    order) and person-and-ear keys (``_key``) that every later step sorts, joins and groups on.
+    """
     raw = programme.table("audiograms")
     people = programme.table("people")
+    # the ear, upper-cased: each distinct text folded once (0 left, 1 right, -1 neither)
+    ecode, etext = pd.factorize(_col(raw, "ear", "").astype(str))
+    efold = pd.Series(etext, dtype=object).astype(str).str.upper().to_numpy(object)
+    side = np.r_[np.where(efold == "L", 0, np.where(efold == "R", 1, -1)), -1][ecode]
+    date_all = _dates(_col(raw, "date", pd.NaT))
+    kept = np.flatnonzero(date_all.notna().to_numpy() & (side >= 0))
+    ids_all = _col(raw, "person_id", "").astype(str)
+    # person ids become integers once (codes in sorted id order); every later step keys,
+    # sorts and groups on them, never on the id text
+    codes, uniques = pd.factorize(ids_all.take(kept), sort=True)
+    pid = codes.astype(np.int64)
+    right = side[kept] == 1
+    t = date_all.to_numpy("datetime64[ns]")[kept]
+    order = np.lexsort((t, right, pid))
+    pos = kept[order]
+    pid = pid[order]
+    right = right[order]
+
+    def take(s: pd.Series) -> pd.Series:
+        return s.take(pos).reset_index(drop=True)
+
     ag = pd.DataFrame({
-        "person_id": _col(raw, "person_id", "").astype(str),
-        "ear": _upper(_col(raw, "ear", "").astype(str)),
-        "date": _dates(_col(raw, "date", pd.NaT)),
-        "kind": _col(raw, "kind", "").astype(str).replace("", "periodic"),
-        "quiet_hours": pd.to_numeric(_col(raw, "quiet_hours"), errors="coerce"),
-        "audiometer_id": _col(raw, "audiometer_id", "").fillna("").astype(str),
-        "_row": pd.to_numeric(_col(raw, "_row"), errors="coerce"),
+        "person_id": take(ids_all),
+        "ear": _words(right.astype(np.int64), ["L", "R"]),
+        "date": pd.Series(t[order], dtype="datetime64[ns]"),
+        "kind": take(_col(raw, "kind", "")).astype(str).replace("", "periodic"),
+        "quiet_hours": pd.to_numeric(take(_col(raw, "quiet_hours")), errors="coerce"),
+        "audiometer_id": take(_col(raw, "audiometer_id", "")).fillna("").astype(str),
+        "_row": pd.to_numeric(take(_col(raw, "_row")), errors="coerce"),
     })
     for f in AUDIO_FREQS:
-        ag[f"hl_{f}"] = pd.to_numeric(_col(raw, f"hl_{f}"), errors="coerce").astype(float)
-        ag[f"nr_{f}"] = _col(raw, f"nr_{f}", False).fillna(False).astype(bool)
+        nr = take(_col(raw, f"nr_{f}", False)).fillna(False).astype(bool).to_numpy(bool)
+        hl = pd.to_numeric(take(_col(raw, f"hl_{f}")), errors="coerce").to_numpy(float)
         # NR is never a number, whatever the reader left in the cell
-        ag.loc[ag[f"nr_{f}"], f"hl_{f}"] = np.nan
-    ag = ag[ag["date"].notna() & ag["ear"].isin(["L", "R"])]
+        ag[f"hl_{f}"] = np.where(nr, np.nan, hl)
+        ag[f"nr_{f}"] = nr
     pp = pd.DataFrame({
         "person_id": _col(people, "person_id", "").astype(str),
         "group": _col(people, "group", "").astype(str),
@@ -393,31 +445,41 @@ def _prepare(programme: Programme) -> pd.DataFrame:
         "birth_date": _dates(_col(people, "birth_date", pd.NaT)),
         "hire_date": _dates(_col(people, "hire_date", pd.NaT)),
     }).drop_duplicates("person_id")
-    # person ids become integers once (codes in sorted id order); every later step keys,
-    # sorts and groups on them, never on the id text
-    codes, uniques = pd.factorize(ag["person_id"], sort=True)
-    pid = codes.astype(np.int64)
-    right = ag["ear"].eq("R").to_numpy()
-    order = np.lexsort((ag["date"].to_numpy("datetime64[ns]"), right, pid))
-    ag = ag.take(order).reset_index(drop=True)
-    pid = pid[order]
-    # people's attributes joined by position (one hash of the ids, no frame merge)
-    at = pd.Index(pp["person_id"]).get_indexer(pd.Index(uniques))[pid]
+    # people's attributes joined by position: one value per person code, then per row
+    at = pd.Index(pp["person_id"]).get_indexer(pd.Index(uniques))
     found = at >= 0
     at0 = np.where(found, at, 0)
-    for c, empty in (("group", ""), ("sex", ""), ("birth_date", pd.NaT), ("hire_date", pd.NaT)):
+    nat = np.datetime64("NaT", "ns")
+    birth = None
+    for c, empty in (("group", ""), ("sex", ""), ("birth_date", nat), ("hire_date", nat)):
         src = pp[c].to_numpy()
-        vals = src[at0] if len(src) else np.full(len(at0), empty, dtype=object)
         if c.endswith("_date"):
-            ag[c] = _dates(pd.Series(np.where(found, vals, np.datetime64("NaT", "ns")), dtype="datetime64[ns]"))
+            vals = src[at0] if len(src) else np.full(len(at0), nat, dtype="datetime64[ns]")
+            per = np.where(found, vals, nat).astype("datetime64[ns]")
+            if c == "birth_date":
+                birth = per
+            else:
+                ag[c] = pd.Series(per[pid], dtype="datetime64[ns]")
         else:
-            ag[c] = pd.Series(np.where(found, vals, empty), dtype=object).astype(str)
-    ag["year"] = ag["date"].dt.year.astype(int)
-    ag["age"] = age_at(ag["birth_date"], ag["date"])
-    ag["nr_any"] = ag[[f"nr_{f}" for f in AUDIO_FREQS]].any(axis=1)
-    ag["nr_234"] = ag[[f"nr_{f}" for f in STS_FREQS]].any(axis=1)
+            vals = src[at0] if len(src) else np.full(len(at0), empty, dtype=object)
+            per_person = pd.Series(np.where(found, vals, empty), dtype=object).astype(str)
+            ag[c] = per_person.take(pid).reset_index(drop=True)
+    # calendar parts worked out once per distinct test date and once per person
+    drank, udates = pd.factorize(t[order], sort=True)
+    ud = pd.Series(np.asarray(udates, dtype="datetime64[ns]"))
+    bp = pd.Series(birth if birth is not None else np.zeros(0, dtype="datetime64[ns]"), dtype="datetime64[ns]")
+    ag["year"] = ud.dt.year.to_numpy(np.int64)[drank]
+    ag["age"] = _age_years(bp, ud, pid, drank)
+    nr_any = np.zeros(len(ag), dtype=bool)
+    for f in AUDIO_FREQS:
+        nr_any |= ag[f"nr_{f}"].to_numpy(bool)
+    ag["nr_any"] = nr_any
+    ag["nr_234"] = ag["nr_2000"].to_numpy(bool) | ag["nr_3000"].to_numpy(bool) | ag["nr_4000"].to_numpy(bool)
     ag["_pid"] = pid
-    key = pid * 2 + ag["ear"].eq("R").to_numpy()
+    key = pid * 2 + right
+    ag["_key"] = key
+    # the rank of each test date among the distinct dates: (key, rank) is one sorted integer
+    ag["_drank"] = drank.astype(np.int64)
     same = np.zeros(len(ag), dtype=bool)
     if len(ag) > 1:
         same[1:] = key[1:] == key[:-1]
@@ -443,16 +505,16 @@ def _reviews(programme: Programme, ag: pd.DataFrame, findings: list[Finding]) ->
         "_row": pd.to_numeric(_col(rv, "_row"), errors="coerce"),
     })
     r["order"] = np.arange(len(r))
-    keyed = ag[["person_id", "ear", "date"]].reset_index().rename(columns={"index": "idx"})
-    # decisions naming an audiogram date
-    named = r[r["audiogram_date"].notna()].merge(
-        keyed, left_on=["person_id", "ear", "audiogram_date"], right_on=["person_id", "ear", "date"], how="left")
+    # decisions naming an audiogram date: that audiogram of the person and ear
+    named = r[r["audiogram_date"].notna()].copy()
+    named["idx"] = _row_of(ag, named["person_id"].to_numpy(object), named["ear"].to_numpy(object),
+                           named["audiogram_date"])
     # decisions without one: the latest audiogram of that ear on or before the decision
     unnamed = r[r["audiogram_date"].isna() & r["review_date"].notna()].sort_values("review_date", kind="mergesort")
-    if not unnamed.empty:
-        k2 = keyed.sort_values("date", kind="mergesort")
-        unnamed = pd.merge_asof(unnamed, k2, left_on="review_date", right_on="date", by=["person_id", "ear"],
-                                direction="backward")
+    unnamed = unnamed.assign(idx=_row_on_or_before(ag, unnamed["person_id"].to_numpy(object),
+                                                   unnamed["ear"].to_numpy(object), unnamed["review_date"]))
+    named["idx"] = named["idx"].where(named["idx"] >= 0)
+    unnamed["idx"] = unnamed["idx"].where(unnamed["idx"] >= 0)
     m = pd.concat([named, unnamed], ignore_index=True)
     missing = m[m["idx"].isna()]
     if not missing.empty:
@@ -468,30 +530,39 @@ def _reviews(programme: Programme, ag: pd.DataFrame, findings: list[Finding]) ->
 
 def _baseline_events(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
     """Return every baseline event per person and ear: [person_id, ear, baseline_date, source, decided]."""
-    cand = ag.loc[ag["valid_234"], ["person_id", "ear", "date", "kind"]].copy()
-    cand["prio"] = (cand["kind"] != "baseline").astype(int)
-    first = cand.sort_values(["person_id", "ear", "prio", "date"], kind="mergesort").drop_duplicates(
-        ["person_id", "ear"])
+    key = _ear_key(ag)
+    valid = np.flatnonzero(ag["valid_234"].to_numpy(bool))
+    prio = (ag["kind"].to_numpy(object)[valid] != "baseline").astype(np.int64)
+    # rows are in person, ear and date order: a stable sort on (key, prio) keeps the date order
+    o = np.lexsort((prio, key[valid]))
+    kv = key[valid][o]
+    first = valid[o][np.r_[True, kv[1:] != kv[:-1]]] if len(kv) else valid[:0]
+    fprio = (ag["kind"].to_numpy(object)[first] != "baseline")
     ev = pd.DataFrame({
-        "person_id": first["person_id"], "ear": first["ear"], "baseline_date": first["date"],
-        "source": np.where(first["prio"].eq(0), "baseline kind", "first"),
-        "decided": pd.Series(pd.NaT, index=first.index, dtype="datetime64[ns]"),
+        "person_id": ag["person_id"].take(first).to_numpy(), "ear": ag["ear"].take(first).to_numpy(),
+        "baseline_date": ag["date"].to_numpy("datetime64[ns]")[first],
+        "source": np.where(fprio, "first", "baseline kind"),
+        "decided": pd.Series(pd.NaT, index=range(len(first)), dtype="datetime64[ns]"),
+        "_at": first,
     })
     rev = decisions[decisions["decision"].eq("revise_baseline")]
     if not rev.empty:
-        rows = ag.loc[rev["idx"].to_numpy()]
-        ok = rows["valid_234"].to_numpy()
+        at = rev["idx"].to_numpy(np.int64)
+        ok = ag["valid_234"].to_numpy(bool)[at]
+        at = at[ok]
         ev2 = pd.DataFrame({
-            "person_id": rows["person_id"].to_numpy()[ok], "ear": rows["ear"].to_numpy()[ok],
-            "baseline_date": rows["date"].to_numpy()[ok], "source": "revised by review",
-            "decided": rev["review_date"].to_numpy()[ok],
+            "person_id": ag["person_id"].take(at).to_numpy(), "ear": ag["ear"].take(at).to_numpy(),
+            "baseline_date": ag["date"].to_numpy("datetime64[ns]")[at], "source": "revised by review",
+            "decided": rev["review_date"].to_numpy()[ok], "_at": at,
         })
         ev = pd.concat([ev, ev2], ignore_index=True)
     ev["baseline_date"] = _dates(ev["baseline_date"])
     ev["decided"] = _dates(ev["decided"])
-    ev = ev.sort_values(["person_id", "ear", "baseline_date", "decided"], kind="mergesort", na_position="first")
-    ev = ev.drop_duplicates(["person_id", "ear", "baseline_date"], keep="last").reset_index(drop=True)
-    return ev
+    # person codes follow the sorted ids: sorting on the row's key equals sorting on (person_id, ear)
+    ev["_key"] = key[ev["_at"].to_numpy(np.int64)]
+    ev = ev.sort_values(["_key", "baseline_date", "decided"], kind="mergesort", na_position="first")
+    ev = ev.drop_duplicates(["_key", "baseline_date"], keep="last").reset_index(drop=True)
+    return ev.drop(columns=["_at", "_key"])
 
 
 def _person_rows(ag: pd.DataFrame) -> np.ndarray:
@@ -502,27 +573,67 @@ def _person_rows(ag: pd.DataFrame) -> np.ndarray:
 
 def _ear_key(ag: pd.DataFrame) -> np.ndarray:
     """Return the integer key of each row's person and ear (non-decreasing in the sorted frame)."""
+    if "_key" in ag.columns:
+        return ag["_key"].to_numpy(np.int64)
     return ag["_pid"].to_numpy(np.int64) * 2 + ag["ear"].eq("R").to_numpy()
+
+
+def _date_index(ag: pd.DataFrame) -> tuple[np.ndarray, np.ndarray]:
+    """Return the distinct test dates (int64 ns, ascending) and the sorted (person, ear, date) code of each row."""
+    t = ag["date"].to_numpy("datetime64[ns]").view(np.int64)
+    if "_drank" in ag.columns:
+        rank = ag["_drank"].to_numpy(np.int64)
+        ud = np.zeros(int(rank.max()) + 1 if len(rank) else 0, dtype=np.int64)
+        ud[rank] = t
+    else:
+        ud, rank = np.unique(t, return_inverse=True)
+        rank = rank.reshape(-1)
+    return ud, _ear_key(ag) * max(len(ud), 1) + rank
 
 
 def _row_of(ag: pd.DataFrame, person_id: Any, ear: Any, date: Any) -> np.ndarray:
     """Return the position in *ag* of each (person_id, ear, date), -1 where there is none."""
     if not len(ag):
         return np.full(len(np.asarray(person_id)), -1, dtype=np.int64)
-    key = _ear_key(ag)
     ids = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)])  # id of each person code
     pid = ids.get_indexer(pd.Index(np.asarray(person_id, dtype=object)))
-    k = np.where(pid >= 0, pid.astype(np.int64) * 2 + (np.asarray(ear, dtype=object) == "R"), -1)
-    index = pd.MultiIndex.from_arrays([key, ag["date"].to_numpy("datetime64[ns]")])
-    pos = index.get_indexer(pd.MultiIndex.from_arrays([k, _dates(pd.Series(date)).to_numpy("datetime64[ns]")]))
-    return np.where(pid >= 0, pos, -1).astype(np.int64)
+    e = np.asarray(ear, dtype=object)
+    k = pid.astype(np.int64) * 2 + (e == "R")
+    ud, code = _date_index(ag)
+    d = _dates(pd.Series(date)).to_numpy("datetime64[ns]")
+    q = d.view(np.int64)
+    qr = np.clip(np.searchsorted(ud, q), 0, max(len(ud) - 1, 0))
+    # rows are sorted by person, ear and date: one binary search on the combined code
+    want = k * max(len(ud), 1) + qr
+    pos = np.clip(np.searchsorted(code, want), 0, len(code) - 1)
+    hit = (pid >= 0) & ((e == "R") | (e == "L")) & ~np.isnat(d) & (ud[qr] == q) & (code[pos] == want)
+    return np.where(hit, pos, -1).astype(np.int64)
+
+
+def _row_on_or_before(ag: pd.DataFrame, person_id: Any, ear: Any, date: Any) -> np.ndarray:
+    """Return the position of the latest row of each (person_id, ear) dated on or before *date*, else -1."""
+    if not len(ag):
+        return np.full(len(np.asarray(person_id)), -1, dtype=np.int64)
+    ids = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)])
+    pid = ids.get_indexer(pd.Index(np.asarray(person_id, dtype=object)))
+    e = np.asarray(ear, dtype=object)
+    k = pid.astype(np.int64) * 2 + (e == "R")
+    ud, code = _date_index(ag)
+    d = _dates(pd.Series(date)).to_numpy("datetime64[ns]")
+    qr = np.searchsorted(ud, d.view(np.int64), side="right") - 1  # latest distinct date on or before
+    pos = np.searchsorted(code, k * max(len(ud), 1) + qr, side="right") - 1
+    key = _ear_key(ag)
+    hit = (pid >= 0) & ((e == "R") | (e == "L")) & ~np.isnat(d) & (qr >= 0) & (pos >= 0)
+    hit[hit] = key[pos[hit]] == k[hit]
+    return np.where(hit, pos, -1).astype(np.int64)
 
 
 def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
     """Add baseline_date, baseline_source and the baseline thresholds to each audiogram row.
 
-    One pass over integer keys: the event in force for each row is found by one stable sort
-    of rows and events together; the baseline's thresholds are taken by position.
+    One pass over integer keys: the rows are in person, ear and date order, each event is
+    placed among them by a binary search, and the latest event placed before a row is in
+    force for it; the baseline's thresholds are read by position (_base).
     """
     n = len(ag)
     key = _ear_key(ag)
@@ -534,104 +645,126 @@ def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
     # The first baseline of an ear applies to its own date (it is compared with itself).
     first = ~events.duplicated(["person_id", "ear"], keep="first").to_numpy()
     later = events["source"].eq("revised by review").to_numpy() & ~first
-    eff = _dates(events["baseline_date"]).to_numpy("datetime64[ns]").view(np.int64)
-    # rows and events in one order: by key, then time; at equal time an event that takes
-    # effect on the day (not a later revision) comes before the row
+    # rows and events in one order: by key, then date; at equal date an event that takes
+    # effect on the day (not a later revision) comes before the row, a later revision after it.
+    # Rows are in that order already: each event's place among them is one binary search.
     m = len(events)
-    t_all = np.r_[eff, ag["date"].to_numpy("datetime64[ns]").view(np.int64)]
-    k_all = np.r_[ev_key, key]
-    kind = np.r_[np.where(later, 2, 0), np.ones(n, dtype=np.int64)]
-    order = np.lexsort((kind, t_all, k_all))
-    is_ev = order < m
-    last_ev = np.where(is_ev, np.arange(len(order)), -1)
-    last_ev = np.maximum.accumulate(last_ev) if len(order) else last_ev
-    rows = ~is_ev
-    cand = last_ev[rows]
-    ev_of = np.where(cand >= 0, order[np.clip(cand, 0, None)], -1)
-    row_at = order[rows] - m
-    in_force = np.full(n, -1, dtype=np.int64)
-    ok = (ev_of >= 0)
-    ok[ok] = ev_key[ev_of[ok]] == key[row_at[ok]]
-    in_force[row_at[ok]] = ev_of[ok]
+    _, code = _date_index(ag)
+    e_idx = np.flatnonzero(ev_pos >= 0)  # an event naming no audiogram row is never in force
+    e_code = code[ev_pos[e_idx]]
+    e_later = later[e_idx]
+    ins = np.where(e_later, np.searchsorted(code, e_code, side="right"), np.searchsorted(code, e_code, side="left"))
+    o = np.lexsort((e_later, e_code))
+    mark = np.full(n + 1, -1, dtype=np.int64)
+    np.maximum.at(mark, ins[o], np.arange(len(o)))
+    latest = np.maximum.accumulate(mark)[:n] if n else mark[:0]
+    ev_of = np.where(latest >= 0, e_idx[o][np.clip(latest, 0, None)] if len(o) else -1, -1)
+    in_force = np.where((ev_of >= 0) & (ev_key[np.clip(ev_of, 0, None)] == key if m else False), ev_of, -1)
     has = in_force >= 0
     ev_i = np.clip(in_force, 0, None)
     bdate = _dates(events["baseline_date"]).to_numpy("datetime64[ns]")
     src = events["source"].astype(object).to_numpy()
     ag["baseline_date"] = pd.Series(np.where(has, bdate[ev_i] if m else np.datetime64("NaT", "ns"),
                                              np.datetime64("NaT", "ns")), dtype="datetime64[ns]")
-    ag["baseline_source"] = pd.Series(np.where(has, src[ev_i] if m else "", ""), dtype=object).astype(str) \
-        if m else ""
-    bpos = np.where(has, ev_pos[ev_i] if m else -1, -1)
-    has_b = bpos >= 0
-    bi = np.clip(bpos, 0, None)
-    base_cols = [f"hl_{f}" for f in AUDIO_FREQS] + ["age", "avg_234"]
-    for c in base_cols:
-        v = ag[c].to_numpy(float)
-        ag[f"base_{c}"] = np.where(has_b, v[bi] if n else np.nan, np.nan)
+    if m:
+        scode, sword = pd.factorize(src)
+        ag["baseline_source"] = _words(np.where(has, scode[ev_i] + 1, 0), [""] + list(sword))
+    else:
+        ag["baseline_source"] = ""
+    # the baseline audiogram's row: its thresholds are read by position when needed (_base)
+    ag["_bpos"] = np.where(has, ev_pos[ev_i] if m else -1, -1).astype(np.int64)
+    ag["base_age"] = _base(ag, "age")
     return ag
 
 
+def _base(ag: pd.DataFrame, column: str, rows: np.ndarray | None = None) -> np.ndarray:
+    """Return *column* of the baseline audiogram compared with each row (or with *rows*), NaN where none."""
+    bpos = ag["_bpos"].to_numpy(np.int64)
+    if rows is not None:
+        bpos = bpos[rows]
+    v = ag[column].to_numpy(float)
+    if not len(v):
+        return np.full(len(bpos), np.nan)
+    return np.where(bpos >= 0, v[np.clip(bpos, 0, None)], np.nan)
+
+
 def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
-    """Add the OSHA, age-corrected and NIOSH shift columns."""
-    has_base = ag["baseline_date"].notna()
-    diffs = np.stack([(ag[f"hl_{f}"] - ag[f"base_hl_{f}"]).to_numpy() for f in STS_FREQS], axis=1)
-    ag["shift_234"] = diffs.mean(axis=1)
-    # the App. F table is indexed once per row for the test age and once for the baseline age
-    sex = norms._sex_codes(ag["sex"].to_numpy(object))
-    age_c = _appf(ag["age"].to_numpy(float), sex)
-    base_c = _appf(ag["base_age"].to_numpy(float), sex)
-    corr = age_c - base_c
-    for j, f in enumerate(STS_FREQS):
-        ag[f"shift_{f}"] = diffs[:, j]
-        ag[f"shift_{f}_age_corrected"] = diffs[:, j] - corr[:, j]
-    ag["age_correction_234"] = corr.mean(axis=1)
-    ag["shift_234_age_corrected"] = (diffs - corr).mean(axis=1)
-    known = np.isfinite(ag["shift_234"].to_numpy()) & has_base.to_numpy()
-    known_c = np.isfinite(ag["shift_234_age_corrected"].to_numpy()) & has_base.to_numpy()
-    ag["osha_sts"] = _nbool(_ge(ag["shift_234"], SETTINGS["sts_db"]), known)
-    ag["osha_sts_age_corrected"] = _nbool(_ge(ag["shift_234_age_corrected"], SETTINGS["sts_db"]), known_c)
-    if age_correction:
-        drive = ag["osha_sts_age_corrected"].where(ag["osha_sts_age_corrected"].notna(), ag["osha_sts"])
-        basis = np.array(["", "not age corrected (sex or age unknown)", "age corrected"], dtype=object)
-        ag["sts_basis"] = basis[np.where(known_c, 2, known.astype(np.int64))]
-        ag["shift_driving"] = ag["shift_234_age_corrected"].where(
-            ag["shift_234_age_corrected"].notna(), ag["shift_234"])
-    else:
-        drive = ag["osha_sts"]
-        ag["sts_basis"] = np.array(["", "not age corrected"], dtype=object)[known.astype(np.int64)]
-        ag["shift_driving"] = ag["shift_234"]
-    ag["sts_computed"] = drive.astype("boolean")
-    # the same comparisons against the baseline in force at the PREVIOUS test of the ear: a
-    # retest (or the next test) is judged against the flagged test's baseline, also when a
-    # revision naming the flagged test changed the baseline between them (1910.95(g)(9))
+    """Add the OSHA, age-corrected and NIOSH shift columns.
+
+    Every threshold of the baseline (and of the previous test's baseline) is read by position
+    one frequency at a time, so no frame of baseline thresholds is ever made.
+    """
+    n = len(ag)
+    has_base = ag["baseline_date"].notna().to_numpy()
     sp = ag["_same_prev"].to_numpy(bool)
     sn = ag["_same_next"].to_numpy(bool)
-    prev_has = _prv(has_base.to_numpy(bool), sp, False).astype(bool)
-    pbase = {f: _prv(ag[f"base_hl_{f}"].to_numpy(float), sp, np.nan) for f in AUDIO_FREQS}
-    pdiffs = np.stack([ag[f"hl_{f}"].to_numpy(float) - pbase[f] for f in STS_FREQS], axis=1)
+    prev_has = _prv(has_base, sp, False).astype(bool)
+    # the change at 2, 3 and 4 kHz against this row's baseline and against the baseline in
+    # force at the PREVIOUS test of the ear: a retest (or the next test) is judged against the
+    # flagged test's baseline, also when a revision naming the flagged test changed the
+    # baseline between them (1910.95(g)(9))
+    diffs = np.empty((n, len(STS_FREQS)))
+    pdiffs = np.empty((n, len(STS_FREQS)))
+    for j, f in enumerate(STS_FREQS):
+        hl = ag[f"hl_{f}"].to_numpy(float)
+        base = _base(ag, f"hl_{f}")
+        diffs[:, j] = hl - base
+        pdiffs[:, j] = hl - _prv(base, sp, np.nan)
+    shift = diffs.mean(axis=1)
+    ag["shift_234"] = shift
+    # sex is a person's: coded once per person; the App. F table is indexed once per row for
+    # the test age and once for the baseline age
+    pid = ag["_pid"].to_numpy(np.int64)
+    male, female = norms._sex_codes(ag["sex"].to_numpy(object)[_person_rows(ag)])
+    sex = (male[pid], female[pid]) if n else (np.zeros(0, dtype=bool), np.zeros(0, dtype=bool))
+    age_c = _appf(ag["age"].to_numpy(float), sex)
+    base_c = _appf(ag["base_age"].to_numpy(float), sex)
+    shift_c = (diffs - (age_c - base_c)).mean(axis=1)
+    del diffs
+    ag["shift_234_age_corrected"] = shift_c
+    known = np.isfinite(shift) & has_base
+    known_c = np.isfinite(shift_c) & has_base
+    raw = _ge(shift, SETTINGS["sts_db"])
+    cor = _ge(shift_c, SETTINGS["sts_db"])
+    ag["osha_sts"] = _nbool(raw, known)
+    ag["osha_sts_age_corrected"] = _nbool(cor, known_c)
+    if age_correction:
+        drive = _nbool(np.where(known_c, cor, raw), known_c | known)
+        ag["sts_basis"] = _words(np.where(known_c, 2, known.astype(np.int64)),
+                                 ["", "not age corrected (sex or age unknown)", "age corrected"])
+        ag["shift_driving"] = np.where(np.isnan(shift_c), shift, shift_c)
+    else:
+        drive = _nbool(raw, known)
+        ag["sts_basis"] = _words(known.astype(np.int64), ["", "not age corrected"])
+        ag["shift_driving"] = shift
+    ag["sts_computed"] = drive
     # the previous row is the same person (same sex): its baseline's correction, shifted down
     pbase_c = np.where(sp[:, None], np.vstack([np.full((1, len(STS_FREQS)), np.nan), base_c[:-1]]), np.nan) \
-        if len(ag) else base_c
-    pcorr = age_c - pbase_c
+        if n else base_c
+    del base_c
     praw = pdiffs.mean(axis=1)
-    pcor = (pdiffs - pcorr).mean(axis=1)
-    raw_p = _nbool(_ge(praw, SETTINGS["sts_db"]), np.isfinite(praw) & prev_has)
-    cor_p = _nbool(_ge(pcor, SETTINGS["sts_db"]), np.isfinite(pcor) & prev_has)
-    ag["_sts_vs_prev_base"] = (cor_p.where(cor_p.notna(), raw_p) if age_correction else raw_p).set_axis(ag.index)
+    pcor = (pdiffs - (age_c - pbase_c)).mean(axis=1)
+    del pdiffs, pbase_c, age_c
+    raw_p = _ge(praw, SETTINGS["sts_db"])
+    cor_p = _ge(pcor, SETTINGS["sts_db"])
+    kraw = np.isfinite(praw) & prev_has
+    kcor = np.isfinite(pcor) & prev_has
+    ag["_sts_vs_prev_base"] = _nbool(np.where(kcor, cor_p, raw_p), kcor | kraw) if age_correction \
+        else _nbool(raw_p, kraw)
     # NIOSH: >= 15 dB at the same frequency on this and the next test of the ear (the next
     # test compared with this test's baseline)
-    s15 = []
-    conf = []
-    for f in NIOSH_FREQS:
-        d = (ag[f"hl_{f}"] - ag[f"base_hl_{f}"]).to_numpy()
-        hit = _ge(d, SETTINGS["niosh_db"]) & has_base.to_numpy()
-        hit_p = _ge(ag[f"hl_{f}"].to_numpy(float) - pbase[f], SETTINGS["niosh_db"]) & prev_has
-        nxt = _nxt(hit_p, sn, False).astype(bool)
-        s15.append(hit)
-        conf.append(hit & nxt & sn)
-    ag["niosh_15"] = np.any(np.stack(s15, axis=1), axis=1)
-    ag["niosh_shift"] = np.any(np.stack(conf, axis=1), axis=1)
-    ag["niosh_freqs"] = _freq_list(np.stack(conf, axis=1), NIOSH_FREQS)
+    s15 = np.zeros(n, dtype=bool)
+    conf = np.zeros((n, len(NIOSH_FREQS)), dtype=bool)
+    for j, f in enumerate(NIOSH_FREQS):
+        hl = ag[f"hl_{f}"].to_numpy(float)
+        base = _base(ag, f"hl_{f}")
+        hit = _ge(hl - base, SETTINGS["niosh_db"]) & has_base
+        hit_p = _ge(hl - _prv(base, sp, np.nan), SETTINGS["niosh_db"]) & prev_has
+        s15 |= hit
+        conf[:, j] = hit & _nxt(hit_p, sn, False).astype(bool) & sn
+    ag["niosh_15"] = s15
+    ag["niosh_shift"] = conf.any(axis=1)
+    ag["niosh_freqs"] = _freq_list(conf, NIOSH_FREQS)
     return ag
 
 
@@ -639,28 +772,29 @@ def _appf(age: np.ndarray, sex: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
     """Return the App. F age correction at 2000, 3000 and 4000 Hz per row, shape (n, 3).
 
     The same values as ``norms.appf_correction`` (Tables F-1/F-2), with the table looked up
-    once for all three frequencies.
+    once for all three frequencies: one take from the male rows, the female rows and a row
+    of NaN (sex or age unknown).
     """
     cols = [norms.APPF_FREQS.index(f) for f in STS_FREQS]
     male, female = sex  # masks from norms._sex_codes
+    m = norms._APPF_MALE[:, cols].astype(float)
+    table = np.vstack([m, norms._APPF_FEMALE[:, cols].astype(float), np.full((1, len(cols)), np.nan)])
     a_ok = np.isfinite(age)
-    row = (np.clip(np.floor(np.where(a_ok, age, 20.0)), 20, 60) - 20).astype(int)
-    m = norms._APPF_MALE[:, cols][row].astype(float)
-    f = norms._APPF_FEMALE[:, cols][row].astype(float)
-    out = np.where(male[:, None], m, np.where(female[:, None], f, np.nan))
-    return np.where(a_ok[:, None], out, np.nan)
+    row = (np.clip(np.floor(np.where(a_ok, age, 20.0)), 20, 60) - 20).astype(np.int64)
+    at = np.where(a_ok & male, row, np.where(a_ok & female, len(m) + row, 2 * len(m)))
+    return table[at]
 
 
-def _freq_list(mask: np.ndarray, freqs: tuple[int, ...]) -> np.ndarray:
-    """Return, per row, the frequencies where *mask* is True as text like '4000, 6000'."""
-    out = np.full(mask.shape[0], "", dtype=object)
-    hit = np.flatnonzero(mask.any(axis=1))  # text only for the rows with a frequency
-    sub = out[hit]
-    for j, f in enumerate(freqs):
-        add = mask[hit, j]
-        sub = np.where(add & (sub == ""), str(f), np.where(add, sub + f", {f}", sub))
-    out[hit] = sub
-    return out
+def _freq_list(mask: np.ndarray, freqs: tuple[int, ...]) -> pd.Series:
+    """Return, per row, the frequencies where *mask* is True as text like '4000, 6000'.
+
+    Each combination of frequencies is worded once; rows share the text.
+    """
+    code = np.zeros(mask.shape[0], dtype=np.int64)
+    for j in range(len(freqs)):
+        code |= mask[:, j].astype(np.int64) << j
+    words = [", ".join(str(f) for j, f in enumerate(freqs) if c >> j & 1) for c in range(1 << len(freqs))]
+    return _words(code, words)
 
 
 def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
@@ -682,9 +816,8 @@ def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
     is_retest = prev_sts & ((ag["date"] - prev_date) <= window).to_numpy()
     determination = sts & ~is_retest
     has_retest = ((next_date - ag["date"]) <= window).to_numpy()
-    status = np.where(~determination, "",
-                      np.where(~has_retest | ~next_known, "no retest",
-                               np.where(next_sts, "confirmed", "cancelled")))
+    status = _words(np.where(~determination, 0, np.where(~has_retest | ~next_known, 1, np.where(next_sts, 2, 3))),
+                    RETEST_WORDS)
     ag["is_retest_of_shift"] = is_retest
     ag["determination"] = determination
     ag["retest_status"] = status
@@ -696,57 +829,110 @@ def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
 
 
 def _apply_reviews(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
-    """Add review_decision (as named), shift_decision and not_work_related (on determination rows)."""
-    ag["review_decision"] = ""
-    ag["shift_decision"] = ""
-    ag["not_work_related"] = False
+    """Add review_decision (as named), _shift_decision (1 confirm, 2 cancel) and not_work_related.
+
+    The shift decisions and not_work_related are set on the determination rows.
+    """
+    n = len(ag)
+    shift_decision = np.zeros(n, dtype=np.int8)  # 1 confirm_shift, 2 cancel_shift (the later decision)
+    not_work_related = np.zeros(n, dtype=bool)
     if decisions.empty:
+        ag["review_decision"] = _words(np.zeros(n, dtype=np.int64), [""])
+        ag["_shift_decision"] = shift_decision
+        ag["not_work_related"] = not_work_related
         return ag
+    text = np.full(n, "", dtype=object)
     first = decisions.drop_duplicates("idx")
-    ag.loc[first["idx"].to_numpy(), "review_decision"] = first["decision"].to_numpy()
+    text[first["idx"].to_numpy()] = first["decision"].to_numpy(object)
     multi = decisions[decisions.duplicated("idx", keep=False)]
     if not multi.empty:  # several decisions on one audiogram: all shown, in date order
         joined = multi.groupby("idx", sort=True)["decision"].agg("; ".join)
-        ag.loc[joined.index.to_numpy(), "review_decision"] = joined.to_numpy()
+        text[joined.index.to_numpy()] = joined.to_numpy(object)
+    # the texts of the rows with a decision, each made once
+    named = first["idx"].to_numpy()
+    codes = np.zeros(n, dtype=np.int64)
+    inv, words = pd.factorize(text[named], use_na_sentinel=False)
+    codes[named] = inv + 1
+    ag["review_decision"] = _words(codes, [""] + list(words))
     d = decisions.copy()
     d["det"] = ag["det_idx"].to_numpy()[d["idx"].to_numpy()]
     sd = d[d["decision"].isin(["confirm_shift", "cancel_shift"])].drop_duplicates("det", keep="last")
-    ag.loc[sd["det"].to_numpy(), "shift_decision"] = sd["decision"].to_numpy()
+    shift_decision[sd["det"].to_numpy()] = np.where(sd["decision"].eq("confirm_shift").to_numpy(bool), 1, 2)
     nwr = d.loc[d["decision"].eq("not_work_related"), "det"].unique()
-    ag.loc[nwr, "not_work_related"] = True
+    not_work_related[nwr] = True
+    ag["_shift_decision"] = shift_decision
+    ag["not_work_related"] = not_work_related
     return ag
 
 
 def _status_and_cases(ag: pd.DataFrame) -> pd.DataFrame:
     """Add sts (in force), shift_status, recordable_criteria and recordable."""
     det = ag["determination"].to_numpy(bool)
-    dec = ag["shift_decision"].to_numpy(object)
-    retest = ag["retest_status"].to_numpy(object)
-    confirmed_by_reviewer = dec == "confirm_shift"
-    cancelled_by_reviewer = dec == "cancel_shift"
-    active = ((det & (retest != "cancelled")) | confirmed_by_reviewer) & ~cancelled_by_reviewer
+    dec = ag["_shift_decision"].to_numpy(np.int8)
+    retest = ag["retest_status"]
+    r_cancelled = retest.eq("cancelled").to_numpy(bool)
+    r_confirmed = retest.eq("confirmed").to_numpy(bool)
+    confirmed_by_reviewer = dec == 1
+    cancelled_by_reviewer = dec == 2
+    active = ((det & ~r_cancelled) | confirmed_by_reviewer) & ~cancelled_by_reviewer
     ag["sts"] = active
     nwr = ag["not_work_related"].to_numpy(bool)
     nr_pending = ag["nr_234"].to_numpy(bool) & ag["baseline_date"].notna().to_numpy() & ~active
+    words = ["", "cancelled by reviewer", "not work-related", "confirmed by reviewer", "cancelled by retest",
+             "confirmed by retest", "shift", "not computed (NR)"]
     status = np.select(
         [cancelled_by_reviewer, confirmed_by_reviewer & nwr, confirmed_by_reviewer, active & nwr,
-         det & (retest == "cancelled"), active & (retest == "confirmed"), active, nr_pending],
-        ["cancelled by reviewer", "not work-related", "confirmed by reviewer", "not work-related",
-         "cancelled by retest", "confirmed by retest", "shift", "not computed (NR)"],
-        default="")
-    ag["shift_status"] = status
+         det & r_cancelled, active & r_confirmed, active, nr_pending],
+        [1, 2, 3, 2, 4, 5, 6, 7], default=0)
+    ag["shift_status"] = _words(status, words)
     crit = active & ~nwr & _ge(ag["avg_234"], SETTINGS["recordable_db"])
     ag["recordable_criteria"] = crit
-    first = pd.Series(crit).groupby([_ear_key(ag), ag["baseline_date"].to_numpy()], sort=False,
-                                    dropna=False).cumsum()
+    first = pd.Series(crit).groupby([_ear_key(ag), ag["baseline_date"].to_numpy().view(np.int64)],
+                                    sort=False).cumsum()
     ag["recordable"] = crit & (first.to_numpy() == 1)
     # determination date: the retest when it confirmed, else the audiogram
-    ag["determined_on"] = ag["retest_date"].where(ag["retest_status"].eq("confirmed"), ag["date"])
+    ag["determined_on"] = ag["retest_date"].where(r_confirmed, ag["date"])
     return ag
 
 
 # ---------------------------------------------------------------------------------------
 # audiometer checks
+
+
+def _meter_rows(ag: pd.DataFrame, meters: pd.DataFrame) -> np.ndarray:
+    """Return, per audiogram row, the row of *meters* for its audiometer and test day (-1 where none)."""
+    if not len(ag) or meters.empty:
+        return np.full(len(ag), -1, dtype=np.int64)
+    ud, _ = _date_index(ag)
+    nd = max(len(ud), 1)
+    ids = pd.Index(pd.unique(meters["audiometer_id"].to_numpy(object)))
+    code = ids.get_indexer(ag["audiometer_id"].to_numpy(object))
+    mt = meters["date"].to_numpy("datetime64[ns]")
+    mr = np.clip(np.searchsorted(ud, mt.view(np.int64)), 0, nd - 1)
+    ok = ~np.isnat(mt) & (ud[mr] == mt.view(np.int64)) if len(ud) else np.zeros(len(mt), dtype=bool)
+    mkey = ids.get_indexer(meters["audiometer_id"].to_numpy(object)).astype(np.int64) * nd + mr
+    first = pd.Series(np.arange(len(meters)), index=mkey)[ok]
+    first = first[~first.index.duplicated(keep="first")]
+    at = pd.Index(first.index).get_indexer(code.astype(np.int64) * nd + ag["_drank"].to_numpy(np.int64))
+    return np.where((code >= 0) & (at >= 0), first.to_numpy()[np.clip(at, 0, None)], -1).astype(np.int64)
+
+
+def _case_rows(ag: pd.DataFrame, cases: pd.DataFrame) -> np.ndarray:
+    """Return the recordable ear rows whose person and date make a case (CASE_COLUMNS rows)."""
+    rec = ag["recordable"].to_numpy(bool)
+    out = np.zeros(len(ag), dtype=bool)
+    if cases.empty or not rec.any():
+        return out
+    ud, _ = _date_index(ag)
+    nd = max(len(ud), 1)
+    ids = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)])
+    cp = ids.get_indexer(pd.Index(cases["person_id"].astype(str).to_numpy(object))).astype(np.int64)
+    ct = cases["date"].to_numpy("datetime64[ns]").view(np.int64)
+    cr = np.clip(np.searchsorted(ud, ct), 0, nd - 1)
+    made = (cp * nd + cr)[(cp >= 0) & (ud[cr] == ct)]
+    pos = np.flatnonzero(rec)
+    out[pos] = np.isin(ag["_pid"].to_numpy(np.int64)[pos] * nd + ag["_drank"].to_numpy(np.int64)[pos], made)
+    return out
 
 
 def _audiometer_status(checks: AudiometerChecks) -> pd.DataFrame:
@@ -775,7 +961,7 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
         .loc[cur.index].to_numpy()
     # the baseline audiogram of each ear, by position (every event names an audiogram row)
     pos = _row_of(ag, cur["person_id"].to_numpy(object), cur["ear"].to_numpy(object), cur["baseline_date"])
-    rcols = ["person_id", "ear", "baseline_date", "sts", "retest_status", "sts_computed", "shift_234", "date"]
+    rcols = ["person_id", "ear", "baseline_date", "sts", "retest_status", "sts_computed", "shift_234", "date", "_key"]
     if (pos >= 0).all():
         cur = cur.reset_index(drop=True)
         for c in ("group", "quiet_hours", "valid_check"):
@@ -783,9 +969,9 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
         key = _ear_key(ag)
         in_force = np.full(int(key.max()) + 1 if len(key) else 0, np.datetime64("NaT", "ns"), dtype="datetime64[ns]")
         in_force[key[pos]] = cur["baseline_date"].to_numpy("datetime64[ns]")
-        # candidates among rows compared with the baseline now in force
+        # candidates among rows compared with the baseline now in force (the columns read below)
         now = ag["baseline_date"].to_numpy("datetime64[ns]") == in_force[key]
-        rows = ag.loc[now, rcols].reset_index(drop=True)
+        rows = ag[rcols[3:]][now].reset_index(drop=True)
     else:
         info = ag[["person_id", "ear", "date", "group", "quiet_hours", "valid_check"]].rename(
             columns={"date": "baseline_date"})
@@ -793,22 +979,28 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
         rows = ag[rcols].merge(cur[["person_id", "ear", "baseline_date"]], on=["person_id", "ear", "baseline_date"])
     q = cur["quiet_hours"]
     cur["quiet_ok"] = _nbool(_ge(q, min_quiet), q.notna())
-    def keys(df: pd.DataFrame) -> pd.Series:
-        return df["person_id"].astype(str) + "\x1f" + df["ear"].astype(str)
-
-    shift_rows = rows[rows["sts"]]
-    n_det = shift_rows.groupby(keys(shift_rows), sort=True).size()
-    confirmed = shift_rows[shift_rows["retest_status"].eq("confirmed")]
-    computed = rows[rows["sts_computed"].fillna(False).astype(bool)]
-    latest_shift = computed.groupby(keys(computed), sort=True)["date"].max()
-    persistent = set(n_det.index[n_det >= 2]) | set(keys(confirmed))
-    better = (rows["shift_234"] <= -SETTINGS["improvement_db"]).astype(bool)
-    prev_better = better.groupby([rows["person_id"], rows["ear"]], sort=False).shift(1, fill_value=False)
-    imp_rows = rows[better & prev_better.astype(bool)]
-    impr = imp_rows.groupby(keys(imp_rows), sort=True)["date"].max()
-    key = keys(cur)
-    is_pers = key.isin(persistent).to_numpy()
-    is_impr = key.isin(set(impr.index)).to_numpy()
+    # person and ear as one integer (codes in sorted id order, so sorted keys follow the ids)
+    ids = pd.Index(ag["person_id"].to_numpy()[_person_rows(ag)]) if len(ag) else pd.Index([], dtype=object)
+    rkey = rows["_key"].to_numpy(np.int64)
+    ckey = ids.get_indexer(pd.Index(cur["person_id"].to_numpy(object))).astype(np.int64) * 2 \
+        + (cur["ear"].to_numpy(object) == "R")
+    sts = rows["sts"].to_numpy(bool)
+    n_det = np.bincount(rkey[sts], minlength=len(ids) * 2) if len(ids) else np.zeros(0, dtype=np.int64)
+    confirmed = sts & (rows["retest_status"].to_numpy(object) == "confirmed")
+    pers_keys = np.zeros(len(n_det), dtype=bool)
+    pers_keys[n_det >= 2] = True
+    pers_keys[rkey[confirmed]] = True
+    computed = rows["sts_computed"].fillna(False).to_numpy(bool)
+    rdate = rows["date"].to_numpy("datetime64[ns]")
+    latest_shift = pd.Series(rdate[computed]).groupby(rkey[computed], sort=True).max()
+    better = rows["shift_234"].to_numpy(float) <= -SETTINGS["improvement_db"]
+    same_prev = np.r_[False, rkey[1:] == rkey[:-1]] if len(rkey) else np.zeros(0, dtype=bool)
+    prev_better = np.r_[False, better[:-1]] & same_prev if len(rkey) else better
+    imp = better & prev_better
+    impr = pd.Series(rdate[imp]).groupby(rkey[imp], sort=True).max()
+    is_pers = (ckey >= 0) & pers_keys[np.clip(ckey, 0, None)] if len(pers_keys) else np.zeros(len(cur), dtype=bool)
+    is_impr = np.isin(ckey, impr.index.to_numpy())
+    key = pd.Series(ckey, index=cur.index)
     cur["candidate"] = np.where(is_pers, "persistent shift", np.where(is_impr, "improvement", ""))
     def at(dates: pd.Series) -> pd.Series:
         if dates.empty:
@@ -859,14 +1051,15 @@ def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
     fits = pd.DataFrame({"person_id": _col(fits, "person_id", "").astype(str),
                          "date": _dates(_col(fits, "date", pd.NaT))}).dropna(subset=["date"])
     parts = []
-    det = ag[ag["determination"]]
+    # only the columns each follow-up reads: no copy of the wide frame
+    det = ag[["person_id", "ear", "date", "next_date"]][ag["determination"].to_numpy(bool)]
     if not det.empty:
         due = det["date"] + pd.Timedelta(days=int(cfg.retest_days))
         done = det["next_date"]
         parts.append(pd.DataFrame({"person_id": det["person_id"], "ear": det["ear"], "kind": "retest",
                                    "trigger_date": det["date"], "due_date": due, "done_date": done,
                                    "clause": cl["retest"]}))
-    act = ag[ag["sts"]]
+    act = ag[["person_id", "ear", "date", "determined_on", "not_work_related"]][ag["sts"].to_numpy(bool)]
     if not act.empty:
         trig = act["determined_on"]
         due = trig + pd.Timedelta(days=int(cfg.notice_days))
@@ -884,7 +1077,7 @@ def _followups(programme: Programme, ag: pd.DataFrame, decisions: pd.DataFrame,
                                        "clause": cl["refit"]}))
     ref = decisions[decisions["decision"].eq("refer")] if not decisions.empty else decisions
     if not ref.empty:
-        rows = ag.loc[ref["idx"].to_numpy()]
+        rows = ag[["person_id", "ear"]].take(ref["idx"].to_numpy())
         rr = pd.DataFrame({"person_id": rows["person_id"].to_numpy(), "ear": rows["ear"].to_numpy(),
                            "trigger_date": _dates(ref["review_date"]).to_numpy()})
         due = rr["trigger_date"] + pd.Timedelta(days=int(SETTINGS["referral_days"]))
@@ -947,7 +1140,8 @@ def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start:
                 "detail": b["ear"].map(EAR_NAMES) + ": " + b["candidate"] + " (latest "
                 + _fmt_date(b["candidate_date"]) + "); " + b["candidate_detail"],
                 "due_date": pd.NaT, "clause": cl["baseline_revision"]}))
-    nr = ag[ag["shift_status"].eq("not computed (NR)") & (ag["date"] >= start) & (ag["date"] <= as_of)]
+    pending = ag["shift_status"].eq("not computed (NR)") & (ag["date"] >= start) & (ag["date"] <= as_of)
+    nr = ag[["person_id", "ear", "date"]][pending.to_numpy(bool)]
     if not nr.empty:
         parts.append(pd.DataFrame({
             "subject": nr["person_id"], "subject_type": "person", "kind": "shift review (NR)",
@@ -968,27 +1162,45 @@ def _actions(ag: pd.DataFrame, fu: pd.DataFrame, baselines: pd.DataFrame, start:
 # population views
 
 
-def _last_per_year(ag: pd.DataFrame) -> pd.DataFrame:
-    """Return the latest audiogram per person, ear and year, retests of a shift left out."""
+def _last_per_year(ag: pd.DataFrame) -> np.ndarray:
+    """Return the positions of the latest audiogram per person, ear and year, retests of a shift left out."""
     pos = np.flatnonzero(~ag["is_retest_of_shift"].to_numpy(bool))
     key = _ear_key(ag)[pos]
     yr = ag["year"].to_numpy()[pos]
     last = np.ones(len(pos), dtype=bool)
     if len(pos) > 1:
         last[:-1] = (key[1:] != key[:-1]) | (yr[1:] != yr[:-1])
-    # only the columns the population views read: no copy of the wide frame
-    cols = ["_pid", "year", "ear", "avg_234", "nr_234"] + [f"hl_{f}" for f in NIOSH_FREQS]
-    return ag[cols].take(pos[last])
+    # positions only: the population views read the few columns they need from the frame
+    return pos[last]
 
 
-def _per_person_year(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
+def _per_person_year(ag: pd.DataFrame, last: np.ndarray) -> pd.DataFrame:
     """Return one row per person and year: group, tested, sts, recordable, mean 2/3/4 kHz average."""
-    avg = last.groupby(["_pid", "year"], sort=True).agg(avg_234=("avg_234", "mean"), n_nr=("nr_234", "sum"))
-    flags = ag.groupby(["_pid", "year"], sort=True).agg(person_id=("person_id", "first"), group=("group", "first"),
-                                                        sts=("sts", "any"), recordable=("case", "any"))
-    py = flags.join(avg).reset_index()
-    py["prev_avg"] = py.groupby("_pid", sort=False)["avg_234"].shift(1)
-    py["prev_year"] = py.groupby("_pid", sort=False)["year"].shift(1)
+    cols = ["_pid", "year", "person_id", "group", "sts", "recordable", "avg_234", "n_nr", "prev_avg", "prev_year",
+            "within_change"]
+    if ag.empty:
+        return pd.DataFrame(columns=cols)
+    year = ag["year"].to_numpy(np.int64)
+    y0 = int(year.min())
+    ny = int(year.max()) - y0 + 1
+    # person and year as one integer (sorted like the pair)
+    code = ag["_pid"].to_numpy(np.int64) * ny + (year - y0)
+    gid, u = pd.factorize(code, sort=True)
+    sts = np.bincount(gid, weights=ag["sts"].to_numpy(bool), minlength=len(u)) > 0
+    rec = np.bincount(gid, weights=ag["case"].to_numpy(bool), minlength=len(u)) > 0
+    pids = u // ny
+    firsts = _person_rows(ag)  # person code -> first row (id and group are the person's)
+    lcode = code[last]
+    avg = ag[["avg_234", "nr_234"]].take(last).groupby(lcode, sort=True).agg(avg_234=("avg_234", "mean"),
+                                                                     n_nr=("nr_234", "sum")).reindex(u)
+    py = pd.DataFrame({"_pid": pids, "year": u % ny + y0,
+                       "person_id": ag["person_id"].take(firsts).to_numpy()[pids],
+                       "group": ag["group"].take(firsts).to_numpy()[pids],
+                       "sts": sts, "recordable": rec, "avg_234": avg["avg_234"].to_numpy(),
+                       "n_nr": avg["n_nr"].to_numpy()})
+    same = np.r_[False, pids[1:] == pids[:-1]]
+    py["prev_avg"] = np.where(same, np.r_[np.nan, py["avg_234"].to_numpy(float)[:-1]], np.nan)
+    py["prev_year"] = np.where(same, np.r_[np.nan, py["year"].to_numpy(float)[:-1]], np.nan)
     py["within_change"] = (py["avg_234"] - py["prev_avg"]).where(py["prev_year"] == py["year"] - 1)
     return py
 
@@ -1013,11 +1225,20 @@ def _population(py: pd.DataFrame) -> pd.DataFrame:
             "n_nr_excluded", "change_mean_avg", "mean_within_change", "n_within"]
     if py.empty:
         return pd.DataFrame(columns=cols)
-    d = _with_all(py)
-    p = d.groupby(["group", "year"], sort=True).agg(
-        n_tested=("person_id", "size"), n_sts=("sts", "sum"), n_recordable=("recordable", "sum"),
+    # every person-year counted in its group and again in "all": groups as integer codes in the
+    # order of their text ("all" among them), rows in their order within each group
+    gcode, glabel = pd.factorize(np.r_[py["group"].to_numpy(object), np.array(["all"], dtype=object)], sort=True)
+    all_code = gcode[-1]
+    gcode = gcode[:-1]
+    own = np.flatnonzero(gcode >= 0)  # a missing group counts in "all" only
+    both = np.r_[own, np.arange(len(py))]
+    d = py[["year", "sts", "recordable", "avg_234", "n_nr", "within_change"]].take(both)
+    d.insert(0, "g", np.r_[gcode[own], np.full(len(py), all_code)])
+    p = d.groupby(["g", "year"], sort=True).agg(
+        n_tested=("year", "size"), n_sts=("sts", "sum"), n_recordable=("recordable", "sum"),
         mean_avg_234=("avg_234", "mean"), n_avg=("avg_234", "count"), n_nr_excluded=("n_nr", "sum"),
         mean_within_change=("within_change", "mean"), n_within=("within_change", "count")).reset_index()
+    p.insert(0, "group", np.asarray(glabel, dtype=object)[p.pop("g").to_numpy()])
     for c in ("n_tested", "n_sts", "n_recordable", "n_avg", "n_nr_excluded", "n_within"):
         p[c] = p[c].astype(int)
     _add_rates(p)
@@ -1034,9 +1255,10 @@ def _period_groups(py: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp) -> 
     d = py[(py["year"] >= start.year) & (py["year"] <= end.year)]
     if d.empty:
         return pd.DataFrame(columns=cols)
-    per = d.groupby("person_id", sort=True).agg(group=("group", "last"), sts=("sts", "any"),
-                                                recordable=("recordable", "any")).reset_index()
-    p = _with_all(per).groupby("group", sort=True).agg(n_tested=("person_id", "size"), n_sts=("sts", "sum"),
+    # person codes follow the sorted ids
+    per = d.groupby("_pid", sort=True).agg(group=("group", "last"), sts=("sts", "any"),
+                                           recordable=("recordable", "any")).reset_index()
+    p = _with_all(per).groupby("group", sort=True).agg(n_tested=("_pid", "size"), n_sts=("sts", "sum"),
                                                         n_recordable=("recordable", "sum")).reset_index()
     for c in ("n_tested", "n_sts", "n_recordable"):
         p[c] = p[c].astype(int)
@@ -1044,47 +1266,57 @@ def _period_groups(py: pd.DataFrame, start: pd.Timestamp, end: pd.Timestamp) -> 
     return p[cols]
 
 
-def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
+def _indicators(ag: pd.DataFrame, last: np.ndarray) -> pd.DataFrame:
     """Return %Worse-sequential and %Better-or-Worse-sequential per group and year."""
     cols = ["group", "year", "n_pairs", "n_worse", "pct_worse", "n_better_or_worse", "pct_better_or_worse",
             "n_incomplete"]
     hl = [f"hl_{f}" for f in NIOSH_FREQS]
-    if last.empty:
+    if not len(last):
         return pd.DataFrame(columns=cols)
-    k = last["_pid"].to_numpy() * 10000 + last["year"].to_numpy()
-    uk = np.unique(k)
+    k = ag["_pid"].to_numpy(np.int64)[last] * 10000 + ag["year"].to_numpy(np.int64)[last]
+    kcode, uk = pd.factorize(k, sort=True)
     vals = np.full((len(uk), 2 * len(hl)), np.nan)
-    for j, ear in enumerate(("L", "R")):
-        sel = last["ear"].eq(ear).to_numpy()
-        vals[np.searchsorted(uk, k[sel]), j * len(hl):(j + 1) * len(hl)] = last.loc[sel, hl].to_numpy(float)
+    right = (_ear_key(ag)[last] & 1).astype(bool)
+    for j, r in enumerate((False, True)):  # left ear, then right ear
+        sel = right == r
+        at = kcode[sel]
+        for i, c in enumerate(hl):
+            vals[at, j * len(hl) + i] = ag[c].to_numpy(float)[last[sel]]
     firsts = _person_rows(ag)  # person code -> first row of that person
     pids = uk // 10000
-    persons = ag["person_id"].to_numpy(object)[firsts][pids]
     years = uk % 10000
     # sequential annual pairs: the same person's test of the previous calendar year
     same = np.r_[False, (pids[1:] == pids[:-1]) & (years[1:] == years[:-1] + 1)]
-    prev = np.vstack([np.full((1, vals.shape[1]), np.nan), vals[:-1]])
-    diff = vals - prev
+    pair = np.flatnonzero(same)
+    if not len(pair):
+        return pd.DataFrame(columns=cols)
+    # the change from the previous year, on the pair rows only
+    diff = vals[pair]
+    diff -= vals[pair - 1]
+    del vals
     complete = np.isfinite(diff).all(axis=1)
     lim = SETTINGS["indicator_db"]
     # judged only on the complete sequential pairs (the only rows counted below)
-    judged = np.flatnonzero(same & complete)
-    rounded = np.round(diff[judged], 6)
-    worse = np.zeros(len(diff), dtype=bool)
-    bw = np.zeros(len(diff), dtype=bool)
-    worse[judged] = (rounded >= lim).any(axis=1)
-    bw[judged] = (np.abs(rounded) >= lim).any(axis=1)
-    group_of = ag["group"].to_numpy(object)[firsts][pids]  # one group per person (people.csv)
-    pairs = pd.DataFrame({"person_id": persons, "year": years, "pair": same, "complete": same & complete,
-                          "worse": same & complete & worse, "bw": same & complete & bw, "group": group_of})
-    pairs = pairs[pairs["pair"]]
-    if pairs.empty:
-        return pd.DataFrame(columns=cols)
-    pairs["group"] = pairs["group"].fillna("")
-    pairs = _with_all(pairs)
-    out = pairs.groupby(["group", "year"], sort=True).agg(n_pairs=("complete", "sum"), n_worse=("worse", "sum"),
-                                                          n_better_or_worse=("bw", "sum"),
-                                                          n_all=("pair", "size")).reset_index()
+    rounded = diff[complete]
+    del diff
+    np.round(rounded, 6, out=rounded)
+    worse = np.zeros(len(pair), dtype=bool)
+    bw = np.zeros(len(pair), dtype=bool)
+    worse[complete] = (rounded >= lim).any(axis=1)
+    bw[complete] = (np.abs(rounded, out=rounded) >= lim).any(axis=1)
+    # one group per person (people.csv), as an integer code in the order of the group text
+    gcode, glabel = pd.factorize(pd.Series(ag["group"].to_numpy(object)[firsts], dtype=object).fillna(""),
+                                 sort=True)
+    counts = pd.DataFrame({"g": gcode[pids[pair]], "year": years[pair], "complete": complete,
+                           "worse": worse, "bw": bw})
+    spec = dict(n_pairs=("complete", "sum"), n_worse=("worse", "sum"), n_better_or_worse=("bw", "sum"),
+                n_all=("complete", "size"))
+    by_group = counts.groupby(["g", "year"], sort=True).agg(**spec).reset_index()
+    by_group.insert(0, "group", np.asarray(glabel, dtype=object)[by_group.pop("g").to_numpy()])
+    every = counts.groupby("year", sort=True).agg(**spec).reset_index()
+    every.insert(0, "group", "all")
+    # a group named "all" adds to the whole-population row, as the group labels do
+    out = pd.concat([by_group, every], ignore_index=True).groupby(["group", "year"], sort=True).sum().reset_index()
     for c in ("n_pairs", "n_worse", "n_better_or_worse", "n_all"):
         out[c] = out[c].astype(int)
     out["n_incomplete"] = out["n_all"] - out["n_pairs"]
@@ -1097,50 +1329,66 @@ def _indicators(ag: pd.DataFrame, last: pd.DataFrame) -> pd.DataFrame:
     return out[cols]
 
 
-def _latest_per_ear(ag: pd.DataFrame, as_of: pd.Timestamp) -> pd.DataFrame:
-    """Return the latest audiogram per person and ear on or before *as_of*."""
+def _latest_rows(ag: pd.DataFrame, as_of: pd.Timestamp) -> np.ndarray:
+    """Return the positions of the latest audiogram per person and ear on or before *as_of*."""
     pos = np.flatnonzero((ag["date"] <= as_of).to_numpy(bool))
     key = _ear_key(ag)[pos]
     last = np.r_[key[1:] != key[:-1], True] if len(pos) else np.zeros(0, dtype=bool)
-    return ag.take(pos[last])
+    return pos[last]
+
+
+def _latest_per_ear(ag: pd.DataFrame, as_of: pd.Timestamp, columns: list[str]) -> pd.DataFrame:
+    """Return *columns* of the latest audiogram per person and ear on or before *as_of* (no wide copy)."""
+    return ag[columns].take(_latest_rows(ag, as_of))
 
 
 def _age_norms(ag: pd.DataFrame, as_of: pd.Timestamp) -> pd.DataFrame:
     """Return observed hearing levels by age band, sex and frequency vs ISO 7029:2017."""
     cols = ["age_band", "sex", "freq", "n_ears", "n_nr", "mean_age", "observed_median", "observed_p90",
             "iso_median", "iso_p90", "share_worse_than_iso_p90"]
-    lat = _latest_per_ear(ag, as_of)
+    lat = _latest_per_ear(ag, as_of, ["sex", "age"] + [f"{p}_{f}" for f in AUDIO_FREQS for p in ("hl", "nr")])
     lat = lat[lat["sex"].isin(["M", "F"]) & lat["age"].notna() & (lat["age"] >= 18)]
     if lat.empty:
         return pd.DataFrame(columns=cols)
     edges = list(SETTINGS["age_bands"])
     labels = [f"{lo}-{hi - 1}" if hi < 200 else f"{lo}+" for lo, hi in zip(edges[:-1], edges[1:])]
     band = pd.cut(lat["age"], bins=edges, right=False, labels=labels)
-    frames = []
+    # age band, sex and frequency as one integer, in the order of the band and sex text
+    bcode, blabel = pd.factorize(band.astype(str).to_numpy(object), sort=True)
+    scode, slabel = pd.factorize(lat["sex"].to_numpy(object), sort=True)
+    nf = len(AUDIO_FREQS)
+    cell = (bcode.astype(np.int64) * len(slabel) + scode) * nf
     # the ISO 7029 values depend on age and sex only: evaluated once per distinct pair
     ages = lat["age"].to_numpy(float)
     sexes = lat["sex"].to_numpy(object)
-    pairs = pd.MultiIndex.from_arrays([ages, sexes])
-    codes, uniq = pd.factorize(pairs)
-    u_age = uniq.get_level_values(0).to_numpy(float)
-    u_sex = uniq.get_level_values(1).to_numpy(object)
-    for f in AUDIO_FREQS:
+    acode, auniq = pd.factorize(ages)
+    codes, uniq = pd.factorize(acode.astype(np.int64) * len(slabel) + scode)
+    u_age = np.asarray(auniq, dtype=float)[uniq // len(slabel)]
+    u_sex = np.asarray(slabel, dtype=object)[uniq % len(slabel)]
+    parts: dict[str, list[np.ndarray]] = {k: [] for k in ("g", "obs", "nr", "age", "iso_md", "iso_p90", "worse")}
+    for j, f in enumerate(AUDIO_FREQS):
         v = lat[f"hl_{f}"].to_numpy(float)
         nr = lat[f"nr_{f}"].to_numpy(bool)
         obs = np.where(nr, np.inf, v)  # NR ranks above every number
         p90 = norms.iso7029_percentile(u_age, f, u_sex, 0.10)[codes]
-        md = norms.iso7029_median(u_age, f, u_sex)[codes]
-        frames.append(pd.DataFrame({"age_band": band.astype(str).to_numpy(), "sex": lat["sex"].to_numpy(),
-                                    "freq": f, "obs": obs, "nr": nr, "age": lat["age"].to_numpy(float),
-                                    "iso_md": md, "iso_p90": p90,
-                                    "worse": np.where(np.isfinite(obs) | nr, obs > p90, np.nan)}))
-    d = pd.concat(frames, ignore_index=True)
-    d = d[np.isfinite(d["obs"]) | d["nr"]]
+        keep = np.isfinite(obs) | nr
+        parts["g"].append((cell + j)[keep])
+        parts["obs"].append(obs[keep])
+        parts["nr"].append(nr[keep])
+        parts["age"].append(ages[keep])
+        parts["iso_md"].append(norms.iso7029_median(u_age, f, u_sex)[codes][keep])
+        parts["iso_p90"].append(p90[keep])
+        parts["worse"].append((obs > p90)[keep].astype(float))
+    d = pd.DataFrame({k: np.concatenate(v) for k, v in parts.items()})
     if d.empty:
         return pd.DataFrame(columns=cols)
-    g = d.groupby(["age_band", "sex", "freq"], sort=True, observed=True)
+    g = d.groupby("g", sort=True)
     out = g.agg(n_ears=("obs", "size"), n_nr=("nr", "sum"), mean_age=("age", "mean"), iso_median=("iso_md", "mean"),
                 iso_p90=("iso_p90", "mean"), share_worse_than_iso_p90=("worse", "mean")).reset_index()
+    gid = out.pop("g").to_numpy(np.int64)
+    out.insert(0, "freq", np.asarray(AUDIO_FREQS, dtype=np.int64)[gid % nf])
+    out.insert(0, "sex", np.asarray(slabel, dtype=object)[gid // nf % len(slabel)])
+    out.insert(0, "age_band", np.asarray(blabel, dtype=object)[gid // nf // len(slabel)])
     out["observed_median"] = g["obs"].quantile(0.5, interpolation="midpoint").to_numpy()
     out["observed_p90"] = g["obs"].quantile(0.9, interpolation="higher").to_numpy()
     out["n_nr"] = out["n_nr"].astype(int)
@@ -1161,7 +1409,13 @@ def _noise_expected(ag: pd.DataFrame, ex: ExposureResult | None, as_of: pd.Times
     if people is None or groups is None or not isinstance(people, pd.DataFrame):
         notes.append("No exposure results: the expected noise-induced shift (ISO 1999:2013) is not shown.")
         return pd.DataFrame(columns=cols), notes
-    lat = _latest_per_ear(ag, as_of)
+    rows = _latest_rows(ag, as_of)
+    lat = ag[["person_id", "group", "sex", "date", "baseline_date", "age", "base_age"]
+             + [f"{p}_{f}" for f in NOISE_FREQS for p in ("hl", "nr")]].take(rows)
+    # hire dates and baseline thresholds, by position
+    lat["hire_date"] = ag["hire_date"].to_numpy("datetime64[ns]")[rows]
+    for f in NOISE_FREQS:
+        lat[f"base_hl_{f}"] = _base(ag, f"hl_{f}", rows)
     lat = lat[lat["baseline_date"].notna() & (lat["date"] > lat["baseline_date"])]
     if lat.empty:
         return pd.DataFrame(columns=cols), notes
@@ -1238,10 +1492,14 @@ def person_cases(ag: pd.DataFrame) -> pd.DataFrame:
     first = r.groupby(["person_id", "_epoch"], sort=False)["date"].transform("min")
     r = r[r["date"].eq(first)]
     shift = r["shift_driving"] if "shift_driving" in r.columns else r.get("shift_234")
-    r = r.assign(_shift=pd.to_numeric(shift, errors="coerce"))
+    ear = r["ear"].astype(str)
+    r = r.assign(_shift=pd.to_numeric(shift, errors="coerce"), _l=ear.eq("L").to_numpy(bool),
+                 _r=ear.eq("R").to_numpy(bool))
     out = r.groupby(["person_id", "date"], sort=True, as_index=False).agg(
-        ear=("ear", lambda e: " ".join(sorted(set(map(str, e))))), avg_234=("avg_234", "max"),
+        _l=("_l", "any"), _r=("_r", "any"), avg_234=("avg_234", "max"),
         shift=("_shift", "max"), year=("year", "first"), group=("group", "first"))
+    # the ears of the case, in text order: "L", "R" or "L R"
+    out["ear"] = _words(out.pop("_l").to_numpy(bool) + 2 * out.pop("_r").to_numpy(bool), ["", "L", "R", "L R"])
     return out[CASE_COLUMNS].sort_values(["date", "person_id"], kind="mergesort").reset_index(drop=True)
 
 
@@ -1363,26 +1621,28 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
             notes.append("No audiometer records (data/audiometers.csv): audiograms are not checked against "
                          "the audiometer's daily check, calibrations and booth levels.")
     else:
-        m = ag[["audiometer_id", "date"]].merge(meters, on=["audiometer_id", "date"], how="left")
-        known = ag["audiometer_id"].ne("").to_numpy() & m["valid"].notna().to_numpy()
-        ag["valid_check"] = _nbool(m["valid"].fillna(False).to_numpy(bool), known)
-        ag["check_reason"] = m["reason"].fillna("").to_numpy()
+        at = _meter_rows(ag, meters)
+        found = at >= 0
+        at0 = np.clip(at, 0, None)
+        known = ag["audiometer_id"].ne("").to_numpy() & found
+        ag["valid_check"] = _nbool(found & meters["valid"].to_numpy(bool)[at0], known)
+        ag["check_reason"] = np.where(found, meters["reason"].to_numpy(object)[at0], "")
 
     baselines = _baselines(ag, events, cfg.audiometry.min_quiet_hours, cl)
     cases = person_cases(ag)
     # the ear rows that make a person's case (the population counts people with a case)
-    made = pd.MultiIndex.from_frame(cases[["person_id", "date"]].astype({"person_id": str}))
-    ag["case"] = ag["recordable"].astype(bool).to_numpy() & pd.MultiIndex.from_frame(
-        ag[["person_id", "date"]].astype({"person_id": str})).isin(made)
+    ag["case"] = _case_rows(ag, cases)
     incidence, period_cases, period_rate = _incidence(cases, sorted(ag["year"].unique().tolist()),
                                                       cfg.hours_worked, start, as_of)
     followups = _followups(programme, ag, decisions, as_of, cl)
     actions = _actions(ag, followups, baselines, start, as_of, cl)
     last = _last_per_year(ag)
+    indicators = _indicators(ag, last)
     py = _per_person_year(ag, last)
+    del last
     population = _population(py)
     period_groups = _period_groups(py, start, as_of)
-    indicators = _indicators(ag, last)
+    del py
     age_norms = _age_norms(ag, as_of)
     noise_expected, n_notes = _noise_expected(ag, exposure, as_of)
     notes.extend(n_notes)
@@ -1393,13 +1653,16 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
     inper = (ag["date"] >= start) & (ag["date"] <= as_of)
     fu_p = followups[(followups["due_date"] >= start) & (followups["due_date"] <= as_of)
                      & followups["status"].ne(LEFT_STATUS)] if not followups.empty else followups
+    inp = inper.to_numpy(bool)
+    pid = ag["_pid"].to_numpy(np.int64)
+    ud, _ = _date_index(ag)
     summary = {
-        "people_tested": int(ag.loc[inper, "person_id"].nunique()),
-        "audiograms": int(ag.loc[inper, ["person_id", "date"]].drop_duplicates().shape[0]),
-        "people_with_sts": int(ag.loc[inper & ag["sts"], "person_id"].nunique()),
+        "people_tested": int(np.unique(pid[inp]).size),
+        "audiograms": int(np.unique(pid[inp] * max(len(ud), 1) + ag["_drank"].to_numpy(np.int64)[inp]).size),
+        "people_with_sts": int(np.unique(pid[inp & ag["sts"].to_numpy(bool)]).size),
         "recordable_cases": int(period_cases),
         "recordable_rate_per_200k": None if period_rate is None else round(float(period_rate), 3),
-        "niosh_shifts": int(ag.loc[inper & ag["niosh_shift"], "person_id"].nunique()),
+        "niosh_shifts": int(np.unique(pid[inp & ag["niosh_shift"].to_numpy(bool)]).size),
         "followups_due": int(len(fu_p)),
         "followups_on_time": int((fu_p["status"] == "on time").sum()) if len(fu_p) else 0,
         "followups_late_or_missing": int(fu_p["status"].isin(["late", "missing"]).sum()) if len(fu_p) else 0,
@@ -1407,11 +1670,14 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
         "age_correction": bool(cfg.audiometry.age_correction),
     }
     summary = dict(sorted(summary.items()))
-    ag = ag.drop(columns=["birth_date"])
+    sts_people = frozenset(ag.loc[ag["sts"] & (ag["date"] <= as_of), "person_id"].astype(str))
+    # the published frame: the columns later stages, pages and exports read, without a copy;
+    # the working columns (keys, positions, dates of follow-ups) go with the working frame
+    ag = pd.DataFrame({c: ag[c] for c in ag.columns if c not in WORK_COLUMNS}, copy=False)
     log.info("hearing: %d audiogram rows, %d recordable cases", len(ag), len(cases))
     return HearingResult(audiograms=ag, baselines=baselines, baseline_history=events, cases=cases,
                          incidence=incidence, followups=followups, population=population, period_groups=period_groups,
                          indicators=indicators,
                          age_norms=age_norms, noise_expected=noise_expected, actions=actions, audiometer_ok=meters,
                          summary=summary, findings=findings, notes=notes,
-                         sts_people=frozenset(ag.loc[ag["sts"] & (ag["date"] <= as_of), "person_id"].astype(str)))
+                         sts_people=sts_people)
