@@ -38,6 +38,7 @@ from __future__ import annotations
 
 import logging
 import math
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -167,7 +168,7 @@ class ExposureResult:
     tasks: pd.DataFrame
     people: pd.DataFrame
     weekly: pd.DataFrame
-    logs: dict[str, pd.DataFrame]
+    logs: Mapping[str, pd.DataFrame]
     actions: pd.DataFrame
     findings: list[Finding]
     noise_map: NoiseMap
@@ -453,11 +454,49 @@ def _log_arrays(programme: Programme, mids: np.ndarray) -> tuple[np.ndarray, np.
     return idx, lev, step, start, have
 
 
+class LogHistories(Mapping[str, pd.DataFrame]):
+    """The downsampled time history of each logged measurement, by measurement id (sorted).
+
+    The bins of every log are computed at once into flat arrays; the frame of one log
+    (start, laeq = energy mean, lmax, n samples) is made when it is first asked for, since
+    the pages chart and list only some of them.
+    """
+
+    def __init__(self, ids: list[str], first: np.ndarray, nbins: np.ndarray, start: np.ndarray,
+                 energy: np.ndarray, lmax: np.ndarray, count: np.ndarray) -> None:
+        self._pos = {m: i for i, m in enumerate(ids)}
+        self._first, self._nbins = first, nbins
+        self._start, self._energy, self._lmax, self._count = start, energy, lmax, count
+        self._frames: dict[str, pd.DataFrame] = {}
+
+    def __getitem__(self, mid: str) -> pd.DataFrame:
+        frame = self._frames.get(mid)
+        if frame is None:
+            i = self._pos[mid]
+            sl = slice(self._first[i], self._first[i] + self._nbins[i])
+            c = self._count[sl]
+            frame = pd.DataFrame({"start": self._start[sl].view("datetime64[ns]"),
+                                  "laeq": lv.level(self._energy[sl] / c), "lmax": self._lmax[sl], "n": c})
+            self._frames[mid] = frame
+        return frame
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._pos)
+
+    def __len__(self) -> int:
+        return len(self._pos)
+
+    def __contains__(self, mid: object) -> bool:
+        return mid in self._pos
+
+
 def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.ndarray,
-                have: list[str]) -> dict[str, pd.DataFrame]:
+                have: list[str]) -> LogHistories:
     """Return per-measurement downsampled histories (≤ LOG_POINTS bins: energy mean, max, start)."""
     if not have:
-        return {}
+        e = np.empty(0)
+        return LogHistories([], e.astype(np.int64), e.astype(np.int64), e.astype(np.int64), e, e,
+                            e.astype(np.int64))
     n_rows = len(mids)
     counts = np.bincount(idx, minlength=n_rows)
     # samples are concatenated log by log: the position within a log is a running index from its first sample
@@ -477,18 +516,13 @@ def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.nd
     mx[b[firsts]] = np.maximum.reduceat(lev, firsts)
     st = np.empty(total, dtype=np.int64)
     st[b[firsts]] = start[firsts]
-    out: dict[str, pd.DataFrame] = {}
     pos = {m: i for i, m in enumerate(mids)}
-    for m in have:
-        i = pos[m]
-        sl = slice(bin_off[i], bin_off[i] + nbins[i])
-        out[m] = pd.DataFrame({"start": pd.to_datetime(st[sl]), "laeq": lv.level(e[sl] / c[sl]),
-                               "lmax": mx[sl], "n": c[sl]})
-    return out
+    rows = np.array([pos[m] for m in have], dtype=np.int64)
+    return LogHistories(list(have), bin_off[rows], nbins[rows], st, e, mx, c)
 
 
 def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.DataFrame,
-                  findings: list[Finding]) -> tuple[pd.DataFrame, dict[str, pd.DataFrame]]:
+                  findings: list[Finding]) -> tuple[pd.DataFrame, LogHistories]:
     noise = programme.table("noise").copy().reset_index(drop=True)
     people = programme.table("people")
     path = _path(programme, "noise")
