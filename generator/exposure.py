@@ -421,7 +421,7 @@ def _group_frame(programme: Programme) -> pd.DataFrame:
     people = programme.table("people")
     noise = programme.table("noise")
     tasks = programme.table("tasks")
-    codes = set(gt["group"]) | set(people["group"]) | set(noise["group"]) | set(tasks["group"])
+    codes = set().union(*(t["group"].unique().tolist() for t in (gt, people, noise, tasks)))
     codes.discard("")
     g = pd.DataFrame({"group": sorted(codes)})
     keep = [c for c in ("group", "name", "shift_hours", "days_per_week") if c in gt.columns]
@@ -447,10 +447,12 @@ def _log_arrays(programme: Programme, mids: np.ndarray) -> tuple[np.ndarray, np.
     frames = [programme.noise_logs[m] for m in have]
     sizes = np.array([len(f) for f in frames], dtype=np.int64)
     idx = np.repeat(np.array([pos[m] for m in have], dtype=np.int64), sizes)
-    lev = np.concatenate([f["laeq"].to_numpy(float) for f in frames])
+    # one concatenation of every log (taking the columns of each log in turn costs more)
+    every = pd.concat(frames, ignore_index=True)
+    lev = every["laeq"].to_numpy(float)
     step = np.repeat(np.array([programme.log_interval_s.get(m, 60.0) for m in have], dtype=float) / 3600.0,
                      sizes)
-    start = np.concatenate([f["start"].to_numpy("datetime64[ns]").astype(np.int64) for f in frames])
+    start = every["start"].to_numpy("datetime64[ns]").astype(np.int64)
     return idx, lev, step, start, have
 
 
@@ -521,12 +523,19 @@ def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.nd
     return LogHistories(list(have), bin_off[rows], nbins[rows], st, e, mx, c)
 
 
+def _contract_rules(programme: Programme) -> dict[str, RuleSet]:
+    """Return the rule sets behind the contract's fixed columns and the reported dose, each read once."""
+    ids = sorted({REPORTED_RULE, *CONTRACT_RULES.values()})
+    return {rid: load_rule_set(rid, programme.config) for rid in ids}
+
+
 def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.DataFrame,
-                  findings: list[Finding]) -> tuple[pd.DataFrame, LogHistories]:
+                  findings: list[Finding], contract: dict[str, RuleSet]) -> tuple[pd.DataFrame, LogHistories]:
     noise = programme.table("noise").copy().reset_index(drop=True)
     people = programme.table("people")
     path = _path(programme, "noise")
-    pgroup = dict(zip(people["person_id"], people["group"]))
+    # each person's group (the last row of a person named twice, as a dict of the rows would give)
+    pgroup = people.drop_duplicates("person_id", keep="last").set_index("person_id")["group"]
     m = noise
     for c in ("person_id", "group", "location", "kind"):
         if c not in m:
@@ -584,7 +593,7 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
     m["basis"] = np.where(has_log, "log", np.where(dosim, "dosimeter", "steady_level"))
 
     m["dose_estimate"] = ~has_log
-    reported_rule = load_rule_set(REPORTED_RULE, programme.config)
+    reported_rule = contract[REPORTED_RULE]
     reported_spec = _spec(reported_rule)
     rep_dose = m["osha_dose_pct"].to_numpy(float)
     rep_twa = m["osha_twa"].to_numpy(float)
@@ -629,7 +638,7 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
         return np.where(d > 0, t, np.nan)
 
     for prefix, (rid, which) in CONTRACT_DOSES.items():
-        rule = load_rule_set(rid, programme.config)
+        rule = contract[rid]
         spec = _spec(rule, which)
         d = dose(spec, reported=(spec == reported_spec))
         m[f"{prefix}_dose_pct"] = d
@@ -706,7 +715,8 @@ def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> Ex
     findings: list[Finding] = []
     end = _period_end(programme)
     groups = _group_frame(programme)
-    m, logs = _measurements(programme, rules, groups, findings)
+    contract = _contract_rules(programme)
+    m, logs = _measurements(programme, rules, groups, findings, contract)
     people = programme.table("people")
     noise_path = _path(programme, "noise")
     tasks_path = _path(programme, "tasks")
@@ -790,7 +800,7 @@ def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> Ex
     for prefix, rid in sorted(CONTRACT_RULES.items()):
         if f"dose_{rid}" not in cur:
             cur[f"dose_{rid}"] = m.loc[cur.index, f"{prefix}_dose_pct"]
-        g[f"{prefix}_twa"] = group_twa(load_rule_set(rid, cfg))
+        g[f"{prefix}_twa"] = group_twa(contract[rid])
     U = g["u_expanded"].to_numpy(float)
     for rid, rule in rules.items():
         val = g["lex_8h"].to_numpy(float) if rule.metric == "lex" else group_twa(rule)
