@@ -537,7 +537,8 @@ def _actions(people: pd.DataFrame, rules: RuleSet) -> pd.DataFrame:
     """Return one action per person with too little or too much protection."""
     base_clause = rules.clause("protected_target")
     sts_clause = rules.clause("protected_target_after_sts")
-    p = people
+    # the texts are made for the people who get an action only
+    p = people[people["adequacy"].isin(["insufficient", "over-protected"])]
     clause = pd.Series(np.where(p["after_sts"].to_numpy(dtype=bool), sts_clause, base_clause), index=p.index)
     lvl = p["protected_level"].round(1).astype(str)
     tgt = p["target"].map(lambda v: f"{v:g}")
