@@ -371,15 +371,18 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     keys = inp.keys()
     p, ids = keys.people, keys.ids
     n, k = len(p), len(dates)
-    pcode = np.tile(keys.person, k)
     row = np.tile(np.arange(n), k)
     when = np.repeat(np.arange(k), n)
     q = np.asarray([pd.Timestamp(a) for a, _ in dates], dtype="datetime64[ns]")[when]
+    begin = np.asarray([pd.Timestamp(b) for _, b in dates], dtype="datetime64[ns]")[when]
+    # only the people in scope at each date are judged: hired by its as-of date, not gone before its start
+    hire = p["hire_date"].to_numpy(dtype="datetime64[ns]")[row]
+    leave = p["leave_date"].to_numpy(dtype="datetime64[ns]")[row]
+    keep = np.flatnonzero((np.isnat(hire) | (hire <= q)) & (np.isnat(leave) | (leave >= begin)))
+    row, when, q = row[keep], when[keep], q[keep]
+    pcode = keys.person[row]
     as_of = pd.Series(q)
-    begin = pd.Series(np.asarray([pd.Timestamp(b) for _, b in dates], dtype="datetime64[ns]")[when])
     s = p.iloc[row].reset_index(drop=True)
-    in_scope = ((s["hire_date"].isna() | (s["hire_date"] <= as_of)) &
-                (s["leave_date"].isna() | (s["leave_date"] >= begin))).to_numpy()
     active = s["leave_date"].isna() | (s["leave_date"] >= as_of)
     s["must_enrol"] = s["must_enrol"] & (s["first_exposed_date"].isna() | (s["first_exposed_date"] <= as_of))
 
@@ -409,8 +412,8 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
 
     # baseline: within baseline_months of first exposure (29 CFR 1910.95(g)(5))
     # (the first exposure is the person's, the same at every as-of date)
-    s["baseline_due"] = pd.Series(np.tile(_plus_months(p["first_exposed_date"], inp.baseline_months).to_numpy(
-        dtype="datetime64[ns]"), k), dtype="datetime64[ns]") \
+    s["baseline_due"] = pd.Series(_plus_months(p["first_exposed_date"], inp.baseline_months).to_numpy(
+        dtype="datetime64[ns]")[row], dtype="datetime64[ns]") \
         if inp.baseline_months is not None else pd.Series(pd.NaT, index=s.index, dtype="datetime64[ns]")
     code = _state_codes(s["baseline_due"], as_of, s["must_enrol"] & (inp.baseline_months is not None), has_aud)
     late = has_aud & s["baseline_due"].notna() & (s["first_audiogram"] > s["baseline_due"])
@@ -438,7 +441,7 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     ex = ex[ex["is_exit"] | (ex["date"] >= ex["leave"] - pd.Timedelta(days=EXIT_WINDOW_DAYS))]
     exit_first = _first_by_code(ex["row"].to_numpy(), ex["date"].to_numpy(dtype="datetime64[ns]"), n)[row]
     # done when any in-scope row of the person has such an audiogram by the as-of date
-    hit = _present(exit_first, q) & (exit_first != np.iinfo(np.int64).max) & in_scope
+    hit = _present(exit_first, q) & (exit_first != np.iinfo(np.int64).max)
     key = when * len(ids) + pcode
     any_hit = np.zeros(k * len(ids), dtype=bool)
     any_hit[key[hit]] = True
@@ -467,7 +470,7 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
         firstf = _first_by_code(fcode[sel], fdate[sel], len(ids))[pcode]
         s[col] = pd.Series(_present(firstf, q) & (firstf != never))
     s["protector_required"] = s["protector_duty"] & active
-    return [s.loc[in_scope & (when == j)].reset_index(drop=True) for j in range(k)]
+    return [s.loc[when == j].reset_index(drop=True) for j in range(k)]
 
 
 # ---------------------------------------------------------------------------------------

@@ -496,9 +496,8 @@ def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.nd
                 have: list[str]) -> LogHistories:
     """Return per-measurement downsampled histories (≤ LOG_POINTS bins: energy mean, max, start)."""
     if not have:
-        e = np.empty(0)
-        return LogHistories([], e.astype(np.int64), e.astype(np.int64), e.astype(np.int64), e, e,
-                            e.astype(np.int64))
+        none, no_ints = np.empty(0), np.empty(0, dtype=np.int64)
+        return LogHistories([], no_ints, no_ints, no_ints, none, none, no_ints)
     n_rows = len(mids)
     counts = np.bincount(idx, minlength=n_rows)
     # samples are concatenated log by log: the position within a log is a running index from its first sample

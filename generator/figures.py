@@ -87,12 +87,13 @@ class _Dated:
         """Return how many distinct people have a row in the snapshot's dates."""
         assert self.people is not None
         codes = self.people[self.span(snap)]
-        return int(np.unique(codes[codes >= 0]).size)
+        return int(np.count_nonzero(np.bincount(codes[codes >= 0])))
 
 
 @dataclass(frozen=True)
 class Records:
-    """The audiograms, recordable cases and test days of a programme, each sorted by date once."""
+    """The audiograms, recordable cases and test days of a programme, each sorted by date once,
+    and the level each person is judged on."""
 
     #: every audiogram row, and the rows with a threshold shift in force (by person)
     audiograms: _Dated | None
@@ -123,7 +124,8 @@ class Records:
         levels = None
         if ep is not None and not ep.empty and "person_id" in ep.columns and col is not None:
             ep = ep.drop_duplicates("person_id")
-            levels = pd.Series(ep[col].to_numpy(), index=ep["person_id"].astype(str).to_numpy())
+            levels = pd.Series(pd.to_numeric(ep[col], errors="coerce").to_numpy(float),
+                               index=ep["person_id"].astype(str).to_numpy())
         return Records(aud, sts, cs, days, levels)
 
 
@@ -208,7 +210,8 @@ def judged_levels(snap: Snapshot) -> pd.Series:
     lv = snap.dated().levels
     if lv is None:
         return pd.Series(np.nan, index=snap.status.index)
-    out = pd.to_numeric(snap.status["person_id"].astype(str).map(lv), errors="coerce")
+    pos = lv.index.get_indexer(snap.status["person_id"].astype(str).to_numpy())
+    out = pd.Series(np.where(pos >= 0, lv.to_numpy()[pos], np.nan), index=snap.status.index)
     # nobody is counted as exposed before their first exposure (as the programme's duties start then)
     first = snap.status["first_exposed_date"]
     return out.where(first.isna() | (first <= snap.as_of))
