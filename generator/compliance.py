@@ -155,6 +155,12 @@ class PersonKeys:
     audiogram: np.ndarray
     training: np.ndarray
     fit: np.ndarray
+    #: the earliest date (from _first_by_code) of each person code's audiogram, protector issue
+    #: and fit test, and of each row's exit audiogram: the same at every as-of date
+    first_audiogram: np.ndarray
+    first_protector: np.ndarray
+    first_fit_test: np.ndarray
+    first_exit: np.ndarray
 
     @staticmethod
     def of(inp: ComplianceInputs) -> PersonKeys:
@@ -162,8 +168,24 @@ class PersonKeys:
         ids = pd.Index(p["person_id"].astype(str).to_numpy())
         if not ids.is_unique:  # one person on several rows: each row gets the person's records
             ids = pd.Index(ids.drop_duplicates())
-        return PersonKeys(p, ids, _codes(ids, p["person_id"]), _codes(ids, inp.audiograms["person_id"]),
-                          _codes(ids, inp.training["person_id"]), _codes(ids, inp.fits["person_id"]))
+        person, acode = _codes(ids, p["person_id"]), _codes(ids, inp.audiograms["person_id"])
+        a = inp.audiograms
+        known = acode >= 0
+        adate = a["date"].to_numpy(dtype="datetime64[ns]")[known]
+        # exit audiogram: one of kind exit, or one dated within the window before the leave date
+        rows = pd.DataFrame({"code": person, "row": np.arange(len(p)),
+                             "leave": p["leave_date"].to_numpy(dtype="datetime64[ns]")})
+        ex = pd.DataFrame({"code": acode[known], "date": adate, "is_exit": a["is_exit"].to_numpy(dtype=bool)[known]}
+                          ).merge(rows, on="code", how="inner")
+        ex = ex[ex["is_exit"] | (ex["date"] >= ex["leave"] - pd.Timedelta(days=EXIT_WINDOW_DAYS))]
+        f = inp.fits
+        fcode = _codes(ids, f["person_id"])
+        fdate = f["date"].to_numpy(dtype="datetime64[ns]")
+        firsts = [_first_by_code(fcode[sel], fdate[sel], len(ids)) for sel in (
+            f["protector_id"].ne("").to_numpy() & (fcode >= 0), f["par"].notna().to_numpy() & (fcode >= 0))]
+        return PersonKeys(p, ids, person, acode, _codes(ids, inp.training["person_id"]), fcode,
+                          _first_by_code(acode[known], adate, len(ids)), firsts[0], firsts[1],
+                          _first_by_code(ex["row"].to_numpy(), ex["date"].to_numpy(dtype="datetime64[ns]"), len(p)))
 
 
 def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet) -> tuple[ComplianceInputs, list[str]]:
@@ -390,7 +412,7 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     acode = keys.audiogram
     known = acode >= 0
     acode, adate = acode[known], a["date"].to_numpy(dtype="datetime64[ns]")[known]
-    first = _first_by_code(acode, adate, len(ids))[pcode]
+    first = keys.first_audiogram[pcode]
     s["first_audiogram"] = pd.Series(np.where(_present(first, q), first.view("datetime64[ns]"),
                                               np.datetime64("NaT")), dtype="datetime64[ns]")
     s["last_audiogram"] = pd.Series(_last_on_or_before(acode, adate, pcode, q), dtype="datetime64[ns]")
@@ -434,12 +456,7 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     # or one dated within the window before the leave date, on or before the as-of date
     exit_req = s["must_enrol"] & s["leave_date"].notna() & (s["leave_date"] <= as_of + pd.Timedelta(
         days=DUE_SOON_DAYS))
-    rows = pd.DataFrame({"code": keys.person, "row": np.arange(n),
-                         "leave": p["leave_date"].to_numpy(dtype="datetime64[ns]")})
-    ex = pd.DataFrame({"code": acode, "date": adate, "is_exit": a["is_exit"].to_numpy(dtype=bool)[known]}
-                      ).merge(rows, on="code", how="inner")
-    ex = ex[ex["is_exit"] | (ex["date"] >= ex["leave"] - pd.Timedelta(days=EXIT_WINDOW_DAYS))]
-    exit_first = _first_by_code(ex["row"].to_numpy(), ex["date"].to_numpy(dtype="datetime64[ns]"), n)[row]
+    exit_first = keys.first_exit[row]
     # done when any in-scope row of the person has such an audiogram by the as-of date
     hit = _present(exit_first, q) & (exit_first != np.iinfo(np.int64).max)
     key = when * len(ids) + pcode
@@ -460,14 +477,9 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     s["active"] = active
 
     # protectors: issued or fitted on or before the as-of date (blank date counts)
-    f = inp.fits
-    fcode = keys.fit
-    fdate = f["date"].to_numpy(dtype="datetime64[ns]")
     never = np.iinfo(np.int64).max
-    for col, keep in (("has_protector", f["protector_id"].ne("").to_numpy()),
-                      ("has_fit_test", f["par"].notna().to_numpy())):
-        sel = keep & (fcode >= 0)
-        firstf = _first_by_code(fcode[sel], fdate[sel], len(ids))[pcode]
+    for col, firsts in (("has_protector", keys.first_protector), ("has_fit_test", keys.first_fit_test)):
+        firstf = firsts[pcode]
         s[col] = pd.Series(_present(firstf, q) & (firstf != never))
     s["protector_required"] = s["protector_duty"] & active
     return [s.loc[when == j].reset_index(drop=True) for j in range(k)]
