@@ -99,9 +99,12 @@ def compute(programme: Programme, rule: RuleSet | None = None) -> AudiometerChec
 def _audiometer_checks(programme: Programme, acoustic: float, exhaustive: float
                        ) -> tuple[pd.DataFrame, pd.DataFrame, pd.DataFrame]:
     aud = _table(programme, "audiograms")
-    tests = pd.DataFrame({"person_id": _col(aud, "person_id", "").astype(str), "date": _dates(aud),
-                          "ear": _col(aud, "ear", "").astype(str),
-                          "audiometer_id": _col(aud, "audiometer_id", "").astype(str)}).dropna(subset=["date"])
+    when = _dates(aud)
+    dated = when.notna().to_numpy()
+    # test days: one per audiometer and date; audiometer ids as integer codes in sorted order
+    meter_code, meter_ids = pd.factorize(_col(aud, "audiometer_id", "").astype(str).to_numpy()[dated], sort=True,
+                                         use_na_sentinel=False)
+    date_ns = when.to_numpy(dtype="datetime64[ns]")[dated]
     raw = _table(programme, "audiometers")
     checks = pd.DataFrame({"audiometer_id": _col(raw, "audiometer_id", "").astype(str), "date": _dates(raw),
                            "check": _col(raw, "check", "").astype(str),
@@ -109,12 +112,19 @@ def _audiometer_checks(programme: Programme, acoustic: float, exhaustive: float
     for f in BOOTH_LIMITS:
         checks[f"ob_{f}"] = pd.to_numeric(_col(raw, f"ob_{f}"), errors="coerce")
     checks = checks.dropna(subset=["date"])
-    if tests.empty:
-        return _empty(STATUS_COLUMNS), _empty(FLAGGED_COLUMNS), _audiometer_overview(checks, tests, acoustic,
+    if not len(date_ns):
+        no_use = pd.Series(dtype="datetime64[ns]")
+        return _empty(STATUS_COLUMNS), _empty(FLAGGED_COLUMNS), _audiometer_overview(checks, no_use, acoustic,
                                                                                      exhaustive)
-
-    days = tests[["audiometer_id", "date"]].drop_duplicates().sort_values(
-        ["audiometer_id", "date"], kind="mergesort").reset_index(drop=True)
+    date_rank, uniq_dates = pd.factorize(date_ns.view(np.int64), sort=True)
+    day_of_test, day_keys = pd.factorize(meter_code.astype(np.int64) * len(uniq_dates) + date_rank, sort=True)
+    day_meter = day_keys // len(uniq_dates)
+    days = pd.DataFrame({"audiometer_id": pd.Series(np.asarray(meter_ids, dtype=object)[day_meter],
+                                                    dtype=object).astype(str),
+                         "date": uniq_dates[day_keys % len(uniq_dates)].view("datetime64[ns]")})
+    # the last day of each audiometer (days are sorted by audiometer, then date)
+    last_day = np.r_[day_meter[1:] != day_meter[:-1], True]
+    last_used = pd.Series(days["date"].to_numpy()[last_day], index=days["audiometer_id"].to_numpy()[last_day])
     func = checks.loc[checks["check"].eq("functional") & checks["result"].ne("fail"),
                       ["audiometer_id", "date"]].drop_duplicates()
     func["functional_ok"] = True
@@ -158,19 +168,30 @@ def _audiometer_checks(programme: Programme, acoustic: float, exhaustive: float
     st = st.sort_values(["audiometer_id", "date"], kind="mergesort").reset_index(drop=True)
     status = st[STATUS_COLUMNS].copy()
 
-    flagged = tests.merge(status.loc[~status["ok"], ["audiometer_id", "date", "reason"]],
-                          on=["audiometer_id", "date"], how="inner")
+
+    # the audiograms of the days without valid checks (status rows are the days, in order)
+    bad = ~status["ok"].to_numpy(bool)
+    rows = np.flatnonzero(dated)[bad[day_of_test]]
+    on_day = day_of_test[bad[day_of_test]]
+    flagged = pd.DataFrame({"person_id": _col(aud, "person_id", "").astype(str).iloc[rows].reset_index(drop=True),
+                            "date": status["date"].to_numpy()[on_day],
+                            "ear": _col(aud, "ear", "").astype(str).iloc[rows].reset_index(drop=True),
+                            "audiometer_id": status["audiometer_id"].iloc[on_day].reset_index(drop=True),
+                            "reason": status["reason"].iloc[on_day].reset_index(drop=True)})
     flagged = flagged[FLAGGED_COLUMNS].sort_values(["date", "person_id", "ear"], kind="mergesort") \
         .reset_index(drop=True)
-    return status, flagged, _audiometer_overview(checks, tests, acoustic, exhaustive)
+    return status, flagged, _audiometer_overview(checks, last_used, acoustic, exhaustive)
 
 
-def _audiometer_overview(checks: pd.DataFrame, tests: pd.DataFrame, acoustic: float = ACOUSTIC_MONTHS,
+def _audiometer_overview(checks: pd.DataFrame, last_used: pd.Series, acoustic: float = ACOUSTIC_MONTHS,
                          exhaustive: float = EXHAUSTIVE_MONTHS) -> pd.DataFrame:
-    """Return the latest check of each kind per audiometer and the next calibration dates."""
+    """Return the latest check of each kind per audiometer and the next calibration dates.
+
+    *last_used*: the last test date of each audiometer id that has audiograms.
+    """
     cols = ["audiometer_id", "last_functional", "last_acoustic", "acoustic_due", "last_exhaustive",
             "exhaustive_due", "last_booth", "booth_ok", "booth_detail", "last_used"]
-    ids = sorted(set(checks["audiometer_id"]) | set(tests.get("audiometer_id", pd.Series(dtype=str))) - {""})
+    ids = sorted(set(checks["audiometer_id"]) | set(last_used.index) - {""})
     if not ids:
         return _empty(cols)
     out = pd.DataFrame({"audiometer_id": ids})
@@ -186,8 +207,8 @@ def _audiometer_overview(checks: pd.DataFrame, tests: pd.DataFrame, acoustic: fl
     out["booth_ok"] = _bool(_lookup(out["audiometer_id"], latest["booth_pass"]))
     out["booth_detail"] = _lookup(out["audiometer_id"], latest["booth_detail"]).fillna(
         "no booth measurement recorded")
-    if "audiometer_id" in tests.columns and not tests.empty:
-        out["last_used"] = _as_dates(_lookup(out["audiometer_id"], tests.groupby("audiometer_id")["date"].max()))
+    if len(last_used):
+        out["last_used"] = _as_dates(_lookup(out["audiometer_id"], last_used))
     else:
         out["last_used"] = pd.Series(pd.NaT, index=out.index, dtype="datetime64[ns]")
     return out[cols]

@@ -132,6 +132,60 @@ class ComplianceInputs:
     baseline_months: float | None
     interval_months: float | None
     training_months: float | None
+    #: the person keys below, made on first use (every as-of date uses the same)
+    _keys: PersonKeys | None = field(default=None, init=False, repr=False, compare=False)
+
+    def keys(self) -> PersonKeys:
+        """Return the people sorted by person id and the integer person code of every record."""
+        if self._keys is None:
+            self._keys = PersonKeys.of(self)
+        return self._keys
+
+
+@dataclass(frozen=True)
+class PersonKeys:
+    """Integer person codes, factorised once: a code per distinct person id of the people table."""
+
+    #: the people sorted by person id (one person may be on several rows)
+    people: pd.DataFrame
+    #: the distinct person ids; a code is a position in it
+    ids: pd.Index
+    #: the code of each row of *people*, of the audiograms, training and fits (-1: not a known person)
+    person: np.ndarray
+    audiogram: np.ndarray
+    training: np.ndarray
+    fit: np.ndarray
+    #: the earliest date (from _first_by_code) of each person code's audiogram, protector issue
+    #: and fit test, and of each row's exit audiogram: the same at every as-of date
+    first_audiogram: np.ndarray
+    first_protector: np.ndarray
+    first_fit_test: np.ndarray
+    first_exit: np.ndarray
+
+    @staticmethod
+    def of(inp: ComplianceInputs) -> PersonKeys:
+        p = inp.people.sort_values("person_id", kind="mergesort").reset_index(drop=True)
+        ids = pd.Index(p["person_id"].astype(str).to_numpy())
+        if not ids.is_unique:  # one person on several rows: each row gets the person's records
+            ids = pd.Index(ids.drop_duplicates())
+        person, acode = _codes(ids, p["person_id"]), _codes(ids, inp.audiograms["person_id"])
+        a = inp.audiograms
+        known = acode >= 0
+        adate = a["date"].to_numpy(dtype="datetime64[ns]")[known]
+        # exit audiogram: one of kind exit, or one dated within the window before the leave date
+        rows = pd.DataFrame({"code": person, "row": np.arange(len(p)),
+                             "leave": p["leave_date"].to_numpy(dtype="datetime64[ns]")})
+        ex = pd.DataFrame({"code": acode[known], "date": adate, "is_exit": a["is_exit"].to_numpy(dtype=bool)[known]}
+                          ).merge(rows, on="code", how="inner")
+        ex = ex[ex["is_exit"] | (ex["date"] >= ex["leave"] - pd.Timedelta(days=EXIT_WINDOW_DAYS))]
+        f = inp.fits
+        fcode = _codes(ids, f["person_id"])
+        fdate = f["date"].to_numpy(dtype="datetime64[ns]")
+        firsts = [_first_by_code(fcode[sel], fdate[sel], len(ids)) for sel in (
+            f["protector_id"].ne("").to_numpy() & (fcode >= 0), f["par"].notna().to_numpy() & (fcode >= 0))]
+        return PersonKeys(p, ids, person, acode, _codes(ids, inp.training["person_id"]), fcode,
+                          _first_by_code(acode[known], adate, len(ids)), firsts[0], firsts[1],
+                          _first_by_code(ex["row"].to_numpy(), ex["date"].to_numpy(dtype="datetime64[ns]"), len(p)))
 
 
 def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet) -> tuple[ComplianceInputs, list[str]]:
@@ -187,13 +241,18 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
         p["first_exposed_date"].notna() | ~p["must_enrol"], p["hire_date"])
 
     aud = _table(programme, "audiograms")
-    a = pd.DataFrame({"person_id": _col(aud, "person_id", "").astype(str), "date": _dates(aud),
-                      "kind": _col(aud, "kind", "periodic").astype(str).replace("", "periodic")})
-    a = a.dropna(subset=["date"])
-    # one row per person and test date; an "exit" kind on either ear marks the test as exit
-    a["is_exit"] = a["kind"].eq("exit")
-    a = (a.groupby(["person_id", "date"], as_index=False, sort=True)
-         .agg(kind=("kind", "first"), is_exit=("is_exit", "any")))
+    when = _dates(aud)
+    dated = when.notna().to_numpy()
+    # one row per person and test date; an "exit" kind on either ear marks the test as exit.
+    # The rows are grouped on integer codes: person ids factorised in sorted order, and dates
+    who, person_ids = pd.factorize(_col(aud, "person_id", "").astype(str)[dated], sort=True)
+    kind = _col(aud, "kind", "periodic").astype(str)[dated]
+    a = pd.DataFrame({"kind": kind.to_numpy(), "is_exit": kind.eq("exit").to_numpy()})
+    a = a[who >= 0].groupby([who[who >= 0], when.to_numpy(dtype="datetime64[ns]")[dated][who >= 0]], sort=True) \
+        .agg(kind=("kind", "first"), is_exit=("is_exit", "any"))
+    a = pd.DataFrame({"person_id": person_ids.take(a.index.get_level_values(0).to_numpy()),
+                      "date": a.index.get_level_values(1).to_numpy(dtype="datetime64[ns]"),
+                      "kind": a["kind"].replace("", "periodic").to_numpy(), "is_exit": a["is_exit"].to_numpy()})
 
     tr = _table(programme, "training")
     t = pd.DataFrame({"person_id": _col(tr, "person_id", "").astype(str), "date": _dates(tr)})
@@ -226,39 +285,53 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
 # per-person status as of one date, or of many dates in one pass
 
 
+def _state_codes(due: pd.Series, as_of: pd.Timestamp | pd.Series, required: Any, done: Any) -> np.ndarray:
+    """Return per row the code of its state in _STATES (0 not required, 1 done, 2 overdue, 3 due soon, 4 scheduled)."""
+    d = due.to_numpy(dtype="datetime64[ns]")
+    a = as_of.to_numpy(dtype="datetime64[ns]") if isinstance(as_of, pd.Series) else np.datetime64(as_of, "ns")
+    soon = a + np.timedelta64(DUE_SOON_DAYS, "D")
+    # comparisons with a blank due date (NaT) are false; a blank due date is overdue
+    return np.select([~np.asarray(required, dtype=bool), np.asarray(done, dtype=bool), np.isnat(d) | (d < a),
+                      d <= soon], [0, 1, 2, 3], 4)
+
+
 def _classify(due: pd.Series, as_of: pd.Timestamp, required: pd.Series, done: pd.Series) -> pd.Series:
     """Return 'not_required' / 'done' / 'overdue' / 'due_soon' / 'scheduled' per row."""
-    soon = as_of + pd.Timedelta(days=DUE_SOON_DAYS)
-    code = np.select(
-        [~required, done, due.isna() | (due < as_of), due <= soon], [0, 1, 2, 3], 4)
+    return _words(_state_codes(due, as_of, required, done), due.index)
+
+
+def _words(code: np.ndarray, index: pd.Index) -> pd.Series:
     # the words are taken from one small array (building a text column row by row is slow)
-    return pd.Series(_STATES.array.take(code), index=due.index)
+    return pd.Series(_STATES.array.take(code), index=index)
 
 
-#: the states _classify returns, by code
-_STATES = pd.Series(["not_required", "done", "overdue", "due_soon", "scheduled"])
+#: the states _state_codes returns, by code; then the words that replace some of them
+_STATES = pd.Series(["not_required", "done", "overdue", "due_soon", "scheduled", "current", "late", "on_time"])
+_CURRENT, _LATE, _ON_TIME = 5, 6, 7
 
 
 def _last_on_or_before(codes: np.ndarray, dates: np.ndarray, q_codes: np.ndarray,
                        q_dates: np.ndarray) -> np.ndarray:
     """Return per query the latest event date on or before the query's date, for the same person code.
 
-    *codes*, *dates*: the events (no NaT); *q_codes*, *q_dates*: the queries. NaT where the
-    person has no such event. One sorted search answers every query.
+    *codes*, *dates*: the events (no NaT); *q_codes*, *q_dates*: the queries (codes >= 0). NaT
+    where the person has no such event. The queries have few distinct dates: a table of each
+    person's latest event on or before each of them answers every query.
     """
     out = np.full(len(q_codes), np.datetime64("NaT"), dtype="datetime64[ns]")
     if len(codes) == 0 or len(q_codes) == 0:
         return out
-    uniq = np.unique(np.concatenate([dates, q_dates]))
-    width = np.int64(len(uniq) + 1)
-    ekey = codes.astype(np.int64) * width + np.searchsorted(uniq, dates)
-    order = np.argsort(ekey, kind="stable")
-    ekey, edates = ekey[order], dates[order]
-    pos = np.searchsorted(ekey, q_codes.astype(np.int64) * width + np.searchsorted(uniq, q_dates), "right") - 1
-    hit = pos >= 0
-    hit[hit] = ekey[pos[hit]] // width == q_codes[hit]
-    out[hit] = edates[pos[hit]]
-    return out
+    q_rank, q_uniq = pd.factorize(q_dates.astype("datetime64[ns]").view(np.int64), sort=True)
+    k = len(q_uniq)
+    ev = dates.astype("datetime64[ns]").view(np.int64)
+    # an event counts for the query dates from the first one on or after it
+    first_q = np.searchsorted(q_uniq, ev, "left")
+    use = first_q < k
+    n_codes = int(max(codes.max(), q_codes.max())) + 1
+    table = np.full(n_codes * k, np.iinfo(np.int64).min, dtype=np.int64)  # the smallest int64 is NaT
+    np.maximum.at(table, codes[use].astype(np.int64) * k + first_q[use], ev[use])
+    table = np.maximum.accumulate(table.reshape(n_codes, k), axis=1)
+    return table[q_codes, q_rank].view("datetime64[ns]")
 
 
 def _first_by_code(codes: np.ndarray, dates: np.ndarray, n: int) -> np.ndarray:
@@ -286,9 +359,10 @@ def _plus_months(dates: pd.Series, months: float | None) -> pd.Series:
     """Return add_months(*dates*, *months*), computed once per distinct date (a long column has few)."""
     v = dates.to_numpy(dtype="datetime64[ns]")
     known = ~np.isnat(v)
-    uniq, pos = np.unique(v[known], return_inverse=True)
+    pos, uniq = pd.factorize(v[known].view(np.int64))
     out = np.full(len(v), np.datetime64("NaT"), dtype="datetime64[ns]")
-    out[known] = add_months(pd.Series(uniq, dtype="datetime64[ns]"), months).to_numpy(dtype="datetime64[ns]")[pos]
+    out[known] = add_months(pd.Series(uniq.view("datetime64[ns]"), dtype="datetime64[ns]"),
+                            months).to_numpy(dtype="datetime64[ns]")[pos]
     return pd.Series(out, index=dates.index, dtype="datetime64[ns]")
 
 
@@ -316,33 +390,34 @@ def person_statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Ti
 
 
 def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestamp]]) -> list[pd.DataFrame]:
-    p = inp.people.sort_values("person_id", kind="mergesort").reset_index(drop=True)
+    keys = inp.keys()
+    p, ids = keys.people, keys.ids
     n, k = len(p), len(dates)
-    ids = pd.Index(p["person_id"].astype(str).to_numpy())
-    if not ids.is_unique:  # one person on several rows: each row gets the person's records
-        ids = pd.Index(ids.drop_duplicates())
-    pcode = np.tile(_codes(ids, p["person_id"]), k)
     row = np.tile(np.arange(n), k)
     when = np.repeat(np.arange(k), n)
     q = np.asarray([pd.Timestamp(a) for a, _ in dates], dtype="datetime64[ns]")[when]
+    begin = np.asarray([pd.Timestamp(b) for _, b in dates], dtype="datetime64[ns]")[when]
+    # only the people in scope at each date are judged: hired by its as-of date, not gone before its start
+    hire = p["hire_date"].to_numpy(dtype="datetime64[ns]")[row]
+    leave = p["leave_date"].to_numpy(dtype="datetime64[ns]")[row]
+    keep = np.flatnonzero((np.isnat(hire) | (hire <= q)) & (np.isnat(leave) | (leave >= begin)))
+    row, when, q = row[keep], when[keep], q[keep]
+    pcode = keys.person[row]
     as_of = pd.Series(q)
-    begin = pd.Series(np.asarray([pd.Timestamp(b) for _, b in dates], dtype="datetime64[ns]")[when])
     s = p.iloc[row].reset_index(drop=True)
-    in_scope = ((s["hire_date"].isna() | (s["hire_date"] <= as_of)) &
-                (s["leave_date"].isna() | (s["leave_date"] >= begin))).to_numpy()
     active = s["leave_date"].isna() | (s["leave_date"] >= as_of)
     s["must_enrol"] = s["must_enrol"] & (s["first_exposed_date"].isna() | (s["first_exposed_date"] <= as_of))
 
     a = inp.audiograms
-    acode = _codes(ids, a["person_id"])
+    acode = keys.audiogram
     known = acode >= 0
     acode, adate = acode[known], a["date"].to_numpy(dtype="datetime64[ns]")[known]
-    first = _first_by_code(acode, adate, len(ids))[pcode]
+    first = keys.first_audiogram[pcode]
     s["first_audiogram"] = pd.Series(np.where(_present(first, q), first.view("datetime64[ns]"),
                                               np.datetime64("NaT")), dtype="datetime64[ns]")
     s["last_audiogram"] = pd.Series(_last_on_or_before(acode, adate, pcode, q), dtype="datetime64[ns]")
     t = inp.training
-    tcode = _codes(ids, t["person_id"])
+    tcode = keys.training
     s["last_training"] = pd.Series(_last_on_or_before(tcode[tcode >= 0], t["date"].to_numpy(
         dtype="datetime64[ns]")[tcode >= 0], pcode, q), dtype="datetime64[ns]")
     has_aud = s["last_audiogram"].notna()
@@ -358,22 +433,22 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     s["protector_duty"] = (s["protector_duty"] & started) | s["group_protectors"]
 
     # baseline: within baseline_months of first exposure (29 CFR 1910.95(g)(5))
-    s["baseline_due"] = _plus_months(s["first_exposed_date"], inp.baseline_months) \
+    # (the first exposure is the person's, the same at every as-of date)
+    s["baseline_due"] = pd.Series(_plus_months(p["first_exposed_date"], inp.baseline_months).to_numpy(
+        dtype="datetime64[ns]")[row], dtype="datetime64[ns]") \
         if inp.baseline_months is not None else pd.Series(pd.NaT, index=s.index, dtype="datetime64[ns]")
-    status = _classify(s["baseline_due"], as_of, s["must_enrol"] & (inp.baseline_months is not None), has_aud)
+    code = _state_codes(s["baseline_due"], as_of, s["must_enrol"] & (inp.baseline_months is not None), has_aud)
     late = has_aud & s["baseline_due"].notna() & (s["first_audiogram"] > s["baseline_due"])
-    status = status.where(~(s["must_enrol"] & has_aud), np.where(late, "late", "on_time"))
-    if inp.baseline_months is None:
-        status = status.where(~(s["must_enrol"] & has_aud), "done")
-    s["baseline_status"] = status
+    tested = (s["must_enrol"] & has_aud).to_numpy()
+    code = np.where(tested, np.where(late, _LATE, _ON_TIME) if inp.baseline_months is not None else 1, code)
+    s["baseline_status"] = _words(code, s.index)
 
     # periodic: at least every interval_months after the last audiogram (1910.95(g)(6))
     s["next_audiogram_due"] = _plus_months(s["last_audiogram"], inp.interval_months)
     left_first = s["leave_date"].notna() & (s["leave_date"] <= s["next_audiogram_due"])
     periodic_req = s["must_enrol"] & has_aud & (inp.interval_months is not None) & ~left_first
-    s["audiogram_status"] = _classify(s["next_audiogram_due"], as_of, periodic_req,
-                                      pd.Series(False, index=s.index))
-    s.loc[s["audiogram_status"].eq("scheduled"), "audiogram_status"] = "current"
+    code = _state_codes(s["next_audiogram_due"], as_of, periodic_req, False)
+    s["audiogram_status"] = _words(np.where(code == 4, _CURRENT, code), s.index)
     cur_months = inp.interval_months if inp.interval_months is not None else 12
     s["current_audiogram"] = has_aud & (_plus_months(s["last_audiogram"], cur_months) >= as_of)
 
@@ -381,14 +456,9 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     # or one dated within the window before the leave date, on or before the as-of date
     exit_req = s["must_enrol"] & s["leave_date"].notna() & (s["leave_date"] <= as_of + pd.Timedelta(
         days=DUE_SOON_DAYS))
-    rows = pd.DataFrame({"code": _codes(ids, p["person_id"]), "row": np.arange(n),
-                         "leave": p["leave_date"].to_numpy(dtype="datetime64[ns]")})
-    ex = pd.DataFrame({"code": acode, "date": adate, "is_exit": a["is_exit"].to_numpy(dtype=bool)[known]}
-                      ).merge(rows, on="code", how="inner")
-    ex = ex[ex["is_exit"] | (ex["date"] >= ex["leave"] - pd.Timedelta(days=EXIT_WINDOW_DAYS))]
-    exit_first = _first_by_code(ex["row"].to_numpy(), ex["date"].to_numpy(dtype="datetime64[ns]"), n)[row]
+    exit_first = keys.first_exit[row]
     # done when any in-scope row of the person has such an audiogram by the as-of date
-    hit = _present(exit_first, q) & (exit_first != np.iinfo(np.int64).max) & in_scope
+    hit = _present(exit_first, q) & (exit_first != np.iinfo(np.int64).max)
     key = when * len(ids) + pcode
     any_hit = np.zeros(k * len(ids), dtype=bool)
     any_hit[key[hit]] = True
@@ -400,25 +470,19 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
     left_before = s["leave_date"].notna() & (s["leave_date"] <= s["next_training_due"])
     # a first training is owed whatever the interval; a rule set with no interval asks for no repeat
     train_req = s["training_duty"] & ((inp.training_months is not None) | ~has_tr) & ~left_before
-    s["training_status"] = _classify(s["next_training_due"], as_of, train_req,
-                                     pd.Series(False, index=s.index))
-    s.loc[s["training_status"].eq("scheduled"), "training_status"] = "current"
+    code = _state_codes(s["next_training_due"], as_of, train_req, False)
+    s["training_status"] = _words(np.where(code == 4, _CURRENT, code), s.index)
     tr_months = inp.training_months if inp.training_months is not None else 12
     s["trained_current"] = has_tr & (_plus_months(s["last_training"], tr_months) >= as_of)
     s["active"] = active
 
     # protectors: issued or fitted on or before the as-of date (blank date counts)
-    f = inp.fits
-    fcode = _codes(ids, f["person_id"])
-    fdate = f["date"].to_numpy(dtype="datetime64[ns]")
     never = np.iinfo(np.int64).max
-    for col, keep in (("has_protector", f["protector_id"].ne("").to_numpy()),
-                      ("has_fit_test", f["par"].notna().to_numpy())):
-        sel = keep & (fcode >= 0)
-        firstf = _first_by_code(fcode[sel], fdate[sel], len(ids))[pcode]
+    for col, firsts in (("has_protector", keys.first_protector), ("has_fit_test", keys.first_fit_test)):
+        firstf = firsts[pcode]
         s[col] = pd.Series(_present(firstf, q) & (firstf != never))
     s["protector_required"] = s["protector_duty"] & active
-    return [s.loc[in_scope & (when == j)].reset_index(drop=True) for j in range(k)]
+    return [s.loc[when == j].reset_index(drop=True) for j in range(k)]
 
 
 # ---------------------------------------------------------------------------------------

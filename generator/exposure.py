@@ -38,6 +38,7 @@ from __future__ import annotations
 
 import logging
 import math
+from collections.abc import Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -167,7 +168,7 @@ class ExposureResult:
     tasks: pd.DataFrame
     people: pd.DataFrame
     weekly: pd.DataFrame
-    logs: dict[str, pd.DataFrame]
+    logs: Mapping[str, pd.DataFrame]
     actions: pd.DataFrame
     findings: list[Finding]
     noise_map: NoiseMap
@@ -420,7 +421,7 @@ def _group_frame(programme: Programme) -> pd.DataFrame:
     people = programme.table("people")
     noise = programme.table("noise")
     tasks = programme.table("tasks")
-    codes = set(gt["group"]) | set(people["group"]) | set(noise["group"]) | set(tasks["group"])
+    codes = set().union(*(t["group"].unique().tolist() for t in (gt, people, noise, tasks)))
     codes.discard("")
     g = pd.DataFrame({"group": sorted(codes)})
     keep = [c for c in ("group", "name", "shift_hours", "days_per_week") if c in gt.columns]
@@ -446,18 +447,57 @@ def _log_arrays(programme: Programme, mids: np.ndarray) -> tuple[np.ndarray, np.
     frames = [programme.noise_logs[m] for m in have]
     sizes = np.array([len(f) for f in frames], dtype=np.int64)
     idx = np.repeat(np.array([pos[m] for m in have], dtype=np.int64), sizes)
-    lev = np.concatenate([f["laeq"].to_numpy(float) for f in frames])
+    # one concatenation of every log (taking the columns of each log in turn costs more)
+    every = pd.concat(frames, ignore_index=True)
+    lev = every["laeq"].to_numpy(float)
     step = np.repeat(np.array([programme.log_interval_s.get(m, 60.0) for m in have], dtype=float) / 3600.0,
                      sizes)
-    start = np.concatenate([f["start"].to_numpy("datetime64[ns]").astype(np.int64) for f in frames])
+    start = every["start"].to_numpy("datetime64[ns]").astype(np.int64)
     return idx, lev, step, start, have
 
 
+class LogHistories(Mapping[str, pd.DataFrame]):
+    """The downsampled time history of each logged measurement, by measurement id (sorted).
+
+    The bins of every log are computed at once into flat arrays; the frame of one log
+    (start, laeq = energy mean, lmax, n samples) is made when it is first asked for, since
+    the pages chart and list only some of them.
+    """
+
+    def __init__(self, ids: list[str], first: np.ndarray, nbins: np.ndarray, start: np.ndarray,
+                 energy: np.ndarray, lmax: np.ndarray, count: np.ndarray) -> None:
+        self._pos = {m: i for i, m in enumerate(ids)}
+        self._first, self._nbins = first, nbins
+        self._start, self._energy, self._lmax, self._count = start, energy, lmax, count
+        self._frames: dict[str, pd.DataFrame] = {}
+
+    def __getitem__(self, mid: str) -> pd.DataFrame:
+        frame = self._frames.get(mid)
+        if frame is None:
+            i = self._pos[mid]
+            sl = slice(self._first[i], self._first[i] + self._nbins[i])
+            c = self._count[sl]
+            frame = pd.DataFrame({"start": self._start[sl].view("datetime64[ns]"),
+                                  "laeq": lv.level(self._energy[sl] / c), "lmax": self._lmax[sl], "n": c})
+            self._frames[mid] = frame
+        return frame
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._pos)
+
+    def __len__(self) -> int:
+        return len(self._pos)
+
+    def __contains__(self, mid: object) -> bool:
+        return mid in self._pos
+
+
 def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.ndarray,
-                have: list[str]) -> dict[str, pd.DataFrame]:
+                have: list[str]) -> LogHistories:
     """Return per-measurement downsampled histories (≤ LOG_POINTS bins: energy mean, max, start)."""
     if not have:
-        return {}
+        none, no_ints = np.empty(0), np.empty(0, dtype=np.int64)
+        return LogHistories([], no_ints, no_ints, no_ints, none, none, no_ints)
     n_rows = len(mids)
     counts = np.bincount(idx, minlength=n_rows)
     # samples are concatenated log by log: the position within a log is a running index from its first sample
@@ -477,22 +517,24 @@ def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.nd
     mx[b[firsts]] = np.maximum.reduceat(lev, firsts)
     st = np.empty(total, dtype=np.int64)
     st[b[firsts]] = start[firsts]
-    out: dict[str, pd.DataFrame] = {}
     pos = {m: i for i, m in enumerate(mids)}
-    for m in have:
-        i = pos[m]
-        sl = slice(bin_off[i], bin_off[i] + nbins[i])
-        out[m] = pd.DataFrame({"start": pd.to_datetime(st[sl]), "laeq": lv.level(e[sl] / c[sl]),
-                               "lmax": mx[sl], "n": c[sl]})
-    return out
+    rows = np.array([pos[m] for m in have], dtype=np.int64)
+    return LogHistories(list(have), bin_off[rows], nbins[rows], st, e, mx, c)
+
+
+def _contract_rules(programme: Programme) -> dict[str, RuleSet]:
+    """Return the rule sets behind the contract's fixed columns and the reported dose, each read once."""
+    ids = sorted({REPORTED_RULE, *CONTRACT_RULES.values()})
+    return {rid: load_rule_set(rid, programme.config) for rid in ids}
 
 
 def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.DataFrame,
-                  findings: list[Finding]) -> tuple[pd.DataFrame, dict[str, pd.DataFrame]]:
+                  findings: list[Finding], contract: dict[str, RuleSet]) -> tuple[pd.DataFrame, LogHistories]:
     noise = programme.table("noise").copy().reset_index(drop=True)
     people = programme.table("people")
     path = _path(programme, "noise")
-    pgroup = dict(zip(people["person_id"], people["group"]))
+    # each person's group (the last row of a person named twice, as a dict of the rows would give)
+    pgroup = people.drop_duplicates("person_id", keep="last").set_index("person_id")["group"]
     m = noise
     for c in ("person_id", "group", "location", "kind"):
         if c not in m:
@@ -550,7 +592,7 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
     m["basis"] = np.where(has_log, "log", np.where(dosim, "dosimeter", "steady_level"))
 
     m["dose_estimate"] = ~has_log
-    reported_rule = load_rule_set(REPORTED_RULE, programme.config)
+    reported_rule = contract[REPORTED_RULE]
     reported_spec = _spec(reported_rule)
     rep_dose = m["osha_dose_pct"].to_numpy(float)
     rep_twa = m["osha_twa"].to_numpy(float)
@@ -595,7 +637,7 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
         return np.where(d > 0, t, np.nan)
 
     for prefix, (rid, which) in CONTRACT_DOSES.items():
-        rule = load_rule_set(rid, programme.config)
+        rule = contract[rid]
         spec = _spec(rule, which)
         d = dose(spec, reported=(spec == reported_spec))
         m[f"{prefix}_dose_pct"] = d
@@ -672,7 +714,8 @@ def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> Ex
     findings: list[Finding] = []
     end = _period_end(programme)
     groups = _group_frame(programme)
-    m, logs = _measurements(programme, rules, groups, findings)
+    contract = _contract_rules(programme)
+    m, logs = _measurements(programme, rules, groups, findings, contract)
     people = programme.table("people")
     noise_path = _path(programme, "noise")
     tasks_path = _path(programme, "tasks")
@@ -756,7 +799,7 @@ def compute(programme: Programme, rules: dict[str, RuleSet] | None = None) -> Ex
     for prefix, rid in sorted(CONTRACT_RULES.items()):
         if f"dose_{rid}" not in cur:
             cur[f"dose_{rid}"] = m.loc[cur.index, f"{prefix}_dose_pct"]
-        g[f"{prefix}_twa"] = group_twa(load_rule_set(rid, cfg))
+        g[f"{prefix}_twa"] = group_twa(contract[rid])
     U = g["u_expanded"].to_numpy(float)
     for rid, rule in rules.items():
         val = g["lex_8h"].to_numpy(float) if rule.metric == "lex" else group_twa(rule)

@@ -55,6 +55,78 @@ class Snapshot:
     actions: pd.DataFrame | None = None
     #: hours worked by all employees over the snapshot (None: not recorded)
     hours_worked: float | None = None
+    #: the dated records above sorted by date once, shared by snapshots of the same records
+    #: (None: made from this snapshot's frames when first needed)
+    records: Records | None = field(default=None, compare=False, repr=False)
+
+    def dated(self) -> Records:
+        """Return the snapshot's dated records (the shared ones, or made from its own frames)."""
+        return self.records if self.records is not None else Records.of(self.audiograms, self.cases,
+                                                                          self.test_days, self.exposure_people)
+
+
+class _Dated:
+    """Rows of one table sorted by their date (int64 nanoseconds; a blank date sorts first)."""
+
+    def __init__(self, dates: pd.Series, people: np.ndarray | None = None, ok: np.ndarray | None = None) -> None:
+        v = dates.to_numpy(dtype="datetime64[ns]").view(np.int64)
+        order = np.argsort(v, kind="stable")
+        self.dates = v[order]
+        #: person code of each row (-1: none), when the rows are people's
+        self.people = people[order] if people is not None else None
+        #: running count of the rows marked ok, when the rows carry such a mark
+        self.ok = np.r_[0, np.cumsum(ok[order])] if ok is not None else None
+
+    def span(self, snap: Snapshot) -> slice:
+        """Return the rows dated from the snapshot's start to its as-of date (inclusive)."""
+        lo = np.searchsorted(self.dates, np.datetime64(snap.start, "ns").astype(np.int64), "left")
+        hi = np.searchsorted(self.dates, np.datetime64(snap.as_of, "ns").astype(np.int64), "right")
+        return slice(int(lo), int(max(lo, hi)))
+
+    def people_in(self, snap: Snapshot) -> int:
+        """Return how many distinct people have a row in the snapshot's dates."""
+        assert self.people is not None
+        codes = self.people[self.span(snap)]
+        return int(np.count_nonzero(np.bincount(codes[codes >= 0])))
+
+
+@dataclass(frozen=True)
+class Records:
+    """The audiograms, recordable cases and test days of a programme, each sorted by date once,
+    and the level each person is judged on."""
+
+    #: every audiogram row, and the rows with a threshold shift in force (by person)
+    audiograms: _Dated | None
+    sts: _Dated | None
+    cases: _Dated | None
+    #: test days, with their ok mark
+    test_days: _Dated | None
+    #: the headline level each person is judged on, by person id (None: no levels)
+    levels: pd.Series | None
+
+    @staticmethod
+    def of(audiograms: pd.DataFrame | None, cases: pd.DataFrame | None, test_days: pd.DataFrame | None,
+           exposure_people: pd.DataFrame | None) -> Records:
+        """Return the records of these frames (None for an absent or empty one)."""
+        aud = sts = None
+        if audiograms is not None and not audiograms.empty:
+            who = pd.factorize(audiograms["person_id"].astype(str).to_numpy())[0]
+            when = _dates(audiograms)
+            aud = _Dated(when, who)
+            if "sts" in audiograms.columns:
+                hit = as_bool(audiograms["sts"]).to_numpy()
+                sts = _Dated(when[hit], who[hit])
+        cs = _Dated(_dates(cases)) if cases is not None and not cases.empty else None
+        days = _Dated(_dates(test_days), ok=as_bool(test_days["ok"]).to_numpy()) \
+            if test_days is not None and not test_days.empty else None
+        ep = exposure_people
+        col = next((c for c in ("judged_level", "twa") if ep is not None and c in ep.columns), None)
+        levels = None
+        if ep is not None and not ep.empty and "person_id" in ep.columns and col is not None:
+            ep = ep.drop_duplicates("person_id")
+            levels = pd.Series(pd.to_numeric(ep[col], errors="coerce").to_numpy(float),
+                               index=ep["person_id"].astype(str).to_numpy())
+        return Records(aud, sts, cs, days, levels)
 
 
 @dataclass(frozen=True)
@@ -122,11 +194,6 @@ def _share(name: str, num: Any, den: Any) -> FigureValue:
     return FigureValue(name, None if den == 0 else round(num / den, 4), num, den)
 
 
-def _in(d: pd.Series, snap: Snapshot) -> np.ndarray:
-    v = d.to_numpy(dtype="datetime64[ns]")  # numpy compares a long column several times faster
-    return (v >= np.datetime64(snap.start, "ns")) & (v <= np.datetime64(snap.as_of, "ns"))
-
-
 def _must_active(s: pd.DataFrame) -> pd.Series:
     """People who must have a current audiogram: exposed, employed, past their baseline time limit."""
     return s["must_enrol"] & s["active"] & ~s["baseline_status"].isin(["scheduled", "due_soon"])
@@ -140,13 +207,11 @@ def top_edge(rule: RuleSet) -> float | None:
 
 def judged_levels(snap: Snapshot) -> pd.Series:
     """Return the headline level each in-scope person is judged on (NaN: not measured), aligned with status."""
-    ep = snap.exposure_people
-    col = next((c for c in ("judged_level", "twa") if ep is not None and c in ep.columns), None)
-    if ep is None or ep.empty or "person_id" not in ep.columns or col is None:
+    lv = snap.dated().levels
+    if lv is None:
         return pd.Series(np.nan, index=snap.status.index)
-    ep = ep.drop_duplicates("person_id")
-    lv = pd.Series(ep[col].to_numpy(), index=ep["person_id"].astype(str).to_numpy())
-    out = pd.to_numeric(snap.status["person_id"].astype(str).map(lv), errors="coerce")
+    pos = lv.index.get_indexer(snap.status["person_id"].astype(str).to_numpy())
+    out = pd.Series(np.where(pos >= 0, lv.to_numpy()[pos], np.nan), index=snap.status.index)
     # nobody is counted as exposed before their first exposure (as the programme's duties start then)
     first = snap.status["first_exposed_date"]
     return out.where(first.isna() | (first <= snap.as_of))
@@ -161,25 +226,25 @@ def _top_band(snap: Snapshot) -> FigureValue:
 
 
 def _sts(snap: Snapshot) -> FigureValue:
-    a = snap.audiograms
-    if a is None or a.empty or "sts" not in a.columns:
+    sts = snap.dated().sts
+    if sts is None:
         return _count("people_with_sts", 0)
-    hit = _in(_dates(a), snap) & as_bool(a["sts"])
-    return _count("people_with_sts", a.loc[hit, "person_id"].astype(str).nunique())
+    return _count("people_with_sts", sts.people_in(snap))
 
 
 def _tested(snap: Snapshot) -> FigureValue:
-    a = snap.audiograms
-    if a is None or a.empty:
+    aud = snap.dated().audiograms
+    if aud is None:
         return _count("people_tested", 0)
-    return _count("people_tested", a.loc[_in(_dates(a), snap), "person_id"].astype(str).nunique())
+    return _count("people_tested", aud.people_in(snap))
 
 
 def _cases_in(snap: Snapshot) -> int:
-    c = snap.cases
-    if c is None or c.empty:
+    c = snap.dated().cases
+    if c is None:
         return 0
-    return int(_in(_dates(c), snap).sum())
+    sl = c.span(snap)
+    return sl.stop - sl.start
 
 
 def _rate(snap: Snapshot) -> FigureValue:
@@ -196,11 +261,12 @@ def incidence_rate(cases: float, hours: float) -> float:
 
 
 def _test_days(snap: Snapshot) -> FigureValue:
-    t = snap.test_days
-    if t is None or t.empty:
+    t = snap.dated().test_days
+    if t is None:
         return FigureValue("audiometer_days_ok_share", None, 0, 0)
-    inp = _in(_dates(t), snap)
-    return _share("audiometer_days_ok_share", (inp & as_bool(t["ok"])).sum(), inp.sum())
+    sl = t.span(snap)
+    assert t.ok is not None
+    return _share("audiometer_days_ok_share", t.ok[sl.stop] - t.ok[sl.start], sl.stop - sl.start)
 
 
 def _actions(name: str, overdue: bool) -> Callable[[Snapshot], FigureValue]:

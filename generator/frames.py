@@ -51,9 +51,10 @@ def dates(df: pd.DataFrame, name: str = "date") -> pd.Series:
 
 
 def table(programme: Programme, name: str) -> pd.DataFrame:
+    """Return the programme's table *name* itself, not a copy: the caller must not modify it."""
     tables = getattr(programme, "tables", {}) or {}
     df = tables.get(name)
-    return df.copy() if df is not None else pd.DataFrame()
+    return df if df is not None else pd.DataFrame()
 
 
 def share(num: float, den: float) -> float | None:

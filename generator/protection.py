@@ -537,7 +537,8 @@ def _actions(people: pd.DataFrame, rules: RuleSet) -> pd.DataFrame:
     """Return one action per person with too little or too much protection."""
     base_clause = rules.clause("protected_target")
     sts_clause = rules.clause("protected_target_after_sts")
-    p = people
+    # the texts are made for the people who get an action only
+    p = people[people["adequacy"].isin(["insufficient", "over-protected"])]
     clause = pd.Series(np.where(p["after_sts"].to_numpy(dtype=bool), sts_clause, base_clause), index=p.index)
     lvl = p["protected_level"].round(1).astype(str)
     tgt = p["target"].map(lambda v: f"{v:g}")
@@ -569,14 +570,25 @@ def _actions(people: pd.DataFrame, rules: RuleSet) -> pd.DataFrame:
     return out.sort_values(["kind", "subject"], kind="stable").reset_index(drop=True)[ACTION_COLUMNS]
 
 
-def _findings(programme: Programme, cat: pd.DataFrame, cur: pd.DataFrame) -> list[Finding]:
-    """Return warnings about protectors that cannot be assessed."""
+def _wearers(cur: pd.DataFrame) -> pd.Series:
+    """Return the number of people wearing each protector ("A+B" counts for A and for B)."""
+    if cur.empty:
+        return pd.Series(dtype=int)
+    # few distinct protector ids: split each once, counted as often as it is worn
+    counts: dict[str, int] = {}
+    for ids, n in cur["protector_id"].value_counts(sort=False).items():
+        for part in str(ids).split("+"):
+            counts[part] = counts.get(part, 0) + int(n)
+    return pd.Series(counts, dtype=int)
+
+
+def _findings(programme: Programme, cat: pd.DataFrame, worn: set[str]) -> list[Finding]:
+    """Return warnings about protectors that cannot be assessed (*worn*: the protector ids worn)."""
     out: list[Finding] = []
     prot = programme.table("protectors")
     path = programme.present.get("protectors", "data/protectors.csv")
     if not prot.empty:
         rated = cat[["nrr", "snr", "h"]].notna().any(axis=1) | cat["has_octave"]
-        worn = set(cur["protector_id"].str.split("+").explode()) if not cur.empty else set()
         bad = cat.loc[~rated & cat["protector_id"].isin(sorted(worn)), "protector_id"]
         rows = prot.set_index("protector_id")["_row"] if "_row" in prot.columns else pd.Series(dtype=float)
         for pid in bad:
@@ -642,9 +654,9 @@ def compute(programme: Programme, *, exposure: ExposureResult | None, sts_people
     methods["governs"] = methods.set_index(["person_id", "method"]).index.isin(
         pd.MultiIndex.from_frame(out_people[["person_id", "method"]]))
     methods = methods.sort_values(["person_id", "method"], kind="stable").reset_index(drop=True)
-    worn = cur["protector_id"].str.split("+").explode().value_counts() if not cur.empty else pd.Series(dtype=int)
+    worn = _wearers(cur)
     cat["n_wearers"] = cat["protector_id"].map(worn).fillna(0).astype(int)
-    findings = _findings(programme, cat, cur)
+    findings = _findings(programme, cat, set(worn.index))
     log.info("protection: %d people judged, %d insufficient", len(out_people),
              int((out_people["adequacy"] == "insufficient").sum()))
     return ProtectionResult(people=out_people, groups=_groups(out_people), methods=methods, protectors=cat,

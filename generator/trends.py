@@ -39,17 +39,23 @@ class TrendsResult:
 
 def snapshot(inp: ComplianceInputs, *, start: pd.Timestamp, as_of: pd.Timestamp, hearing: Any,
              exposure: Any, checks: AudiometerChecks | None, status: pd.DataFrame | None = None,
-             actions: pd.DataFrame | None = None, hours: float | None = None) -> F.Snapshot:
-    """Return the snapshot of the people in scope between *start* and *as_of*."""
+             actions: pd.DataFrame | None = None, hours: float | None = None,
+             records: F.Records | None = None) -> F.Snapshot:
+    """Return the snapshot of the people in scope between *start* and *as_of*.
+
+    *records*: the records of *hearing*, *exposure* and *checks* when already made (snapshots of
+    one build share them).
+    """
     s = person_status(inp, as_of, start) if status is None else status
     empty = pd.DataFrame()
+    audiograms = getattr(hearing, "audiograms", None) if hearing is not None else None
+    cases = getattr(hearing, "cases", None) if hearing is not None else None
+    test_days = checks.status if checks is not None else empty
+    people = getattr(exposure, "people", None) if exposure is not None else None
     return F.Snapshot(
-        start=start, as_of=as_of, rule=inp.rule, status=s,
-        audiograms=getattr(hearing, "audiograms", None) if hearing is not None else None,
-        cases=getattr(hearing, "cases", None) if hearing is not None else None,
-        test_days=checks.status if checks is not None else empty,
-        exposure_people=getattr(exposure, "people", None) if exposure is not None else None,
-        actions=actions, hours_worked=hours)
+        start=start, as_of=as_of, rule=inp.rule, status=s, audiograms=audiograms, cases=cases,
+        test_days=test_days, exposure_people=people, actions=actions, hours_worked=hours,
+        records=records if records is not None else F.Records.of(audiograms, cases, test_days, people))
 
 
 def compute_trends(inp: ComplianceInputs, period: F.Snapshot, *, hearing: Any, exposure: Any,
@@ -66,7 +72,7 @@ def compute_trends(inp: ComplianceInputs, period: F.Snapshot, *, hearing: Any, e
     # every earlier year end's per-person status in one pass; each year then only counts
     for (end, start), status in zip(ends, person_statuses(inp, ends)):
         snap = snapshot(inp, start=start, as_of=end, hearing=hearing, exposure=exposure, checks=checks,
-                        status=status)
+                        status=status, records=period.records)
         years[end.year] = F.evaluate(snap, F.yearly())
     years[as_of.year] = F.evaluate(period, F.yearly())
     rows = [{"year": y, "as_of": as_of if y == as_of.year else pd.Timestamp(year=y, month=12, day=31),
