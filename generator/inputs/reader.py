@@ -19,7 +19,7 @@ import os
 import re
 import time
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
@@ -309,9 +309,17 @@ class _Grid:
     path: str | np.ndarray
     #: (cells may carry surrounding spaces, cells may look like formulas); True when unknown
     hints: tuple[bool, bool] = (True, True)
+    #: hearing-level columns read as numbers (by position): True where the cell said NR
+    nr: dict[int, np.ndarray] = field(default_factory=dict)
 
 
 _NR_TEXTS = ["NR", "nr", "Nr", "nR"]
+
+
+def _first_line(text: str) -> str:
+    """Return the first line of *text* without its line end."""
+    end = text.find("\n")
+    return (text if end < 0 else text[:end]).rstrip("\r")
 
 
 def _typed_columns(text: str, spec: FileSpec | None) -> dict[int, Column]:
@@ -322,10 +330,10 @@ def _typed_columns(text: str, spec: FileSpec | None) -> dict[int, Column]:
     """
     if spec is None:
         return {}
-    labels = [h.replace("\ufeff", "").strip().lower() for h in text.partition("\n")[0].rstrip("\r").split(",")]
+    labels = [h.replace("\ufeff", "").strip().lower() for h in _first_line(text).split(",")]
     if spec.name == "audiograms" and "ear" not in labels:
         return {}
-    numeric = {c.name: c for c in spec.columns if c.kind in _NUMERIC_KINDS or c.kind == "hl"}
+    numeric = {c.name: c for c in spec.columns if c.kind in _NUMERIC_KINDS or c.kind in ("hl", "date")}
     out: dict[int, Column] = {}
     seen: set[str] = set()
     for i, name in enumerate(labels):
@@ -345,7 +353,11 @@ def _clean_numbers(c: Column, values: np.ndarray, blanks_only: Callable[[], bool
     nan = np.isnan(values)
     if nan.any() and (c.kind == "hl" or not blanks_only()):
         return False
-    v = values[~nan]
+    return _clean_values(c, values[~nan])
+
+
+def _clean_values(c: Column, v: np.ndarray) -> bool:
+    """Return True when every number of *v* (no NaN) is finite, whole where declared and in range."""
     if not np.isfinite(v).all():
         return False
     if c.lo is not None and ((v <= c.lo) if c.lo_open else (v < c.lo)).any():
@@ -353,6 +365,108 @@ def _clean_numbers(c: Column, values: np.ndarray, blanks_only: Callable[[], bool
     if c.hi is not None and (v > c.hi).any():
         return False
     return not (c.kind == "int" and (np.mod(v, 1.0) != 0).any())
+
+
+class _Fields:
+    """Where every cell of quote-free CSV bytes lies, for files whose every line has the header's cells.
+
+    Lets a column be checked or parsed straight from the bytes: its blank cells, its ``NR``
+    cells, its ISO dates. *lines* are the indices of the body records among all lines.
+    """
+
+    def __init__(self, arr: np.ndarray, nl: np.ndarray, commas: np.ndarray, ncols: int, lines: np.ndarray) -> None:
+        self.arr = arr
+        n = nl.size
+        self.commas = commas.reshape(n, ncols - 1)
+        starts = np.concatenate(([0], nl[:-1] + 1))
+        ends = nl.copy()
+        cr = (ends > starts) & (arr[np.maximum(ends - 1, 0)] == 13)
+        ends[cr] -= 1
+        self.starts, self.ends = starts[lines], ends[lines]
+        #: the body records as a slice of all lines when they follow one another (no blank line between)
+        self.lines: slice | np.ndarray = slice(int(lines[0]), int(lines[-1]) + 1) \
+            if lines.size and int(lines[-1]) - int(lines[0]) + 1 == lines.size else lines
+        self.ncols = ncols
+
+    def span(self, j: int) -> tuple[np.ndarray, np.ndarray]:
+        """Return (first byte, end byte) of the cells of column *j* in every body record."""
+        a = self.starts if j == 0 else self.commas[self.lines, j - 1] + 1
+        b = self.ends if j == self.ncols - 1 else self.commas[self.lines, j]
+        return a, b
+
+    def blank(self, j: int) -> np.ndarray:
+        """Return True where the cell of column *j* is empty."""
+        a, b = self.span(j)
+        return a == b
+
+    def nr(self, j: int) -> tuple[np.ndarray, np.ndarray]:
+        """Return (empty, written NR in any case) for the cells of column *j*."""
+        a, b = self.span(j)
+        two = np.flatnonzero(b - a == 2)
+        nr = np.zeros(a.size, dtype=bool)
+        if two.size:
+            first, second = self.arr[a[two]] | 32, self.arr[a[two] + 1] | 32  # ASCII letters to lower case
+            nr[two] = (first == ord("n")) & (second == ord("r"))
+        return a == b, nr
+
+    def chars(self, j: int, width: int) -> tuple[np.ndarray, np.ndarray] | None:
+        """Return (empty, bytes of the other cells as rows of *width*) for column *j*; None when a
+        cell that is not empty has another width."""
+        a, b = self.span(j)
+        size = b - a
+        blank = size == 0
+        if not ((size == width) | blank).all():
+            return None
+        at = a[~blank]
+        return blank, self.arr[at[:, None] + np.arange(width)]
+
+
+_DAYS_IN_MONTH = np.array([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], dtype=np.int64)
+
+
+def _digits(block: np.ndarray, positions: tuple[int, ...]) -> np.ndarray | None:
+    """Return the number written by the ASCII digits at *positions* of every row; None if one is not a digit."""
+    d = block[:, list(positions)].astype(np.int64) - 48
+    if ((d < 0) | (d > 9)).any():
+        return None
+    out = np.zeros(len(block), dtype=np.int64)
+    for k in range(d.shape[1]):
+        out = out * 10 + d[:, k]
+    return out
+
+
+def _iso_cells(fields: _Fields, j: int, with_time: bool) -> np.ndarray | None:
+    """Return column *j* written as YYYY-MM-DD (or YYYY-MM-DDTHH:MM:SS) as datetime64[ns], NaT where blank.
+
+    None when a cell is written otherwise, is no calendar date or clock time, or lies outside
+    the years YEAR_MIN to YEAR_MAX: such a column is read as text, whose findings quote it.
+    """
+    got = fields.chars(j, 19 if with_time else 10)
+    if got is None:
+        return None
+    blank, block = got
+    seps = [(4, 45), (7, 45)] + ([(10, 84), (13, 58), (16, 58)] if with_time else [])  # - - T : :
+    if any((block[:, k] != ch).any() for k, ch in seps):
+        return None
+    year, month, day = _digits(block, (0, 1, 2, 3)), _digits(block, (5, 6)), _digits(block, (8, 9))
+    if year is None or month is None or day is None:
+        return None
+    if ((year < YEAR_MIN) | (year > YEAR_MAX) | (month < 1) | (month > 12) | (day < 1)).any():
+        return None
+    leap = (year % 4 == 0) & ((year % 100 != 0) | (year % 400 == 0))
+    if (day > _DAYS_IN_MONTH[month - 1] + (leap & (month == 2))).any():
+        return None
+    days = ((year - 1970).astype("datetime64[Y]").astype("datetime64[M]") + (month - 1)).astype("datetime64[D]") \
+        + (day - 1)
+    ns = days.astype("datetime64[ns]")
+    if with_time:
+        hour, minute, second = _digits(block, (11, 12)), _digits(block, (14, 15)), _digits(block, (17, 18))
+        if hour is None or minute is None or second is None or ((hour > 23) | (minute > 59) | (second > 59)).any():
+            return None
+        ns = ns + ((hour * 60 + minute) * 60 + second) * np.timedelta64(1_000_000_000, "ns")
+    out = np.full(blank.size, np.datetime64("NaT"), dtype="datetime64[ns]")
+    out[~blank] = ns
+    return out
 
 
 def _csv_read(text: str, raw: bytes, ncols: int, **options: Any) -> pd.DataFrame:
@@ -369,17 +483,25 @@ def _csv_read(text: str, raw: bytes, ncols: int, **options: Any) -> pd.DataFrame
 
 
 def _csv_numbers(text: str, raw: bytes, ncols: int, typed: dict[int, Column], count: int,
-                 drop: np.ndarray) -> pd.DataFrame | None:
-    """Read the body of quote-free CSV with the *typed* columns as float64; None when that fails.
+                 drop: np.ndarray, fields: _Fields | None = None
+                 ) -> tuple[pd.DataFrame, dict[int, np.ndarray]] | None:
+    """Read the body of quote-free CSV with the *typed* columns parsed; None when that fails.
 
-    Columns whose numbers would need a finding are read again as text, so the rest of the
-    reading sees exactly the cells the text path would give it.
+    Numbers arrive as float64. With *fields* (where each cell lies in the bytes), a hearing
+    level may be blank or NR (returned as NaN, with a mask of its NR cells by position) and
+    dates written YYYY-MM-DD are parsed from the bytes as datetime64[ns]. Columns whose
+    values would need a finding are read again as text, so the rest of the reading sees
+    exactly the cells the text path would give it.
     """
-    dtype = {i: ("float64" if i in typed else str) for i in range(ncols)}
-    na = {i: [""] + (_NR_TEXTS if c.kind == "hl" else []) for i, c in typed.items()}
+    dates = {i: c for i, c in typed.items() if c.kind == "date"} if fields is not None else {}
+    numbers = {i: c for i, c in typed.items() if c.kind != "date"}
+    if not numbers and not dates:
+        return None
+    dtype = {i: ("float64" if i in numbers else str) for i in range(ncols) if i not in dates}
+    na = {i: [""] + (_NR_TEXTS if c.kind == "hl" else []) for i, c in numbers.items()}
     try:
         df = _csv_read(text, raw, ncols, skiprows=1, dtype=dtype, keep_default_na=False, na_values=na,
-                       float_precision="round_trip")
+                       float_precision="round_trip", usecols=sorted(dtype) if dates else None)
     except (ValueError, TypeError, OverflowError, pd.errors.ParserError):
         return None  # a cell that is not a number: every column is read as text
     if len(df) != count:
@@ -394,10 +516,35 @@ def _csv_numbers(text: str, raw: bytes, ncols: int, typed: dict[int, Column], co
             lower.append(b"nan" not in low and b"inf" not in low)
         return lower[0]
 
-    again = [i for i, c in typed.items() if not _clean_numbers(c, df[i].to_numpy(dtype="float64"), blanks_only)]
+    marks: dict[int, np.ndarray] = {}
+    again: list[int] = []
+    for i, c in numbers.items():
+        values = df[i].to_numpy(dtype="float64")
+        if fields is None:
+            if not _clean_numbers(c, values, blanks_only):
+                again.append(i)
+            continue
+        nan = np.isnan(values)
+        if c.kind == "hl":
+            blank, nr = fields.nr(i)
+            expected = blank | nr
+        else:
+            nr, expected = None, fields.blank(i)
+        if np.array_equal(nan, expected) and _clean_values(c, values[~nan]):
+            if nr is not None and nr.any():
+                marks[i] = nr
+        else:
+            again.append(i)  # a NaN not written blank (or NR), a value out of range ...
+    parsed: dict[int, np.ndarray] = {}
+    for i in dates:
+        v = _iso_cells(fields, i, with_time=False) if fields is not None else None
+        if v is None:
+            again.append(i)
+        else:
+            parsed[i] = v
     if again:
         try:
-            cells = _csv_read(text, raw, ncols, skiprows=1, usecols=again, dtype=str, keep_default_na=False,
+            cells = _csv_read(text, raw, ncols, skiprows=1, usecols=sorted(again), dtype=str, keep_default_na=False,
                               na_filter=False)
         except (ValueError, pd.errors.ParserError):
             return None
@@ -407,13 +554,18 @@ def _csv_numbers(text: str, raw: bytes, ncols: int, typed: dict[int, Column], co
             cells = cells.loc[~drop]
         for i in again:
             df[i] = cells[i]
-    return df.reset_index(drop=True)
+    df = df.reset_index(drop=True)
+    if dates:
+        for i, v in parsed.items():
+            df[i] = v
+        df = df[list(range(ncols))]
+    return df, marks
 
 
 def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings, spec: FileSpec | None = None) -> _Grid | None:
     """Parse quote-free CSV with pandas' C reader; None when a consistency check fails.
 
-    With *spec*, its numeric columns are read as numbers at once where every cell allows it.
+    With *spec*, its numeric and date columns are parsed at once where every cell allows it.
     """
     arr = np.frombuffer(raw, dtype=np.uint8)
     nl = np.flatnonzero(arr == 10)
@@ -421,7 +573,7 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings, spec: FileSpe
         nl = np.append(nl, arr.size)
     n_lines = nl.size
     commas = np.flatnonzero(arr == 44)
-    fields = np.bincount(np.searchsorted(nl, commas), minlength=n_lines)[:n_lines] + 1
+    fields = np.diff(np.searchsorted(commas, nl), prepend=0) + 1  # cells on each line
     starts = np.concatenate(([0], nl[:-1] + 1))
     length = nl - starts
     cr = (length > 0) & (arr[np.minimum(nl - 1, arr.size - 1)] == 13)
@@ -435,11 +587,14 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings, spec: FileSpe
     hints = _byte_hints(arr)
     typed = _typed_columns(text, spec) if not hints[0] and not bad.any() and not blank[0] else {}
     if typed:
-        body = _csv_numbers(text, raw, ncols, typed, int(keep.sum()) - 1, blank[keep][1:])
-        if body is not None:
-            header = text.partition("\n")[0].rstrip("\r").split(",")
+        where = _Fields(arr, nl, commas, ncols, np.flatnonzero(~blank[1:]) + 1) \
+            if bool((fields == ncols).all()) else None
+        got = _csv_numbers(text, raw, ncols, typed, int(keep.sum()) - 1, blank[keep][1:], where)
+        if got is not None:
+            body, marks = got
+            header = _first_line(text).split(",")
             rows = line_no[keep][1:]
-            return _Grid(header, body, rows[~blank[keep][1:]], rel, hints)
+            return _Grid(header, body, rows[~blank[keep][1:]], rel, hints, marks)
     df = _csv_read(text, raw, ncols, dtype=str, keep_default_na=False, na_filter=False)
     if len(df) != int(keep.sum()):
         return None  # the C reader saw the lines differently (e.g. lone CR line ends): use the slow path
@@ -519,7 +674,7 @@ def _parse_csv(raw: bytes, rel: str, findings: Findings, spec: FileSpec | None =
     text = _decode(raw, rel, findings)
     if text is None:
         return None
-    if not text.strip():
+    if not text or text.isspace():
         return _Grid([], pd.DataFrame(), np.zeros(0, dtype=np.int64), rel)
     body_raw = raw[3:] if raw.startswith(b"\xef\xbb\xbf") else raw
     if '"' not in text:
@@ -722,6 +877,11 @@ def _generated(spec: FileSpec) -> set[str]:
     return out
 
 
+def _label(header: Any) -> str:
+    """Return the column name a header cell gives."""
+    return str(header).replace("\ufeff", "").strip().lower()
+
+
 def _named(grid: _Grid, spec: FileSpec, findings: Findings) -> tuple[pd.DataFrame, list[str], set[str]]:
     """Name the cells by their (normalised) header; return (frame, unknown columns, missing)."""
     path = grid.path if isinstance(grid.path, str) else str(grid.path[0])
@@ -815,11 +975,13 @@ class _Converter:
     """Convert the text cells of one table to the declared kinds, recording problems."""
 
     def __init__(self, spec: FileSpec, sink: _Sink, today: dt.date,
-                 hints: tuple[bool, bool] = (True, True)) -> None:
+                 hints: tuple[bool, bool] = (True, True), nr: dict[str, np.ndarray] | None = None) -> None:
         self.spec = spec
         self.sink = sink
         self.today = pd.Timestamp(today)
         self.strip, self.formulas = hints
+        #: NR cells of hearing-level columns the parser read as numbers, by column name
+        self.nr = nr or {}
 
     def column(self, c: Column, raw: pd.Series | None) -> dict[str, pd.Series]:
         """Return the converted column(s) for declared column *c* (None: column absent)."""
@@ -827,6 +989,8 @@ class _Converter:
         present = raw is not None
         if raw is not None and raw.dtype.kind == "f":
             return self._read_numbers(c, raw.to_numpy(dtype="float64"))
+        if raw is not None and raw.dtype.kind == "M":
+            return {c.name: self._read_dates(c, raw)}
         s = _as_text(raw, self.strip) if present else pd.Series([""] * n, dtype=str)
         if present and c.kind in ("id", "text", "choice") and c.default is not None:
             s = s.where(s.to_numpy(dtype=object) != "", str(c.default))
@@ -851,17 +1015,29 @@ class _Converter:
         raise ValueError(f"column {c.name}: unknown kind {kind!r} in spec")
 
     def _read_numbers(self, c: Column, values: np.ndarray) -> dict[str, pd.Series]:
-        """Return a column the parser read as numbers: every number is clean, NaN is a blank cell."""
-        bl = np.isnan(values)
+        """Return a column the parser read as numbers: every number is clean, NaN is a blank (or NR) cell."""
+        nr = self.nr.get(c.name) if c.kind == "hl" else None
+        bl = np.isnan(values) if nr is None else np.isnan(values) & ~nr
         if c.required:
             self.sink.add(bl, c.name, ERROR, "required value is blank", key=f"{c.name}: blank")
         index = pd.RangeIndex(len(values))
         if c.kind == "hl":
             return {c.name: pd.Series(values, index=index, dtype="float64"),
-                    "nr_" + c.name[3:]: pd.Series(np.zeros(len(values), dtype=bool), index=index, dtype=bool)}
+                    "nr_" + c.name[3:]: pd.Series(np.zeros(len(values), dtype=bool) if nr is None else nr,
+                                                  index=index, dtype=bool)}
         if c.default is not None and isinstance(c.default, (int, float)):
             values = np.where(bl, float(c.default), values)
         return {c.name: pd.Series(values, index=index, dtype="float64")}
+
+    def _read_dates(self, c: Column, values: pd.Series) -> pd.Series:
+        """Return a date column the parser read from YYYY-MM-DD cells (years in range; NaT is a blank cell)."""
+        if c.required:
+            self.sink.add(values.isna().to_numpy(), c.name, ERROR, "required value is blank", key=f"{c.name}: blank")
+        if c.past_only:
+            future = (values > self.today).to_numpy(dtype=bool)
+            if future.any():  # each cell was written as the date's ISO form
+                self._past(c, values, values.dt.strftime("%Y-%m-%d"), self.today)
+        return values
 
     def _formula(self, name: str, s: pd.Series) -> None:
         """Warn about text cells that a spreadsheet would run as a formula."""
@@ -1000,9 +1176,13 @@ class _Converter:
 
 
 def _typed(spec: FileSpec, frame: pd.DataFrame, unknown: list[str], rows: np.ndarray, sink: _Sink,
-           today: dt.date, hints: tuple[bool, bool] = (True, True)) -> pd.DataFrame:
-    """Return the table with every declared column converted, unknown ones kept as text."""
-    conv = _Converter(spec, sink, today, hints)
+           today: dt.date, hints: tuple[bool, bool] = (True, True),
+           nr: dict[str, np.ndarray] | None = None) -> pd.DataFrame:
+    """Return the table with every declared column converted, unknown ones kept as text.
+
+    *nr* holds the NR cells of hearing-level columns that arrive as numbers, by column name.
+    """
+    conv = _Converter(spec, sink, today, hints, nr)
     out: dict[str, pd.Series] = {}
     for c in spec.columns:
         out.update(conv.column(c, frame[c.name] if c.name in frame.columns else None))
@@ -1222,7 +1402,8 @@ def _read_table(spec: FileSpec, root: Path, inputs: _Inputs, findings: Findings,
     if frame.empty:
         _no_rows(spec, rel, findings, "no rows (header only)")
     sink = _Sink(findings, rel, grid.rows)
-    table = _typed(read, frame, unknown, grid.rows, sink, today, grid.hints)
+    nr = {_label(grid.header[i]): mask for i, mask in grid.nr.items()}
+    table = _typed(read, frame, unknown, grid.rows, sink, today, grid.hints, nr)
     return dresser.standard_table(spec, read, table, rel), rel
 
 
