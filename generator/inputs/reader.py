@@ -141,10 +141,16 @@ def _each(template: str, **values: Any) -> Callable[[np.ndarray], list[str]]:
     return build
 
 
-def _byte_hints(arr: np.ndarray) -> tuple[bool, bool]:
-    """Return (some cell may need stripping, some cell may look like a formula) for quote-free CSV bytes."""
+def _byte_hints(arr: np.ndarray, commas: np.ndarray | None = None, nl: np.ndarray | None = None) -> tuple[bool, bool]:
+    """Return (some cell may need stripping, some cell may look like a formula) for quote-free CSV bytes.
+
+    With the positions of every comma and newline of bytes holding few cells for their size,
+    only the first and last byte of each cell is looked at (the same answer, found faster).
+    """
     if not arr.size:
         return False, False
+    if commas is not None and nl is not None and (commas.size + nl.size) * 8 < arr.size:
+        return _edge_hints(arr, commas, nl)
     last = arr.size - 1
     ws = np.flatnonzero((arr == 32) | (arr == 9))
     spaces = False
@@ -161,6 +167,32 @@ def _byte_hints(arr: np.ndarray) -> tuple[bool, bool]:
         formula = bool((at_start & (follower >= 97) & (follower <= 122)).any())
     else:
         formula = False
+    return spaces, formula
+
+
+def _edge_hints(arr: np.ndarray, commas: np.ndarray, nl: np.ndarray) -> tuple[bool, bool]:
+    """_byte_hints from the first and last byte of each cell (cells end at commas, newlines and CRs)."""
+    last = arr.size - 1
+    space, tab = np.uint8(32), np.uint8(9)
+    spaces = False
+    formula = False
+    for marks in (commas, nl, np.zeros(1, dtype=np.int64) - 1):  # (-1: the cell that starts the file)
+        first = marks[marks < last] + 1  # a cell's first byte
+        c = arr[first]
+        if ((c == space) | (c == tab)).any():
+            spaces = True
+        lead = first[(c == 61) | (c == 43) | (c == 45) | (c == 64)]  # = + - @
+        lead = lead[lead < last]
+        if lead.size:
+            follower = arr[lead + 1] | 32  # ASCII letters fold to lower case
+            formula = formula or bool(((follower >= 97) & (follower <= 122)).any())
+    if not spaces:
+        for marks in (commas, nl, np.flatnonzero(arr == 13), np.asarray([last + 1])):
+            before = marks[marks > 0] - 1  # a cell's last byte
+            c = arr[before]
+            if ((c == space) | (c == tab)).any():
+                spaces = True
+                break
     return spaces, formula
 
 
@@ -314,6 +346,8 @@ class _Grid:
 
 
 _NR_TEXTS = ["NR", "nr", "Nr", "nR"]
+#: the ASCII characters that str.strip() removes
+_ASCII_SPACE = b" \t\n\r\x0b\x0c\x1c\x1d\x1e\x1f"
 
 
 def _first_line(text: str) -> str:
@@ -409,30 +443,18 @@ class _Fields:
             nr[two] = (first == ord("n")) & (second == ord("r"))
         return a == b, nr
 
-    def chars(self, j: int, width: int) -> tuple[np.ndarray, np.ndarray] | None:
-        """Return (empty, bytes of the other cells as rows of *width*) for column *j*; None when a
-        cell that is not empty has another width."""
+    def fixed(self, j: int, width: int) -> tuple[np.ndarray, np.ndarray] | None:
+        """Return (empty, first byte of each other cell) for column *j*; None when a cell that
+        is not empty is not *width* bytes long."""
         a, b = self.span(j)
         size = b - a
         blank = size == 0
         if not ((size == width) | blank).all():
             return None
-        at = a[~blank]
-        return blank, self.arr[at[:, None] + np.arange(width)]
+        return blank, a[~blank]
 
 
 _DAYS_IN_MONTH = np.array([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], dtype=np.int64)
-
-
-def _digits(block: np.ndarray, positions: tuple[int, ...]) -> np.ndarray | None:
-    """Return the number written by the ASCII digits at *positions* of every row; None if one is not a digit."""
-    d = block[:, list(positions)].astype(np.int64) - 48
-    if ((d < 0) | (d > 9)).any():
-        return None
-    out = np.zeros(len(block), dtype=np.int64)
-    for k in range(d.shape[1]):
-        out = out * 10 + d[:, k]
-    return out
 
 
 def _iso_cells(fields: _Fields, j: int, with_time: bool) -> np.ndarray | None:
@@ -441,16 +463,27 @@ def _iso_cells(fields: _Fields, j: int, with_time: bool) -> np.ndarray | None:
     None when a cell is written otherwise, is no calendar date or clock time, or lies outside
     the years YEAR_MIN to YEAR_MAX: such a column is read as text, whose findings quote it.
     """
-    got = fields.chars(j, 19 if with_time else 10)
+    width = 19 if with_time else 10
+    got = fields.fixed(j, width)
     if got is None:
         return None
-    blank, block = got
+    blank, at = got
+    block = np.lib.stride_tricks.sliding_window_view(fields.arr, width)[at]  # the bytes of each cell
     seps = [(4, 45), (7, 45)] + ([(10, 84), (13, 58), (16, 58)] if with_time else [])  # - - T : :
-    if any((block[:, k] != ch).any() for k, ch in seps):
+    if not (block[:, [k for k, _ in seps]] == np.asarray([ch for _, ch in seps], dtype=np.uint8)).all():
         return None
-    year, month, day = _digits(block, (0, 1, 2, 3)), _digits(block, (5, 6)), _digits(block, (8, 9))
-    if year is None or month is None or day is None:
+    digits = block - np.uint8(48)  # a byte that is not a digit wraps to more than 9
+    places = [0, 1, 2, 3, 5, 6, 8, 9] + ([11, 12, 14, 15, 17, 18] if with_time else [])
+    if (digits[:, places] > 9).any():
         return None
+
+    def number(*positions: int) -> np.ndarray:  # the number written by the digits at *positions*
+        out = digits[:, positions[0]].astype(np.int64)
+        for k in positions[1:]:
+            out = out * 10 + digits[:, k]
+        return out
+
+    year, month, day = number(0, 1, 2, 3), number(5, 6), number(8, 9)
     if ((year < YEAR_MIN) | (year > YEAR_MAX) | (month < 1) | (month > 12) | (day < 1)).any():
         return None
     leap = (year % 4 == 0) & ((year % 100 != 0) | (year % 400 == 0))
@@ -460,8 +493,8 @@ def _iso_cells(fields: _Fields, j: int, with_time: bool) -> np.ndarray | None:
         + (day - 1)
     ns = days.astype("datetime64[ns]")
     if with_time:
-        hour, minute, second = _digits(block, (11, 12)), _digits(block, (14, 15)), _digits(block, (17, 18))
-        if hour is None or minute is None or second is None or ((hour > 23) | (minute > 59) | (second > 59)).any():
+        hour, minute, second = number(11, 12), number(14, 15), number(17, 18)
+        if ((hour > 23) | (minute > 59) | (second > 59)).any():
             return None
         ns = ns + ((hour * 60 + minute) * 60 + second) * np.timedelta64(1_000_000_000, "ns")
     out = np.full(blank.size, np.datetime64("NaT"), dtype="datetime64[ns]")
@@ -584,7 +617,7 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings, spec: FileSpe
     bad[0] = False
     line_no = np.arange(1, n_lines + 1)
     keep = fields <= ncols
-    hints = _byte_hints(arr)
+    hints = _byte_hints(arr, commas, nl)
     typed = _typed_columns(text, spec) if not hints[0] and not bad.any() and not blank[0] else {}
     if typed:
         where = _Fields(arr, nl, commas, ncols, np.flatnonzero(~blank[1:]) + 1) \
@@ -1030,13 +1063,16 @@ class _Converter:
         return {c.name: pd.Series(values, index=index, dtype="float64")}
 
     def _read_dates(self, c: Column, values: pd.Series) -> pd.Series:
-        """Return a date column the parser read from YYYY-MM-DD cells (years in range; NaT is a blank cell)."""
+        """Return a date (or date-time) column the parser read from ISO cells: YYYY-MM-DD (or
+        YYYY-MM-DDTHH:MM:SS), years in range, NaT for a blank cell."""
         if c.required:
             self.sink.add(values.isna().to_numpy(), c.name, ERROR, "required value is blank", key=f"{c.name}: blank")
         if c.past_only:
-            future = (values > self.today).to_numpy(dtype=bool)
-            if future.any():  # each cell was written as the date's ISO form
-                self._past(c, values, values.dt.strftime("%Y-%m-%d"), self.today)
+            limit = self.today + pd.Timedelta(days=1) if c.kind == "datetime" else self.today
+            future = (values > limit).to_numpy(dtype=bool)
+            if future.any():  # each cell was written as the ISO form of its value
+                self._past(c, values, values.dt.strftime("%Y-%m-%dT%H:%M:%S" if c.kind == "datetime" else "%Y-%m-%d"),
+                           limit)
         return values
 
     def _formula(self, name: str, s: pd.Series) -> None:
@@ -1452,7 +1488,7 @@ def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFr
         findings.error(LOG_DIR, None, None, "resolves outside the programme folder; not read")
         return {}, {}
     ids = set(noise["measurement_id"].tolist()) - {""}
-    batch: dict[tuple[str, ...], list[tuple[int, str, str]]] = {}
+    batch: dict[tuple[str, ...], list[tuple[int, str, bytes]]] = {}
     frames: list[pd.DataFrame] = []
     names: list[str] = []
     paths: list[str] = []
@@ -1470,16 +1506,24 @@ def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFr
         raw = inputs.get(p, rel, folder_inside=True)
         if raw is None:
             continue
-        text = _decode(raw, rel, findings)
-        if text is None:
-            continue
+        if raw.isascii() and len(raw) <= MAX_LINE_BYTES and b"\x00" not in raw:
+            end = raw.find(b"\n")  # (what _decode accepts without a look at each line)
+            head, body = (raw, b"") if end < 0 else (raw[:end], raw[end + 1:])
+            cols = tuple(h.strip().lower() for h in head.decode("ascii").rstrip("\r").split(","))
+            quoted = b'"' in raw
+            empty = not body.strip(_ASCII_SPACE)
+        else:
+            text = _decode(raw, rel, findings)
+            if text is None:
+                continue
+            head_text, _, body_text = text.partition("\n")
+            cols = tuple(h.strip().lower() for h in head_text.rstrip("\r").split(","))
+            quoted, empty, body = '"' in text, not body_text.strip(), body_text.encode("utf-8")
         idx = len(names)
         names.append(stem)
         paths.append(rel)
-        head, _, body = text.partition("\n")
-        cols = tuple(h.strip().lower() for h in head.rstrip("\r").split(","))
-        if '"' not in text and sorted(cols) == ["laeq", "start"] and body.strip():
-            batch.setdefault(cols, []).append((idx, rel, body if body.endswith("\n") else body + "\n"))
+        if not quoted and sorted(cols) == ["laeq", "start"] and not empty:
+            batch.setdefault(cols, []).append((idx, rel, body if body.endswith(b"\n") else body + b"\n"))
             continue
         frames.append(_log_single(raw, rel, idx, findings, today))
     for cols, members in batch.items():
@@ -1539,42 +1583,79 @@ def _log_cells(raw: bytes, cols: tuple[str, ...], count: int) -> pd.DataFrame | 
             return None
 
 
-def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, str]], findings: Findings,
+def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes]], findings: Findings,
                today: dt.date) -> list[pd.DataFrame | None]:
-    """Parse many quote-free logs with the same header in one pass of the C reader."""
-    bodies = [m[2] for m in members]
-    counts = np.fromiter((b.count("\n") for b in bodies), dtype=np.int64, count=len(bodies))
-    raw = "".join(bodies).encode("utf-8")
+    """Parse many quote-free logs with the same header in one pass.
+
+    Start times written YYYY-MM-DDTHH:MM:SS are parsed from the bytes and the levels by
+    the C reader; logs with anything else in them are read as text, as one log would be.
+    """
+    counts = np.fromiter((b.count(b"\n") for _, _, b in members), dtype=np.int64, count=len(members))
+    raw = b"".join(b for _, _, b in members)
     arr = np.frombuffer(raw, dtype=np.uint8)
     nl = np.flatnonzero(arr == 10)
     commas = np.flatnonzero(arr == 44)
-    fields = np.bincount(np.searchsorted(nl, commas), minlength=nl.size)[:nl.size] + 1
+    fields = np.diff(np.searchsorted(commas, nl), prepend=0) + 1
     starts = np.concatenate(([0], nl[:-1] + 1))
     length = nl - starts
     cr = (length > 0) & (arr[np.maximum(nl - 1, 0)] == 13)
     blank = (length - cr) == fields - 1  # empty, or separators only
-    del commas, starts, length, cr
+    del starts, length, cr
+    header = (",".join(cols) + "\n").encode("utf-8")
     if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
         # something unusual: read these logs one by one to report exact lines
-        return [_log_single((",".join(cols) + "\n" + m[2]).encode("utf-8"), m[1], m[0], findings, today)
-                for m in members]
-    df = _log_cells(raw, cols, nl.size)
+        return [_log_single(header + m[2], m[1], m[0], findings, today) for m in members]
+    hints = _byte_hints(arr, commas, nl)
+    df = None if hints[0] else _log_typed(raw, cols, _Fields(arr, nl, commas, len(cols), np.arange(nl.size)))
+    del commas, fields
+    if df is None:
+        df = _log_cells(raw, cols, nl.size)
     if df is None or len(df) != nl.size:
-        return [_log_single((",".join(cols) + "\n" + m[2]).encode("utf-8"), m[1], m[0], findings, today)
-                for m in members]
+        return [_log_single(header + m[2], m[1], m[0], findings, today) for m in members]
     file_idx = np.repeat(np.arange(len(members)), counts)
     first = np.concatenate(([0], np.cumsum(counts)[:-1]))
     rows = np.arange(nl.size) - np.repeat(first, counts) + 2
     paths = np.repeat(np.asarray([m[1] for m in members], dtype=object), counts)
-    table = _typed(NOISE_LOG, df, [], rows, _Sink(findings, paths, rows), today, _byte_hints(arr))
+    table = _typed(NOISE_LOG, df, [], rows, _Sink(findings, paths, rows), today, hints)
     table["_file"] = np.asarray([m[0] for m in members], dtype=np.int64)[file_idx]
     return [table[["start", "laeq", "_row", "_file"]]]
+
+
+def _log_typed(raw: bytes, cols: tuple[str, ...], fields: _Fields) -> pd.DataFrame | None:
+    """Return joined log bodies as (start: datetime64[ns], laeq: float64) when no cell needs a finding, else None."""
+    start = _iso_cells(fields, cols.index("start"), with_time=True)
+    if start is None or np.isnat(start).any():
+        return None
+    j = cols.index("laeq")
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            level = pd.read_csv(io.BytesIO(raw), header=None, names=list(range(len(cols))), usecols=[j],
+                                dtype={j: "float64"}, na_values={j: [""]}, keep_default_na=False, engine="c",
+                                quoting=csv.QUOTE_NONE, encoding="utf-8", float_precision="round_trip")[j]
+    except (ValueError, TypeError, OverflowError, pd.errors.ParserError):
+        return None
+    values = level.to_numpy(dtype="float64")
+    if len(values) != len(start):
+        return None
+    nan = np.isnan(values)
+    if nan.any() or not _clean_values(NOISE_LOG.column("laeq"), values):
+        return None  # a blank or written NaN, a value out of range ...
+    index = pd.RangeIndex(len(values))
+    return pd.DataFrame({"start": pd.Series(start, index=index), "laeq": pd.Series(values, index=index)},
+                        index=index)
+
+
+def _increasing(f: np.ndarray, r: np.ndarray) -> bool:
+    """True when the pairs (f, r) increase from each row to the next."""
+    return bool(((f[1:] > f[:-1]) | ((f[1:] == f[:-1]) & (r[1:] > r[:-1]))).all())
 
 
 def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
               findings: Findings) -> tuple[dict[str, pd.DataFrame], dict[str, float]]:
     """Check order and interval of every log, sort by start and split per measurement."""
-    allf = allf.sort_values(["_file", "_row"], kind="stable").reset_index(drop=True)
+    if not _increasing(allf["_file"].to_numpy(), allf["_row"].to_numpy()):
+        allf = allf.sort_values(["_file", "_row"], kind="stable").reset_index(drop=True)
     f = allf["_file"].to_numpy()
     sink = _Sink(findings, paths[f], allf["_row"].to_numpy())
     start = allf["start"]
@@ -1585,7 +1666,9 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
     back = same & np.isfinite(t) & np.isfinite(prev) & (t <= prev)
     sink.add(back, "start", ERROR, "start is not later than the row before (timestamps must increase)",
              key="start: not increasing")
-    allf = allf.loc[start.notna()].sort_values(["_file", "start", "_row"], kind="stable").reset_index(drop=True)
+    if back.any() or start.isna().any():
+        allf = allf.loc[start.notna()].sort_values(["_file", "start", "_row"], kind="stable").reset_index(drop=True)
+    # (else every log's start times increase: the rows are in that order already)
     if allf.empty:
         return {}, {}
     f = allf["_file"].to_numpy()
