@@ -142,58 +142,72 @@ def _each(template: str, **values: Any) -> Callable[[np.ndarray], list[str]]:
 
 
 def _byte_hints(arr: np.ndarray, commas: np.ndarray | None = None, nl: np.ndarray | None = None) -> tuple[bool, bool]:
-    """Return (some cell may need stripping, some cell may look like a formula) for quote-free CSV bytes.
+    """Return (some cell may need stripping, some cell may look like a formula) for quote-free CSV bytes."""
+    return _space_hint(arr, commas, nl), _formula_hint(arr, commas, nl)
 
-    With the positions of every comma and newline of bytes holding few cells for their size,
-    only the first and last byte of each cell is looked at (the same answer, found faster).
+
+def _sparse(arr: np.ndarray, commas: np.ndarray | None, nl: np.ndarray | None) -> bool:
+    """True when the bytes hold few cells for their size: a look at the edges of each cell is faster."""
+    return commas is not None and nl is not None and (commas.size + nl.size) * 8 < arr.size
+
+
+def _space_hint(arr: np.ndarray, commas: np.ndarray | None = None, nl: np.ndarray | None = None) -> bool:
+    """Return True when some cell of quote-free CSV bytes may begin or end with a space or tab.
+
+    With the positions of every comma and newline (*commas*, *nl*) of bytes holding few
+    cells for their size, only the first and last byte of each cell is looked at.
     """
     if not arr.size:
-        return False, False
-    if commas is not None and nl is not None and (commas.size + nl.size) * 8 < arr.size:
-        return _edge_hints(arr, commas, nl)
+        return False
     last = arr.size - 1
+    if _sparse(arr, commas, nl):
+        assert commas is not None and nl is not None
+        space, tab = np.uint8(32), np.uint8(9)
+        for marks in (commas, nl, np.zeros(1, dtype=np.int64) - 1):  # (-1: the cell that starts the file)
+            c = arr[marks[marks < last] + 1]  # a cell's first byte
+            if ((c == space) | (c == tab)).any():
+                return True
+        for marks in (commas, nl, np.flatnonzero(arr == 13), np.asarray([last + 1])):
+            c = arr[marks[marks > 0] - 1]  # a cell's last byte
+            if ((c == space) | (c == tab)).any():
+                return True
+        return False
     ws = np.flatnonzero((arr == 32) | (arr == 9))
-    spaces = False
-    if ws.size:
-        prev = np.where(ws > 0, arr[np.maximum(ws - 1, 0)], 10)
-        nxt = np.where(ws < last, arr[np.minimum(ws + 1, last)], 10)
-        spaces = bool(((prev == 44) | (prev == 10)).any() or ((nxt == 44) | (nxt == 10) | (nxt == 13)).any())
+    if not ws.size:
+        return False
+    prev = np.where(ws > 0, arr[np.maximum(ws - 1, 0)], 10)
+    nxt = np.where(ws < last, arr[np.minimum(ws + 1, last)], 10)
+    return bool(((prev == 44) | (prev == 10)).any() or ((nxt == 44) | (nxt == 10) | (nxt == 13)).any())
+
+
+def _formula_hint(arr: np.ndarray, commas: np.ndarray | None = None, nl: np.ndarray | None = None) -> bool:
+    """Return True when some cell of quote-free CSV bytes may begin with =, +, - or @ and a letter."""
+    if not arr.size:
+        return False
+    last = arr.size - 1
+    if _sparse(arr, commas, nl):
+        assert commas is not None and nl is not None
+        for marks in (commas, nl, np.zeros(1, dtype=np.int64) - 1):
+            first = marks[marks < last] + 1  # a cell's first byte
+            c = arr[first]
+            lead = first[(c == 61) | (c == 43) | (c == 45) | (c == 64)]  # = + - @
+            lead = lead[lead < last]
+            if lead.size and _letters(arr[lead + 1]):
+                return True
+        return False
     lead = np.flatnonzero((arr == 61) | (arr == 43) | (arr == 45) | (arr == 64))  # = + - @
     lead = lead[lead < last]
-    if lead.size:
-        before = arr[np.maximum(lead - 1, 0)]
-        at_start = (lead == 0) | (before == 44) | (before == 10)
-        follower = arr[lead + 1] | 32  # ASCII letters fold to lower case
-        formula = bool((at_start & (follower >= 97) & (follower <= 122)).any())
-    else:
-        formula = False
-    return spaces, formula
+    if not lead.size:
+        return False
+    before = arr[np.maximum(lead - 1, 0)]
+    at_start = (lead == 0) | (before == 44) | (before == 10)
+    return _letters(arr[lead[at_start] + 1])
 
 
-def _edge_hints(arr: np.ndarray, commas: np.ndarray, nl: np.ndarray) -> tuple[bool, bool]:
-    """_byte_hints from the first and last byte of each cell (cells end at commas, newlines and CRs)."""
-    last = arr.size - 1
-    space, tab = np.uint8(32), np.uint8(9)
-    spaces = False
-    formula = False
-    for marks in (commas, nl, np.zeros(1, dtype=np.int64) - 1):  # (-1: the cell that starts the file)
-        first = marks[marks < last] + 1  # a cell's first byte
-        c = arr[first]
-        if ((c == space) | (c == tab)).any():
-            spaces = True
-        lead = first[(c == 61) | (c == 43) | (c == 45) | (c == 64)]  # = + - @
-        lead = lead[lead < last]
-        if lead.size:
-            follower = arr[lead + 1] | 32  # ASCII letters fold to lower case
-            formula = formula or bool(((follower >= 97) & (follower <= 122)).any())
-    if not spaces:
-        for marks in (commas, nl, np.flatnonzero(arr == 13), np.asarray([last + 1])):
-            before = marks[marks > 0] - 1  # a cell's last byte
-            c = arr[before]
-            if ((c == space) | (c == tab)).any():
-                spaces = True
-                break
-    return spaces, formula
+def _letters(c: np.ndarray) -> bool:
+    """True when some byte of *c* is an ASCII letter."""
+    c = c | 32  # ASCII letters fold to lower case
+    return bool(((c >= 97) & (c <= 122)).any())
 
 
 def _fmt(x: float) -> str:
@@ -428,20 +442,26 @@ class _Fields:
         b = self.ends if j == self.ncols - 1 else self.commas[self.lines, j]
         return a, b
 
-    def blank(self, j: int) -> np.ndarray:
-        """Return True where the cell of column *j* is empty."""
+    def blank_or_nr(self, j: int, at: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Return (empty, written NR in any case) for the cells of column *j* in body records *at*."""
         a, b = self.span(j)
-        return a == b
-
-    def nr(self, j: int) -> tuple[np.ndarray, np.ndarray]:
-        """Return (empty, written NR in any case) for the cells of column *j*."""
-        a, b = self.span(j)
-        two = np.flatnonzero(b - a == 2)
+        a, b = a[at], b[at]
+        two = b - a == 2
+        first, second = self.arr[a[two]] | 32, self.arr[a[two] + 1] | 32  # ASCII letters to lower case
         nr = np.zeros(a.size, dtype=bool)
-        if two.size:
-            first, second = self.arr[a[two]] | 32, self.arr[a[two] + 1] | 32  # ASCII letters to lower case
-            nr[two] = (first == ord("n")) & (second == ord("r"))
+        nr[two] = (first == ord("n")) & (second == ord("r"))
         return a == b, nr
+
+    def formula(self, columns: list[int]) -> bool:
+        """Return True when a cell of *columns* begins with =, +, - or @ and a letter (as _formula_hint)."""
+        for j in columns:
+            a, b = self.span(j)
+            a = a[b - a >= 2]  # (after a cell of one byte comes a comma or line end, never a letter)
+            c = self.arr[a]
+            lead = a[(c == 61) | (c == 43) | (c == 45) | (c == 64)]
+            if lead.size and _letters(self.arr[lead + 1]):
+                return True
+        return False
 
     def fixed(self, j: int, width: int) -> tuple[np.ndarray, np.ndarray] | None:
         """Return (empty, first byte of each other cell) for column *j*; None when a cell that
@@ -454,7 +474,18 @@ class _Fields:
         return blank, a[~blank]
 
 
-_DAYS_IN_MONTH = np.array([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], dtype=np.int64)
+def _month_tables() -> tuple[np.ndarray, np.ndarray]:
+    """Return (day number since 1970-01-01 of the first day, number of days) of every month of YEAR_MIN to YEAR_MAX."""
+    first = np.arange(np.datetime64(f"{YEAR_MIN}-01", "M"), np.datetime64(f"{YEAR_MAX + 1}-02", "M"))
+    days = first.astype("datetime64[D]").astype(np.int64)
+    return days[:-1], np.diff(days)
+
+
+_MONTH_FIRST, _MONTH_DAYS = _month_tables()
+#: two ASCII digits read as one native 16-bit number -> the number they write (-1: not two digits)
+_DIGIT_PAIRS = np.full(65536, -1, dtype=np.int16)
+_DIGIT_PAIRS[np.frombuffer(b"".join(f"{v:02d}".encode() for v in range(100)), dtype=np.uint16)] = np.arange(100)
+_NS_PER_S = 1_000_000_000
 
 
 def _iso_cells(fields: _Fields, j: int, with_time: bool) -> np.ndarray | None:
@@ -472,33 +503,26 @@ def _iso_cells(fields: _Fields, j: int, with_time: bool) -> np.ndarray | None:
     seps = [(4, 45), (7, 45)] + ([(10, 84), (13, 58), (16, 58)] if with_time else [])  # - - T : :
     if not (block[:, [k for k, _ in seps]] == np.asarray([ch for _, ch in seps], dtype=np.uint8)).all():
         return None
-    digits = block - np.uint8(48)  # a byte that is not a digit wraps to more than 9
-    places = [0, 1, 2, 3, 5, 6, 8, 9] + ([11, 12, 14, 15, 17, 18] if with_time else [])
-    if (digits[:, places] > 9).any():
-        return None
-
-    def number(*positions: int) -> np.ndarray:  # the number written by the digits at *positions*
-        out = digits[:, positions[0]].astype(np.int64)
-        for k in positions[1:]:
-            out = out * 10 + digits[:, k]
-        return out
-
-    year, month, day = number(0, 1, 2, 3), number(5, 6), number(8, 9)
+    pairs = []
+    for k in (0, 2, 5, 8) + ((11, 14, 17) if with_time else ()):
+        v = _DIGIT_PAIRS[np.ascontiguousarray(block[:, k:k + 2]).view(np.uint16)[:, 0]]
+        if (v < 0).any():
+            return None
+        pairs.append(v.astype(np.int64))
+    year, month, day = pairs[0] * 100 + pairs[1], pairs[2], pairs[3]
     if ((year < YEAR_MIN) | (year > YEAR_MAX) | (month < 1) | (month > 12) | (day < 1)).any():
         return None
-    leap = (year % 4 == 0) & ((year % 100 != 0) | (year % 400 == 0))
-    if (day > _DAYS_IN_MONTH[month - 1] + (leap & (month == 2))).any():
+    ym = (year - YEAR_MIN) * 12 + month - 1
+    if (day > _MONTH_DAYS[ym]).any():
         return None
-    days = ((year - 1970).astype("datetime64[Y]").astype("datetime64[M]") + (month - 1)).astype("datetime64[D]") \
-        + (day - 1)
-    ns = days.astype("datetime64[ns]")
+    ns = (_MONTH_FIRST[ym] + day - 1) * (86400 * _NS_PER_S)
     if with_time:
-        hour, minute, second = number(11, 12), number(14, 15), number(17, 18)
+        hour, minute, second = pairs[4], pairs[5], pairs[6]
         if ((hour > 23) | (minute > 59) | (second > 59)).any():
             return None
-        ns = ns + ((hour * 60 + minute) * 60 + second) * np.timedelta64(1_000_000_000, "ns")
+        ns += ((hour * 60 + minute) * 60 + second) * _NS_PER_S
     out = np.full(blank.size, np.datetime64("NaT"), dtype="datetime64[ns]")
-    out[~blank] = ns
+    out[~blank] = ns.view("datetime64[ns]")
     return out
 
 
@@ -558,14 +582,14 @@ def _csv_numbers(text: str, raw: bytes, ncols: int, typed: dict[int, Column], co
                 again.append(i)
             continue
         nan = np.isnan(values)
-        if c.kind == "hl":
-            blank, nr = fields.nr(i)
-            expected = blank | nr
-        else:
-            nr, expected = None, fields.blank(i)
-        if np.array_equal(nan, expected) and _clean_values(c, values[~nan]):
-            if nr is not None and nr.any():
-                marks[i] = nr
+        at = np.flatnonzero(nan)  # a blank cell, and a NR cell of a level, always reads as NaN
+        blank, nr = fields.blank_or_nr(i, at)
+        if c.kind != "hl":
+            nr[:] = False
+        if (blank | nr).all() and _clean_values(c, values[~nan]):
+            if nr.any():
+                marks[i] = np.zeros(len(values), dtype=bool)
+                marks[i][at[nr]] = True
         else:
             again.append(i)  # a NaN not written blank (or NR), a value out of range ...
     parsed: dict[int, np.ndarray] = {}
@@ -617,8 +641,8 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings, spec: FileSpe
     bad[0] = False
     line_no = np.arange(1, n_lines + 1)
     keep = fields <= ncols
-    hints = _byte_hints(arr, commas, nl)
-    typed = _typed_columns(text, spec) if not hints[0] and not bad.any() and not blank[0] else {}
+    spaces = _space_hint(arr, commas, nl)
+    typed = _typed_columns(text, spec) if not spaces and not bad.any() and not blank[0] else {}
     if typed:
         where = _Fields(arr, nl, commas, ncols, np.flatnonzero(~blank[1:]) + 1) \
             if bool((fields == ncols).all()) else None
@@ -627,7 +651,12 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings, spec: FileSpe
             body, marks = got
             header = _first_line(text).split(",")
             rows = line_no[keep][1:]
-            return _Grid(header, body, rows[~blank[keep][1:]], rel, hints, marks)
+            # formulas are looked for in text cells only: the typed columns hold numbers and dates
+            # (a typed column read again as text is no text column either)
+            formula = where.formula([j for j in range(ncols) if j not in typed]) if where is not None \
+                else _formula_hint(arr, commas, nl)
+            return _Grid(header, body, rows[~blank[keep][1:]], rel, (spaces, formula), marks)
+    hints = spaces, _formula_hint(arr, commas, nl)
     df = _csv_read(text, raw, ncols, dtype=str, keep_default_na=False, na_filter=False)
     if len(df) != int(keep.sum()):
         return None  # the C reader saw the lines differently (e.g. lone CR line ends): use the slow path
@@ -1605,7 +1634,7 @@ def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes]], fin
     if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
         # something unusual: read these logs one by one to report exact lines
         return [_log_single(header + m[2], m[1], m[0], findings, today) for m in members]
-    hints = _byte_hints(arr, commas, nl)
+    hints = _space_hint(arr, commas, nl), True  # (a log has no text column to look for formulas in)
     df = None if hints[0] else _log_typed(raw, cols, _Fields(arr, nl, commas, len(cols), np.arange(nl.size)))
     del commas, fields
     if df is None:
