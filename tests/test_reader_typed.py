@@ -183,3 +183,17 @@ def test_clean_logs_are_parsed_typed(tmp_path, monkeypatch):
     monkeypatch.setattr(reader, "_log_typed", lambda *a: seen.append(typed(*a) is not None) or typed(*a))
     _logs(tmp_path, "clean", "typed", monkeypatch)
     assert seen == [True]
+
+
+@pytest.mark.parametrize("ids", [["P1", "P2", "P1", "P2"], []])
+def test_person_dates_looked_up_once_match_one_by_one(ids):
+    """Dates of each audiogram's person, found with one lookup, equal the lookup column by column."""
+    day = pd.Timestamp("2000-01-01")
+    people = pd.DataFrame({"person_id": pd.Series(ids, dtype=str),
+                           "birth_date": pd.Series([day, pd.NaT, day + pd.Timedelta(days=1), day][:len(ids)],
+                                                   dtype="datetime64[ns]"),
+                           "leave_date": pd.Series([pd.NaT, day, day, day][:len(ids)], dtype="datetime64[ns]")})
+    keys = pd.Series(["P2", "P9", "", "P1", "P2"], dtype=str, index=range(10, 15))
+    both = reader._per_person_dates(keys, people, ["birth_date", "leave_date"])
+    for got, column in zip(both, ["birth_date", "leave_date"]):
+        pd.testing.assert_series_equal(got, reader._per_person(keys, people, column), check_exact=True)

@@ -1,7 +1,9 @@
 """Read a programme folder into a validated :class:`~generator.model.Programme`.
 
-Every cell is read as text first and converted per the declared kind of its column
-(:mod:`generator.inputs.spec`), column by column with vectorised pandas/numpy operations.
+Cells are converted per the declared kind of their column (:mod:`generator.inputs.spec`),
+column by column with vectorised pandas/numpy operations. In quote-free CSV, numbers and
+ISO dates are parsed typed at once; a column that would need a finding is read as text
+and converted from its text, so that findings quote the cells as written.
 Nothing here raises for a user mistake: each problem becomes a finding
 (``path:row:column: level: message``) in ``programme.findings`` and the caller decides
 whether to stop (``findings.failed(strict)``). Inputs are opened read-only; files that
@@ -151,13 +153,15 @@ def _sparse(arr: np.ndarray, commas: np.ndarray | None, nl: np.ndarray | None) -
     return commas is not None and nl is not None and (commas.size + nl.size) * 8 < arr.size
 
 
-def _space_hint(arr: np.ndarray, commas: np.ndarray | None = None, nl: np.ndarray | None = None) -> bool:
-    """Return True when some cell of quote-free CSV bytes may begin or end with a space or tab.
+def _space_hint(arr: np.ndarray, commas: np.ndarray | None = None, nl: np.ndarray | None = None,
+                raw: bytes | None = None) -> bool:
+    """Return True when some cell of quote-free CSV bytes (*arr*, and the same as *raw*) may begin or end
+    with a space or tab.
 
     With the positions of every comma and newline (*commas*, *nl*) of bytes holding few
     cells for their size, only the first and last byte of each cell is looked at.
     """
-    if not arr.size:
+    if not arr.size or (raw is not None and b" " not in raw and b"\t" not in raw):
         return False
     last = arr.size - 1
     if _sparse(arr, commas, nl):
@@ -641,7 +645,7 @@ def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings, spec: FileSpe
     bad[0] = False
     line_no = np.arange(1, n_lines + 1)
     keep = fields <= ncols
-    spaces = _space_hint(arr, commas, nl)
+    spaces = _space_hint(arr, commas, nl, raw)
     typed = _typed_columns(text, spec) if not spaces and not bad.any() and not blank[0] else {}
     if typed:
         where = _Fields(arr, nl, commas, ncols, np.flatnonzero(~blank[1:]) + 1) \
@@ -1354,6 +1358,21 @@ def _per_person(keys: pd.Series, people: pd.DataFrame, column: str) -> pd.Series
     return pd.Series(lookup.reindex(keys.to_numpy(dtype=object)).to_numpy(), index=keys.index)
 
 
+def _per_person_dates(keys: pd.Series, people: pd.DataFrame, columns: list[str]) -> list[pd.Series]:
+    """Return the date columns people[c] for every person id in *keys* (NaT where the id is unknown),
+    as _per_person does for each, with the ids looked up once."""
+    p = people.loc[people["person_id"].ne(""), ["person_id", *columns]].drop_duplicates("person_id")
+    at = pd.Index(p["person_id"].to_numpy(dtype=object), dtype=object).get_indexer(keys.to_numpy(dtype=object))
+    unknown = at < 0
+    out = []
+    for c in columns:
+        values = p[c].to_numpy(dtype="datetime64[ns]")[np.maximum(at, 0)] if len(p) else \
+            np.full(len(at), np.datetime64("NaT"), dtype="datetime64[ns]")
+        values[unknown] = np.datetime64("NaT")
+        out.append(pd.Series(values, index=keys.index))
+    return out
+
+
 def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], findings: Findings) -> None:
     """Warn about records that contradict each other (and fill noise groups from people)."""
     people = tables["people"]
@@ -1382,8 +1401,7 @@ def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], find
     aud = tables["audiograms"]
     if "audiograms" in present and not aud.empty:
         a_sink = _Sink(findings, present["audiograms"], aud["_row"].to_numpy())
-        birth = _per_person(aud["person_id"], people, "birth_date")
-        leave = _per_person(aud["person_id"], people, "leave_date")
+        birth, leave = _per_person_dates(aud["person_id"], people, ["birth_date", "leave_date"])
         before = (aud["date"] < birth).fillna(False).to_numpy(dtype=bool)
         a_sink.add(before, "date", WARNING, "audiogram dated before the person's birth_date",
                    key="date: before birth")
@@ -1634,7 +1652,7 @@ def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes]], fin
     if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
         # something unusual: read these logs one by one to report exact lines
         return [_log_single(header + m[2], m[1], m[0], findings, today) for m in members]
-    hints = _space_hint(arr, commas, nl), True  # (a log has no text column to look for formulas in)
+    hints = _space_hint(arr, commas, nl, raw), True  # (a log has no text column to look for formulas in)
     df = None if hints[0] else _log_typed(raw, cols, _Fields(arr, nl, commas, len(cols), np.arange(nl.size)))
     del commas, fields
     if df is None:
@@ -1686,15 +1704,16 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
     if not _increasing(allf["_file"].to_numpy(), allf["_row"].to_numpy()):
         allf = allf.sort_values(["_file", "_row"], kind="stable").reset_index(drop=True)
     f = allf["_file"].to_numpy()
-    sink = _Sink(findings, paths[f], allf["_row"].to_numpy())
     start = allf["start"]
     t = start.to_numpy(dtype="datetime64[ns]").astype(np.int64).astype("float64")
     t[start.isna().to_numpy()] = np.nan
     same = np.concatenate(([False], f[1:] == f[:-1]))
     prev = np.concatenate(([np.nan], t[:-1]))
     back = same & np.isfinite(t) & np.isfinite(prev) & (t <= prev)
-    sink.add(back, "start", ERROR, "start is not later than the row before (timestamps must increase)",
-             key="start: not increasing")
+    if back.any():
+        _Sink(findings, paths[f], allf["_row"].to_numpy()).add(
+            back, "start", ERROR, "start is not later than the row before (timestamps must increase)",
+            key="start: not increasing")
     if back.any() or start.isna().any():
         allf = allf.loc[start.notna()].sort_values(["_file", "start", "_row"], kind="stable").reset_index(drop=True)
     # (else every log's start times increase: the rows are in that order already)
@@ -1709,10 +1728,12 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
     med_row = med.reindex(f).to_numpy()
     off = same & np.isfinite(diff) & np.isfinite(med_row) & (np.abs(diff - med_row) > LOG_INTERVAL_TOLERANCE_S) \
         & (diff > 0)
-    sink2 = _Sink(findings, paths[f], allf["_row"].to_numpy())
-    sink2.add(off, "start", WARNING, _each("interval of {d:g} s differs from the log's usual {m:g} s",
-                                           d=np.round(diff, 1), m=np.round(med_row, 1)),
-              key="start: irregular interval")
+    at = np.flatnonzero(off)  # (the few rows flagged: a message is made for each of them only)
+    _Sink(findings, paths[f[at]], allf["_row"].to_numpy()[at]).add(
+        np.ones(at.size, dtype=bool), "start", WARNING,
+        _each("interval of {d:g} s differs from the log's usual {m:g} s", d=np.round(diff[at], 1),
+              m=np.round(med_row[at], 1)),
+        key="start: irregular interval")
     logs: dict[str, pd.DataFrame] = {}
     intervals: dict[str, float] = {}
     bounds = np.flatnonzero(np.concatenate(([True], f[1:] != f[:-1], [True])))
