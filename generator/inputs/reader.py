@@ -554,7 +554,7 @@ def _csv_numbers(text: str, raw: bytes, ncols: int, typed: dict[int, Column], co
     values would need a finding are read again as text, so the rest of the reading sees
     exactly the cells the text path would give it.
     """
-    dates = {i: c for i, c in typed.items() if c.kind == "date"} if fields is not None else {}
+    dates = {i: c for i, c in typed.items() if c.kind == "date"} if fields is not None and count > 0 else {}
     numbers = {i: c for i, c in typed.items() if c.kind != "date"}
     if not numbers and not dates:
         return None
@@ -563,7 +563,7 @@ def _csv_numbers(text: str, raw: bytes, ncols: int, typed: dict[int, Column], co
     try:
         df = _csv_read(text, raw, ncols, skiprows=1, dtype=dtype, keep_default_na=False, na_values=na,
                        float_precision="round_trip", usecols=sorted(dtype) if dates else None)
-    except (ValueError, TypeError, OverflowError, pd.errors.ParserError):
+    except (ValueError, TypeError, OverflowError, IndexError, pd.errors.ParserError):
         return None  # a cell that is not a number: every column is read as text
     if len(df) != count:
         return None
