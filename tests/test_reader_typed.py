@@ -34,6 +34,8 @@ CASES = {
     "underscore and signs": [(3, 4, "1_0"), (4, 5, "+5"), (5, 6, "-0"), (6, 11, ".5"), (7, 11, "5.")],
     "blank optional number": [(1, 11, ""), (2, 11, "")],
     "long decimals": [(1, 11, "0.1000000000000000055511151231257827"), (2, 11, "2.675000000000000000001")],
+    "text like a formula": [(3, 0, "=cmd"), (5, 4, "-5"), (6, 0, "@x"), (7, 3, "+annual")],
+    "level like a formula": [(3, 4, "-inf"), (4, 0, "-5")],
 }
 
 
@@ -71,3 +73,127 @@ def test_typed_read_matches_text_read(tmp_path, monkeypatch, case):
         if typed[c].dtype == "float64":  # the same bits, -0.0 included
             assert np.array_equal(np.signbit(typed[c].to_numpy()), np.signbit(text[c].to_numpy()))
     assert f_typed == f_text
+
+
+DATE_CASES = {
+    "dates blank and future": [(3, 1, ""), (4, 1, "2027-03-01"), (5, 1, "2026-01-02")],
+    "dates not a calendar day": [(3, 1, "2020-02-30"), (4, 1, "2019-02-29"), (5, 1, "2020-13-01"), (6, 1, "2020-01-00")],
+    "dates leap days": [(3, 1, "2020-02-29"), (4, 1, "2000-02-29"), (5, 1, "1900-02-29")],
+    "dates written otherwise": [(3, 1, "2020-1-5"), (4, 1, "2020/01/05"), (5, 1, "2020-01-05T10:00"), (6, 1, "2020")],
+    "dates outside the years": [(3, 1, "1899-12-31"), (4, 1, "2201-01-01"), (5, 1, "1900-01-01"), (6, 1, "2200-12-31")],
+    "nr in every spelling": [(3, 4, "NR"), (4, 5, "nr"), (5, 6, "Nr"), (6, 7, "nR"), (7, 10, "")],
+    "nr beside text": [(3, 4, "NR"), (4, 4, "NRX"), (5, 5, "N"), (6, 6, "nan")],
+    "nr beside a level out of range": [(3, 9, "NR"), (4, 9, "130"), (5, 10, "")],
+}
+
+
+@pytest.mark.parametrize("case", sorted(DATE_CASES))
+def test_typed_dates_and_nr_match_text_read(tmp_path, monkeypatch, case):
+    raw = _file(DATE_CASES[case])
+    typed, f_typed = _read(tmp_path, raw, True, monkeypatch)
+    text, f_text = _read(tmp_path, raw, False, monkeypatch)
+    pd.testing.assert_frame_equal(typed, text, check_exact=True)
+    assert f_typed == f_text
+
+
+@pytest.mark.parametrize("case", ["clean", "nr and blank levels", "dates blank and future", "nr in every spelling"])
+def test_dates_and_nr_levels_are_parsed_typed(tmp_path, monkeypatch, case):
+    """Clean ISO dates and levels with NR or blank cells arrive typed: no column is read again as text."""
+    raw = _file({**CASES, **DATE_CASES}[case])
+    grids: list[reader._Grid] = []
+    fast = reader._csv_fast
+    monkeypatch.setattr(reader, "_csv_fast", lambda *a: grids.append(fast(*a)) or grids[-1])
+    _read(tmp_path, raw, True, monkeypatch)
+    cells = grids[0].cells
+    assert cells[1].dtype == "datetime64[ns]"
+    assert all(cells[i].dtype == "float64" for i in range(4, 12))
+    nr = sum(int(m.sum()) for m in grids[0].nr.values())
+    assert nr == sum(v.lower() == "nr" for _, _, v in {**CASES, **DATE_CASES}[case])
+
+
+def test_cell_edge_hints_match_byte_hints(monkeypatch):
+    """The hints found from the edges of each cell equal those found from every byte (random files)."""
+    rng = np.random.default_rng(7)
+    alphabet = np.frombuffer(b"ab -=+@,\n\r\t1.", dtype=np.uint8)
+    for _ in range(4000):
+        arr = alphabet[rng.integers(0, alphabet.size, rng.integers(1, 14))]
+        nl = np.flatnonzero(arr == 10)
+        if arr[-1] != 10:
+            nl = np.append(nl, arr.size)
+        commas = np.flatnonzero(arr == 44)
+        every_byte = reader._byte_hints(arr)
+        monkeypatch.setattr(reader, "_sparse", lambda *a: True)
+        assert reader._byte_hints(arr, commas, nl) == every_byte, bytes(arr)
+        monkeypatch.undo()
+
+
+LOG = "start,laeq\n" + "".join(f"2020-01-16T07:{m:02d}:00,{80 + (m % 7) * 0.7:.1f}\n" for m in range(30))
+LOG_CASES = {
+    "clean": {},
+    "blank start and level": {"A": [(3, 0, "")], "B": [(4, 1, "")]},
+    "start written otherwise": {"A": [(3, 0, "2020-01-16 07:03:00")], "B": [(5, 0, "2020-01-16T07:05")]},
+    "start not a time": {"A": [(3, 0, "2020-02-30T07:03:00")], "B": [(4, 0, "2020-01-16T24:00:00")]},
+    "start in the future or out of the years": {"A": [(3, 0, "2027-01-16T07:03:00")],
+                                                "B": [(4, 0, "1850-01-16T07:04:00")]},
+    "start going back": {"A": [(3, 0, "2020-01-16T06:03:00")], "B": [(4, 0, "2020-01-16T07:03:00")]},
+    "irregular interval": {"A": [(3, 0, "2020-01-16T07:02:30")]},
+    "levels not clean": {"A": [(3, 1, "abc")], "B": [(4, 1, "200")], "C": [(5, 1, "nan")]},
+    "cell with spaces": {"B": [(3, 1, " 80.1")]},
+}
+
+
+def _logs(tmp_path, case: str, mode: str, monkeypatch) -> tuple[dict, dict, list[str]]:
+    folder = tmp_path / "data" / "noise_logs"
+    folder.mkdir(parents=True, exist_ok=True)
+    for name in "ABC":
+        rows = [r.split(",") for r in LOG.rstrip("\n").split("\n")]
+        for row, col, value in LOG_CASES[case].get(name, []):
+            rows[row][col] = value
+        (folder / f"{name}.csv").write_text("\n".join(",".join(r) for r in rows) + "\n")
+    if mode == "text":
+        monkeypatch.setattr(reader, "_log_typed", lambda *a: None)
+    elif mode == "one by one":
+        monkeypatch.setattr(reader, "_log_batch", lambda cols, members, findings, today: [
+            reader._log_single((",".join(cols) + "\n").encode() + m[2], m[1], m[0], findings, today)
+            for m in members])
+    findings = Findings()
+    noise = pd.DataFrame({"measurement_id": ["A", "B", "C"]})
+    logs, intervals = reader._load_logs(tmp_path, reader._Inputs(tmp_path, findings), findings, noise,
+                                        dt.date(2026, 1, 1))
+    monkeypatch.undo()
+    return logs, intervals, list(findings.lines(shown=10_000))
+
+
+@pytest.mark.parametrize("case", sorted(LOG_CASES))
+def test_typed_logs_match_text_and_single_reads(tmp_path, monkeypatch, case):
+    """Logs read in one typed pass give the logs, intervals and findings of the text pass and of one log at a time."""
+    typed = _logs(tmp_path, case, "typed", monkeypatch)
+    for mode in ("text", "one by one"):
+        other = _logs(tmp_path, case, mode, monkeypatch)
+        assert typed[0].keys() == other[0].keys()
+        for k in typed[0]:
+            pd.testing.assert_frame_equal(typed[0][k], other[0][k], check_exact=True)
+        assert typed[1] == other[1]
+        assert typed[2] == other[2]
+
+
+def test_clean_logs_are_parsed_typed(tmp_path, monkeypatch):
+    seen: list[bool] = []
+    typed = reader._log_typed
+    monkeypatch.setattr(reader, "_log_typed", lambda *a: seen.append(typed(*a) is not None) or typed(*a))
+    _logs(tmp_path, "clean", "typed", monkeypatch)
+    assert seen == [True]
+
+
+@pytest.mark.parametrize("ids", [["P1", "P2", "P1", "P2"], []])
+def test_person_dates_looked_up_once_match_one_by_one(ids):
+    """Dates of each audiogram's person, found with one lookup, equal the lookup column by column."""
+    day = pd.Timestamp("2000-01-01")
+    people = pd.DataFrame({"person_id": pd.Series(ids, dtype=str),
+                           "birth_date": pd.Series([day, pd.NaT, day + pd.Timedelta(days=1), day][:len(ids)],
+                                                   dtype="datetime64[ns]"),
+                           "leave_date": pd.Series([pd.NaT, day, day, day][:len(ids)], dtype="datetime64[ns]")})
+    keys = pd.Series(["P2", "P9", "", "P1", "P2"], dtype=str, index=range(10, 15))
+    both = reader._per_person_dates(keys, people, ["birth_date", "leave_date"])
+    for got, column in zip(both, ["birth_date", "leave_date"]):
+        pd.testing.assert_series_equal(got, reader._per_person(keys, people, column), check_exact=True)

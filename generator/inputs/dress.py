@@ -459,8 +459,8 @@ class Dresser:
         workbook = kind == "xlsx"
         for i, n in enumerate(lowered):
             col_kind = kinds.get(n)
-            if col_kind is None or i not in cells.columns or cells[i].dtype.kind == "f":
-                continue  # (a column the parser read as numbers holds neither commas nor dates)
+            if col_kind is None or i not in cells.columns or cells[i].dtype.kind in "fM":
+                continue  # (a column the parser read as numbers or ISO dates holds neither commas nor other dates)
             label = own.get(n, header[i])
             if col_kind in NUMBER_KINDS:
                 s = self._numbers(spec, cells[i], d, label, grid, comma_cols, workbook)
