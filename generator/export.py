@@ -16,7 +16,7 @@ import os
 import re
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any, Callable, Iterator
 
 import numpy as np
 import pandas as pd
@@ -145,11 +145,13 @@ def neutralise(text: str) -> str:
     return text
 
 
-def frame_to_csv(frame: pd.DataFrame) -> bytes:
-    """Return *frame* as UTF-8 CSV with fixed formats and neutralised formula cells."""
-    import csv
-    import io
-    cols: dict[str, list[str]] = {}
+#: rows turned into text at a time: bounds the memory a large table's text takes
+CHUNK_ROWS = 50_000
+
+
+def _column_texts(frame: pd.DataFrame) -> list[list[str]]:
+    """Return the cells of *frame* as text, column by column: fixed formats, formula cells neutralised."""
+    cols: list[list[str]] = []
     for c in frame.columns:
         s = frame[c]
         if pd.api.types.is_datetime64_any_dtype(s):
@@ -159,11 +161,32 @@ def frame_to_csv(frame: pd.DataFrame) -> bytes:
             texts = np.where(np.isnan(arr), "", np.char.mod(f"%.{FLOAT_DECIMALS}f", np.nan_to_num(arr))).tolist()
         else:
             texts = [_format_cell(v) for v in s.tolist()]
-        cols[str(c)] = [neutralise(t) for t in texts]
+        cols.append([neutralise(t) for t in texts])
+    return cols
+
+
+def text_header(frame: pd.DataFrame) -> list[str]:
+    """Return the header row of *frame* as the exports write it."""
+    return [neutralise(str(c)) for c in frame.columns]
+
+
+def text_rows(frame: pd.DataFrame) -> Iterator[list[tuple[str, ...]]]:
+    """Yield the rows of *frame* as text (as the CSV writes them), CHUNK_ROWS rows at a time."""
+    if not len(frame.columns):
+        return
+    for start in range(0, len(frame), CHUNK_ROWS):
+        yield list(zip(*_column_texts(frame.iloc[start:start + CHUNK_ROWS])))
+
+
+def frame_to_csv(frame: pd.DataFrame) -> bytes:
+    """Return *frame* as UTF-8 CSV with fixed formats and neutralised formula cells."""
+    import csv
+    import io
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
-    w.writerow([neutralise(str(c)) for c in frame.columns])
-    w.writerows(zip(*cols.values()) if cols else [])
+    w.writerow(text_header(frame))
+    for rows in text_rows(frame):
+        w.writerows(rows)
     return buf.getvalue().encode("utf-8")
 
 
@@ -330,13 +353,8 @@ def public_summary(raw: bytes, ctx: SiteContext) -> bytes:
 WORKBOOK = "results.xlsx"
 #: column width bounds, characters
 WIDTH_MIN, WIDTH_MAX = 8, 60
-
-
-def _cell_texts(frame: pd.DataFrame) -> list[list[str]]:
-    """Return the rows of *frame* as the CSV writes them (header first)."""
-    import csv
-    import io
-    return list(csv.reader(io.StringIO(frame_to_csv(frame).decode("utf-8"))))
+#: rows of one worksheet, the header included (the most an .xlsx sheet holds)
+SHEET_MAX_ROWS = 1_048_576
 
 
 def workbook_stamp(ctx: SiteContext) -> dt.datetime:
@@ -351,34 +369,100 @@ def workbook_stamp(ctx: SiteContext) -> dt.datetime:
     return dt.datetime(end.year, end.month, end.day)
 
 
+def sheet_titles(name: str, parts: int) -> list[str]:
+    """Return the worksheet titles of table *name* written in *parts* sheets (31 characters at most)."""
+    base = name.rsplit(".", 1)[0]
+    titles = [base[:31]]
+    for k in range(2, parts + 1):
+        suffix = f" ({k})"
+        titles.append(base[:31 - len(suffix)] + suffix)
+    return titles
+
+
+#: characters an XML document may not hold (control characters other than tab, newline, return)
+XML_ILLEGAL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f]")
+
+
+def _xml_text(text: str) -> str:
+    """Return *text* escaped for an XML text node, illegal control characters left out."""
+    text = XML_ILLEGAL.sub("", text)
+    return text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
+
+
+def _sheet_rows(rows: list[tuple[str, ...]], numeric: list[bool], letters: list[str], first: int) -> str:
+    """Return worksheet XML for *rows* (text cells; numbers where *numeric* and the text is one), from row *first*.
+
+    The cells are written as openpyxl writes them: numbers as ``t="n"`` with ``%.16g``,
+    text inline, leading or trailing spaces preserved, blank text as an empty inline cell.
+    """
+    out: list[str] = []
+    for r, row in enumerate(rows, start=first):
+        cells = []
+        for v, num, col in zip(row, numeric, letters):
+            ref = f"{col}{r}"
+            if num and v != "" and _is_number(v):
+                number = float(v)
+                cells.append(f'<c r="{ref}" t="n"><v>{"%.16g" % number}</v></c>'
+                             if math.isfinite(number) else f'<c r="{ref}" t="n" />')
+            elif v == "":
+                cells.append(f'<c r="{ref}" t="inlineStr" />')
+            else:
+                space = ' xml:space="preserve"' if v.strip() and v != v.strip() else ""
+                cells.append(f'<c r="{ref}" t="inlineStr"><is><t{space}>{_xml_text(v)}</t></is></c>')
+        out.append(f'<row r="{r}">{"".join(cells)}</row>')
+    return "".join(out)
+
+
 def workbook_bytes(tables: dict[str, pd.DataFrame], ctx: SiteContext) -> bytes:
     """Return the tables as one .xlsx workbook: a sheet each, frozen header row, fitted column widths.
 
     Numbers are written as numbers, everything else as the CSV's text (formula-like text
-    keeps its neutralising quote). The bytes are fixed: workbook times come from
-    :func:`workbook_stamp` and every zip entry carries that date.
+    keeps its neutralising quote). A table longer than a worksheet holds (SHEET_MAX_ROWS
+    with the header) continues on sheets titled "name (2)", "name (3)" ..., each with the
+    header. openpyxl writes the workbook, its sheets and their header rows; the body rows,
+    CHUNK_ROWS at a time, are written straight into each sheet's XML (openpyxl's cell
+    objects would cost minutes and gigabytes for a million rows). The bytes are fixed:
+    workbook times come from :func:`workbook_stamp` and every zip entry carries that date.
     """
     import io
+    import itertools
     import zipfile
     from openpyxl import Workbook
     from openpyxl.utils import get_column_letter
 
-    wb = Workbook()
-    wb.remove(wb.active)
+    wb = Workbook(write_only=True)
+    per_sheet = SHEET_MAX_ROWS - 1
+    bodies: list[list[bytes]] = []  # the body XML of each sheet, in the order the sheets are made
     for name in sorted(tables):
-        rows = _cell_texts(tables[name])
-        ws = wb.create_sheet(title=name.rsplit(".", 1)[0][:31])
-        header, body = rows[0], rows[1:]
-        ws.append(header)
-        numeric = [pd.api.types.is_numeric_dtype(tables[name][c]) and not pd.api.types.is_bool_dtype(tables[name][c])
-                   for c in tables[name].columns]
-        for row in body:
-            ws.append([float(v) if num and v != "" and _is_number(v) else v
-                       for v, num in zip(row, numeric)])
-        ws.freeze_panes = "A2"
-        for i, col in enumerate(header, start=1):
-            longest = max([len(col)] + [len(r[i - 1]) for r in body[:1000] if len(r) >= i])
-            ws.column_dimensions[get_column_letter(i)].width = max(WIDTH_MIN, min(WIDTH_MAX, longest + 2))
+        frame = tables[name]
+        header = text_header(frame)
+        numeric = [pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c])
+                   for c in frame.columns]
+        letters = [get_column_letter(i) for i in range(1, len(header) + 1)]
+        chunks = text_rows(frame)
+        first = next(chunks, [])
+        widths = [max(WIDTH_MIN, min(WIDTH_MAX, max([len(col)] + [len(r[i]) for r in first[:1000]]) + 2))
+                  for i, col in enumerate(header)]
+        titles = iter(sheet_titles(name, max(1, -(-len(frame) // per_sheet))))
+        room = 0
+        for rows in itertools.chain([first], chunks):
+            at = 0
+            while at < len(rows) or room == 0:
+                if room == 0:
+                    ws = wb.create_sheet(title=next(titles))
+                    ws.freeze_panes = "A2"
+                    for col, width in zip(letters, widths):
+                        ws.column_dimensions[col].width = width
+                    ws.append(header)
+                    bodies.append([])
+                    room = per_sheet
+                taken = min(room, len(rows) - at)
+                bodies[-1].append(_sheet_rows(rows[at:at + taken], numeric, letters, 2 + per_sheet - room)
+                                  .encode("utf-8"))
+                at += taken
+                room -= taken
+                if not rows:
+                    break
     stamp = workbook_stamp(ctx)
     wb.properties.creator = "hcpsite"
     wb.properties.created = stamp
@@ -391,6 +475,11 @@ def workbook_bytes(tables: dict[str, pd.DataFrame], ctx: SiteContext) -> bytes:
     with zipfile.ZipFile(raw) as src, zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
         for info in src.infolist():
             data = src.read(info.filename)
+            sheet = re.fullmatch(r"xl/worksheets/sheet(\d+)\.xml", info.filename)
+            if sheet and bodies[int(sheet.group(1)) - 1]:
+                end = data.index(b"</sheetData>")
+                data = b"".join([data[:end], *bodies[int(sheet.group(1)) - 1], data[end:]])
+                bodies[int(sheet.group(1)) - 1] = []
             if info.filename == "docProps/core.xml":
                 text = data.decode("utf-8")
                 text = re.sub(r"(<dcterms:modified[^>]*>)[^<]*(</dcterms:modified>)", rf"\g<1>{when}\g<2>", text)
