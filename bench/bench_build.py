@@ -11,10 +11,12 @@ then runs, each in its own subprocess so that time and peak memory are its own:
 and checks the targets: build <= 3 x floor (goal 2 x), time(2x) / time(1x) <= 2.0 (both on
 CPU time, which other load on a shared machine does not inflate; wall times are printed
 too), peak RSS <= 1 GB at twice the people, every page <= 500 KB (assets/plotly.min.js
-excluded). Exit status 1 when a target is missed.
+excluded), and with ``--large 200000`` peak RSS <= 6 GiB building 200,000 people. Exit
+status 1 when a target is missed.
 
     python bench/bench_build.py --people 20000 --years 15
     python bench/bench_build.py --people 2000 --years 6 --profile /tmp/build.prof
+    python bench/bench_build.py --people 20000 --years 15 --large 200000 --workdir /tmp/bench
 """
 from __future__ import annotations
 
@@ -40,6 +42,8 @@ MAX_SCALING_2X = 2.0
 #: judged on the largest run (the 2x build when it runs: 40,000 people for --people 20000)
 MAX_RSS_BYTES = 1024 ** 3
 MAX_PAGE_BYTES = 500 * 1024
+#: peak RSS of the build of the large programme (--large: 200,000 people for the target)
+MAX_RSS_LARGE_BYTES = 6 * 1024 ** 3
 PLOTLY_ASSET = "assets/plotly.min.js"
 
 FLOOR_SCRIPT = """
@@ -140,6 +144,9 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--json", type=Path, help="also write the results as JSON here")
     ap.add_argument("--profile", type=Path, help="after timing, profile the 1x build into this .prof file")
     ap.add_argument("--skip-2x", action="store_true", help="skip the run at twice the people")
+    ap.add_argument("--large", type=int, metavar="PEOPLE",
+                    help="also build a programme of PEOPLE people (200000 for the target: peak RSS <= 6 GiB); "
+                         "writing its data takes minutes and about 7 GB of memory")
     args = ap.parse_args(argv)
     logging.basicConfig(level=logging.INFO, format="%(message)s")
 
@@ -165,6 +172,14 @@ def main(argv: list[str] | None = None) -> int:
             result["inputs_2x"] = input_summary(prog2)
             steps.append(run_step("build2x", hcp + ["build", str(prog2), "--out", str(work / "site2x")], env,
                                   work / "build2x.log"))
+        if args.large:
+            big = work / f"prog{args.large}"
+            if not (big / "programme.yaml").is_file():
+                secs = write_data(big, args.large, args.years, args.seed, env)
+                log.info("wrote %s (%d people, %d years) in %.1f s", big.name, args.large, args.years, secs)
+            result["inputs_large"] = input_summary(big)
+            steps.append(run_step("large", hcp + ["build", str(big), "--out", str(work / "site-large")], env,
+                                  work / "large.log"))
         by = {s.name: s for s in steps}
         result["steps"] = [asdict(s) for s in steps]
         site = work / "site1x"
@@ -193,10 +208,15 @@ def main(argv: list[str] | None = None) -> int:
             result["scaling_2x"] = {"cpu": scaling, "wall": wall_scaling}
             targets[f"time(2x)/time(1x) <= {MAX_SCALING_2X:g} (CPU {scaling:.2f}, wall {wall_scaling:.2f})"] = \
                 scaling <= MAX_SCALING_2X
-        peak = max(s.peak_rss_bytes for s in steps)
-        peak_at = max(steps, key=lambda s: s.peak_rss_bytes).name
+        if "large" in by:
+            big_peak = by["large"].peak_rss_bytes
+            targets[f"peak RSS <= 6 GiB building {args.large} people ({big_peak / 2 ** 20:.0f} MiB, "
+                    f"{by['large'].cpu_seconds:.0f} s CPU)"] = big_peak <= MAX_RSS_LARGE_BYTES
+        judged = [s for s in steps if s.name != "large"]
+        peak = max(s.peak_rss_bytes for s in judged)
+        peak_at = max(judged, key=lambda s: s.peak_rss_bytes).name
         result["peak_rss_bytes"] = peak
-        targets[f"peak RSS <= 1 GB at the largest run ({peak / 2 ** 20:.0f} MiB, {peak_at})"] = \
+        targets[f"peak RSS <= 1 GB at the 2x run ({peak / 2 ** 20:.0f} MiB, {peak_at})"] = \
             peak <= MAX_RSS_BYTES
         largest = max([b for _, b in result["largest"]] + [b for _, b in result.get("largest_2x", [])], default=0)
         result["largest_page_bytes"] = largest
