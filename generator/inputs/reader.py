@@ -1298,26 +1298,72 @@ def _make_empty(spec: FileSpec) -> pd.DataFrame:
 # whole-table checks
 
 
-def _check_key(df: pd.DataFrame, spec: FileSpec, sink: _Sink) -> None:
+class _Codes:
+    """Integer codes of the cells of table columns, each column factorised once per load.
+
+    ``codes(table, column)`` returns (code of each row, distinct values) with a missing
+    value kept as a value of its own, so that key and reference checks compare integers.
+    """
+
+    def __init__(self, tables: dict[str, pd.DataFrame]) -> None:
+        self.tables = tables
+        self._done: dict[tuple[str, str], tuple[np.ndarray, pd.Series]] = {}
+
+    def codes(self, table: str, column: str) -> tuple[np.ndarray, pd.Series]:
+        """Return (codes, distinct values as a Series of the column's dtype) of tables[table][column]."""
+        got = self._done.get((table, column))
+        if got is None:
+            s = self.tables[table][column]
+            codes, uniques = pd.factorize(s, use_na_sentinel=False)
+            got = np.asarray(codes, dtype=np.int64), pd.Series(uniques, dtype=s.dtype)
+            self._done[(table, column)] = got
+        return got
+
+    def forget(self, table: str, column: str) -> None:
+        """Drop the codes of a column whose cells changed."""
+        self._done.pop((table, column), None)
+
+
+def _filled(values: pd.Series) -> np.ndarray:
+    """Return which of *values* (the distinct cells of a key column) are filled in."""
+    if values.dtype == "datetime64[ns]" or values.dtype == "float64":
+        return values.notna().to_numpy(dtype=bool)
+    return values.ne("").to_numpy(dtype=bool)
+
+
+def _check_key(df: pd.DataFrame, spec: FileSpec, sink: _Sink, codes: _Codes | None = None) -> None:
     """Report rows repeating the key of an earlier row, naming that row's line."""
     key = [k for k in spec.key if k in df.columns]
     if not key or len(key) != len(spec.key) or df.empty:
         return
-    parts = [df[k] for k in key]
+    codes = codes or _Codes({spec.name: df})
     filled = np.ones(len(df), dtype=bool)
-    for p in parts:
-        filled &= (p.ne("") if p.dtype != "datetime64[ns]" and p.dtype != "float64" else p.notna()).to_numpy()
-    sub = df.loc[filled, key + ["_row"]]
-    if sub.empty:
+    combined = np.zeros(len(df), dtype=np.int64)
+    size = 1
+    for k in key:
+        c, values = codes.codes(spec.name, k)
+        filled &= _filled(values)[c]
+        size *= max(len(values), 1)
+        if size >= 2 ** 62:  # (more distinct keys than one integer holds: number the keys themselves)
+            combined = pd.factorize(pd.MultiIndex.from_arrays([combined, c]))[0].astype(np.int64)
+            size = int(combined.max()) + 1
+        else:
+            combined = combined * len(values) + c
+    at = np.flatnonzero(filled)
+    if not at.size:
         return
-    dup = sub.duplicated(key, keep="first")
-    if not dup.any():
+    order = np.argsort(combined[at], kind="stable")  # rows of one key together, in file order
+    sorted_keys = combined[at][order]
+    repeat = np.concatenate(([False], sorted_keys[1:] == sorted_keys[:-1]))
+    if not repeat.any():
         return
-    first = sub.groupby(key, sort=False, dropna=False)["_row"].transform("first")
+    run = np.cumsum(~repeat) - 1  # the run (key) of each sorted row
+    rows = df["_row"].to_numpy(dtype=np.int64)[at]
+    first_row = rows[order][~repeat][run]  # line of the first row of each row's key
     mask = np.zeros(len(df), dtype=bool)
-    mask[np.flatnonzero(filled)[dup.to_numpy()]] = True
+    mask[at[order[repeat]]] = True
     firsts = np.zeros(len(df), dtype=np.int64)
-    firsts[np.flatnonzero(filled)] = first.to_numpy()
+    firsts[at[order]] = first_row
 
     def build(idx: np.ndarray) -> list[str]:
         parts = []
@@ -1331,8 +1377,9 @@ def _check_key(df: pd.DataFrame, spec: FileSpec, sink: _Sink) -> None:
 
 
 def _check_refs(df: pd.DataFrame, spec: FileSpec, sink: _Sink, tables: dict[str, pd.DataFrame],
-                present: dict[str, str], derived_groups: bool) -> None:
-    """Report identifiers that the referenced file does not hold."""
+                present: dict[str, str], derived_groups: bool, codes: _Codes | None = None) -> None:
+    """Report identifiers that the referenced file does not hold (each distinct identifier looked up once)."""
+    codes = codes or _Codes({**tables, spec.name: df})
     for c in spec.columns:
         if c.ref is None or c.name not in df.columns:
             continue
@@ -1340,13 +1387,13 @@ def _check_refs(df: pd.DataFrame, spec: FileSpec, sink: _Sink, tables: dict[str,
         if target not in tables or (target not in present and not (target == "groups" and derived_groups)):
             continue  # the referenced file is absent: nothing to check against
         known = tables[target][tcol]
-        s = df[c.name]
-        unknown = (s.ne("") & ~s.isin(known)).to_numpy(dtype=bool)
+        at, values = codes.codes(spec.name, c.name)
+        unknown = (values.ne("") & ~values.isin(known)).to_numpy(dtype=bool)[at]
         if not unknown.any():
             continue
         where = (f"(not in {present[target]})" if target in present else
                  "(no person in data/people.csv is in this group, and data/groups.csv is absent)")
-        sink.add(unknown, c.name, ERROR, _each(f"unknown {tcol} '{{v}}' {where}", v=s),
+        sink.add(unknown, c.name, ERROR, _each(f"unknown {tcol} '{{v}}' {where}", v=df[c.name]),
                  key=f"{c.name}: unknown reference")
 
 
@@ -1373,8 +1420,11 @@ def _per_person_dates(keys: pd.Series, people: pd.DataFrame, columns: list[str])
     return out
 
 
-def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], findings: Findings) -> None:
-    """Warn about records that contradict each other (and fill noise groups from people)."""
+def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], findings: Findings,
+                  codes: _Codes | None = None) -> None:
+    """Warn about records that contradict each other (and fill noise groups from people).
+
+    With *codes*, each distinct person id of the audiograms is looked up once."""
     people = tables["people"]
     if "people" in present and not people.empty:
         p_sink = _Sink(findings, present["people"], people["_row"].to_numpy())
@@ -1398,10 +1448,15 @@ def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], find
             filled = pd.Series(np.where(looked.isna().to_numpy(), "", looked.to_numpy(dtype=object)),
                                index=noise.index, dtype=str)
             noise["group"] = noise["group"].where(~blank_group, filled)
+            if codes is not None:
+                codes.forget("noise", "group")
     aud = tables["audiograms"]
     if "audiograms" in present and not aud.empty:
         a_sink = _Sink(findings, present["audiograms"], aud["_row"].to_numpy())
-        birth, leave = _per_person_dates(aud["person_id"], people, ["birth_date", "leave_date"])
+        at, ids = codes.codes("audiograms", "person_id") if codes is not None else \
+            (np.arange(len(aud)), aud["person_id"])
+        birth, leave = (pd.Series(v.to_numpy(dtype="datetime64[ns]")[at], index=aud.index)
+                        for v in _per_person_dates(ids, people, ["birth_date", "leave_date"]))
         before = (aud["date"] < birth).fillna(False).to_numpy(dtype=bool)
         a_sink.add(before, "date", WARNING, "audiogram dated before the person's birth_date",
                    key="date: before birth")
@@ -1902,14 +1957,15 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
     derived = "groups" not in present
     if derived:
         tables["groups"] = _derive_groups(tables["people"], GROUPS)
-    _cross_checks(tables, present, findings)
+    codes = _Codes(tables)
+    _cross_checks(tables, present, findings, codes)
     for spec in FILES:
         df = tables[spec.name]
         if spec.name not in present or df.empty:
             continue
         sink = _Sink(findings, present[spec.name], df["_row"].to_numpy())
-        _check_key(df, spec, sink)
-        _check_refs(df, spec, sink, tables, present, derived)
+        _check_key(df, spec, sink, codes)
+        _check_refs(df, spec, sink, tables, present, derived, codes)
     _unknown_data_files(root, findings, dresser.paths())
     try:
         logs, intervals = _load_logs(root, inputs, findings, tables["noise"], today)
