@@ -252,12 +252,23 @@ def _rel(root: Path, path: Path) -> str:
 
 
 class _Inputs:
-    """Read input files read-only, confined to the programme folder, recording their bytes."""
+    """Read input files read-only, confined to the programme folder, recording them for the digest.
+
+    The digest runs over the files in the order of their relative paths. ``settle(bound)``
+    says that no file sorting before *bound* will be read any more: the files read so far
+    that sort before it are hashed then and their bytes let go, so a large file is not
+    held to the end of the load.
+    """
 
     def __init__(self, root: Path, findings: Findings) -> None:
         self.root = root
         self.findings = findings
-        self.read: dict[str, bytes] = {}
+        self.read: dict[str, bytes] = {}  # read, not hashed yet
+        self._hash = hashlib.sha256()
+        self._hashed: dict[str, Path] = {}  # hashed already (the last one sorts last)
+        self._bound = ""  # no file sorting before it is read any more
+        self._late = False  # a file sorting before the bound was read after all
+        self._paths: dict[str, Path] = {}
 
     def get(self, path: Path, rel: str | None = None, folder_inside: bool = False,
             limit: int | None = None) -> bytes | None:
@@ -277,18 +288,47 @@ class _Inputs:
         except InputFileError as exc:
             self.findings.error(rel, None, None, str(exc))
             return None
+        if rel < self._bound or rel in self._hashed:
+            self._late = True  # (the digest then reads the hashed files again, in order)
         self.read[rel] = data
+        self._paths[rel] = path
         return data
+
+    def settle(self, bound: str, through: bool = False) -> None:
+        """Hash and let go of the files read so far that sort before *bound* (or are *bound*, with
+        *through*): no file sorting before it is read any more."""
+        if self._late:
+            return
+        ready = sorted(r for r in self.read if r < bound or (through and r == bound))
+        for rel in ready:
+            self._update(self._hash, rel, self.read.pop(rel))
+            self._hashed[rel] = self._paths[rel]
+        self._bound = max(self._bound, bound)
+
+    @staticmethod
+    def _update(h: Any, rel: str, data: bytes) -> None:
+        """Feed one file (its relative path and its bytes, each with its length) into *h*."""
+        name = rel.encode("utf-8")
+        h.update(len(name).to_bytes(8, "big") + name)
+        h.update(len(data).to_bytes(8, "big"))
+        h.update(data)  # not concatenated: that would copy the largest file once more
 
     def digest(self) -> str:
         """Return sha256 over the sorted (relative path, bytes) of every file read."""
-        h = hashlib.sha256()
+        if self._late:  # files came out of order: hash every file again from the start
+            h = hashlib.sha256()
+            for rel in sorted({*self._hashed, *self.read}):
+                data = self.read.get(rel)
+                if data is None:
+                    try:
+                        data = read_regular(self._hashed[rel], MAX_FILE_BYTES)
+                    except InputFileError:
+                        data = b""
+                self._update(h, rel, data)
+            return h.hexdigest()
+        h = self._hash.copy()
         for rel in sorted(self.read):
-            data = self.read[rel]
-            name = rel.encode("utf-8")
-            h.update(len(name).to_bytes(8, "big") + name)
-            h.update(len(data).to_bytes(8, "big"))
-            h.update(data)  # not concatenated: that would copy the largest file once more
+            self._update(h, rel, self.read[rel])
         return h.hexdigest()
 
 
@@ -503,6 +543,8 @@ def _iso_cells(fields: _Fields, j: int, with_time: bool) -> np.ndarray | None:
     if got is None:
         return None
     blank, at = got
+    if not at.size:  # (every cell blank; the bytes may be fewer than one cell's width)
+        return np.full(blank.size, np.datetime64("NaT"), dtype="datetime64[ns]")
     block = np.lib.stride_tricks.sliding_window_view(fields.arr, width)[at]  # the bytes of each cell
     seps = [(4, 45), (7, 45)] + ([(10, 84), (13, 58), (16, 58)] if with_time else [])  # - - T : :
     if not (block[:, [k for k, _ in seps]] == np.asarray([ch for _, ch in seps], dtype=np.uint8)).all():
@@ -1590,7 +1632,7 @@ def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFr
         findings.error(LOG_DIR, None, None, "resolves outside the programme folder; not read")
         return {}, {}
     ids = set(noise["measurement_id"].tolist()) - {""}
-    batch: dict[tuple[str, ...], list[tuple[int, str, bytes]]] = {}
+    batch: dict[tuple[str, ...], list[tuple[int, str, bytes | memoryview]]] = {}
     frames: list[pd.DataFrame] = []
     names: list[str] = []
     paths: list[str] = []
@@ -1608,12 +1650,14 @@ def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFr
         raw = inputs.get(p, rel, folder_inside=True)
         if raw is None:
             continue
+        inputs.settle(rel, through=True)  # (logs are read in the order of their names)
         if raw.isascii() and len(raw) <= MAX_LINE_BYTES and b"\x00" not in raw:
             end = raw.find(b"\n")  # (what _decode accepts without a look at each line)
-            head, body = (raw, b"") if end < 0 else (raw[:end], raw[end + 1:])
+            head = raw if end < 0 else raw[:end]
+            body: bytes | memoryview = memoryview(raw)[len(raw) if end < 0 else end + 1:]  # (not copied)
             cols = tuple(h.strip().lower() for h in head.decode("ascii").rstrip("\r").split(","))
             quoted = b'"' in raw
-            empty = not body.strip(_ASCII_SPACE)
+            empty = end < 0 or not raw[end + 1:].strip(_ASCII_SPACE)
         else:
             text = _decode(raw, rel, findings)
             if text is None:
@@ -1625,11 +1669,12 @@ def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFr
         names.append(stem)
         paths.append(rel)
         if not quoted and sorted(cols) == ["laeq", "start"] and not empty:
-            batch.setdefault(cols, []).append((idx, rel, body if body.endswith(b"\n") else body + b"\n"))
+            batch.setdefault(cols, []).append((idx, rel, body if raw.endswith(b"\n") else bytes(body) + b"\n"))
             continue
         frames.append(_log_single(raw, rel, idx, findings, today))
     for cols, members in batch.items():
         frames.extend(_log_batch(cols, members, findings, today))
+    batch.clear()  # (lets go of the files' bytes: the digest holds none of them)
     frames = [f for f in frames if f is not None and len(f)]
     if not frames:
         return {}, {}
@@ -1685,17 +1730,19 @@ def _log_cells(raw: bytes, cols: tuple[str, ...], count: int) -> pd.DataFrame | 
             return None
 
 
-def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes]], findings: Findings,
+def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes | memoryview]], findings: Findings,
                today: dt.date) -> list[pd.DataFrame | None]:
     """Parse many quote-free logs with the same header in one pass.
 
     Start times written YYYY-MM-DDTHH:MM:SS are parsed from the bytes and the levels by
     the C reader; logs with anything else in them are read as text, as one log would be.
     """
-    counts = np.fromiter((b.count(b"\n") for _, _, b in members), dtype=np.int64, count=len(members))
     raw = b"".join(b for _, _, b in members)
     arr = np.frombuffer(raw, dtype=np.uint8)
     nl = np.flatnonzero(arr == 10)
+    sizes = np.fromiter((len(b) for _, _, b in members), dtype=np.int64, count=len(members))
+    # lines of each log: every body ends with a line end, so the line ends up to each body's end
+    counts = np.diff(np.searchsorted(nl, np.cumsum(sizes), side="left"), prepend=0)
     commas = np.flatnonzero(arr == 44)
     fields = np.diff(np.searchsorted(commas, nl), prepend=0) + 1
     starts = np.concatenate(([0], nl[:-1] + 1))
@@ -1706,14 +1753,14 @@ def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes]], fin
     header = (",".join(cols) + "\n").encode("utf-8")
     if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
         # something unusual: read these logs one by one to report exact lines
-        return [_log_single(header + m[2], m[1], m[0], findings, today) for m in members]
+        return [_log_single(header + bytes(m[2]), m[1], m[0], findings, today) for m in members]
     hints = _space_hint(arr, commas, nl, raw), True  # (a log has no text column to look for formulas in)
     df = None if hints[0] else _log_typed(raw, cols, _Fields(arr, nl, commas, len(cols), np.arange(nl.size)))
     del commas, fields
     if df is None:
         df = _log_cells(raw, cols, nl.size)
     if df is None or len(df) != nl.size:
-        return [_log_single(header + m[2], m[1], m[0], findings, today) for m in members]
+        return [_log_single(header + bytes(m[2]), m[1], m[0], findings, today) for m in members]
     file_idx = np.repeat(np.arange(len(members)), counts)
     first = np.concatenate(([0], np.cumsum(counts)[:-1]))
     rows = np.arange(nl.size) - np.repeat(first, counts) + 2
@@ -1967,12 +2014,14 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
         _check_key(df, spec, sink, codes)
         _check_refs(df, spec, sink, tables, present, derived, codes)
     _unknown_data_files(root, findings, dresser.paths())
+    inputs.settle(LOG_DIR + "/")  # (the files still to read are logs, pages and templates)
     try:
         logs, intervals = _load_logs(root, inputs, findings, tables["noise"], today)
     except Exception as exc:
         log.exception("unexpected failure reading noise logs")
         findings.error(LOG_DIR, None, None, f"could not be read ({type(exc).__name__}: {exc})")
         logs, intervals = {}, {}
+    inputs.settle(PAGES_DIR + "/")
     pages = _load_pages(root, inputs, findings)
     template_dir = _template_dir(root, inputs, findings)
     findings = dresser.finish(findings)
