@@ -1816,6 +1816,7 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
         _Sink(findings, paths[f], allf["_row"].to_numpy()).add(
             back, "start", ERROR, "start is not later than the row before (timestamps must increase)",
             key="start: not increasing")
+    del t, prev, same  # (one number per row each: let go before the next copies)
     if back.any() or start.isna().any():
         allf = allf.loc[start.notna()].sort_values(["_file", "start", "_row"], kind="stable").reset_index(drop=True)
     # (else every log's start times increase: the rows are in that order already)
@@ -1827,7 +1828,7 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
     diff = np.where(same, t - np.concatenate(([np.nan], t[:-1])), np.nan)
     dser = pd.Series(diff)
     med = dser.groupby(f).median()
-    med_row = med.reindex(f).to_numpy()
+    med_row = med.to_numpy(dtype="float64")[np.searchsorted(med.index.to_numpy(), f)]  # (every f is in med's sorted index)
     off = same & np.isfinite(diff) & np.isfinite(med_row) & (np.abs(diff - med_row) > LOG_INTERVAL_TOLERANCE_S) \
         & (diff > 0)
     at = np.flatnonzero(off)  # (the few rows flagged: a message is made for each of them only)
@@ -1836,6 +1837,7 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
         _each("interval of {d:g} s differs from the log's usual {m:g} s", d=np.round(diff[at], 1),
               m=np.round(med_row[at], 1)),
         key="start: irregular interval")
+    del t, diff, dser, med_row, off, same
     logs: dict[str, pd.DataFrame] = {}
     intervals: dict[str, float] = {}
     bounds = np.flatnonzero(np.concatenate(([True], f[1:] != f[:-1], [True])))
