@@ -252,12 +252,23 @@ def _rel(root: Path, path: Path) -> str:
 
 
 class _Inputs:
-    """Read input files read-only, confined to the programme folder, recording their bytes."""
+    """Read input files read-only, confined to the programme folder, recording them for the digest.
+
+    The digest runs over the files in the order of their relative paths. ``settle(bound)``
+    says that no file sorting before *bound* will be read any more: the files read so far
+    that sort before it are hashed then and their bytes let go, so a large file is not
+    held to the end of the load.
+    """
 
     def __init__(self, root: Path, findings: Findings) -> None:
         self.root = root
         self.findings = findings
-        self.read: dict[str, bytes] = {}
+        self.read: dict[str, bytes] = {}  # read, not hashed yet
+        self._hash = hashlib.sha256()
+        self._hashed: dict[str, Path] = {}  # hashed already (the last one sorts last)
+        self._bound = ""  # no file sorting before it is read any more
+        self._late = False  # a file sorting before the bound was read after all
+        self._paths: dict[str, Path] = {}
 
     def get(self, path: Path, rel: str | None = None, folder_inside: bool = False,
             limit: int | None = None) -> bytes | None:
@@ -277,18 +288,47 @@ class _Inputs:
         except InputFileError as exc:
             self.findings.error(rel, None, None, str(exc))
             return None
+        if rel < self._bound or rel in self._hashed:
+            self._late = True  # (the digest then reads the hashed files again, in order)
         self.read[rel] = data
+        self._paths[rel] = path
         return data
+
+    def settle(self, bound: str, through: bool = False) -> None:
+        """Hash and let go of the files read so far that sort before *bound* (or are *bound*, with
+        *through*): no file sorting before it is read any more."""
+        if self._late:
+            return
+        ready = sorted(r for r in self.read if r < bound or (through and r == bound))
+        for rel in ready:
+            self._update(self._hash, rel, self.read.pop(rel))
+            self._hashed[rel] = self._paths[rel]
+        self._bound = max(self._bound, bound)
+
+    @staticmethod
+    def _update(h: Any, rel: str, data: bytes) -> None:
+        """Feed one file (its relative path and its bytes, each with its length) into *h*."""
+        name = rel.encode("utf-8")
+        h.update(len(name).to_bytes(8, "big") + name)
+        h.update(len(data).to_bytes(8, "big"))
+        h.update(data)  # not concatenated: that would copy the largest file once more
 
     def digest(self) -> str:
         """Return sha256 over the sorted (relative path, bytes) of every file read."""
-        h = hashlib.sha256()
+        if self._late:  # files came out of order: hash every file again from the start
+            h = hashlib.sha256()
+            for rel in sorted({*self._hashed, *self.read}):
+                data = self.read.get(rel)
+                if data is None:
+                    try:
+                        data = read_regular(self._hashed[rel], MAX_FILE_BYTES)
+                    except InputFileError:
+                        data = b""
+                self._update(h, rel, data)
+            return h.hexdigest()
+        h = self._hash.copy()
         for rel in sorted(self.read):
-            data = self.read[rel]
-            name = rel.encode("utf-8")
-            h.update(len(name).to_bytes(8, "big") + name)
-            h.update(len(data).to_bytes(8, "big"))
-            h.update(data)  # not concatenated: that would copy the largest file once more
+            self._update(h, rel, self.read[rel])
         return h.hexdigest()
 
 
@@ -503,6 +543,8 @@ def _iso_cells(fields: _Fields, j: int, with_time: bool) -> np.ndarray | None:
     if got is None:
         return None
     blank, at = got
+    if not at.size:  # (every cell blank; the bytes may be fewer than one cell's width)
+        return np.full(blank.size, np.datetime64("NaT"), dtype="datetime64[ns]")
     block = np.lib.stride_tricks.sliding_window_view(fields.arr, width)[at]  # the bytes of each cell
     seps = [(4, 45), (7, 45)] + ([(10, 84), (13, 58), (16, 58)] if with_time else [])  # - - T : :
     if not (block[:, [k for k, _ in seps]] == np.asarray([ch for _, ch in seps], dtype=np.uint8)).all():
@@ -1298,26 +1340,72 @@ def _make_empty(spec: FileSpec) -> pd.DataFrame:
 # whole-table checks
 
 
-def _check_key(df: pd.DataFrame, spec: FileSpec, sink: _Sink) -> None:
+class _Codes:
+    """Integer codes of the cells of table columns, each column factorised once per load.
+
+    ``codes(table, column)`` returns (code of each row, distinct values) with a missing
+    value kept as a value of its own, so that key and reference checks compare integers.
+    """
+
+    def __init__(self, tables: dict[str, pd.DataFrame]) -> None:
+        self.tables = tables
+        self._done: dict[tuple[str, str], tuple[np.ndarray, pd.Series]] = {}
+
+    def codes(self, table: str, column: str) -> tuple[np.ndarray, pd.Series]:
+        """Return (codes, distinct values as a Series of the column's dtype) of tables[table][column]."""
+        got = self._done.get((table, column))
+        if got is None:
+            s = self.tables[table][column]
+            codes, uniques = pd.factorize(s, use_na_sentinel=False)
+            got = np.asarray(codes, dtype=np.int64), pd.Series(uniques, dtype=s.dtype)
+            self._done[(table, column)] = got
+        return got
+
+    def forget(self, table: str, column: str) -> None:
+        """Drop the codes of a column whose cells changed."""
+        self._done.pop((table, column), None)
+
+
+def _filled(values: pd.Series) -> np.ndarray:
+    """Return which of *values* (the distinct cells of a key column) are filled in."""
+    if values.dtype == "datetime64[ns]" or values.dtype == "float64":
+        return values.notna().to_numpy(dtype=bool)
+    return values.ne("").to_numpy(dtype=bool)
+
+
+def _check_key(df: pd.DataFrame, spec: FileSpec, sink: _Sink, codes: _Codes | None = None) -> None:
     """Report rows repeating the key of an earlier row, naming that row's line."""
     key = [k for k in spec.key if k in df.columns]
     if not key or len(key) != len(spec.key) or df.empty:
         return
-    parts = [df[k] for k in key]
+    codes = codes or _Codes({spec.name: df})
     filled = np.ones(len(df), dtype=bool)
-    for p in parts:
-        filled &= (p.ne("") if p.dtype != "datetime64[ns]" and p.dtype != "float64" else p.notna()).to_numpy()
-    sub = df.loc[filled, key + ["_row"]]
-    if sub.empty:
+    combined = np.zeros(len(df), dtype=np.int64)
+    size = 1
+    for k in key:
+        c, values = codes.codes(spec.name, k)
+        filled &= _filled(values)[c]
+        size *= max(len(values), 1)
+        if size >= 2 ** 62:  # (more distinct keys than one integer holds: number the keys themselves)
+            combined = pd.factorize(pd.MultiIndex.from_arrays([combined, c]))[0].astype(np.int64)
+            size = int(combined.max()) + 1
+        else:
+            combined = combined * len(values) + c
+    at = np.flatnonzero(filled)
+    if not at.size:
         return
-    dup = sub.duplicated(key, keep="first")
-    if not dup.any():
+    order = np.argsort(combined[at], kind="stable")  # rows of one key together, in file order
+    sorted_keys = combined[at][order]
+    repeat = np.concatenate(([False], sorted_keys[1:] == sorted_keys[:-1]))
+    if not repeat.any():
         return
-    first = sub.groupby(key, sort=False, dropna=False)["_row"].transform("first")
+    run = np.cumsum(~repeat) - 1  # the run (key) of each sorted row
+    rows = df["_row"].to_numpy(dtype=np.int64)[at]
+    first_row = rows[order][~repeat][run]  # line of the first row of each row's key
     mask = np.zeros(len(df), dtype=bool)
-    mask[np.flatnonzero(filled)[dup.to_numpy()]] = True
+    mask[at[order[repeat]]] = True
     firsts = np.zeros(len(df), dtype=np.int64)
-    firsts[np.flatnonzero(filled)] = first.to_numpy()
+    firsts[at[order]] = first_row
 
     def build(idx: np.ndarray) -> list[str]:
         parts = []
@@ -1331,8 +1419,9 @@ def _check_key(df: pd.DataFrame, spec: FileSpec, sink: _Sink) -> None:
 
 
 def _check_refs(df: pd.DataFrame, spec: FileSpec, sink: _Sink, tables: dict[str, pd.DataFrame],
-                present: dict[str, str], derived_groups: bool) -> None:
-    """Report identifiers that the referenced file does not hold."""
+                present: dict[str, str], derived_groups: bool, codes: _Codes | None = None) -> None:
+    """Report identifiers that the referenced file does not hold (each distinct identifier looked up once)."""
+    codes = codes or _Codes({**tables, spec.name: df})
     for c in spec.columns:
         if c.ref is None or c.name not in df.columns:
             continue
@@ -1340,13 +1429,13 @@ def _check_refs(df: pd.DataFrame, spec: FileSpec, sink: _Sink, tables: dict[str,
         if target not in tables or (target not in present and not (target == "groups" and derived_groups)):
             continue  # the referenced file is absent: nothing to check against
         known = tables[target][tcol]
-        s = df[c.name]
-        unknown = (s.ne("") & ~s.isin(known)).to_numpy(dtype=bool)
+        at, values = codes.codes(spec.name, c.name)
+        unknown = (values.ne("") & ~values.isin(known)).to_numpy(dtype=bool)[at]
         if not unknown.any():
             continue
         where = (f"(not in {present[target]})" if target in present else
                  "(no person in data/people.csv is in this group, and data/groups.csv is absent)")
-        sink.add(unknown, c.name, ERROR, _each(f"unknown {tcol} '{{v}}' {where}", v=s),
+        sink.add(unknown, c.name, ERROR, _each(f"unknown {tcol} '{{v}}' {where}", v=df[c.name]),
                  key=f"{c.name}: unknown reference")
 
 
@@ -1373,8 +1462,11 @@ def _per_person_dates(keys: pd.Series, people: pd.DataFrame, columns: list[str])
     return out
 
 
-def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], findings: Findings) -> None:
-    """Warn about records that contradict each other (and fill noise groups from people)."""
+def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], findings: Findings,
+                  codes: _Codes | None = None) -> None:
+    """Warn about records that contradict each other (and fill noise groups from people).
+
+    With *codes*, each distinct person id of the audiograms is looked up once."""
     people = tables["people"]
     if "people" in present and not people.empty:
         p_sink = _Sink(findings, present["people"], people["_row"].to_numpy())
@@ -1398,10 +1490,15 @@ def _cross_checks(tables: dict[str, pd.DataFrame], present: dict[str, str], find
             filled = pd.Series(np.where(looked.isna().to_numpy(), "", looked.to_numpy(dtype=object)),
                                index=noise.index, dtype=str)
             noise["group"] = noise["group"].where(~blank_group, filled)
+            if codes is not None:
+                codes.forget("noise", "group")
     aud = tables["audiograms"]
     if "audiograms" in present and not aud.empty:
         a_sink = _Sink(findings, present["audiograms"], aud["_row"].to_numpy())
-        birth, leave = _per_person_dates(aud["person_id"], people, ["birth_date", "leave_date"])
+        at, ids = codes.codes("audiograms", "person_id") if codes is not None else \
+            (np.arange(len(aud)), aud["person_id"])
+        birth, leave = (pd.Series(v.to_numpy(dtype="datetime64[ns]")[at], index=aud.index)
+                        for v in _per_person_dates(ids, people, ["birth_date", "leave_date"]))
         before = (aud["date"] < birth).fillna(False).to_numpy(dtype=bool)
         a_sink.add(before, "date", WARNING, "audiogram dated before the person's birth_date",
                    key="date: before birth")
@@ -1535,7 +1632,7 @@ def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFr
         findings.error(LOG_DIR, None, None, "resolves outside the programme folder; not read")
         return {}, {}
     ids = set(noise["measurement_id"].tolist()) - {""}
-    batch: dict[tuple[str, ...], list[tuple[int, str, bytes]]] = {}
+    batch: dict[tuple[str, ...], list[tuple[int, str, bytes | memoryview]]] = {}
     frames: list[pd.DataFrame] = []
     names: list[str] = []
     paths: list[str] = []
@@ -1553,12 +1650,14 @@ def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFr
         raw = inputs.get(p, rel, folder_inside=True)
         if raw is None:
             continue
+        inputs.settle(rel, through=True)  # (logs are read in the order of their names)
         if raw.isascii() and len(raw) <= MAX_LINE_BYTES and b"\x00" not in raw:
             end = raw.find(b"\n")  # (what _decode accepts without a look at each line)
-            head, body = (raw, b"") if end < 0 else (raw[:end], raw[end + 1:])
+            head = raw if end < 0 else raw[:end]
+            body: bytes | memoryview = memoryview(raw)[len(raw) if end < 0 else end + 1:]  # (not copied)
             cols = tuple(h.strip().lower() for h in head.decode("ascii").rstrip("\r").split(","))
             quoted = b'"' in raw
-            empty = not body.strip(_ASCII_SPACE)
+            empty = end < 0 or not raw[end + 1:].strip(_ASCII_SPACE)
         else:
             text = _decode(raw, rel, findings)
             if text is None:
@@ -1570,11 +1669,12 @@ def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFr
         names.append(stem)
         paths.append(rel)
         if not quoted and sorted(cols) == ["laeq", "start"] and not empty:
-            batch.setdefault(cols, []).append((idx, rel, body if body.endswith(b"\n") else body + b"\n"))
+            batch.setdefault(cols, []).append((idx, rel, body if raw.endswith(b"\n") else bytes(body) + b"\n"))
             continue
         frames.append(_log_single(raw, rel, idx, findings, today))
     for cols, members in batch.items():
         frames.extend(_log_batch(cols, members, findings, today))
+    batch.clear()  # (lets go of the files' bytes: the digest holds none of them)
     frames = [f for f in frames if f is not None and len(f)]
     if not frames:
         return {}, {}
@@ -1630,17 +1730,19 @@ def _log_cells(raw: bytes, cols: tuple[str, ...], count: int) -> pd.DataFrame | 
             return None
 
 
-def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes]], findings: Findings,
+def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes | memoryview]], findings: Findings,
                today: dt.date) -> list[pd.DataFrame | None]:
     """Parse many quote-free logs with the same header in one pass.
 
     Start times written YYYY-MM-DDTHH:MM:SS are parsed from the bytes and the levels by
     the C reader; logs with anything else in them are read as text, as one log would be.
     """
-    counts = np.fromiter((b.count(b"\n") for _, _, b in members), dtype=np.int64, count=len(members))
     raw = b"".join(b for _, _, b in members)
     arr = np.frombuffer(raw, dtype=np.uint8)
     nl = np.flatnonzero(arr == 10)
+    sizes = np.fromiter((len(b) for _, _, b in members), dtype=np.int64, count=len(members))
+    # lines of each log: every body ends with a line end, so the line ends up to each body's end
+    counts = np.diff(np.searchsorted(nl, np.cumsum(sizes), side="left"), prepend=0)
     commas = np.flatnonzero(arr == 44)
     fields = np.diff(np.searchsorted(commas, nl), prepend=0) + 1
     starts = np.concatenate(([0], nl[:-1] + 1))
@@ -1651,14 +1753,14 @@ def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes]], fin
     header = (",".join(cols) + "\n").encode("utf-8")
     if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
         # something unusual: read these logs one by one to report exact lines
-        return [_log_single(header + m[2], m[1], m[0], findings, today) for m in members]
+        return [_log_single(header + bytes(m[2]), m[1], m[0], findings, today) for m in members]
     hints = _space_hint(arr, commas, nl, raw), True  # (a log has no text column to look for formulas in)
     df = None if hints[0] else _log_typed(raw, cols, _Fields(arr, nl, commas, len(cols), np.arange(nl.size)))
     del commas, fields
     if df is None:
         df = _log_cells(raw, cols, nl.size)
     if df is None or len(df) != nl.size:
-        return [_log_single(header + m[2], m[1], m[0], findings, today) for m in members]
+        return [_log_single(header + bytes(m[2]), m[1], m[0], findings, today) for m in members]
     file_idx = np.repeat(np.arange(len(members)), counts)
     first = np.concatenate(([0], np.cumsum(counts)[:-1]))
     rows = np.arange(nl.size) - np.repeat(first, counts) + 2
@@ -1714,6 +1816,7 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
         _Sink(findings, paths[f], allf["_row"].to_numpy()).add(
             back, "start", ERROR, "start is not later than the row before (timestamps must increase)",
             key="start: not increasing")
+    del t, prev, same  # (one number per row each: let go before the next copies)
     if back.any() or start.isna().any():
         allf = allf.loc[start.notna()].sort_values(["_file", "start", "_row"], kind="stable").reset_index(drop=True)
     # (else every log's start times increase: the rows are in that order already)
@@ -1725,7 +1828,7 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
     diff = np.where(same, t - np.concatenate(([np.nan], t[:-1])), np.nan)
     dser = pd.Series(diff)
     med = dser.groupby(f).median()
-    med_row = med.reindex(f).to_numpy()
+    med_row = med.to_numpy(dtype="float64")[np.searchsorted(med.index.to_numpy(), f)]  # (every f is in med's sorted index)
     off = same & np.isfinite(diff) & np.isfinite(med_row) & (np.abs(diff - med_row) > LOG_INTERVAL_TOLERANCE_S) \
         & (diff > 0)
     at = np.flatnonzero(off)  # (the few rows flagged: a message is made for each of them only)
@@ -1734,6 +1837,7 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
         _each("interval of {d:g} s differs from the log's usual {m:g} s", d=np.round(diff[at], 1),
               m=np.round(med_row[at], 1)),
         key="start: irregular interval")
+    del t, diff, dser, med_row, off, same
     logs: dict[str, pd.DataFrame] = {}
     intervals: dict[str, float] = {}
     bounds = np.flatnonzero(np.concatenate(([True], f[1:] != f[:-1], [True])))
@@ -1902,21 +2006,24 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
     derived = "groups" not in present
     if derived:
         tables["groups"] = _derive_groups(tables["people"], GROUPS)
-    _cross_checks(tables, present, findings)
+    codes = _Codes(tables)
+    _cross_checks(tables, present, findings, codes)
     for spec in FILES:
         df = tables[spec.name]
         if spec.name not in present or df.empty:
             continue
         sink = _Sink(findings, present[spec.name], df["_row"].to_numpy())
-        _check_key(df, spec, sink)
-        _check_refs(df, spec, sink, tables, present, derived)
+        _check_key(df, spec, sink, codes)
+        _check_refs(df, spec, sink, tables, present, derived, codes)
     _unknown_data_files(root, findings, dresser.paths())
+    inputs.settle(LOG_DIR + "/")  # (the files still to read are logs, pages and templates)
     try:
         logs, intervals = _load_logs(root, inputs, findings, tables["noise"], today)
     except Exception as exc:
         log.exception("unexpected failure reading noise logs")
         findings.error(LOG_DIR, None, None, f"could not be read ({type(exc).__name__}: {exc})")
         logs, intervals = {}, {}
+    inputs.settle(PAGES_DIR + "/")
     pages = _load_pages(root, inputs, findings)
     template_dir = _template_dir(root, inputs, findings)
     findings = dresser.finish(findings)
