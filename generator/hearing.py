@@ -126,6 +126,10 @@ WORK_COLUMNS = frozenset({
     "quiet_hours", "audiometer_id", "_row", "hire_date", "nr_234", "_pid", "_key", "_drank", "_same_prev",
     "_same_next", "valid_234", "_bpos", "shift_driving", "_sts_vs_prev_base", "retest_date", "next_date",
     "det_idx", "_shift_decision", "determined_on", "check_reason"})
+#: working columns no step reads after the follow-ups, actions and findings (dropped then)
+LATE_UNUSED = ("quiet_hours", "audiometer_id", "_row", "check_reason", "_same_prev", "_same_next", "valid_234",
+               "shift_driving", "_sts_vs_prev_base", "retest_date", "next_date", "det_idx", "_shift_decision",
+               "determined_on")
 #: retest_status of an audiogram: not a determination, then a determination's retest outcome
 RETEST_WORDS = ("", "no retest", "confirmed", "cancelled")
 #: follow-up status of a retest or refit that fell due after the person left employment
@@ -243,6 +247,12 @@ def _upper(s: pd.Series) -> pd.Series:
     up = pd.Series(uniques, dtype=s.dtype).str.upper().to_numpy(object)
     out = np.where(codes >= 0, up[np.clip(codes, 0, None)] if len(up) else None, None)
     return pd.Series(out, index=s.index, dtype=object).astype(s.dtype).where(codes >= 0, s)
+
+
+def _drop(df: pd.DataFrame, columns: Any) -> pd.DataFrame:
+    """Return *df* without *columns*, the other columns shared (no copy), so the dropped ones are freed."""
+    gone = set(columns)
+    return pd.DataFrame({c: df[c] for c in df.columns if c not in gone}, copy=False)
 
 
 def _path(programme: Programme, name: str) -> str:
@@ -1636,6 +1646,9 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
                                                       cfg.hours_worked, start, as_of)
     followups = _followups(programme, ag, decisions, as_of, cl)
     actions = _actions(ag, followups, baselines, start, as_of, cl)
+    data_findings = _findings(programme, ag, baselines, cfg.audiometry.min_quiet_hours, cl)
+    # the working columns no later step reads go now, before the population views
+    ag = _drop(ag, LATE_UNUSED)
     last = _last_per_year(ag)
     indicators = _indicators(ag, last)
     py = _per_person_year(ag, last)
@@ -1646,7 +1659,7 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
     age_norms = _age_norms(ag, as_of)
     noise_expected, n_notes = _noise_expected(ag, exposure, as_of)
     notes.extend(n_notes)
-    findings.extend(_findings(programme, ag, baselines, cfg.audiometry.min_quiet_hours, cl))
+    findings.extend(data_findings)
     if ag.empty:
         notes.append("No audiograms (data/audiograms.csv): there are no shifts or recordable cases to show.")
 
@@ -1673,7 +1686,7 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
     sts_people = frozenset(ag.loc[ag["sts"] & (ag["date"] <= as_of), "person_id"].astype(str))
     # the published frame: the columns later stages, pages and exports read, without a copy;
     # the working columns (keys, positions, dates of follow-ups) go with the working frame
-    ag = pd.DataFrame({c: ag[c] for c in ag.columns if c not in WORK_COLUMNS}, copy=False)
+    ag = _drop(ag, WORK_COLUMNS)
     log.info("hearing: %d audiogram rows, %d recordable cases", len(ag), len(cases))
     return HearingResult(audiograms=ag, baselines=baselines, baseline_history=events, cases=cases,
                          incidence=incidence, followups=followups, population=population, period_groups=period_groups,
