@@ -1011,7 +1011,9 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
     is_pers = (ckey >= 0) & pers_keys[np.clip(ckey, 0, None)] if len(pers_keys) else np.zeros(len(cur), dtype=bool)
     is_impr = np.isin(ckey, impr.index.to_numpy())
     key = pd.Series(ckey, index=cur.index)
-    cur["candidate"] = np.where(is_pers, "persistent shift", np.where(is_impr, "improvement", ""))
+    # 0 none, 1 improvement, 2 persistent shift: each text made once and shared by its rows
+    cand = np.where(is_pers, 2, is_impr.astype(np.int64))
+    cur["candidate"] = _words(cand, ["", "improvement", "persistent shift"]).to_numpy()
     def at(dates: pd.Series) -> pd.Series:
         if dates.empty:
             return pd.Series(pd.NaT, index=key.index, dtype="datetime64[ns]")
@@ -1020,12 +1022,11 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
     pers_date = at(latest_shift)
     impr_date = at(impr)
     cur["candidate_date"] = pers_date.where(is_pers, impr_date.where(is_impr))
-    cur["candidate_detail"] = np.where(
-        is_pers, "shift in force on more than one test against this baseline: the reviewer may revise the "
-                 f"baseline ({cl['baseline_revision']})",
-        np.where(is_impr, f"2000/3000/4000 Hz average {SETTINGS['improvement_db']:g} dB or more better than "
-                          f"baseline on two tests in a row: the reviewer may revise the baseline ({cl['baseline_revision']})",
-                 ""))
+    cur["candidate_detail"] = _words(cand, [
+        "", f"2000/3000/4000 Hz average {SETTINGS['improvement_db']:g} dB or more better than "
+            f"baseline on two tests in a row: the reviewer may revise the baseline ({cl['baseline_revision']})",
+        "shift in force on more than one test against this baseline: the reviewer may revise the "
+        f"baseline ({cl['baseline_revision']})"]).to_numpy()
     return cur[cols].sort_values(["person_id", "ear"], kind="mergesort").reset_index(drop=True)
 
 
