@@ -713,24 +713,36 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     # force at the PREVIOUS test of the ear: a retest (or the next test) is judged against the
     # flagged test's baseline, also when a revision naming the flagged test changed the
     # baseline between them (1910.95(g)(9))
-    diffs = np.empty((n, len(STS_FREQS)))
-    pdiffs = np.empty((n, len(STS_FREQS)))
-    for j, f in enumerate(STS_FREQS):
-        hl = ag[f"hl_{f}"].to_numpy(float)
-        base = _base(ag, f"hl_{f}")
-        diffs[:, j] = hl - base
-        pdiffs[:, j] = hl - _prv(base, sp, np.nan)
-    shift = diffs.mean(axis=1)
-    ag["shift_234"] = shift
-    # sex is a person's: coded once per person; the App. F table is indexed once per row for
-    # the test age and once for the baseline age
+    # sex is a person's: coded once per person; the App. F table row of each test age and of
+    # each baseline age is found once, then read one frequency at a time
     pid = ag["_pid"].to_numpy(np.int64)
     male, female = norms._sex_codes(ag["sex"].to_numpy(object)[_person_rows(ag)])
     sex = (male[pid], female[pid]) if n else (np.zeros(0, dtype=bool), np.zeros(0, dtype=bool))
-    age_c = _appf(ag["age"].to_numpy(float), sex)
-    base_c = _appf(ag["base_age"].to_numpy(float), sex)
-    shift_c = (diffs - (age_c - base_c)).mean(axis=1)
-    del diffs
+    table, at_age = _appf_rows(ag["age"].to_numpy(float), sex)
+    _, at_base = _appf_rows(ag["base_age"].to_numpy(float), sex)
+    # the means of three values are summed in frequency order and divided by three, as
+    # ndarray.mean(axis=1) does, one frequency at a time (no n x 3 arrays)
+    shift = shift_c = praw = pcor = np.zeros(n)
+    for j, f in enumerate(STS_FREQS):
+        hl = ag[f"hl_{f}"].to_numpy(float)
+        base = _base(ag, f"hl_{f}")
+        age_c = table[at_age, j]
+        base_c = table[at_base, j]
+        d = hl - base
+        pd_ = hl - _prv(base, sp, np.nan)
+        # the previous row is the same person (same sex): its baseline's correction
+        pbase_c = _prv(base_c, sp, np.nan)
+        first = j == 0
+        shift = d if first else shift + d
+        shift_c = d - (age_c - base_c) if first else shift_c + (d - (age_c - base_c))
+        praw = pd_ if first else praw + pd_
+        pcor = pd_ - (age_c - pbase_c) if first else pcor + (pd_ - (age_c - pbase_c))
+    k3 = float(len(STS_FREQS))
+    shift = shift / k3
+    shift_c = shift_c / k3
+    praw = praw / k3
+    pcor = pcor / k3
+    ag["shift_234"] = shift
     ag["shift_234_age_corrected"] = shift_c
     known = np.isfinite(shift) & has_base
     known_c = np.isfinite(shift_c) & has_base
@@ -748,13 +760,6 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
         ag["sts_basis"] = _words(known.astype(np.int64), ["", "not age corrected"])
         ag["shift_driving"] = shift
     ag["sts_computed"] = drive
-    # the previous row is the same person (same sex): its baseline's correction, shifted down
-    pbase_c = np.where(sp[:, None], np.vstack([np.full((1, len(STS_FREQS)), np.nan), base_c[:-1]]), np.nan) \
-        if n else base_c
-    del base_c
-    praw = pdiffs.mean(axis=1)
-    pcor = (pdiffs - (age_c - pbase_c)).mean(axis=1)
-    del pdiffs, pbase_c, age_c
     raw_p = _ge(praw, SETTINGS["sts_db"])
     cor_p = _ge(pcor, SETTINGS["sts_db"])
     kraw = np.isfinite(praw) & prev_has
@@ -785,6 +790,12 @@ def _appf(age: np.ndarray, sex: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
     once for all three frequencies: one take from the male rows, the female rows and a row
     of NaN (sex or age unknown).
     """
+    table, at = _appf_rows(age, sex)
+    return table[at]
+
+
+def _appf_rows(age: np.ndarray, sex: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+    """Return the App. F table at 2000, 3000 and 4000 Hz (male rows, female rows, a row of NaN) and each row's place in it."""
     cols = [norms.APPF_FREQS.index(f) for f in STS_FREQS]
     male, female = sex  # masks from norms._sex_codes
     m = norms._APPF_MALE[:, cols].astype(float)
@@ -792,7 +803,7 @@ def _appf(age: np.ndarray, sex: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
     a_ok = np.isfinite(age)
     row = (np.clip(np.floor(np.where(a_ok, age, 20.0)), 20, 60) - 20).astype(np.int64)
     at = np.where(a_ok & male, row, np.where(a_ok & female, len(m) + row, 2 * len(m)))
-    return table[at]
+    return table, at
 
 
 def _freq_list(mask: np.ndarray, freqs: tuple[int, ...]) -> pd.Series:
@@ -1286,13 +1297,7 @@ def _indicators(ag: pd.DataFrame, last: np.ndarray) -> pd.DataFrame:
         return pd.DataFrame(columns=cols)
     k = ag["_pid"].to_numpy(np.int64)[last] * 10000 + ag["year"].to_numpy(np.int64)[last]
     kcode, uk = pd.factorize(k, sort=True)
-    vals = np.full((len(uk), 2 * len(hl)), np.nan)
     right = (_ear_key(ag)[last] & 1).astype(bool)
-    for j, r in enumerate((False, True)):  # left ear, then right ear
-        sel = right == r
-        at = kcode[sel]
-        for i, c in enumerate(hl):
-            vals[at, j * len(hl) + i] = ag[c].to_numpy(float)[last[sel]]
     firsts = _person_rows(ag)  # person code -> first row of that person
     pids = uk // 10000
     years = uk % 10000
@@ -1301,20 +1306,27 @@ def _indicators(ag: pd.DataFrame, last: np.ndarray) -> pd.DataFrame:
     pair = np.flatnonzero(same)
     if not len(pair):
         return pd.DataFrame(columns=cols)
-    # the change from the previous year, on the pair rows only
-    diff = vals[pair]
-    diff -= vals[pair - 1]
-    del vals
-    complete = np.isfinite(diff).all(axis=1)
     lim = SETTINGS["indicator_db"]
-    # judged only on the complete sequential pairs (the only rows counted below)
-    rounded = diff[complete]
-    del diff
-    np.round(rounded, 6, out=rounded)
-    worse = np.zeros(len(pair), dtype=bool)
-    bw = np.zeros(len(pair), dtype=bool)
-    worse[complete] = (rounded >= lim).any(axis=1)
-    bw[complete] = (np.abs(rounded, out=rounded) >= lim).any(axis=1)
+    # one ear and frequency at a time: the change from the previous year on the pair rows,
+    # judged only where every ear and frequency of the pair is known (the rows counted below)
+    complete = np.ones(len(pair), dtype=bool)
+    any_worse = np.zeros(len(pair), dtype=bool)
+    any_bw = np.zeros(len(pair), dtype=bool)
+    vals = np.empty(len(uk))
+    for r in (False, True):  # left ear, then right ear
+        sel = right == r
+        at = kcode[sel]
+        for c in hl:
+            vals.fill(np.nan)
+            vals[at] = ag[c].to_numpy(float)[last[sel]]
+            d = vals[pair] - vals[pair - 1]
+            complete &= np.isfinite(d)
+            np.round(d, 6, out=d)
+            any_worse |= d >= lim
+            any_bw |= np.abs(d, out=d) >= lim
+    del vals
+    worse = complete & any_worse
+    bw = complete & any_bw
     # one group per person (people.csv), as an integer code in the order of the group text
     gcode, glabel = pd.factorize(pd.Series(ag["group"].to_numpy(object)[firsts], dtype=object).fillna(""),
                                  sort=True)
