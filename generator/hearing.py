@@ -214,6 +214,16 @@ def _words(codes: np.ndarray, words: Any) -> pd.Series:
     return pd.Series(np.asarray(words, dtype=object)).take(np.asarray(codes, dtype=np.int64)).reset_index(drop=True)
 
 
+def _enum(codes: np.ndarray, words: Any) -> pd.Series:
+    """Return words[codes] as a categorical column (one byte a row; categories in text order).
+
+    For the status enumerations of the per-ear frame; its text is the same as _words'.
+    """
+    cats, inv = np.unique(np.asarray(list(words), dtype=object).astype(str), return_inverse=True)
+    c = inv.reshape(-1)[np.asarray(codes, dtype=np.int64)] if len(cats) else np.asarray(codes, dtype=np.int64)
+    return pd.Series(pd.Categorical.from_codes(c, categories=pd.Index(cats, dtype=object)))
+
+
 def _ge(x: pd.Series | np.ndarray, limit: float) -> np.ndarray:
     """Return x >= limit with float noise removed (averages of whole dB values)."""
     return np.round(np.asarray(x, dtype=float), 6) >= limit
@@ -678,9 +688,9 @@ def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
                                              np.datetime64("NaT", "ns")), dtype="datetime64[ns]")
     if m:
         scode, sword = pd.factorize(src)
-        ag["baseline_source"] = _words(np.where(has, scode[ev_i] + 1, 0), [""] + list(sword))
+        ag["baseline_source"] = _enum(np.where(has, scode[ev_i] + 1, 0), [""] + list(sword))
     else:
-        ag["baseline_source"] = ""
+        ag["baseline_source"] = _enum(np.zeros(n, dtype=np.int64), [""])
     # the baseline audiogram's row: its thresholds are read by position when needed (_base)
     ag["_bpos"] = np.where(has, ev_pos[ev_i] if m else -1, -1).astype(np.int64)
     ag["base_age"] = _base(ag, "age")
@@ -752,12 +762,12 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     ag["osha_sts_age_corrected"] = _nbool(cor, known_c)
     if age_correction:
         drive = _nbool(np.where(known_c, cor, raw), known_c | known)
-        ag["sts_basis"] = _words(np.where(known_c, 2, known.astype(np.int64)),
+        ag["sts_basis"] = _enum(np.where(known_c, 2, known.astype(np.int64)),
                                  ["", "not age corrected (sex or age unknown)", "age corrected"])
         ag["shift_driving"] = np.where(np.isnan(shift_c), shift, shift_c)
     else:
         drive = _nbool(raw, known)
-        ag["sts_basis"] = _words(known.astype(np.int64), ["", "not age corrected"])
+        ag["sts_basis"] = _enum(known.astype(np.int64), ["", "not age corrected"])
         ag["shift_driving"] = shift
     ag["sts_computed"] = drive
     raw_p = _ge(praw, SETTINGS["sts_db"])
@@ -815,7 +825,7 @@ def _freq_list(mask: np.ndarray, freqs: tuple[int, ...]) -> pd.Series:
     for j in range(len(freqs)):
         code |= mask[:, j].astype(np.int64) << j
     words = [", ".join(str(f) for j, f in enumerate(freqs) if c >> j & 1) for c in range(1 << len(freqs))]
-    return _words(code, words)
+    return _enum(code, words)
 
 
 def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
@@ -837,7 +847,7 @@ def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
     is_retest = prev_sts & ((ag["date"] - prev_date) <= window).to_numpy()
     determination = sts & ~is_retest
     has_retest = ((next_date - ag["date"]) <= window).to_numpy()
-    status = _words(np.where(~determination, 0, np.where(~has_retest | ~next_known, 1, np.where(next_sts, 2, 3))),
+    status = _enum(np.where(~determination, 0, np.where(~has_retest | ~next_known, 1, np.where(next_sts, 2, 3))),
                     RETEST_WORDS)
     ag["is_retest_of_shift"] = is_retest
     ag["determination"] = determination
@@ -858,7 +868,7 @@ def _apply_reviews(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
     shift_decision = np.zeros(n, dtype=np.int8)  # 1 confirm_shift, 2 cancel_shift (the later decision)
     not_work_related = np.zeros(n, dtype=bool)
     if decisions.empty:
-        ag["review_decision"] = _words(np.zeros(n, dtype=np.int64), [""])
+        ag["review_decision"] = _enum(np.zeros(n, dtype=np.int64), [""])
         ag["_shift_decision"] = shift_decision
         ag["not_work_related"] = not_work_related
         return ag
@@ -874,7 +884,7 @@ def _apply_reviews(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
     codes = np.zeros(n, dtype=np.int64)
     inv, words = pd.factorize(text[named], use_na_sentinel=False)
     codes[named] = inv + 1
-    ag["review_decision"] = _words(codes, [""] + list(words))
+    ag["review_decision"] = _enum(codes, [""] + list(words))
     d = decisions.copy()
     d["det"] = ag["det_idx"].to_numpy()[d["idx"].to_numpy()]
     sd = d[d["decision"].isin(["confirm_shift", "cancel_shift"])].drop_duplicates("det", keep="last")
@@ -905,7 +915,7 @@ def _status_and_cases(ag: pd.DataFrame) -> pd.DataFrame:
         [cancelled_by_reviewer, confirmed_by_reviewer & nwr, confirmed_by_reviewer, active & nwr,
          det & r_cancelled, active & r_confirmed, active, nr_pending],
         [1, 2, 3, 2, 4, 5, 6, 7], default=0)
-    ag["shift_status"] = _words(status, words)
+    ag["shift_status"] = _enum(status, words)
     crit = active & ~nwr & _ge(ag["avg_234"], SETTINGS["recordable_db"])
     ag["recordable_criteria"] = crit
     first = pd.Series(crit).groupby([_ear_key(ag), ag["baseline_date"].to_numpy().view(np.int64)],
