@@ -126,6 +126,10 @@ WORK_COLUMNS = frozenset({
     "quiet_hours", "audiometer_id", "_row", "hire_date", "nr_234", "_pid", "_key", "_drank", "_same_prev",
     "_same_next", "valid_234", "_bpos", "shift_driving", "_sts_vs_prev_base", "retest_date", "next_date",
     "det_idx", "_shift_decision", "determined_on", "check_reason"})
+#: working columns no step reads after the follow-ups, actions and findings (dropped then)
+LATE_UNUSED = ("quiet_hours", "audiometer_id", "_row", "check_reason", "_same_prev", "_same_next", "valid_234",
+               "shift_driving", "_sts_vs_prev_base", "retest_date", "next_date", "det_idx", "_shift_decision",
+               "determined_on")
 #: retest_status of an audiogram: not a determination, then a determination's retest outcome
 RETEST_WORDS = ("", "no retest", "confirmed", "cancelled")
 #: follow-up status of a retest or refit that fell due after the person left employment
@@ -210,6 +214,16 @@ def _words(codes: np.ndarray, words: Any) -> pd.Series:
     return pd.Series(np.asarray(words, dtype=object)).take(np.asarray(codes, dtype=np.int64)).reset_index(drop=True)
 
 
+def _enum(codes: np.ndarray, words: Any) -> pd.Series:
+    """Return words[codes] as a categorical column (one byte a row; categories in text order).
+
+    For the status enumerations of the per-ear frame; its text is the same as _words'.
+    """
+    cats, inv = np.unique(np.asarray(list(words), dtype=object).astype(str), return_inverse=True)
+    c = inv.reshape(-1)[np.asarray(codes, dtype=np.int64)] if len(cats) else np.asarray(codes, dtype=np.int64)
+    return pd.Series(pd.Categorical.from_codes(c, categories=pd.Index(cats, dtype=object)))
+
+
 def _ge(x: pd.Series | np.ndarray, limit: float) -> np.ndarray:
     """Return x >= limit with float noise removed (averages of whole dB values)."""
     return np.round(np.asarray(x, dtype=float), 6) >= limit
@@ -243,6 +257,12 @@ def _upper(s: pd.Series) -> pd.Series:
     up = pd.Series(uniques, dtype=s.dtype).str.upper().to_numpy(object)
     out = np.where(codes >= 0, up[np.clip(codes, 0, None)] if len(up) else None, None)
     return pd.Series(out, index=s.index, dtype=object).astype(s.dtype).where(codes >= 0, s)
+
+
+def _drop(df: pd.DataFrame, columns: Any) -> pd.DataFrame:
+    """Return *df* without *columns*, the other columns shared (no copy), so the dropped ones are freed."""
+    gone = set(columns)
+    return pd.DataFrame({c: df[c] for c in df.columns if c not in gone}, copy=False)
 
 
 def _path(programme: Programme, name: str) -> str:
@@ -668,9 +688,9 @@ def _attach_baseline(ag: pd.DataFrame, events: pd.DataFrame) -> pd.DataFrame:
                                              np.datetime64("NaT", "ns")), dtype="datetime64[ns]")
     if m:
         scode, sword = pd.factorize(src)
-        ag["baseline_source"] = _words(np.where(has, scode[ev_i] + 1, 0), [""] + list(sword))
+        ag["baseline_source"] = _enum(np.where(has, scode[ev_i] + 1, 0), [""] + list(sword))
     else:
-        ag["baseline_source"] = ""
+        ag["baseline_source"] = _enum(np.zeros(n, dtype=np.int64), [""])
     # the baseline audiogram's row: its thresholds are read by position when needed (_base)
     ag["_bpos"] = np.where(has, ev_pos[ev_i] if m else -1, -1).astype(np.int64)
     ag["base_age"] = _base(ag, "age")
@@ -703,24 +723,36 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     # force at the PREVIOUS test of the ear: a retest (or the next test) is judged against the
     # flagged test's baseline, also when a revision naming the flagged test changed the
     # baseline between them (1910.95(g)(9))
-    diffs = np.empty((n, len(STS_FREQS)))
-    pdiffs = np.empty((n, len(STS_FREQS)))
-    for j, f in enumerate(STS_FREQS):
-        hl = ag[f"hl_{f}"].to_numpy(float)
-        base = _base(ag, f"hl_{f}")
-        diffs[:, j] = hl - base
-        pdiffs[:, j] = hl - _prv(base, sp, np.nan)
-    shift = diffs.mean(axis=1)
-    ag["shift_234"] = shift
-    # sex is a person's: coded once per person; the App. F table is indexed once per row for
-    # the test age and once for the baseline age
+    # sex is a person's: coded once per person; the App. F table row of each test age and of
+    # each baseline age is found once, then read one frequency at a time
     pid = ag["_pid"].to_numpy(np.int64)
     male, female = norms._sex_codes(ag["sex"].to_numpy(object)[_person_rows(ag)])
     sex = (male[pid], female[pid]) if n else (np.zeros(0, dtype=bool), np.zeros(0, dtype=bool))
-    age_c = _appf(ag["age"].to_numpy(float), sex)
-    base_c = _appf(ag["base_age"].to_numpy(float), sex)
-    shift_c = (diffs - (age_c - base_c)).mean(axis=1)
-    del diffs
+    table, at_age = _appf_rows(ag["age"].to_numpy(float), sex)
+    _, at_base = _appf_rows(ag["base_age"].to_numpy(float), sex)
+    # the means of three values are summed in frequency order and divided by three, as
+    # ndarray.mean(axis=1) does, one frequency at a time (no n x 3 arrays)
+    shift = shift_c = praw = pcor = np.zeros(n)
+    for j, f in enumerate(STS_FREQS):
+        hl = ag[f"hl_{f}"].to_numpy(float)
+        base = _base(ag, f"hl_{f}")
+        age_c = table[at_age, j]
+        base_c = table[at_base, j]
+        d = hl - base
+        pd_ = hl - _prv(base, sp, np.nan)
+        # the previous row is the same person (same sex): its baseline's correction
+        pbase_c = _prv(base_c, sp, np.nan)
+        first = j == 0
+        shift = d if first else shift + d
+        shift_c = d - (age_c - base_c) if first else shift_c + (d - (age_c - base_c))
+        praw = pd_ if first else praw + pd_
+        pcor = pd_ - (age_c - pbase_c) if first else pcor + (pd_ - (age_c - pbase_c))
+    k3 = float(len(STS_FREQS))
+    shift = shift / k3
+    shift_c = shift_c / k3
+    praw = praw / k3
+    pcor = pcor / k3
+    ag["shift_234"] = shift
     ag["shift_234_age_corrected"] = shift_c
     known = np.isfinite(shift) & has_base
     known_c = np.isfinite(shift_c) & has_base
@@ -730,21 +762,14 @@ def _shifts(ag: pd.DataFrame, age_correction: bool) -> pd.DataFrame:
     ag["osha_sts_age_corrected"] = _nbool(cor, known_c)
     if age_correction:
         drive = _nbool(np.where(known_c, cor, raw), known_c | known)
-        ag["sts_basis"] = _words(np.where(known_c, 2, known.astype(np.int64)),
+        ag["sts_basis"] = _enum(np.where(known_c, 2, known.astype(np.int64)),
                                  ["", "not age corrected (sex or age unknown)", "age corrected"])
         ag["shift_driving"] = np.where(np.isnan(shift_c), shift, shift_c)
     else:
         drive = _nbool(raw, known)
-        ag["sts_basis"] = _words(known.astype(np.int64), ["", "not age corrected"])
+        ag["sts_basis"] = _enum(known.astype(np.int64), ["", "not age corrected"])
         ag["shift_driving"] = shift
     ag["sts_computed"] = drive
-    # the previous row is the same person (same sex): its baseline's correction, shifted down
-    pbase_c = np.where(sp[:, None], np.vstack([np.full((1, len(STS_FREQS)), np.nan), base_c[:-1]]), np.nan) \
-        if n else base_c
-    del base_c
-    praw = pdiffs.mean(axis=1)
-    pcor = (pdiffs - (age_c - pbase_c)).mean(axis=1)
-    del pdiffs, pbase_c, age_c
     raw_p = _ge(praw, SETTINGS["sts_db"])
     cor_p = _ge(pcor, SETTINGS["sts_db"])
     kraw = np.isfinite(praw) & prev_has
@@ -775,6 +800,12 @@ def _appf(age: np.ndarray, sex: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
     once for all three frequencies: one take from the male rows, the female rows and a row
     of NaN (sex or age unknown).
     """
+    table, at = _appf_rows(age, sex)
+    return table[at]
+
+
+def _appf_rows(age: np.ndarray, sex: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+    """Return the App. F table at 2000, 3000 and 4000 Hz (male rows, female rows, a row of NaN) and each row's place in it."""
     cols = [norms.APPF_FREQS.index(f) for f in STS_FREQS]
     male, female = sex  # masks from norms._sex_codes
     m = norms._APPF_MALE[:, cols].astype(float)
@@ -782,7 +813,7 @@ def _appf(age: np.ndarray, sex: tuple[np.ndarray, np.ndarray]) -> np.ndarray:
     a_ok = np.isfinite(age)
     row = (np.clip(np.floor(np.where(a_ok, age, 20.0)), 20, 60) - 20).astype(np.int64)
     at = np.where(a_ok & male, row, np.where(a_ok & female, len(m) + row, 2 * len(m)))
-    return table[at]
+    return table, at
 
 
 def _freq_list(mask: np.ndarray, freqs: tuple[int, ...]) -> pd.Series:
@@ -794,7 +825,7 @@ def _freq_list(mask: np.ndarray, freqs: tuple[int, ...]) -> pd.Series:
     for j in range(len(freqs)):
         code |= mask[:, j].astype(np.int64) << j
     words = [", ".join(str(f) for j, f in enumerate(freqs) if c >> j & 1) for c in range(1 << len(freqs))]
-    return _words(code, words)
+    return _enum(code, words)
 
 
 def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
@@ -816,7 +847,7 @@ def _retests(ag: pd.DataFrame, retest_days: int) -> pd.DataFrame:
     is_retest = prev_sts & ((ag["date"] - prev_date) <= window).to_numpy()
     determination = sts & ~is_retest
     has_retest = ((next_date - ag["date"]) <= window).to_numpy()
-    status = _words(np.where(~determination, 0, np.where(~has_retest | ~next_known, 1, np.where(next_sts, 2, 3))),
+    status = _enum(np.where(~determination, 0, np.where(~has_retest | ~next_known, 1, np.where(next_sts, 2, 3))),
                     RETEST_WORDS)
     ag["is_retest_of_shift"] = is_retest
     ag["determination"] = determination
@@ -837,7 +868,7 @@ def _apply_reviews(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
     shift_decision = np.zeros(n, dtype=np.int8)  # 1 confirm_shift, 2 cancel_shift (the later decision)
     not_work_related = np.zeros(n, dtype=bool)
     if decisions.empty:
-        ag["review_decision"] = _words(np.zeros(n, dtype=np.int64), [""])
+        ag["review_decision"] = _enum(np.zeros(n, dtype=np.int64), [""])
         ag["_shift_decision"] = shift_decision
         ag["not_work_related"] = not_work_related
         return ag
@@ -853,7 +884,7 @@ def _apply_reviews(ag: pd.DataFrame, decisions: pd.DataFrame) -> pd.DataFrame:
     codes = np.zeros(n, dtype=np.int64)
     inv, words = pd.factorize(text[named], use_na_sentinel=False)
     codes[named] = inv + 1
-    ag["review_decision"] = _words(codes, [""] + list(words))
+    ag["review_decision"] = _enum(codes, [""] + list(words))
     d = decisions.copy()
     d["det"] = ag["det_idx"].to_numpy()[d["idx"].to_numpy()]
     sd = d[d["decision"].isin(["confirm_shift", "cancel_shift"])].drop_duplicates("det", keep="last")
@@ -884,7 +915,7 @@ def _status_and_cases(ag: pd.DataFrame) -> pd.DataFrame:
         [cancelled_by_reviewer, confirmed_by_reviewer & nwr, confirmed_by_reviewer, active & nwr,
          det & r_cancelled, active & r_confirmed, active, nr_pending],
         [1, 2, 3, 2, 4, 5, 6, 7], default=0)
-    ag["shift_status"] = _words(status, words)
+    ag["shift_status"] = _enum(status, words)
     crit = active & ~nwr & _ge(ag["avg_234"], SETTINGS["recordable_db"])
     ag["recordable_criteria"] = crit
     first = pd.Series(crit).groupby([_ear_key(ag), ag["baseline_date"].to_numpy().view(np.int64)],
@@ -1001,7 +1032,9 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
     is_pers = (ckey >= 0) & pers_keys[np.clip(ckey, 0, None)] if len(pers_keys) else np.zeros(len(cur), dtype=bool)
     is_impr = np.isin(ckey, impr.index.to_numpy())
     key = pd.Series(ckey, index=cur.index)
-    cur["candidate"] = np.where(is_pers, "persistent shift", np.where(is_impr, "improvement", ""))
+    # 0 none, 1 improvement, 2 persistent shift: each text made once and shared by its rows
+    cand = np.where(is_pers, 2, is_impr.astype(np.int64))
+    cur["candidate"] = _words(cand, ["", "improvement", "persistent shift"]).to_numpy()
     def at(dates: pd.Series) -> pd.Series:
         if dates.empty:
             return pd.Series(pd.NaT, index=key.index, dtype="datetime64[ns]")
@@ -1010,12 +1043,11 @@ def _baselines(ag: pd.DataFrame, events: pd.DataFrame, min_quiet: float, cl: dic
     pers_date = at(latest_shift)
     impr_date = at(impr)
     cur["candidate_date"] = pers_date.where(is_pers, impr_date.where(is_impr))
-    cur["candidate_detail"] = np.where(
-        is_pers, "shift in force on more than one test against this baseline: the reviewer may revise the "
-                 f"baseline ({cl['baseline_revision']})",
-        np.where(is_impr, f"2000/3000/4000 Hz average {SETTINGS['improvement_db']:g} dB or more better than "
-                          f"baseline on two tests in a row: the reviewer may revise the baseline ({cl['baseline_revision']})",
-                 ""))
+    cur["candidate_detail"] = _words(cand, [
+        "", f"2000/3000/4000 Hz average {SETTINGS['improvement_db']:g} dB or more better than "
+            f"baseline on two tests in a row: the reviewer may revise the baseline ({cl['baseline_revision']})",
+        "shift in force on more than one test against this baseline: the reviewer may revise the "
+        f"baseline ({cl['baseline_revision']})"]).to_numpy()
     return cur[cols].sort_values(["person_id", "ear"], kind="mergesort").reset_index(drop=True)
 
 
@@ -1275,13 +1307,7 @@ def _indicators(ag: pd.DataFrame, last: np.ndarray) -> pd.DataFrame:
         return pd.DataFrame(columns=cols)
     k = ag["_pid"].to_numpy(np.int64)[last] * 10000 + ag["year"].to_numpy(np.int64)[last]
     kcode, uk = pd.factorize(k, sort=True)
-    vals = np.full((len(uk), 2 * len(hl)), np.nan)
     right = (_ear_key(ag)[last] & 1).astype(bool)
-    for j, r in enumerate((False, True)):  # left ear, then right ear
-        sel = right == r
-        at = kcode[sel]
-        for i, c in enumerate(hl):
-            vals[at, j * len(hl) + i] = ag[c].to_numpy(float)[last[sel]]
     firsts = _person_rows(ag)  # person code -> first row of that person
     pids = uk // 10000
     years = uk % 10000
@@ -1290,20 +1316,27 @@ def _indicators(ag: pd.DataFrame, last: np.ndarray) -> pd.DataFrame:
     pair = np.flatnonzero(same)
     if not len(pair):
         return pd.DataFrame(columns=cols)
-    # the change from the previous year, on the pair rows only
-    diff = vals[pair]
-    diff -= vals[pair - 1]
-    del vals
-    complete = np.isfinite(diff).all(axis=1)
     lim = SETTINGS["indicator_db"]
-    # judged only on the complete sequential pairs (the only rows counted below)
-    rounded = diff[complete]
-    del diff
-    np.round(rounded, 6, out=rounded)
-    worse = np.zeros(len(pair), dtype=bool)
-    bw = np.zeros(len(pair), dtype=bool)
-    worse[complete] = (rounded >= lim).any(axis=1)
-    bw[complete] = (np.abs(rounded, out=rounded) >= lim).any(axis=1)
+    # one ear and frequency at a time: the change from the previous year on the pair rows,
+    # judged only where every ear and frequency of the pair is known (the rows counted below)
+    complete = np.ones(len(pair), dtype=bool)
+    any_worse = np.zeros(len(pair), dtype=bool)
+    any_bw = np.zeros(len(pair), dtype=bool)
+    vals = np.empty(len(uk))
+    for r in (False, True):  # left ear, then right ear
+        sel = right == r
+        at = kcode[sel]
+        for c in hl:
+            vals.fill(np.nan)
+            vals[at] = ag[c].to_numpy(float)[last[sel]]
+            d = vals[pair] - vals[pair - 1]
+            complete &= np.isfinite(d)
+            np.round(d, 6, out=d)
+            any_worse |= d >= lim
+            any_bw |= np.abs(d, out=d) >= lim
+    del vals
+    worse = complete & any_worse
+    bw = complete & any_bw
     # one group per person (people.csv), as an integer code in the order of the group text
     gcode, glabel = pd.factorize(pd.Series(ag["group"].to_numpy(object)[firsts], dtype=object).fillna(""),
                                  sort=True)
@@ -1636,6 +1669,9 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
                                                       cfg.hours_worked, start, as_of)
     followups = _followups(programme, ag, decisions, as_of, cl)
     actions = _actions(ag, followups, baselines, start, as_of, cl)
+    data_findings = _findings(programme, ag, baselines, cfg.audiometry.min_quiet_hours, cl)
+    # the working columns no later step reads go now, before the population views
+    ag = _drop(ag, LATE_UNUSED)
     last = _last_per_year(ag)
     indicators = _indicators(ag, last)
     py = _per_person_year(ag, last)
@@ -1646,7 +1682,7 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
     age_norms = _age_norms(ag, as_of)
     noise_expected, n_notes = _noise_expected(ag, exposure, as_of)
     notes.extend(n_notes)
-    findings.extend(_findings(programme, ag, baselines, cfg.audiometry.min_quiet_hours, cl))
+    findings.extend(data_findings)
     if ag.empty:
         notes.append("No audiograms (data/audiograms.csv): there are no shifts or recordable cases to show.")
 
@@ -1673,7 +1709,7 @@ def compute(programme: Programme, *, exposure: ExposureResult | None = None,
     sts_people = frozenset(ag.loc[ag["sts"] & (ag["date"] <= as_of), "person_id"].astype(str))
     # the published frame: the columns later stages, pages and exports read, without a copy;
     # the working columns (keys, positions, dates of follow-ups) go with the working frame
-    ag = pd.DataFrame({c: ag[c] for c in ag.columns if c not in WORK_COLUMNS}, copy=False)
+    ag = _drop(ag, WORK_COLUMNS)
     log.info("hearing: %d audiogram rows, %d recordable cases", len(ag), len(cases))
     return HearingResult(audiograms=ag, baselines=baselines, baseline_history=events, cases=cases,
                          incidence=incidence, followups=followups, population=population, period_groups=period_groups,

@@ -41,6 +41,8 @@ def _check_attach(ag: pd.DataFrame, events: pd.DataFrame) -> None:
     for c in want.columns:
         # the baseline's thresholds are read by position from the row the baseline names
         g = got[c] if c in got.columns else pd.Series(hearing._base(got, c.removeprefix("base_")))
+        if isinstance(g.dtype, pd.CategoricalDtype):  # an enumeration held as a categorical: compare its text
+            g = g.astype(want[c].dtype)
         pd.testing.assert_series_equal(g.reset_index(drop=True), want[c].reset_index(drop=True),
                                        check_names=False, check_dtype=False, obj=c)
 

@@ -336,7 +336,8 @@ FOLLOWUPS_WHERE = ("the counts in the follow-up chart are complete; hcpsite expo
 
 def _rank(values: pd.Series, order: tuple[str, ...]) -> np.ndarray:
     """Return the position of each value in *order* (unknown values after the known ones)."""
-    return values.map({v: i for i, v in enumerate(order)}).fillna(len(order)).to_numpy()
+    # as text: a categorical column would map to categories and refuse the fill value
+    return values.astype(object).map({v: i for i, v in enumerate(order)}).fillna(len(order)).to_numpy()
 
 
 def shifts_table(a: pd.DataFrame, ctx: SiteContext) -> Table:
