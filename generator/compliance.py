@@ -367,7 +367,7 @@ def _plus_months(dates: pd.Series, months: float | None) -> pd.Series:
 
 
 #: most person x date rows evaluated at once (bounds the memory of many as-of dates)
-_CHUNK_ROWS = 2_000_000
+_CHUNK_ROWS = 500_000
 
 
 def person_status(inp: ComplianceInputs, as_of: pd.Timestamp, start: pd.Timestamp) -> pd.DataFrame:
