@@ -824,7 +824,10 @@ def test_status_at_every_year_end_in_one_pass() -> None:
     assert e1[2020]["first_audiogram"] == e1[2023]["first_audiogram"] == pd.Timestamp("2020-02-01")
 
 
-def test_one_pass_equals_one_date_at_a_time() -> None:
+@pytest.mark.parametrize("chunk", [None, 1, 7])  # person x date rows per pass: all at once, 1 and 2 dates a pass
+def test_one_pass_equals_one_date_at_a_time(chunk: int | None, monkeypatch: pytest.MonkeyPatch) -> None:
+    if chunk is not None:
+        monkeypatch.setattr(compliance, "_CHUNK_ROWS", chunk)
     people = [{"person_id": "E1", "group": "G1", "hire_date": "2020-01-01", "leave_date": "2023-09-30"},
               {"person_id": "E2", "group": "G1", "hire_date": "2022-06-01"},
               {"person_id": "E3", "group": "G1", "hire_date": "2019-06-01", "leave_date": "2021-03-01"}]
