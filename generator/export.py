@@ -444,25 +444,28 @@ def workbook_bytes(tables: dict[str, pd.DataFrame], ctx: SiteContext) -> bytes:
         widths = [max(WIDTH_MIN, min(WIDTH_MAX, max([len(col)] + [len(r[i]) for r in first[:1000]]) + 2))
                   for i, col in enumerate(header)]
         titles = iter(sheet_titles(name, max(1, -(-len(frame) // per_sheet))))
-        room = 0
+
+        def new_sheet() -> None:
+            ws = wb.create_sheet(title=next(titles))
+            ws.freeze_panes = "A2"
+            for col, width in zip(letters, widths):
+                ws.column_dimensions[col].width = width
+            ws.append(header)
+            bodies.append([])
+
+        new_sheet()  # every table has a sheet, a header-only one when it has no rows
+        room = per_sheet
         for rows in itertools.chain([first], chunks):
             at = 0
-            while at < len(rows) or room == 0:
+            while at < len(rows):
                 if room == 0:
-                    ws = wb.create_sheet(title=next(titles))
-                    ws.freeze_panes = "A2"
-                    for col, width in zip(letters, widths):
-                        ws.column_dimensions[col].width = width
-                    ws.append(header)
-                    bodies.append([])
+                    new_sheet()
                     room = per_sheet
                 taken = min(room, len(rows) - at)
-                bodies[-1].append(_sheet_rows(rows[at:at + taken], numeric, letters, 2 + per_sheet - room)
-                                  .encode("utf-8"))
+                body = _sheet_rows(rows[at:at + taken], numeric, letters, 2 + per_sheet - room)
+                bodies[-1].append(body.encode("utf-8"))
                 at += taken
                 room -= taken
-                if not rows:
-                    break
     stamp = workbook_stamp(ctx)
     wb.properties.creator = "hcpsite"
     wb.properties.created = stamp

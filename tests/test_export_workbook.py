@@ -87,6 +87,17 @@ def test_a_table_longer_than_a_sheet_continues_on_numbered_sheets(fixed_time, mo
     assert [r[0] for s in sheets for r in s[1:]] == frame["person_id"].tolist()
 
 
+@pytest.mark.parametrize("rows", [10, 20])  # exactly one and exactly two full sheets, chunks ending on the edge
+def test_a_table_filling_its_sheets_exactly_makes_no_empty_sheet(fixed_time, monkeypatch: pytest.MonkeyPatch,
+                                                                   rows: int) -> None:
+    monkeypatch.setattr(export, "CHUNK_ROWS", 5)
+    monkeypatch.setattr(export, "SHEET_MAX_ROWS", 11)  # header + 10 rows a sheet
+    frame = _frame(rows)
+    cells = _cells(export.workbook_bytes({"t.csv": frame}, fixed_time))
+    assert [len(s) - 1 for s in cells.values()] == [10] * (rows // 10)
+    assert [r[0] for s in cells.values() for r in s[1:]] == frame["person_id"].tolist()
+
+
 def test_the_sheet_limit_is_the_formats() -> None:
     assert export.SHEET_MAX_ROWS == 1_048_576
     assert all(len(t) <= 31 for t in export.sheet_titles("x" * 40, 12))
