@@ -8,7 +8,9 @@ then runs, each in its own subprocess so that time and peak memory are its own:
   build    hcpsite build DIR --out OUT
   build2x  hcpsite build DIR2X --out OUT2X
 
-and checks the targets: build <= 3 x floor (goal 2 x), time(2x) / time(1x) <= 2.0 (both on
+each timed step runs --repeat times (default 3), in rounds, and keeps its least CPU time;
+hcpsite's modules are compiled to bytecode first, as an installed package's are. It then
+checks the targets: build <= 3 x floor (goal 2 x), time(2x) / time(1x) <= 2.0 (both on
 CPU time, which other load on a shared machine does not inflate; wall times are printed
 too), peak RSS <= 1 GB at twice the people, every page <= 500 KB (assets/plotly.min.js
 excluded), and with ``--large 200000`` peak RSS <= 6 GiB building 200,000 people. Exit
@@ -83,6 +85,40 @@ def run_step(name: str, cmd: list[str], env: dict[str, str], log_path: Path) -> 
     return step
 
 
+def repeat_steps(runs: dict[str, list[str]], env: dict[str, str], work: Path,
+                 repeat: int) -> tuple[list[Step], dict[str, list[float]]]:
+    """Run every step of *runs* *repeat* times, in rounds (floor, check, build, ..., then again),
+    and keep for each the run with the least CPU time: a run is slowed, never sped up, by
+    other work on the machine. Return the kept steps and every run's CPU seconds."""
+    kept: dict[str, Step] = {}
+    codes: dict[str, set[int]] = {name: set() for name in runs}
+    cpu: dict[str, list[float]] = {name: [] for name in runs}
+    for _ in range(max(1, repeat)):
+        for name, cmd in runs.items():
+            step = run_step(name, cmd, env, work / f"{name}.log")
+            cpu[name].append(round(step.cpu_seconds, 3))
+            codes[name].add(step.exit_code)
+            if name not in kept or step.cpu_seconds < kept[name].cpu_seconds:
+                kept[name] = step
+    for name, step in kept.items():  # a run that failed is reported, whichever run was fastest
+        step.exit_code = max(codes[name], key=lambda c: (c not in (0, 1), c))
+    return [kept[name] for name in runs], cpu
+
+
+def compile_package(env: dict[str, str]) -> None:
+    """Compile hcpsite's modules to bytecode before timing, and let the timed steps use it.
+
+    pandas and numpy run from the bytecode pip wrote when it installed them; an installed
+    hcpsite does too. Where PYTHONDONTWRITEBYTECODE is set (as on some CI machines), an
+    editable checkout would otherwise compile every module of the tool on every run, and
+    the build, not the floor, would pay for it.
+    """
+    env.pop("PYTHONDONTWRITEBYTECODE", None)
+    package = Path(__file__).resolve().parent.parent / "generator"
+    subprocess.run([sys.executable, "-m", "compileall", "-q", str(package)], env=env, check=True,
+                   stdout=subprocess.DEVNULL)
+
+
 def folder_bytes(folder: Path) -> int:
     """Return the total size of the files under *folder*."""
     return sum(p.stat().st_size for p in folder.rglob("*") if p.is_file())
@@ -144,6 +180,8 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--json", type=Path, help="also write the results as JSON here")
     ap.add_argument("--profile", type=Path, help="after timing, profile the 1x build into this .prof file")
     ap.add_argument("--skip-2x", action="store_true", help="skip the run at twice the people")
+    ap.add_argument("--repeat", type=int, default=3,
+                    help="run each timed step this many times, in rounds, and keep its least CPU time (default 3)")
     ap.add_argument("--large", type=int, metavar="PEOPLE",
                     help="also build a programme of PEOPLE people (200000 for the target: peak RSS <= 6 GiB); "
                          "writing its data takes minutes and about 7 GB of memory")
@@ -154,6 +192,7 @@ def main(argv: list[str] | None = None) -> int:
     work.mkdir(parents=True, exist_ok=True)
     env = dict(os.environ, SOURCE_DATE_EPOCH="1767225600", HCPSITE_ID_KEY="bench-key")
     hcp = [sys.executable, "-m", "generator"]
+    compile_package(env)
     result: dict = {"people": args.people, "years": args.years, "seed": args.seed, "cpus": os.cpu_count()}
     try:
         prog, prog2 = work / "prog1x", work / "prog2x"
@@ -163,15 +202,17 @@ def main(argv: list[str] | None = None) -> int:
                 secs = write_data(folder, people, args.years, args.seed, env)
                 log.info("wrote %s (%d people, %d years) in %.1f s", folder.name, people, args.years, secs)
         result["inputs_1x"] = input_summary(prog)
-        steps = [
-            run_step("floor", [sys.executable, "-c", FLOOR_SCRIPT, str(prog / "data")], env, work / "floor.log"),
-            run_step("check", hcp + ["check", str(prog)], env, work / "check.log"),
-            run_step("build", hcp + ["build", str(prog), "--out", str(work / "site1x")], env, work / "build.log"),
-        ]
+        runs = {
+            "floor": [sys.executable, "-c", FLOOR_SCRIPT, str(prog / "data")],
+            "check": hcp + ["check", str(prog)],
+            "build": hcp + ["build", str(prog), "--out", str(work / "site1x")],
+        }
         if not args.skip_2x:
             result["inputs_2x"] = input_summary(prog2)
-            steps.append(run_step("build2x", hcp + ["build", str(prog2), "--out", str(work / "site2x")], env,
-                                  work / "build2x.log"))
+            runs["build2x"] = hcp + ["build", str(prog2), "--out", str(work / "site2x")]
+        steps, spread = repeat_steps(runs, env, work, args.repeat)
+        result["repeat"] = args.repeat
+        result["cpu_runs"] = spread
         if args.large:
             big = work / f"prog{args.large}"
             if not (big / "programme.yaml").is_file():
@@ -232,6 +273,8 @@ def main(argv: list[str] | None = None) -> int:
         for s in steps:
             print(f"| {s.name} | {s.seconds:.2f} | {s.cpu_seconds:.2f} | {s.cpu_seconds / floor_cpu:.2f} "
                   f"| {s.peak_rss_bytes / 2 ** 20:.0f} | {s.exit_code} |")
+        print(f"\n(least CPU time of {args.repeat} runs each; every run, in s: "
+              + "; ".join(f"{n} {', '.join(f'{c:.2f}' for c in cs)}" for n, cs in result["cpu_runs"].items()) + ")")
         print(f"\nsite: {result['site_pages']} pages, {result['site_bytes'] / 2 ** 20:.1f} MiB; largest files "
               f"(plotly.min.js excluded): " + ", ".join(f"{n} {b / 1024:.0f} KB" for n, b in result["largest"]))
         if oversized:

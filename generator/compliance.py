@@ -27,7 +27,7 @@ from . import audiometers
 from .audiometers import (  # noqa: F401  (re-exported for the pages and tests)
     ACOUSTIC_MONTHS, BOOTH_LIMITS, EXHAUSTIVE_MONTHS, FLAGGED_COLUMNS, STATUS_COLUMNS, AudiometerChecks,
     booth_judgement)
-from .frames import add_months, as_bool as _bool, as_dates as _as_dates, col as _col, dates as _dates, empty as _empty, lookup as _lookup, share as _share, table as _table, ts as _ts
+from .frames import add_months, as_bool as _bool, as_dates as _as_dates, col as _col, dates as _dates, empty as _empty, lookup as _lookup, person_codes, share as _share, table as _table, ts as _ts
 from .hearing import LEFT_STATUS
 from .model import Programme
 from .exposure import ExposureResult
@@ -245,7 +245,7 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
     dated = when.notna().to_numpy()
     # one row per person and test date; an "exit" kind on either ear marks the test as exit.
     # The rows are grouped on integer codes: person ids factorised in sorted order, and dates
-    who, person_ids = pd.factorize(_col(aud, "person_id", "").astype(str)[dated], sort=True)
+    who, person_ids = person_codes(programme, "audiograms", dated)
     kind = _col(aud, "kind", "periodic").astype(str)[dated]
     a = pd.DataFrame({"kind": kind.to_numpy(), "is_exit": kind.eq("exit").to_numpy()})
     a = a[who >= 0].groupby([who[who >= 0], when.to_numpy(dtype="datetime64[ns]")[dated][who >= 0]], sort=True) \

@@ -63,3 +63,16 @@ def share(num: float, den: float) -> float | None:
 
 def as_bool(s: pd.Series) -> pd.Series:
     return s.astype("boolean").fillna(False).astype(bool)
+
+
+def person_codes(programme: Programme, name: str, rows: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Return (code of each row, distinct person ids in sorted order) of table *name*'s person
+    ids, of the rows selected by *rows* (a mask) when given: ``pd.factorize(ids, sort=True)``,
+    read from the person key coded once at load (model.PersonIndex) instead of hashing text."""
+    df = table(programme, name)
+    persons = getattr(programme, "persons", None)
+    if persons is not None and len(persons.codes.get(name, ())) == len(df) and "person_id" in df.columns:
+        return persons.factorize(name, rows)
+    ids = col(df, "person_id", "").astype(str).to_numpy(dtype=object)
+    codes, uniques = pd.factorize(ids if rows is None else ids[rows], sort=True)
+    return np.asarray(codes, dtype=np.int64), np.asarray(uniques, dtype=object)

@@ -55,6 +55,7 @@ from .exposure import ExposureResult
 from .findings import WARNING, Finding
 from .inputs.spec import AUDIO_FREQS
 from .model import Programme
+from .frames import person_codes
 from .rules import RuleSet, load_rule_set
 
 log = logging.getLogger(__name__)
@@ -431,7 +432,7 @@ def _prepare(programme: Programme) -> pd.DataFrame:
     ids_all = _col(raw, "person_id", "").astype(str)
     # person ids become integers once (codes in sorted id order); every later step keys,
     # sorts and groups on them, never on the id text
-    codes, uniques = pd.factorize(ids_all.take(kept), sort=True)
+    codes, uniques = person_codes(programme, "audiograms", kept)
     pid = codes.astype(np.int64)
     right = side[kept] == 1
     t = date_all.to_numpy("datetime64[ns]")[kept]

@@ -3,7 +3,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import Mapping
 
+import numpy as np
 import pandas as pd
 
 from .config import Config
@@ -19,6 +21,42 @@ class NarrativePage:
     order: int
     markdown: str
     source: str  # path relative to the programme folder
+
+
+@dataclass(frozen=True)
+class PersonIndex:
+    """Every person id of the loaded tables, coded once: the integer key of the later stages.
+
+    ``ids`` holds the distinct ids (as text) in sorted order and ``codes[name]`` the position in
+    ``ids`` of each row's person_id in table *name* (-1 for a missing cell). A code sorts as its
+    id does, so the distinct codes of any rows, in order, are those rows' ids factorised in
+    sorted order.
+    """
+
+    ids: np.ndarray
+    codes: Mapping[str, np.ndarray]
+
+    @staticmethod
+    def of(tables: Mapping[str, pd.DataFrame]) -> "PersonIndex":
+        """Code the person_id column of every table that has one, in one pass."""
+        names = [n for n, df in tables.items() if "person_id" in df.columns]
+        cells = [tables[n]["person_id"].astype(str).to_numpy(dtype=object) for n in names]
+        joined = np.concatenate(cells) if cells else np.array([], dtype=object)
+        codes, ids = pd.factorize(joined, sort=True)
+        ends = np.cumsum([len(c) for c in cells]).tolist()
+        parts = np.split(np.asarray(codes, dtype=np.int64), ends[:-1]) if cells else []
+        return PersonIndex(np.asarray(ids, dtype=object), dict(zip(names, parts)))
+
+    def factorize(self, name: str, rows: np.ndarray | None = None) -> tuple[np.ndarray, np.ndarray]:
+        """Return (code of each row, distinct ids in sorted order) of table *name*'s person ids,
+        of the rows selected by *rows* (a mask or positions) when given: what
+        ``pd.factorize(ids, sort=True)`` returns, without hashing any text."""
+        c = self.codes[name] if rows is None else self.codes[name][rows]
+        seen = np.zeros(len(self.ids) + 1, dtype=bool)
+        seen[c + 1] = True
+        seen[0] = False  # (a missing cell keeps the code -1)
+        new = np.cumsum(seen) - 1
+        return new[c + 1].astype(np.int64), self.ids[seen[1:]]
 
 
 @dataclass
@@ -43,6 +81,15 @@ class Programme:
     #: templates/ override folder of the programme, if any
     template_dir: Path | None = None
     extra: dict = field(default_factory=dict)
+    #: every table's person ids coded once (built from the tables when not given)
+    person_index: PersonIndex | None = field(default=None, repr=False)
+
+    @property
+    def persons(self) -> PersonIndex:
+        """Return the integer person key of every table (PersonIndex)."""
+        if self.person_index is None:
+            self.person_index = PersonIndex.of(self.tables)
+        return self.person_index
 
     def table(self, name: str) -> pd.DataFrame:
         """Return the DataFrame of data file *name* (empty when the file is absent)."""

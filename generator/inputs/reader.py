@@ -32,7 +32,7 @@ from .. import clock
 from ..config import CONFIG_FILE, MAX_CONFIG_BYTES, Config, load_config
 from ..findings import ERROR, WARNING, Findings
 from ..inputfile import InputFileError, read_regular, size_text
-from ..model import NarrativePage, Programme
+from ..model import NarrativePage, PersonIndex, Programme
 from ..yamltext import YamlError, load_yaml
 from .dress import Dresser
 from .spec import FILES, GROUPS, NOISE_LOG, Column, FileSpec
@@ -1347,23 +1347,43 @@ class _Codes:
     value kept as a value of its own, so that key and reference checks compare integers.
     """
 
-    def __init__(self, tables: dict[str, pd.DataFrame]) -> None:
+    def __init__(self, tables: dict[str, pd.DataFrame], persons: PersonIndex | None = None) -> None:
         self.tables = tables
+        self.persons = persons
         self._done: dict[tuple[str, str], tuple[np.ndarray, pd.Series]] = {}
 
     def codes(self, table: str, column: str) -> tuple[np.ndarray, pd.Series]:
-        """Return (codes, distinct values as a Series of the column's dtype) of tables[table][column]."""
+        """Return (codes, distinct values as a Series of the column's dtype) of tables[table][column].
+
+        Person ids take their codes from *persons* (every table's ids coded together), whose
+        distinct values then hold the ids of every table."""
         got = self._done.get((table, column))
         if got is None:
             s = self.tables[table][column]
-            codes, uniques = pd.factorize(s, use_na_sentinel=False)
-            got = np.asarray(codes, dtype=np.int64), pd.Series(uniques, dtype=s.dtype)
+            shared = self.persons.codes.get(table) if column == "person_id" and self.persons is not None else None
+            if shared is not None and len(shared) == len(s) and not (shared < 0).any():
+                got = shared, pd.Series(self.persons.ids, dtype=s.dtype)
+            else:
+                codes, uniques = pd.factorize(s, use_na_sentinel=False)
+                got = np.asarray(codes, dtype=np.int64), pd.Series(uniques, dtype=s.dtype)
             self._done[(table, column)] = got
         return got
 
     def forget(self, table: str, column: str) -> None:
         """Drop the codes of a column whose cells changed."""
         self._done.pop((table, column), None)
+
+
+def _share_ids(tables: dict[str, pd.DataFrame], persons: PersonIndex) -> None:
+    """Make every table's person_id cells the one text object of their id (values unchanged).
+
+    Equal ids are then one object, so the later stages' lookups on ids compare them by
+    identity and find their hashes cached. (Text stored by pyarrow is left as it is.)"""
+    for name, c in persons.codes.items():
+        s = tables[name]["person_id"]
+        if (s.dtype != object and getattr(s.dtype, "storage", None) != "python") or (c < 0).any():
+            continue
+        tables[name]["person_id"] = pd.Series(persons.ids.take(c), index=s.index, dtype=s.dtype)
 
 
 def _filled(values: pd.Series) -> np.ndarray:
@@ -2006,7 +2026,9 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
     derived = "groups" not in present
     if derived:
         tables["groups"] = _derive_groups(tables["people"], GROUPS)
-    codes = _Codes(tables)
+    persons = PersonIndex.of(tables)  # every table's person ids coded once, for the checks and the stages
+    _share_ids(tables, persons)
+    codes = _Codes(tables, persons)
     _cross_checks(tables, present, findings, codes)
     for spec in FILES:
         df = tables[spec.name]
@@ -2029,7 +2051,7 @@ def load_programme(root: Path, *, today: dt.date | None = None) -> Programme:
     findings = dresser.finish(findings)
     prog = Programme(root=root, config=config, tables=tables, present=present, noise_logs=logs,
                      log_interval_s=intervals, pages=pages, findings=findings, digest=inputs.digest(),
-                     template_dir=template_dir)
+                     template_dir=template_dir, person_index=persons)
     prog.extra["groups_derived"] = derived
     prog.extra["today"] = today
     log.info("loaded %s in %.2f s (%s)", root, time.perf_counter() - t0, findings.summary())

@@ -10,6 +10,7 @@ import pandas as pd
 from .. import charts
 from .. import figures as F
 from ..exposure import action_value
+from ..frames import person_codes
 from ..inputs.spec import FILES
 from ..pipeline import Results
 from . import figure_tiles
@@ -160,14 +161,14 @@ def count_tiles(ctx: SiteContext) -> list[dict[str, str]]:
         tiles.append({"label": "Noise measurements", "value": f"{len(prog.table('noise')):,}", "note": ""})
     if prog.has("audiograms"):
         a = prog.table("audiograms")
-        tests = _distinct_tests(a) if len(a) else 0
+        tests = _distinct_tests(a, person_codes(prog, "audiograms")[0]) if len(a) else 0
         tiles.append({"label": "Audiograms", "value": f"{tests:,}", "note": "one per person and date"})
     return tiles
 
 
-def _distinct_tests(a: pd.DataFrame) -> int:
-    """Return the number of distinct (person, date) pairs of the audiogram rows (integer codes, no frame copy)."""
-    person = pd.factorize(a["person_id"])[0].astype(np.int64)
+def _distinct_tests(a: pd.DataFrame, person: np.ndarray) -> int:
+    """Return the number of distinct (person, date) pairs of the audiogram rows, given each row's
+    person code (integer codes, no frame copy)."""
     day, days = pd.factorize(a["date"].to_numpy("datetime64[ns]").view(np.int64))
     return len(pd.unique(person * len(days) + day))
 
