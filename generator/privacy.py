@@ -184,10 +184,10 @@ def redactor(people: pd.DataFrame, code: Callable[[str], str]) -> Callable[[str]
     """Return a function that replaces raw ids, names and birth dates in free text."""
     subs: dict[str, str] = {}
     if "person_id" in people.columns:
-        ids = [p for p in pd.unique(people["person_id"].astype(str)) if p]
+        ids = [p for p in pd.unique(people["person_id"].astype(str).to_numpy(dtype=object)).tolist() if p]
         subs.update((p, code(p)) for p in ids)
     if "name" in people.columns:
-        for name in pd.unique(people["name"].astype(str)):
+        for name in pd.unique(people["name"].astype(str).to_numpy(dtype=object)).tolist():
             if name.strip() and name not in subs:
                 subs[name] = "[name withheld]"
     if "birth_date" in people.columns:
@@ -260,15 +260,15 @@ class Suppressor:
         #: group -> distinct people of the group employed in the period
         self.group_people: dict[str, int] = {str(g): int(n) for g, n in sorted(counts.items())}
         # every group of the people table and of the groups table (*groups*): one with nobody in it is withheld too
-        known = sorted(({str(g) for g in people["group"].astype(str)} if "group" in people.columns else set())
+        known = sorted((set(people["group"].astype(str).tolist()) if "group" in people.columns else set())
                        | {str(g) for g in groups if str(g)})
         #: groups whose figures are withheld on public output (empty in a restricted build)
         self.groups: frozenset[str] = frozenset() if self.restricted else frozenset(
             g for g in known if self.group_people.get(g, 0) < self.min_size)
         #: person_id -> group (people of a withheld group are withheld too)
         self.person_group: dict[str, str] = ({} if people.empty or "person_id" not in people.columns
-                                             else dict(zip(people["person_id"].astype(str),
-                                                           people["group"].astype(str))))
+                                             else dict(zip(people["person_id"].astype(str).tolist(),
+                                                           people["group"].astype(str).tolist())))
 
     def hides(self, n: Any) -> bool:
         """Return True when a figure resting on *n* people is withheld from public output."""
@@ -392,6 +392,10 @@ class _Walk:
             return [self(v) for v in value]
         if kind is dict:
             return {k: self(v) for k, v in value.items()}
+        if kind is tuple:  # (a table row's cells)
+            return tuple([self(v) for v in value])
+        if kind is int or kind is float or kind is bool or value is None:
+            return value
         return self._other(value)
 
     def _other(self, value: Any) -> Any:

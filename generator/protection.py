@@ -447,7 +447,7 @@ def targets(person_ids: Iterable[str], rules: RuleSet, sts_people: set[str] | No
     if base is None:
         base = rules.limit_value if rules.limit_value is not None else np.nan
     after = rules.protected_target_after_sts if rules.protected_target_after_sts is not None else base
-    ids = pd.Series(list(person_ids), dtype=object)
+    ids = pd.Series(person_ids.tolist() if hasattr(person_ids, "tolist") else list(person_ids), dtype=object)
     sts = ids.isin(sorted(sts_people or ()))
     return np.where(sts.to_numpy(), float(after), float(base))
 

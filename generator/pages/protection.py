@@ -197,8 +197,8 @@ def build(ctx: SiteContext) -> list[Page]:
         "n_people": int(len(visible)),
         "catalogue_table": catalogue_table(res.protectors),
         "people_table": people_table(people, ctx),
-        "methods_table": methods_table(res, set(visible["person_id"])),
-        "any_suppressed": bool(set(people["group"]) & set(ctx.suppressed_groups)),
+        "methods_table": methods_table(res, set(visible["person_id"].tolist())),
+        "any_suppressed": bool(set(people["group"].tolist()) & set(ctx.suppressed_groups)),
     }
     return [Page(slug="protection", title="Hearing protection", template="protection.html",
                  section="protection", in_nav=True, context=context, charts=page_charts)]
