@@ -482,6 +482,14 @@ class LogHistories(Mapping[str, pd.DataFrame]):
             self._frames[mid] = frame
         return frame
 
+    def peak(self, mid: str) -> float:
+        """Return the highest bin maximum of log *mid* (NaN when none is known): its frame's
+        ``lmax.max()``, without making the frame."""
+        i = self._pos[mid]
+        values = self._lmax[self._first[i]:self._first[i] + self._nbins[i]]
+        values = values[~np.isnan(values)]
+        return float(values.max()) if values.size else float("nan")
+
     def __iter__(self) -> Iterator[str]:
         return iter(self._pos)
 

@@ -589,3 +589,22 @@ def test_coarsened_history_keeps_energy_and_maximum() -> None:
     assert _leq(c["laeq"], c["n"]) == pytest.approx(_leq(h["laeq"], h["n"]), abs=1e-9)
     assert c["lmax"].max() == pytest.approx(h["lmax"].max()) and c["start"].iloc[0] == h["start"].iloc[0]
     assert coarsen_history(h.head(200), 300).equals(h.head(200))
+
+
+def test_log_peak_is_the_frames_lmax_max():
+    """LogHistories.peak(mid) equals the maximum pandas finds in the log's frame (NaN skipped,
+    NaN when no bin has one), for every log of a random binned history."""
+    from generator.exposure import LogHistories
+    rng = np.random.default_rng(11)
+    nbins = np.array([3, 1, 4, 2, 0 + 2])
+    first = np.r_[0, np.cumsum(nbins)[:-1]]
+    n = int(nbins.sum())
+    lmax = rng.uniform(80, 120, n)
+    lmax[[0, 3]] = np.nan  # a log with one NaN bin and a log whose only bin is NaN
+    hist = LogHistories(["A", "B", "C", "D", "E"], first, nbins, np.arange(n, dtype=np.int64) * 60_000_000_000,
+                        rng.uniform(1e8, 1e9, n), lmax, np.ones(n))
+    for mid in hist:
+        want = hist[mid]["lmax"].max()
+        got = hist.peak(mid)
+        assert (np.isnan(got) and np.isnan(want)) or got == want
+    assert np.isnan(hist.peak("B"))

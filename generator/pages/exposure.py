@@ -11,7 +11,7 @@ import pandas as pd
 
 from .. import charts
 from .. import levels as lv
-from ..exposure import BASIS_LABELS, PARAMETERS, ExposureResult, action_value, band_names
+from ..exposure import BASIS_LABELS, PARAMETERS, ExposureResult, LogHistories, action_value, band_names
 from ..privacy import WITHHELD_DETAIL, WITHHELD_KIND
 from . import figure_tiles
 from .base import Chart, Page, SiteContext, Table, group_slugs
@@ -539,7 +539,7 @@ def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str, 
             page_charts.append(history_chart(mid, res.logs[mid], ctx, slug, n, redact))
             n += 1
         listed = rest.head(LOG_ROWS)
-        lmax = pd.Series({mid: float(res.logs[mid]["lmax"].max()) for mid in listed["measurement_id"]}, dtype=float)
+        lmax = pd.Series({mid: _log_peak(res.logs, mid) for mid in listed["measurement_id"]}, dtype=float)
         context.update(
             history_ids=[c.id for c in page_charts[len(page_charts) - len(charted):]],
             n_logged=len(logged), n_listed=len(listed), n_rest=len(rest),
@@ -548,6 +548,11 @@ def group_page(gr: pd.Series, res: ExposureResult, ctx: SiteContext, slug: str, 
         )
     return Page(slug=slug, title=f"Exposure: {gr['name']}", template="exposure_group.html", section=SECTION,
                 context=context, charts=page_charts)
+
+
+def _log_peak(logs: Mapping[str, pd.DataFrame], mid: str) -> float:
+    """Return the highest bin maximum of log *mid* (read off the binned log, no frame made)."""
+    return logs.peak(mid) if isinstance(logs, LogHistories) else float(logs[mid]["lmax"].max())
 
 
 # ---------------------------------------------------------------------------------------
