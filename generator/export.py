@@ -146,7 +146,7 @@ def neutralise(text: str) -> str:
 
 
 #: rows turned into text at a time: bounds the memory a large table's text takes
-CHUNK_ROWS = 50_000
+CHUNK_ROWS = 20_000
 
 
 def _column_texts(frame: pd.DataFrame) -> list[list[str]]:
@@ -170,24 +170,34 @@ def text_header(frame: pd.DataFrame) -> list[str]:
     return [neutralise(str(c)) for c in frame.columns]
 
 
-def text_rows(frame: pd.DataFrame) -> Iterator[list[tuple[str, ...]]]:
-    """Yield the rows of *frame* as text (as the CSV writes them), CHUNK_ROWS rows at a time."""
+def text_rows(frame: pd.DataFrame, start: int = 0, stop: int | None = None) -> Iterator[list[tuple[str, ...]]]:
+    """Yield rows *start* to *stop* of *frame* as text (as the CSV writes them), CHUNK_ROWS rows at a time."""
     if not len(frame.columns):
         return
-    for start in range(0, len(frame), CHUNK_ROWS):
-        yield list(zip(*_column_texts(frame.iloc[start:start + CHUNK_ROWS])))
+    stop = len(frame) if stop is None else min(stop, len(frame))
+    for at in range(start, stop, CHUNK_ROWS):
+        yield list(zip(*_column_texts(frame.iloc[at:min(at + CHUNK_ROWS, stop)])))
 
 
 def frame_to_csv(frame: pd.DataFrame) -> bytes:
-    """Return *frame* as UTF-8 CSV with fixed formats and neutralised formula cells."""
+    """Return *frame* as UTF-8 CSV with fixed formats and neutralised formula cells.
+
+    Each chunk of rows is encoded as soon as it is written, so the whole table is held
+    once, as bytes, not also as text.
+    """
     import csv
     import io
-    buf = io.StringIO()
-    w = csv.writer(buf, lineterminator="\n")
+    out = io.BytesIO()
+    text = io.StringIO()
+    w = csv.writer(text, lineterminator="\n")
     w.writerow(text_header(frame))
     for rows in text_rows(frame):
         w.writerows(rows)
-    return buf.getvalue().encode("utf-8")
+        out.write(text.getvalue().encode("utf-8"))
+        text.seek(0)
+        text.truncate()
+    out.write(text.getvalue().encode("utf-8"))
+    return out.getvalue()
 
 
 def _json_ready(v: Any) -> Any:
@@ -317,7 +327,7 @@ def export_files(ctx: SiteContext) -> dict[str, bytes]:
     """Return every export file as name -> bytes: the CSVs, the same tables as one workbook, the summary."""
     tables = export_tables(ctx)
     files = {name: frame_to_csv(t) for name, t in tables.items()}
-    files[WORKBOOK] = workbook_bytes(tables, ctx)
+    files[WORKBOOK] = workbook_bytes(tables, ctx, text_bytes={name: len(files[name]) for name in tables})
     files["summary.json"] = public_summary(summary_json(ctx), ctx)
     return files
 
@@ -413,59 +423,79 @@ def _sheet_rows(rows: list[tuple[str, ...]], numeric: list[bool], letters: list[
     return "".join(out)
 
 
-def workbook_bytes(tables: dict[str, pd.DataFrame], ctx: SiteContext) -> bytes:
+#: the most bytes of sheet XML one row adds besides its cells (``<row r="1048576"></row>``)
+ROW_XML_MAX = 23
+#: the most bytes of sheet XML one cell adds besides its escaped text (a preserved-space
+#: inline string at the last column and row; a number's ``%.16g`` text is 24 bytes at most)
+CELL_XML_MAX = 100
+#: the most bytes one byte of text becomes in XML (``&`` -> ``&amp;``)
+XML_ESCAPE_MAX = 5
+
+
+def _sheet_xml_bound(rows: int, columns: int, text_bytes: int, skeleton: int) -> int:
+    """Return an upper bound of the bytes of a sheet: *rows* body rows whose cell texts take *text_bytes* at most."""
+    return skeleton + rows * (ROW_XML_MAX + columns * CELL_XML_MAX) + XML_ESCAPE_MAX * text_bytes
+
+
+@dataclass(frozen=True)
+class _SheetPlan:
+    """The body rows of one worksheet: rows *start* to *stop* of *frame*."""
+
+    frame: pd.DataFrame
+    numeric: list[bool]
+    letters: list[str]
+    start: int
+    stop: int
+    #: an upper bound of the UTF-8 bytes of the table's cell texts
+    text_bytes: int
+
+    def bodies(self) -> Iterator[bytes]:
+        """Yield the body XML of the sheet, CHUNK_ROWS rows at a time."""
+        for at, rows in zip(range(self.start, self.stop, CHUNK_ROWS), text_rows(self.frame, self.start, self.stop)):
+            yield _sheet_rows(rows, self.numeric, self.letters, 2 + at - self.start).encode("utf-8")
+
+
+def workbook_bytes(tables: dict[str, pd.DataFrame], ctx: SiteContext, *,
+                   text_bytes: dict[str, int] | None = None) -> bytes:
     """Return the tables as one .xlsx workbook: a sheet each, frozen header row, fitted column widths.
 
     Numbers are written as numbers, everything else as the CSV's text (formula-like text
     keeps its neutralising quote). A table longer than a worksheet holds (SHEET_MAX_ROWS
     with the header) continues on sheets titled "name (2)", "name (3)" ..., each with the
     header. openpyxl writes the workbook, its sheets and their header rows; the body rows,
-    CHUNK_ROWS at a time, are written straight into each sheet's XML (openpyxl's cell
-    objects would cost minutes and gigabytes for a million rows). The bytes are fixed:
-    workbook times come from :func:`workbook_stamp` and every zip entry carries that date.
+    CHUNK_ROWS at a time, are written straight into each sheet's zip entry as they are
+    made (openpyxl's cell objects would cost minutes and gigabytes for a million rows, and
+    a whole sheet's XML hundreds of megabytes). *text_bytes* gives, per table, an upper
+    bound of its cell texts' UTF-8 bytes (the size of its CSV); it is computed when not
+    given. The bytes are fixed: workbook times come from :func:`workbook_stamp` and every
+    zip entry carries that date.
     """
     import io
-    import itertools
     import zipfile
     from openpyxl import Workbook
     from openpyxl.utils import get_column_letter
 
     wb = Workbook(write_only=True)
     per_sheet = SHEET_MAX_ROWS - 1
-    bodies: list[list[bytes]] = []  # the body XML of each sheet, in the order the sheets are made
+    plans: list[_SheetPlan] = []  # the body of each sheet, in the order the sheets are made
     for name in sorted(tables):
         frame = tables[name]
         header = text_header(frame)
         numeric = [pd.api.types.is_numeric_dtype(frame[c]) and not pd.api.types.is_bool_dtype(frame[c])
                    for c in frame.columns]
         letters = [get_column_letter(i) for i in range(1, len(header) + 1)]
-        chunks = text_rows(frame)
-        first = next(chunks, [])
-        widths = [max(WIDTH_MIN, min(WIDTH_MAX, max([len(col)] + [len(r[i]) for r in first[:1000]]) + 2))
+        first = next(text_rows(frame, 0, 1000), [])
+        widths = [max(WIDTH_MIN, min(WIDTH_MAX, max([len(col)] + [len(r[i]) for r in first]) + 2))
                   for i, col in enumerate(header)]
-        titles = iter(sheet_titles(name, max(1, -(-len(frame) // per_sheet))))
-
-        def new_sheet() -> None:
-            ws = wb.create_sheet(title=next(titles))
+        size = text_bytes[name] if text_bytes is not None else len(frame_to_csv(frame))
+        parts = max(1, -(-len(frame) // per_sheet))  # a header-only sheet when the table has no rows
+        for title, at in zip(sheet_titles(name, parts), range(0, parts * per_sheet, per_sheet)):
+            ws = wb.create_sheet(title=title)
             ws.freeze_panes = "A2"
             for col, width in zip(letters, widths):
                 ws.column_dimensions[col].width = width
             ws.append(header)
-            bodies.append([])
-
-        new_sheet()  # every table has a sheet, a header-only one when it has no rows
-        room = per_sheet
-        for rows in itertools.chain([first], chunks):
-            at = 0
-            while at < len(rows):
-                if room == 0:
-                    new_sheet()
-                    room = per_sheet
-                taken = min(room, len(rows) - at)
-                body = _sheet_rows(rows[at:at + taken], numeric, letters, 2 + per_sheet - room)
-                bodies[-1].append(body.encode("utf-8"))
-                at += taken
-                room -= taken
+            plans.append(_SheetPlan(frame, numeric, letters, at, min(len(frame), at + per_sheet), size))
     stamp = workbook_stamp(ctx)
     wb.properties.creator = "hcpsite"
     wb.properties.created = stamp
@@ -478,21 +508,53 @@ def workbook_bytes(tables: dict[str, pd.DataFrame], ctx: SiteContext) -> bytes:
     with zipfile.ZipFile(raw) as src, zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
         for info in src.infolist():
             data = src.read(info.filename)
+            entry = zipfile.ZipInfo(info.filename, date_time=date_time)
+            entry.compress_type = zipfile.ZIP_DEFLATED
+            entry.external_attr = 0o600 << 16
             sheet = re.fullmatch(r"xl/worksheets/sheet(\d+)\.xml", info.filename)
-            if sheet and bodies[int(sheet.group(1)) - 1]:
-                end = data.index(b"</sheetData>")
-                data = b"".join([data[:end], *bodies[int(sheet.group(1)) - 1], data[end:]])
-                bodies[int(sheet.group(1)) - 1] = []
+            plan = plans[int(sheet.group(1)) - 1] if sheet else None
+            if plan is not None and plan.stop > plan.start and len(plan.letters):
+                _write_sheet(dst, entry, data, plan)
+                continue
             if info.filename == "docProps/core.xml":
                 text = data.decode("utf-8")
                 text = re.sub(r"(<dcterms:modified[^>]*>)[^<]*(</dcterms:modified>)", rf"\g<1>{when}\g<2>", text)
                 text = re.sub(r"(<dcterms:created[^>]*>)[^<]*(</dcterms:created>)", rf"\g<1>{when}\g<2>", text)
                 data = text.encode("utf-8")
-            entry = zipfile.ZipInfo(info.filename, date_time=date_time)
-            entry.compress_type = zipfile.ZIP_DEFLATED
-            entry.external_attr = 0o600 << 16
             dst.writestr(entry, data)
     return out.getvalue()
+
+
+def _write_sheet(dst: Any, entry: Any, skeleton: bytes, plan: _SheetPlan) -> None:
+    """Write the sheet *skeleton* (openpyxl's, header only) with *plan*'s body rows as zip entry *entry*.
+
+    The entry is written as ``ZipFile.writestr`` writes the whole XML: that takes the ZIP64
+    form when the size times 1.05 passes ``ZIP64_LIMIT``. Where an upper bound of the size
+    rules that out, the rows go straight into the entry; otherwise they go through a
+    temporary file first, so the exact size is known before the entry starts.
+    """
+    import shutil
+    import tempfile
+    import zipfile
+
+    end = skeleton.index(b"</sheetData>")
+    bound = _sheet_xml_bound(plan.stop - plan.start, len(plan.letters), plan.text_bytes, len(skeleton))
+    if bound * 1.05 <= zipfile.ZIP64_LIMIT:
+        with dst.open(entry, "w") as w:
+            w.write(skeleton[:end])
+            for body in plan.bodies():
+                w.write(body)
+            w.write(skeleton[end:])
+        return
+    with tempfile.TemporaryFile() as spool:
+        spool.write(skeleton[:end])
+        for body in plan.bodies():
+            spool.write(body)
+        spool.write(skeleton[end:])
+        entry.file_size = spool.tell()
+        spool.seek(0)
+        with dst.open(entry, "w") as w:
+            shutil.copyfileobj(spool, w, 1 << 20)
 
 
 #: marker file of an export folder: only a folder carrying it (or a new or empty one) is replaced.

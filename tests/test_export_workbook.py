@@ -128,3 +128,44 @@ def test_sheet_xml_is_openpyxls_own_byte_for_byte(fixed_time, monkeypatch: pytes
     raw = io.BytesIO()
     wb.save(raw)
     assert ours == zipfile.ZipFile(raw).read("xl/worksheets/sheet1.xml")
+
+
+def _written_whole(data: bytes) -> bytes:
+    """The same entries, names, dates and order written whole with ``ZipFile.writestr`` (the oracle of streaming)."""
+    import zipfile
+    src = zipfile.ZipFile(io.BytesIO(data))
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
+        for info in src.infolist():
+            entry = zipfile.ZipInfo(info.filename, date_time=info.date_time)
+            entry.compress_type = zipfile.ZIP_DEFLATED
+            entry.external_attr = info.external_attr
+            dst.writestr(entry, src.read(info.filename))
+    return out.getvalue()
+
+
+def test_streamed_sheets_are_the_bytes_of_whole_sheets(fixed_time, monkeypatch: pytest.MonkeyPatch) -> None:
+    # rows streamed into a sheet's zip entry chunk by chunk give the bytes of the whole XML written at once
+    monkeypatch.setattr(export, "CHUNK_ROWS", 7)
+    tables = {"b.csv": _frame(40), "a.csv": _frame(3), "empty.csv": _frame(0)}
+    data = export.workbook_bytes(tables, fixed_time)
+    assert _written_whole(data) == data
+    # a size bound that cannot rule out ZIP64 sends the rows through a temporary file: the same bytes
+    monkeypatch.setattr(export, "XML_ESCAPE_MAX", 10 ** 9)
+    assert export.workbook_bytes(tables, fixed_time) == data
+
+
+def test_a_sheet_past_the_zip64_size_is_written_as_writestr_writes_it(fixed_time,
+                                                                      monkeypatch: pytest.MonkeyPatch) -> None:
+    # ZipFile.writestr takes the ZIP64 form for an entry over ZIP64_LIMIT / 1.05 bytes: lowered here to a
+    # few kilobytes so that the sheet of 300 rows (about 100 kB of XML) needs it
+    import zipfile
+    monkeypatch.setattr(export, "CHUNK_ROWS", 50)
+    tables = {"t.csv": _frame(300)}
+    small = export.workbook_bytes(tables, fixed_time)
+    with monkeypatch.context() as m:
+        m.setattr(zipfile, "ZIP64_LIMIT", 20_000)
+        data = export.workbook_bytes(tables, fixed_time)
+        assert _written_whole(data) == data
+    assert data != small  # the ZIP64 form was taken
+    assert _cells(data) == _cells(small)
