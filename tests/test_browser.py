@@ -243,7 +243,7 @@ def test_index_screenshots(context, site: Path, name: str, viewport: dict) -> No
 
 #: the widths the screen layout is checked at (a wide desktop window and phones: 360 px is the
 #: narrowest common one, and 385 px once showed an overflow that 400 px did not).
-LAYOUT_WIDTHS = (1400, 400, 385, 360)
+LAYOUT_WIDTHS = (1400, 400, 385, 360, 320)
 
 #: For every table of a page (folded blocks opened): is it cut off? A table is in view when it fits the
 #: window, or when the box that scrolls it sideways fits the window and keeps its first column in view.
