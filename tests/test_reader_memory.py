@@ -48,6 +48,8 @@ CASES = {
     "audiograms, unknown columns and a ragged row": ("audiograms", _lines(A_HEAD, A_ROWS, ",x1",
                                                                           [",a", ",b,c", ",a", "", ",a", ",a"])),
     "only unknown columns": ("people", "shoe,hat\n1,2\n3,4\n"),
+    "separator line of the header's width and formulas": (
+        "people", P_HEAD + "\n" + P_ROWS[0] + "\n,,,,\n=cmd,G1,M,1970-01-02,2000-03-04\nE004,+x,F,,\n"),
 }
 
 
@@ -97,6 +99,11 @@ def test_findings_of_commas_heavy_files(tmp_path, monkeypatch):
     assert [f for f in found if "spreadsheet formula" in f] == [
         "data/people.csv:2:note: warning: '=cmd' looks like a spreadsheet formula; kept as text",
         "data/people.csv:3:note: warning: '@sum(a)' looks like a spreadsheet formula; kept as text"]
+    _, found = _read(tmp_path, "people", CASES["separator line of the header's width and formulas"][1], True,
+                     monkeypatch)
+    assert [f for f in found if "spreadsheet formula" in f] == [
+        "data/people.csv:4:person_id: warning: '=cmd' looks like a spreadsheet formula; kept as text",
+        "data/people.csv:5:group: warning: '+x' looks like a spreadsheet formula; kept as text"]
 
 
 def test_undeclared_columns_are_kept_as_codes(tmp_path, monkeypatch):

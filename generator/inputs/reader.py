@@ -578,10 +578,20 @@ class _Fields:
             body = self.body[a:b]
             if not body.any():
                 continue
-            at = np.flatnonzero(arr[s:e] == 44).reshape(b - a, self.ncols - 1)[body] + s
-            first = np.concatenate(((np.concatenate(([0], self.nl[a:b - 1] + 1)) if a == 0 else
-                                     self.nl[a - 1:b - 1] + 1)[body][:, None], at + 1), axis=1)[:, cols]
-            end = np.concatenate((at, self.nl[a:b][body][:, None]), axis=1)[:, cols]
+            at = np.flatnonzero(arr[s:e] == 44).reshape(b - a, self.ncols - 1)
+            if not body.all():
+                at = at[body]
+            at += s
+            firsts, ends = [], []
+            for j in cols.tolist():
+                if j == 0:
+                    line = np.concatenate(([0], self.nl[a:b - 1] + 1)) if a == 0 else self.nl[a - 1:b - 1] + 1
+                    firsts.append(line if body.all() else line[body])
+                else:
+                    firsts.append(at[:, j - 1] + 1)
+                ends.append(at[:, j] if j < self.ncols - 1 else
+                            (self.nl[a:b] if body.all() else self.nl[a:b][body]))
+            first, end = np.concatenate(firsts), np.concatenate(ends)
             first = first[end - first >= 2]  # (after a cell of one byte comes a comma or line end, never a letter)
             c = arr[first]
             lead = first[(c == 61) | (c == 43) | (c == 45) | (c == 64)]
