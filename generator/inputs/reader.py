@@ -23,7 +23,7 @@ import time
 import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any, Callable, Iterable, Iterator
 
 import numpy as np
 import pandas as pd
@@ -212,6 +212,63 @@ def _letters(c: np.ndarray) -> bool:
     """True when some byte of *c* is an ASCII letter."""
     c = c | 32  # ASCII letters fold to lower case
     return bool(((c >= 97) & (c <= 122)).any())
+
+
+#: bytes of quote-free CSV looked at in one piece (whole lines) when cells are counted or
+#: located: the positions of one piece's commas (8 bytes each) are all that is held at once,
+#: never those of the whole file (a file of commas would need 8 bytes per byte)
+_PIECE = 1 << 21
+
+
+def _byte_positions(arr: np.ndarray, value: int) -> np.ndarray:
+    """Return the positions of every byte *value* in *arr*, as int32 when the positions fit."""
+    dtype: type[np.signedinteger[Any]] = np.int32 if arr.size < 2 ** 31 - 1 else np.int64
+    parts: list[np.ndarray] = []
+    for a in range(0, arr.size, _PIECE):
+        at = np.flatnonzero(arr[a:a + _PIECE] == value).astype(dtype)
+        at += a
+        parts.append(at)
+    return np.concatenate(parts) if parts else np.zeros(0, dtype=dtype)
+
+
+def _line_pieces(nl: np.ndarray, size: int) -> Iterator[tuple[int, int, int, int]]:
+    """Yield (first line, end line, first byte, end byte) of runs of whole lines of about _PIECE bytes.
+
+    *nl* holds the end of every line (a newline, or *size* for a last line without one).
+    """
+    a, n = 0, nl.size
+    while a < n:
+        start = 0 if a == 0 else int(nl[a - 1]) + 1
+        b = min(max(int(np.searchsorted(nl, start + _PIECE, side="left")), a + 1), n)
+        yield a, b, start, min(int(nl[b - 1]) + 1, size)
+        a = b
+
+
+def _cells_per_line(arr: np.ndarray, nl: np.ndarray) -> np.ndarray:
+    """Return the number of cells (commas + 1) of every line of quote-free CSV bytes."""
+    out = np.empty(nl.size, dtype=np.int64)
+    for a, b, s, e in _line_pieces(nl, arr.size):
+        commas = np.flatnonzero(arr[s:e] == 44)
+        out[a:b] = np.diff(np.searchsorted(commas, nl[a:b] - s), prepend=0) + 1
+    return out
+
+
+def _hints_by_piece(arr: np.ndarray, nl: np.ndarray, raw: bytes | None = None, formula: bool = True
+                    ) -> tuple[bool, bool]:
+    """Return _space_hint and (with *formula*, else False) _formula_hint of quote-free CSV bytes,
+    worked on pieces of whole lines (the same answers: a piece begins and ends at a line's edge)."""
+    spaces = not (raw is not None and b" " not in raw and b"\t" not in raw)
+    found = [False, False]
+    for a, b, s, e in _line_pieces(nl, arr.size):
+        seg = arr[s:e]
+        commas, local = np.flatnonzero(seg == 44), nl[a:b].astype(np.int64) - s
+        if spaces and not found[0]:
+            found[0] = _space_hint(seg, commas, local)
+        if formula and not found[1]:
+            found[1] = _formula_hint(seg, commas, local)
+        if found[0] and (found[1] or not formula):
+            break
+    return found[0], found[1]
 
 
 def _fmt(x: float) -> str:
@@ -460,30 +517,45 @@ def _clean_values(c: Column, v: np.ndarray) -> bool:
 
 
 class _Fields:
-    """Where every cell of quote-free CSV bytes lies, for files whose every line has the header's cells.
+    """Where the cells of some columns of quote-free CSV bytes lie, for files whose every line has
+    the header's cells.
 
     Lets a column be checked or parsed straight from the bytes: its blank cells, its ``NR``
-    cells, its ISO dates. *lines* are the indices of the body records among all lines.
+    cells, its ISO dates. *lines* are the indices of the body records among all lines. Only
+    the cell edges of *columns* are kept (one position per line and edge, int32 below 2 GiB);
+    the other columns are looked at piece by piece (``formula``).
     """
 
-    def __init__(self, arr: np.ndarray, nl: np.ndarray, commas: np.ndarray, ncols: int, lines: np.ndarray) -> None:
+    def __init__(self, arr: np.ndarray, nl: np.ndarray, ncols: int, lines: np.ndarray,
+                 columns: Iterable[int] = ()) -> None:
         self.arr = arr
+        self.nl = nl
         n = nl.size
-        self.commas = commas.reshape(n, ncols - 1)
-        starts = np.concatenate(([0], nl[:-1] + 1))
+        starts = np.concatenate(([0], nl[:-1] + 1)).astype(nl.dtype)
         ends = nl.copy()
         cr = (ends > starts) & (arr[np.maximum(ends - 1, 0)] == 13)
         ends[cr] -= 1
         self.starts, self.ends = starts[lines], ends[lines]
+        self.body = np.zeros(n, dtype=bool)
+        self.body[lines] = True
         #: the body records as a slice of all lines when they follow one another (no blank line between)
         self.lines: slice | np.ndarray = slice(int(lines[0]), int(lines[-1]) + 1) \
             if lines.size and int(lines[-1]) - int(lines[0]) + 1 == lines.size else lines
         self.ncols = ncols
+        wanted = set(columns)
+        need = sorted({j - 1 for j in wanted if j > 0} | {j for j in wanted if j < ncols - 1})
+        #: position of the k-th comma of every line, for the commas that bound the cells of *columns*
+        self.commas: dict[int, np.ndarray] = {k: np.empty(n, dtype=nl.dtype) for k in need}
+        if need:
+            for a, b, s, e in _line_pieces(nl, arr.size):
+                at = np.flatnonzero(arr[s:e] == 44).reshape(b - a, ncols - 1)
+                for k in need:
+                    self.commas[k][a:b] = at[:, k] + s
 
     def span(self, j: int) -> tuple[np.ndarray, np.ndarray]:
         """Return (first byte, end byte) of the cells of column *j* in every body record."""
-        a = self.starts if j == 0 else self.commas[self.lines, j - 1] + 1
-        b = self.ends if j == self.ncols - 1 else self.commas[self.lines, j]
+        a = self.starts if j == 0 else self.commas[j - 1][self.lines] + 1
+        b = self.ends if j == self.ncols - 1 else self.commas[j][self.lines]
         return a, b
 
     def blank_or_nr(self, j: int, at: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -498,12 +570,32 @@ class _Fields:
 
     def formula(self, columns: list[int]) -> bool:
         """Return True when a cell of *columns* begins with =, +, - or @ and a letter (as _formula_hint)."""
-        for j in columns:
-            a, b = self.span(j)
-            a = a[b - a >= 2]  # (after a cell of one byte comes a comma or line end, never a letter)
-            c = self.arr[a]
-            lead = a[(c == 61) | (c == 43) | (c == 45) | (c == 64)]
-            if lead.size and _letters(self.arr[lead + 1]):
+        if not columns:
+            return False
+        cols = np.asarray(sorted(columns), dtype=np.int64)
+        arr, last = self.arr, self.arr.size - 1
+        for a, b, s, e in _line_pieces(self.nl, arr.size):
+            body = self.body[a:b]
+            if not body.any():
+                continue
+            at = np.flatnonzero(arr[s:e] == 44).reshape(b - a, self.ncols - 1)
+            if not body.all():
+                at = at[body]
+            at += s
+            firsts, ends = [], []
+            for j in cols.tolist():
+                if j == 0:
+                    line = np.concatenate(([0], self.nl[a:b - 1] + 1)) if a == 0 else self.nl[a - 1:b - 1] + 1
+                    firsts.append(line if body.all() else line[body])
+                else:
+                    firsts.append(at[:, j - 1] + 1)
+                ends.append(at[:, j] if j < self.ncols - 1 else
+                            (self.nl[a:b] if body.all() else self.nl[a:b][body]))
+            first, end = np.concatenate(firsts), np.concatenate(ends)
+            first = first[end - first >= 2]  # (after a cell of one byte comes a comma or line end, never a letter)
+            c = arr[first]
+            lead = first[(c == 61) | (c == 43) | (c == 45) | (c == 64)]
+            if lead.size and _letters(arr[np.minimum(lead + 1, last)]):
                 return True
         return False
 
@@ -585,30 +677,80 @@ def _csv_read(text: str, raw: bytes, ncols: int, **options: Any) -> pd.DataFrame
                            on_bad_lines="skip", engine="c", quoting=csv.QUOTE_NONE, **options)
 
 
+#: cells of the undeclared columns turned into text objects at once (the rest are codes)
+_CATEGORY_CELLS = 1 << 23
+
+
+def _csv_categories(text: str, raw: bytes, ncols: int, columns: list[int], skiprows: int = 0
+                    ) -> dict[int, pd.Categorical]:
+    """Read *columns* of quote-free CSV as categorical text (categories in text order).
+
+    The records are read a few million cells at a time, each block's cells coded against
+    the categories met so far, so only one block of cells is ever held as text objects.
+    """
+    rows = max(1, _CATEGORY_CELLS // max(1, len(columns)))
+    words: dict[int, pd.Index] = {j: pd.Index([], dtype=object) for j in columns}
+    codes: dict[int, list[np.ndarray]] = {j: [] for j in columns}
+    reader: Any = _csv_read(text, raw, ncols, skiprows=skiprows, usecols=columns, dtype=str, keep_default_na=False,
+                            na_filter=False, chunksize=rows)
+    with reader, warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        for block in reader:
+            for j in columns:
+                code, seen = pd.factorize(block[j].to_numpy(dtype=object))
+                where = words[j].get_indexer(seen)
+                new = where < 0
+                if new.any():
+                    where[new] = len(words[j]) + np.arange(int(new.sum()))
+                    words[j] = words[j].append(pd.Index(np.asarray(seen, dtype=object)[new], dtype=object))
+                small = np.min_scalar_type(max(len(words[j]) - 1, 0))
+                codes[j].append(where.astype(small)[code] if code.size else code.astype(small))
+    out: dict[int, pd.Categorical] = {}
+    for j in columns:
+        order = np.argsort(np.asarray(words[j], dtype=object), kind="stable")
+        rank = np.empty(len(order), dtype=np.int64)
+        rank[order] = np.arange(len(order))
+        parts = codes.pop(j)
+        cells = np.concatenate(parts) if parts else np.zeros(0, dtype=np.int8)
+        dtype = np.int8 if len(order) < 127 else np.int16 if len(order) < 32767 else np.int32
+        out[j] = pd.Categorical.from_codes(rank.astype(dtype)[cells] if cells.size else cells.astype(dtype),
+                                           categories=pd.Index(np.asarray(words[j], dtype=object)[order],
+                                                               dtype=object))
+    return out
+
+
 def _csv_numbers(text: str, raw: bytes, ncols: int, typed: dict[int, Column], count: int,
-                 drop: np.ndarray, fields: _Fields | None = None
-                 ) -> tuple[pd.DataFrame, dict[int, np.ndarray]] | None:
+                 drop: np.ndarray, fields: _Fields | None = None, skip: Iterable[int] = (),
+                 unknown: Iterable[int] = ()) -> tuple[pd.DataFrame, dict[int, np.ndarray]] | None:
     """Read the body of quote-free CSV with the *typed* columns parsed; None when that fails.
 
     Numbers arrive as float64. With *fields* (where each cell lies in the bytes), a hearing
     level may be blank or NR (returned as NaN, with a mask of its NR cells by position) and
     dates written YYYY-MM-DD are parsed from the bytes as datetime64[ns]. Columns whose
     values would need a finding are read again as text, so the rest of the reading sees
-    exactly the cells the text path would give it.
+    exactly the cells the text path would give it. Columns *skip* are not read (the frame has
+    no such column), columns *unknown* are read as categorical text.
     """
+    skip, unknown = set(skip), set(unknown)
     dates = {i: c for i, c in typed.items() if c.kind == "date"} if fields is not None and count > 0 else {}
     numbers = {i: c for i, c in typed.items() if c.kind != "date"}
     if not numbers and not dates:
         return None
-    dtype = {i: ("float64" if i in numbers else str) for i in range(ncols) if i not in dates}
+    dtype = {i: ("float64" if i in numbers else str)
+             for i in range(ncols) if i not in dates and i not in skip and i not in unknown}
+    if not dtype:
+        return None
     na = {i: [""] + (_NR_TEXTS if c.kind == "hl" else []) for i, c in numbers.items()}
     try:
         df = _csv_read(text, raw, ncols, skiprows=1, dtype=dtype, keep_default_na=False, na_values=na,
-                       float_precision="round_trip", usecols=sorted(dtype) if dates else None)
+                       float_precision="round_trip", usecols=sorted(dtype) if dates or skip or unknown else None)
+        texts = _csv_categories(text, raw, ncols, sorted(unknown), skiprows=1) if unknown else {}
     except (ValueError, TypeError, OverflowError, IndexError, pd.errors.ParserError):
         return None  # a cell that is not a number: every column is read as text
-    if len(df) != count:
+    if len(df) != count or any(len(v) != count for v in texts.values()):
         return None
+    for i, v in texts.items():
+        df[i] = v
     if drop.any():
         df = df.loc[~drop]
     lower: list[bool] = []
@@ -658,59 +800,149 @@ def _csv_numbers(text: str, raw: bytes, ncols: int, typed: dict[int, Column], co
         for i in again:
             df[i] = cells[i]
     df = df.reset_index(drop=True)
-    if dates:
+    if dates or unknown:
         for i, v in parsed.items():
             df[i] = v
-        df = df[list(range(ncols))]
+        df = df[[i for i in range(ncols) if i not in skip]]
     return df, marks
+
+
+def _kept_bytes(raw: bytes, nl: np.ndarray, keep: np.ndarray) -> bytes:
+    """Return the lines of *raw* where *keep* is True (every line when all are), line ends included."""
+    if keep.all() or raw.startswith(b"\xef\xbb\xbf"):  # (a second mark: the reader reads the text)
+        return raw
+    edges = np.flatnonzero(np.diff(np.concatenate(([False], keep, [False])).astype(np.int8)))
+    view = memoryview(raw)
+    out = []
+    for a, b in zip(edges[0::2].tolist(), edges[1::2].tolist()):  # runs of kept lines a .. b-1
+        out.append(view[0 if a == 0 else int(nl[a - 1]) + 1:min(int(nl[b - 1]) + 1, len(raw))])
+    return b"".join(out)
+
+
+def _unread_columns(arr: np.ndarray, nl: np.ndarray, fields: np.ndarray, ncols: int, header: list[str],
+                    keep: np.ndarray, spec: FileSpec) -> tuple[list[int], list[int]]:
+    """Return (columns whose cells are never used, columns not declared by *spec*) by position.
+
+    Never used (see _named): a blank header cell over no cell written, a repeated name after
+    its first column, a name the reader makes. Such columns are not read at all, so a file
+    of empty cells under blank headers costs no text object per cell; undeclared columns
+    are read as categorical text (one object per distinct cell). Neither for a file that may
+    be a wide audiogram table (its columns are named by another declaration).
+    """
+    labels = [_label(h) for h in header]
+    if spec.name == "audiograms" and "ear" not in labels:
+        return [], []
+    declared, generated = {c.name for c in spec.columns}, _generated(spec)
+    skip: list[int] = []
+    seen: set[str] = set()
+    for j, name in enumerate(labels):
+        if name and (name in generated or name in seen):
+            skip.append(j)
+        seen.add(name)
+    blank = _blank_columns(arr, nl, fields, ncols, labels, keep)
+    unknown = [j for j, name in enumerate(labels) if j not in skip and j not in blank and name not in declared]
+    return sorted(skip + blank), unknown
+
+
+def _blank_columns(arr: np.ndarray, nl: np.ndarray, fields: np.ndarray, ncols: int, labels: list[str],
+                   keep: np.ndarray) -> list[int]:
+    """Return the columns with a blank header label and no byte in any cell of the lines read."""
+    left = {j for j, h in enumerate(labels) if not h}
+    if not left:
+        return []
+    read = keep.copy()
+    read[0] = False  # (the header)
+    for a, b, s, e in _line_pieces(nl, arr.size):
+        if not read[a:b].any():
+            continue
+        seg = arr[s:e]
+        ends = nl[a:b].astype(np.int64) - s
+        content = (seg != 44) & (seg != 10)
+        cr = ends[(ends > 0) & (seg[np.maximum(ends - 1, 0)] == 13)] - 1  # (a line's closing CR is no cell byte)
+        content[cr] = False
+        at = np.flatnonzero(content)
+        if not at.size:
+            continue
+        line = np.searchsorted(ends, at)  # the line of each byte
+        on = read[a:b][line]
+        at, line = at[on], line[on]
+        commas = np.flatnonzero(seg == 44)
+        first = np.concatenate(([0], ends[:-1] + 1))[line]
+        col = np.searchsorted(commas, at) - np.searchsorted(commas, first)
+        left -= set(np.unique(col).tolist())
+        if not left:
+            return []
+    return sorted(left)
 
 
 def _csv_fast(text: str, raw: bytes, rel: str, findings: Findings, spec: FileSpec | None = None) -> _Grid | None:
     """Parse quote-free CSV with pandas' C reader; None when a consistency check fails.
 
-    With *spec*, its numeric and date columns are parsed at once where every cell allows it.
+    With *spec*, its numeric and date columns are parsed at once where every cell allows it,
+    and columns with a blank header and no cell written are not read. The bytes are looked
+    at in pieces of whole lines (_PIECE): the memory held is per line and per cell read,
+    never per comma of the whole file.
     """
     arr = np.frombuffer(raw, dtype=np.uint8)
-    nl = np.flatnonzero(arr == 10)
+    nl = _byte_positions(arr, 10)
     if not raw.endswith(b"\n"):
-        nl = np.append(nl, arr.size)
+        nl = np.append(nl, nl.dtype.type(arr.size))
     n_lines = nl.size
-    commas = np.flatnonzero(arr == 44)
-    fields = np.diff(np.searchsorted(commas, nl), prepend=0) + 1  # cells on each line
+    fields = _cells_per_line(arr, nl)  # cells on each line
     starts = np.concatenate(([0], nl[:-1] + 1))
     length = nl - starts
     cr = (length > 0) & (arr[np.minimum(nl - 1, arr.size - 1)] == 13)
     # an empty line, or a line of separators only (",,,,", which spreadsheets write), holds no data
     blank = (length - cr) == fields - 1
+    del starts, length, cr
     ncols = int(fields[0])
     bad = (fields != ncols) & ~blank
     bad[0] = False
     line_no = np.arange(1, n_lines + 1)
     keep = fields <= ncols
-    spaces = _space_hint(arr, commas, nl, raw)
+    labels = _first_line(text).split(",")
+    skip, unknown = _unread_columns(arr, nl, fields, ncols, labels, keep, spec) if spec is not None else ([], [])
+    src = _kept_bytes(raw, nl, keep)  # lines longer than the header are not read: the reader never sees them
+    spaces = _hints_by_piece(arr, nl, raw, formula=False)[0]
     typed = _typed_columns(text, spec) if not spaces and not bad.any() and not blank[0] else {}
     if typed:
-        where = _Fields(arr, nl, commas, ncols, np.flatnonzero(~blank[1:]) + 1) \
+        where = _Fields(arr, nl, ncols, np.flatnonzero(~blank[1:]) + 1, typed) \
             if bool((fields == ncols).all()) else None
-        got = _csv_numbers(text, raw, ncols, typed, int(keep.sum()) - 1, blank[keep][1:], where)
+        got = _csv_numbers(text, src, ncols, typed, int(keep.sum()) - 1, blank[keep][1:], where, skip, unknown)
         if got is not None:
             body, marks = got
-            header = _first_line(text).split(",")
             rows = line_no[keep][1:]
             # formulas are looked for in text cells only: the typed columns hold numbers and dates
             # (a typed column read again as text is no text column either)
             formula = where.formula([j for j in range(ncols) if j not in typed]) if where is not None \
-                else _formula_hint(arr, commas, nl)
-            return _Grid(header, body, rows[~blank[keep][1:]], rel, (spaces, formula), marks)
-    hints = spaces, _formula_hint(arr, commas, nl)
-    df = _csv_read(text, raw, ncols, dtype=str, keep_default_na=False, na_filter=False)
+                else _hints_by_piece(arr, nl)[1]
+            return _Grid(labels, body, rows[~blank[keep][1:]], rel, (spaces, formula), marks)
+    hints = spaces, _hints_by_piece(arr, nl)[1]
+    used = [j for j in range(ncols) if j not in skip]
+    if len(unknown) == len(used):
+        unknown = []  # (no declared column: every column is read as text)
+    df = _csv_read(text, src, ncols, dtype=str, keep_default_na=False, na_filter=False,
+                   usecols=[j for j in used if j not in unknown] if skip or unknown else None)
     if len(df) != int(keep.sum()):
         return None  # the C reader saw the lines differently (e.g. lone CR line ends): use the slow path
+    if unknown:
+        texts = _csv_categories(text, src, ncols, unknown)
+        if any(len(v) != len(df) for v in texts.values()):
+            return None
+        for j, v in texts.items():
+            df[j] = v
+        df = df[used]
+    del src
     if bad.any():
         _ragged(findings, rel, line_no[bad], fields[bad], ncols)
     rows = line_no[keep]
     drop = blank[keep]
-    header = [str(x) for x in df.iloc[0].tolist()] if len(df) else []
+    if len(df):
+        first = df.iloc[0]
+        header = [str(first[j]) if j in first.index else labels[j] for j in range(ncols)] if skip \
+            else [str(x) for x in first.tolist()]
+    else:
+        header = []
     body = df.iloc[1:]
     rows = rows[1:]
     drop = drop[1:]
@@ -1036,6 +1268,29 @@ def _as_text(s: pd.Series, strip: bool = True) -> pd.Series:
     return s.str.strip() if strip else s
 
 
+def _as_category(s: pd.Series, strip: bool = True) -> pd.Series:
+    """Return the cells as categorical text (stripped as _as_text): one object per distinct cell.
+
+    The kept, unused columns of a file (those no declaration names) take this form, so a
+    file of many such columns holds a small code per cell, not a text object.
+    """
+    if not isinstance(s.dtype, pd.CategoricalDtype):
+        s = s.astype(str).astype("category")
+    words = pd.Index(s.cat.categories.astype(str), dtype=object)
+    if strip:
+        words = words.str.strip()
+    codes, uniques = pd.factorize(np.asarray(words, dtype=object))
+    cells = s.cat.codes.to_numpy()
+    new = codes[cells].astype(cells.dtype) if len(codes) else cells
+    # categories in text order, as the reader gives them for any file
+    order = np.argsort(np.asarray(uniques, dtype=object), kind="stable")
+    rank = np.empty(len(order), dtype=cells.dtype)
+    rank[order] = np.arange(len(order), dtype=cells.dtype)
+    new = rank[new] if len(order) else new
+    cat = pd.Categorical.from_codes(new, categories=pd.Index(np.asarray(uniques, dtype=object)[order], dtype=object))
+    return pd.Series(cat, index=s.index)
+
+
 def _to_float(s: pd.Series, blank: np.ndarray) -> np.ndarray:
     """Convert stripped text to float64 (NaN where blank or not a number).
 
@@ -1298,7 +1553,7 @@ def _typed(spec: FileSpec, frame: pd.DataFrame, unknown: list[str], rows: np.nda
     for c in spec.columns:
         out.update(conv.column(c, frame[c.name] if c.name in frame.columns else None))
     for name in unknown:
-        s = _as_text(frame[name], conv.strip)
+        s = _as_category(frame[name], conv.strip)
         conv._formula(name, s)
         out[name] = s
     result = pd.DataFrame(out, index=pd.RangeIndex(len(rows)))
@@ -1759,12 +2014,11 @@ def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes | memo
     """
     raw = b"".join(b for _, _, b in members)
     arr = np.frombuffer(raw, dtype=np.uint8)
-    nl = np.flatnonzero(arr == 10)
+    nl = _byte_positions(arr, 10)
     sizes = np.fromiter((len(b) for _, _, b in members), dtype=np.int64, count=len(members))
     # lines of each log: every body ends with a line end, so the line ends up to each body's end
     counts = np.diff(np.searchsorted(nl, np.cumsum(sizes), side="left"), prepend=0)
-    commas = np.flatnonzero(arr == 44)
-    fields = np.diff(np.searchsorted(commas, nl), prepend=0) + 1
+    fields = _cells_per_line(arr, nl)
     starts = np.concatenate(([0], nl[:-1] + 1))
     length = nl - starts
     cr = (length > 0) & (arr[np.maximum(nl - 1, 0)] == 13)
@@ -1772,11 +2026,13 @@ def _log_batch(cols: tuple[str, ...], members: list[tuple[int, str, bytes | memo
     del starts, length, cr
     header = (",".join(cols) + "\n").encode("utf-8")
     if (fields != len(cols)).any() or blank.any() or nl.size != counts.sum():
-        # something unusual: read these logs one by one to report exact lines
-        return [_log_single(header + bytes(m[2]), m[1], m[0], findings, today) for m in members]
-    hints = _space_hint(arr, commas, nl, raw), True  # (a log has no text column to look for formulas in)
-    df = None if hints[0] else _log_typed(raw, cols, _Fields(arr, nl, commas, len(cols), np.arange(nl.size)))
-    del commas, fields
+        # something unusual: read these logs one by one to report exact lines (the joined bytes let go first)
+        del arr, raw
+        return [_log_single(header + m[2], m[1], m[0], findings, today) for m in members]
+    hints = _hints_by_piece(arr, nl, raw, formula=False)[0], True  # (a log has no text column to look for formulas in)
+    df = None if hints[0] else _log_typed(raw, cols, _Fields(arr, nl, len(cols), np.arange(nl.size),
+                                                              [cols.index("start")]))
+    del fields
     if df is None:
         df = _log_cells(raw, cols, nl.size)
     if df is None or len(df) != nl.size:

@@ -5,7 +5,8 @@ specs; the README's data-format section and a test check that every column is do
 
 Conventions of the loaded DataFrames (what every computation module may rely on):
 
-* column names are lower-case, exactly as named here; unknown columns are kept (warned);
+* column names are lower-case, exactly as named here; unknown columns are kept (warned)
+  as categorical text (stripped like text columns; compare with ``==`` or ``.astype(object)``);
 * ``_row`` (int) is the line number of the record in its source file (header = line 1);
 * ``id``/``text``/``choice`` columns hold Python ``str``; a blank cell is ``""``;
   choices are lower-cased (ears and sex upper-cased: ``L``/``R``, ``M``/``F``);
