@@ -1615,9 +1615,10 @@ class _Codes:
         got = self._done.get((table, column))
         if got is None:
             s = self.tables[table][column]
-            shared = self.persons.codes.get(table) if column == "person_id" and self.persons is not None else None
-            if shared is not None and len(shared) == len(s) and not (shared < 0).any():
-                got = shared, pd.Series(self.persons.ids, dtype=s.dtype)
+            persons = self.persons if column == "person_id" else None
+            shared = persons.codes.get(table) if persons is not None else None
+            if persons is not None and shared is not None and len(shared) == len(s) and not (shared < 0).any():
+                got = shared, pd.Series(persons.ids, dtype=s.dtype)
             else:
                 codes, uniques = pd.factorize(s, use_na_sentinel=False)
                 got = np.asarray(codes, dtype=np.int64), pd.Series(uniques, dtype=s.dtype)
