@@ -103,3 +103,15 @@ def export_texts(files: Mapping[str, bytes]) -> dict[str, str]:
         else:
             out[name] = data.decode("utf-8")
     return out
+
+
+def random_lines(rng: Any, alphabet: bytes, max_len: int) -> tuple[Any, Any, Any]:
+    """Return (bytes as uint8, line ends, comma positions) of a random file over *alphabet*,
+    1 to *max_len* - 1 bytes long; a file without a final newline ends its last line at its end."""
+    import numpy as np
+    letters = np.frombuffer(alphabet, dtype=np.uint8)
+    arr = letters[rng.integers(0, letters.size, rng.integers(1, max_len))]
+    nl = np.flatnonzero(arr == 10)
+    if arr[-1] != 10:
+        nl = np.append(nl, arr.size)
+    return arr, nl, np.flatnonzero(arr == 44)

@@ -18,6 +18,8 @@ from generator.findings import Findings
 from generator.inputs import reader
 from generator.inputs.spec import FILES
 
+from .progkit import random_lines
+
 PEOPLE = next(f for f in FILES if f.name == "people")
 AUDIOGRAMS = next(f for f in FILES if f.name == "audiograms")
 P_HEAD = "person_id,group,sex,birth_date,hire_date"
@@ -138,13 +140,8 @@ def test_positions_are_int32_and_only_for_the_columns_parsed():
 @pytest.mark.parametrize("piece", [1, 5, 64, 1 << 21])
 def test_counts_and_hints_do_not_depend_on_the_pieces(monkeypatch, piece):
     rng = np.random.default_rng(11)
-    alphabet = np.frombuffer(b"ab -=+@,,,\n\r\t1.", dtype=np.uint8)
     for _ in range(300):
-        arr = alphabet[rng.integers(0, alphabet.size, rng.integers(1, 40))]
-        nl = np.flatnonzero(arr == 10)
-        if arr[-1] != 10:
-            nl = np.append(nl, arr.size)
-        commas = np.flatnonzero(arr == 44)
+        arr, nl, commas = random_lines(rng, b"ab -=+@,,,\n\r\t1.", 40)
         whole = np.diff(np.searchsorted(commas, nl), prepend=0) + 1
         expected = reader._byte_hints(arr)
         monkeypatch.setattr(reader, "_PIECE", piece)

@@ -15,6 +15,8 @@ from generator.findings import Findings
 from generator.inputs import reader
 from generator.inputs.spec import FILES
 
+from .progkit import random_lines
+
 AUDIOGRAMS = next(f for f in FILES if f.name == "audiograms")
 HEAD = "person_id,date,ear,kind,hl_500,hl_1000,hl_2000,hl_3000,hl_4000,hl_6000,hl_8000,quiet_hours\n"
 GOOD = "P{i:03d},2020-0{m}-1{d},{ear},annual,{a},10,15,20,25,30,35,{q}\n"
@@ -114,13 +116,8 @@ def test_dates_and_nr_levels_are_parsed_typed(tmp_path, monkeypatch, case):
 def test_cell_edge_hints_match_byte_hints(monkeypatch):
     """The hints found from the edges of each cell equal those found from every byte (random files)."""
     rng = np.random.default_rng(7)
-    alphabet = np.frombuffer(b"ab -=+@,\n\r\t1.", dtype=np.uint8)
     for _ in range(4000):
-        arr = alphabet[rng.integers(0, alphabet.size, rng.integers(1, 14))]
-        nl = np.flatnonzero(arr == 10)
-        if arr[-1] != 10:
-            nl = np.append(nl, arr.size)
-        commas = np.flatnonzero(arr == 44)
+        arr, nl, commas = random_lines(rng, b"ab -=+@,\n\r\t1.", 14)
         every_byte = reader._byte_hints(arr)
         monkeypatch.setattr(reader, "_sparse", lambda *a: True)
         assert reader._byte_hints(arr, commas, nl) == every_byte, bytes(arr)
