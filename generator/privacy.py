@@ -370,6 +370,10 @@ def redact_value(value: Any, redact: Callable[[str], str]) -> Any:
     return _Walk(redact)(value)
 
 
+#: the types of a plain number (a list of only these holds no text)
+_NUMBERS = frozenset({int, float, bool, type(None)})
+
+
 class _Walk:
     """Redact every text inside a value; each distinct text is looked at once per walk."""
 
@@ -389,7 +393,10 @@ class _Walk:
         if kind is str:
             return self.text(value)
         if kind is list:
-            return [self(v) for v in value]
+            if not _NUMBERS.isdisjoint(map(type, value[:1])) and _NUMBERS.issuperset(map(type, value)):
+                return list(value)  # a run of numbers (chart coordinates): nothing to redact
+            seen, text = self.memo.get, self.text
+            return [(seen(v) or text(v)) if type(v) is str else self(v) for v in value]
         if kind is dict:
             return {k: self(v) for k, v in value.items()}
         if kind is tuple:  # (a table row's cells)

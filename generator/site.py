@@ -114,8 +114,14 @@ def sanitise_html(html: str) -> str:
 
 def render_markdown(text: str) -> str:
     """Return sanitised HTML for markdown *text* (tables, fenced code, heading ids)."""
-    conv = md.Markdown(extensions=["tables", "fenced_code", "toc"], output_format="html")
+    conv = _markdown()
+    conv.reset()  # one converter per process: reset() forgets the last text (its link references too)
     return sanitise_html(conv.convert(text or ""))
+
+
+@lru_cache(maxsize=1)
+def _markdown() -> md.Markdown:
+    return md.Markdown(extensions=["tables", "fenced_code", "toc"], output_format="html")
 
 
 def _markdown_filter(text: str) -> Markup:

@@ -125,3 +125,25 @@ def test_redactor_matches_a_regex_over_every_key() -> None:
         for _ in range(150):
             text = "".join(rng.choice(pieces) for _ in range(rng.randint(0, 12)))
             assert clean(text) == expected(text), (case, text)
+
+
+def test_walk_redacts_text_inside_lists_of_numbers_and_skips_number_runs() -> None:
+    # the walk skips a list made only of numbers (chart coordinates) and reads every other list
+    # element by element; the oracle is the redactor applied to each text directly
+    from generator.privacy import redact_value
+
+    subs = {"E0001": "P-AAAA", "Ann Bo": "[name withheld]"}
+    redact = _oracle(subs)
+    value = {"x": [1.5, 2, None, True], "text": [0.5, "E0001 at 85 dB", "Ann Bo"],
+             "nested": [[1, 2.5], ["E0001", 3], [4, "E0001"]], "cells": ("E0001", 1.0),
+             "n": [float("nan"), 12], "empty": [], "words": ["", "E0001", "", "E0002"]}
+    got = redact_value(value, redact)
+    assert got == {"x": [1.5, 2, None, True], "text": [0.5, "P-AAAA at 85 dB", "[name withheld]"],
+                   "nested": [[1, 2.5], ["P-AAAA", 3], [4, "P-AAAA"]], "cells": ("P-AAAA", 1.0),
+                   "n": got["n"], "empty": [], "words": ["", "P-AAAA", "", "E0002"]}
+    assert got["n"][1] == 12 and got["n"][0] != got["n"][0]  # NaN kept
+    assert got["x"] is not value["x"]  # a copy: the page model's list is not shared with the output
+    import numpy as np
+    # numpy scalars are not plain numbers: they take the general path and come back unchanged
+    mixed = [np.float64(1.0), "E0001"]
+    assert redact_value(mixed, redact) == [1.0, "P-AAAA"]

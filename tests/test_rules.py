@@ -114,3 +114,17 @@ def test_peak_flags() -> None:
 def test_unknown_rule_set() -> None:
     with pytest.raises(KeyError):
         load_rule_set("nope")
+
+
+@pytest.mark.parametrize("rule_id", RULE_IDS)
+def test_rule_files_are_read_as_the_safe_loader_reads_them(rule_id: str) -> None:
+    # the rule files are parsed once per process with PyYAML's safe loader (libyaml's when installed);
+    # the oracle is yaml.safe_load, and each call gets its own copy (a change to one is not seen by the next)
+    from generator.rules import _read
+
+    with open(_HERE / f"{rule_id}.yaml", encoding="utf-8") as fh:
+        expected = yaml.safe_load(fh)
+    first = _read(rule_id)
+    assert first == expected
+    first["clauses"] = {"changed": "by a caller"}
+    assert _read(rule_id) == expected

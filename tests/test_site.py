@@ -330,3 +330,20 @@ def test_review_running_header_escapes_the_title_for_css(tmp_path: Path) -> None
     assert ('@top-left { content: "Works \\22 North\\22  \\5c  plant \\3c /style>\\3c script>alert(1)\\3c /script>"; '
             in style), style[:2000]
     assert '@top-right { content: "2025-01-01 to 2025-12-31";' in style
+
+
+def test_markdown_converter_is_reset_between_texts() -> None:
+    # one converter serves every text of a build; each text must render as a fresh converter renders it
+    # (the markdown library itself is the oracle), heading ids included (no "-1" carried over)
+    import markdown as md
+
+    from generator.site import render_markdown, sanitise_html
+
+    # a link reference defined in one text must not resolve in the next
+    texts = ["# Noise\n\n## Noise\n\nsee [the survey][s]\n\n[s]: survey.html", "# Noise\n\nsee [the survey][s]",
+             "# Noise\n\n| a | b |\n|---|---|\n| 1 | 2 |", "```\ncode\n```", "", "# Noise"]
+    for text in texts * 2:
+        fresh = md.Markdown(extensions=["tables", "fenced_code", "toc"], output_format="html")
+        assert render_markdown(text) == sanitise_html(fresh.convert(text))
+    render_markdown("[s]: survey.html")
+    assert "href" not in render_markdown("see [the survey][s]")
