@@ -347,3 +347,76 @@ def test_markdown_converter_is_reset_between_texts() -> None:
         assert render_markdown(text) == sanitise_html(fresh.convert(text))
     render_markdown("[s]: survey.html")
     assert "href" not in render_markdown("see [the survey][s]")
+
+
+def _render(template_dir: Path, name: str, **values: object) -> str:
+    from generator.site import make_environment
+
+    return make_environment(template_dir).get_template(name).render(**values)
+
+
+def test_compiled_templates_are_reused_only_for_the_same_text(tmp_path: Path, monkeypatch) -> None:
+    # compiled templates are kept between builds; jinja's own compiler is the oracle for the output
+    import os
+    import stat
+
+    import jinja2
+
+    from generator.site import TEMPLATE_CACHE_ENV, make_environment
+
+    cache = tmp_path / "cache"
+    monkeypatch.setenv(TEMPLATE_CACHE_ENV, str(cache))
+    own = tmp_path / "templates"
+    own.mkdir()
+    (own / "note.html").write_text("<p>{{ text }}</p>{% for i in items %}\n  [{{ i }}]\n{% endfor %}\n", encoding="utf-8")
+    values = {"text": "a < b", "items": [1, 2]}
+    first = _render(own, "note.html", **values)
+    plain = jinja2.Environment(autoescape=True, keep_trailing_newline=True, trim_blocks=True, lstrip_blocks=True,
+                               loader=jinja2.FileSystemLoader(str(own)))
+    assert first == plain.get_template("note.html").render(**values)
+    assert first.startswith("<p>a &lt; b</p>") and first.endswith("[2]\n")
+    files = sorted(cache.iterdir())
+    assert len(files) == 1
+    assert stat.S_IMODE(os.stat(cache).st_mode) == 0o700 and stat.S_IMODE(os.stat(files[0]).st_mode) & 0o077 == 0
+
+    # a second build loads the compiled template: it renders without compiling
+    def refuse(*args: object, **kwargs: object) -> None:
+        raise AssertionError("compiled again")
+    with monkeypatch.context() as m:
+        m.setattr(jinja2.Environment, "compile", refuse)
+        assert _render(own, "note.html", **values) == first
+    # a changed text is compiled again, not taken from the cache
+    (own / "note.html").write_text("<b>{{ text }}</b>\n", encoding="utf-8")
+    assert _render(own, "note.html", **values) == "<b>a &lt; b</b>\n"
+    # a damaged entry is compiled again
+    for f in cache.iterdir():
+        f.write_bytes(b"not a compiled template")
+    assert _render(own, "note.html", **values) == "<b>a &lt; b</b>\n"
+    # a cache that cannot be made (a file where the folder should be) or is switched off: the build goes on
+    blocked = tmp_path / "blocked"
+    blocked.write_text("x", encoding="utf-8")
+    monkeypatch.setenv(TEMPLATE_CACHE_ENV, str(blocked))
+    assert make_environment(own).bytecode_cache is None
+    assert _render(own, "note.html", **values) == "<b>a &lt; b</b>\n"
+    monkeypatch.setenv(TEMPLATE_CACHE_ENV, "off")
+    assert make_environment(own).bytecode_cache is None
+
+
+def test_a_read_only_template_cache_does_not_stop_a_build(tmp_path: Path, monkeypatch) -> None:
+    # a cache folder that refuses writes (read-only medium): the template is compiled and the build goes on
+    import errno
+
+    import jinja2.bccache
+
+    from generator.site import TEMPLATE_CACHE_ENV
+
+    def read_only(*args: object, **kwargs: object) -> None:
+        raise OSError(errno.EROFS, "Read-only file system")
+    cache = tmp_path / "ro"
+    monkeypatch.setenv(TEMPLATE_CACHE_ENV, str(cache))
+    monkeypatch.setattr(jinja2.bccache.tempfile, "NamedTemporaryFile", read_only)
+    own = tmp_path / "t"
+    own.mkdir()
+    (own / "x.html").write_text("{{ v }}\n", encoding="utf-8")
+    assert _render(own, "x.html", v="ok") == "ok\n"
+    assert list(cache.iterdir()) == []
