@@ -173,3 +173,21 @@ def test_codes_of_every_length_are_the_digest_prefix() -> None:
         n_got = len(next(iter(table.values()))) - 2
         assert table == {p: "P-" + digest32("k", p)[:n_got] for p in ids}
         assert n_got >= n
+
+
+def test_many_macs_match_rfc4231_and_the_standard_library() -> None:
+    # RFC 4231 section 4.3 (test case 2) and 4.7 (test case 6: a 131-byte key, hashed first)
+    from generator.privacy import hmac_sha256_many
+    import hmac
+    import random
+
+    assert hmac_sha256_many(RFC4231_KEY.encode(), [RFC4231_DATA.encode()])[0].hex() == RFC4231_MAC
+    long_key = b"\xaa" * 131
+    assert hmac_sha256_many(long_key, [b"Test Using Larger Than Block-Size Key - Hash Key First"])[0].hex() == \
+        "60e431591ee0b67f0d8a26aacbf5b77f8e0bc6213728c5140546040f0ee37f54"
+    # Python's hmac module as the oracle, keys shorter than, equal to and longer than the 64-byte block
+    rng = random.Random(4231)
+    for size in (0, 1, 20, 63, 64, 65, 200):
+        key = bytes(rng.randrange(256) for _ in range(size))
+        messages = [bytes(rng.randrange(256) for _ in range(rng.randrange(0, 90))) for _ in range(30)]
+        assert hmac_sha256_many(key, messages) == [hmac.digest(key, m, "sha256") for m in messages]
