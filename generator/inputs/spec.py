@@ -60,6 +60,12 @@ class Column:
     #: dates in this column may not lie in the future
     past_only: bool = True
 
+    @property
+    def categories(self) -> tuple[str, ...]:
+        """The categories of a loaded ``choice`` column: the declared choices and ``""`` (a
+        blank or rejected cell), in text order, so sorting by the column sorts as its text."""
+        return tuple(sorted(set(self.choices) | {""}))
+
 
 @dataclass(frozen=True)
 class FileSpec:
