@@ -175,7 +175,7 @@ def _audiometer_checks(programme: Programme, acoustic: float, exhaustive: float
     on_day = day_of_test[bad[day_of_test]]
     flagged = pd.DataFrame({"person_id": _col(aud, "person_id", "").astype(str).iloc[rows].reset_index(drop=True),
                             "date": status["date"].to_numpy()[on_day],
-                            "ear": _col(aud, "ear", "").astype(str).iloc[rows].reset_index(drop=True),
+                            "ear": _col(aud, "ear", "").iloc[rows].astype(str).reset_index(drop=True),
                             "audiometer_id": status["audiometer_id"].iloc[on_day].reset_index(drop=True),
                             "reason": status["reason"].iloc[on_day].reset_index(drop=True)})
     flagged = flagged[FLAGGED_COLUMNS].sort_values(["date", "person_id", "ear"], kind="mergesort") \

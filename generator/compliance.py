@@ -27,7 +27,7 @@ from . import audiometers
 from .audiometers import (  # noqa: F401  (re-exported for the pages and tests)
     ACOUSTIC_MONTHS, BOOTH_LIMITS, EXHAUSTIVE_MONTHS, FLAGGED_COLUMNS, STATUS_COLUMNS, AudiometerChecks,
     booth_judgement)
-from .frames import add_months, as_bool as _bool, as_dates as _as_dates, col as _col, dates as _dates, empty as _empty, lookup as _lookup, person_codes, share as _share, table as _table, ts as _ts
+from .frames import add_months, as_bool as _bool, as_dates as _as_dates, col as _col, dates as _dates, empty as _empty, lookup as _lookup, person_codes, share as _share, text_codes, table as _table, ts as _ts
 from .hearing import LEFT_STATUS
 from .model import Programme
 from .exposure import ExposureResult
@@ -246,13 +246,16 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
     # one row per person and test date; an "exit" kind on either ear marks the test as exit.
     # The rows are grouped on integer codes: person ids factorised in sorted order, and dates
     who, person_ids = person_codes(programme, "audiograms", dated)
-    kind = _col(aud, "kind", "periodic").astype(str)[dated]
-    a = pd.DataFrame({"kind": kind.to_numpy(), "is_exit": kind.eq("exit").to_numpy()})
+    # the kind as integer codes of the loaded column (its words looked at once, not per row)
+    kcode, kword = text_codes(_col(aud, "kind", "periodic"))
+    kcode = kcode[dated]
+    a = pd.DataFrame({"kind": kcode, "is_exit": (kword == "exit")[kcode]})
     a = a[who >= 0].groupby([who[who >= 0], when.to_numpy(dtype="datetime64[ns]")[dated][who >= 0]], sort=True) \
         .agg(kind=("kind", "first"), is_exit=("is_exit", "any"))
     a = pd.DataFrame({"person_id": person_ids.take(a.index.get_level_values(0).to_numpy()),
                       "date": a.index.get_level_values(1).to_numpy(dtype="datetime64[ns]"),
-                      "kind": a["kind"].replace("", "periodic").to_numpy(), "is_exit": a["is_exit"].to_numpy()})
+                      "kind": np.where(kword == "", "periodic", kword).astype(object)[a["kind"].to_numpy(np.int64)],
+                      "is_exit": a["is_exit"].to_numpy()})
 
     tr = _table(programme, "training")
     t = pd.DataFrame({"person_id": _col(tr, "person_id", "").astype(str), "date": _dates(tr)})

@@ -46,6 +46,30 @@ def col(df: pd.DataFrame | None, name: str, default: Any = np.nan) -> pd.Series:
     return pd.Series([default] * len(df), index=df.index)
 
 
+def text_codes(s: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Return (code of each row, words) with ``words[codes]`` the text ``s.astype(str)`` gives.
+
+    A categorical column (the reader's choice columns) gives its own codes and categories, so
+    no row is turned into text; any other column is factorised once.
+    """
+    if isinstance(s.dtype, pd.CategoricalDtype):
+        codes = s.cat.codes.to_numpy().astype(np.int64)
+        words = np.asarray(s.cat.categories.astype(str), dtype=object)
+        if (codes < 0).any():  # a missing value: the text astype(str) gives it
+            codes = np.where(codes < 0, len(words), codes)
+            words = np.append(words, np.asarray(pd.Series([np.nan], dtype=s.dtype).astype(str), dtype=object))
+        return codes, words
+    codes, uniques = pd.factorize(s.astype(str).to_numpy(dtype=object), use_na_sentinel=False)
+    return np.asarray(codes, dtype=np.int64), np.asarray(uniques, dtype=object)
+
+
+def text_at(codes: np.ndarray, words: np.ndarray) -> pd.Series:
+    """Return ``words[codes]`` as a text column of the dtype ``astype(str)`` gives (object, or
+    pandas 3's ``str``), each word made once."""
+    return pd.Series(pd.Index(np.asarray(words, dtype=object), dtype=object).astype(str)
+                     .take(np.asarray(codes, dtype=np.int64)))
+
+
 def dates(df: pd.DataFrame, name: str = "date") -> pd.Series:
     return pd.to_datetime(col(df, name, pd.NaT), errors="coerce").astype("datetime64[ns]")
 

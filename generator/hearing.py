@@ -55,7 +55,7 @@ from .exposure import ExposureResult
 from .findings import WARNING, Finding
 from .inputs.spec import AUDIO_FREQS
 from .model import Programme
-from .frames import person_codes
+from .frames import person_codes, text_at, text_codes
 from .rules import RuleSet, load_rule_set
 
 log = logging.getLogger(__name__)
@@ -423,8 +423,9 @@ def _prepare(programme: Programme) -> pd.DataFrame:
     """
     raw = programme.table("audiograms")
     people = programme.table("people")
-    # the ear, upper-cased: each distinct text folded once (0 left, 1 right, -1 neither)
-    ecode, etext = pd.factorize(_col(raw, "ear", "").astype(str))
+    # the ear, upper-cased: each distinct text (a category of the loaded column) folded once
+    # (0 left, 1 right, -1 neither)
+    ecode, etext = text_codes(_col(raw, "ear", ""))
     efold = pd.Series(etext, dtype=object).astype(str).str.upper().to_numpy(object)
     side = np.r_[np.where(efold == "L", 0, np.where(efold == "R", 1, -1)), -1][ecode]
     date_all = _dates(_col(raw, "date", pd.NaT))
@@ -444,11 +445,14 @@ def _prepare(programme: Programme) -> pd.DataFrame:
     def take(s: pd.Series) -> pd.Series:
         return s.take(pos).reset_index(drop=True)
 
+    # the kind of test from the loaded column's codes (a blank kind is a periodic test)
+    kcode, kword = text_codes(_col(raw, "kind", ""))
+
     ag = pd.DataFrame({
         "person_id": take(ids_all),
         "ear": _words(right.astype(np.int64), ["L", "R"]),
         "date": pd.Series(t[order], dtype="datetime64[ns]"),
-        "kind": take(_col(raw, "kind", "")).astype(str).replace("", "periodic"),
+        "kind": text_at(kcode[pos], np.where(kword == "", "periodic", kword)),
         "quiet_hours": pd.to_numeric(take(_col(raw, "quiet_hours")), errors="coerce"),
         "audiometer_id": take(_col(raw, "audiometer_id", "")).fillna("").astype(str),
         "_row": pd.to_numeric(take(_col(raw, "_row")), errors="coerce"),

@@ -733,10 +733,13 @@ def wide_to_long(spec: FileSpec, table: pd.DataFrame, findings: Findings, rel: s
     """
     wide_cols = {f"{p}_{f}_{e}" for f in AUDIO_FREQS for e, _ in WIDE_EARS for p in ("hl", "nr")}
     common = [c for c in table.columns if c not in wide_cols]
+    cats = spec.column("ear").categories  # the loaded choice column's categories (reader._choice)
     parts = []
     for e, ear in WIDE_EARS:
         part = table[common].copy()
-        part["ear"] = pd.Series([ear] * len(table), index=table.index, dtype=str)
+        part["ear"] = pd.Series(pd.Categorical.from_codes(np.full(len(table), cats.index(ear), dtype=np.int8),
+                                                          categories=pd.Index(list(cats), dtype=object)),
+                                index=table.index)
         tested = np.zeros(len(table), dtype=bool)
         for f in AUDIO_FREQS:
             hl = table[f"hl_{f}_{e}"]

@@ -1334,6 +1334,16 @@ def _as_ns(values: pd.Series, ok: np.ndarray) -> pd.Series:
     return values.where(pd.Series(ok, index=values.index)).astype("datetime64[ns]")
 
 
+def choice_dtype(c: Column) -> pd.CategoricalDtype:
+    """Return the dtype of choice column *c* as loaded (the same whatever the file holds)."""
+    return pd.CategoricalDtype(pd.Index(list(c.categories), dtype=object))
+
+
+def choice_column(c: Column, values: Any, index: pd.Index | None = None) -> pd.Series:
+    """Return *values* (each one of *c*'s categories) as a choice column of the loaded dtype."""
+    return pd.Series(pd.Categorical(np.asarray(values, dtype=object), dtype=choice_dtype(c)), index=index)
+
+
 class _Converter:
     """Convert the text cells of one table to the declared kinds, recording problems."""
 
@@ -1414,17 +1424,25 @@ class _Converter:
                       key=f"{name}: formula")
 
     def _choice(self, c: Column, s: pd.Series, bl: np.ndarray) -> pd.Series:
-        """Normalise choices case-insensitively to their declared spelling."""
+        """Normalise choices case-insensitively to their declared spelling, as a categorical.
+
+        The text is factorised once; each distinct cell is matched to its declared spelling and
+        the column is made from the codes (categories: ``c.categories``), so no Python
+        runs per row. A cell that is not a choice is reported and becomes ``""``.
+        """
         canon = {ch.lower(): ch for ch in c.choices}
+        cats = c.categories
+        at = {w: i for i, w in enumerate(cats)}
         codes, uniques = pd.factorize(s)
-        mapped = np.asarray([canon.get(str(u).lower()) for u in uniques] + [None], dtype=object)
-        values = mapped[codes]
-        ok = np.asarray([v is not None for v in mapped], dtype=bool)[codes] | bl
+        known = [canon.get(str(u).lower()) for u in uniques]
+        u_code = np.asarray([-1 if w is None else at[w] for w in known] + [-1], dtype=np.int8)
+        cell = u_code[codes]
+        ok = (cell >= 0) | bl
         self.sink.add(~ok, c.name, ERROR,
                       _each("'{v}' is not one of: " + ", ".join(ch for ch in c.choices if ch), v=s),
                       key=f"{c.name}: choice")
-        values[~ok | bl] = ""
-        return pd.Series(values, index=s.index, dtype=str)
+        cell[~ok | bl] = at[""]
+        return pd.Series(pd.Categorical.from_codes(cell, dtype=choice_dtype(c)), index=s.index)
 
     def _past(self, c: Column, values: pd.Series, s: pd.Series, limit: pd.Timestamp) -> None:
         """Report dates after the build date."""
@@ -1576,7 +1594,9 @@ def _make_empty(spec: FileSpec) -> pd.DataFrame:
     """Build the empty table of *spec* (cached by empty_table)."""
     cols: dict[str, pd.Series] = {}
     for c in spec.columns:
-        if c.kind in ("id", "text", "choice"):
+        if c.kind == "choice":
+            cols[c.name] = choice_column(c, [])
+        elif c.kind in ("id", "text"):
             cols[c.name] = pd.Series([], dtype=str)
         elif c.kind in ("date", "datetime", "date_or_year"):
             cols[c.name] = pd.Series([], dtype="datetime64[ns]")
@@ -1791,7 +1811,9 @@ def _derive_groups(people: pd.DataFrame, spec: FileSpec) -> pd.DataFrame:
     for c in spec.columns:
         if c.name == "group":
             data[c.name] = pd.Series(names, dtype=str)
-        elif c.kind in ("id", "text", "choice"):
+        elif c.kind == "choice":
+            data[c.name] = choice_column(c, [""] * len(names))
+        elif c.kind in ("id", "text"):
             data[c.name] = pd.Series([""] * len(names), dtype=str)
         else:
             default = float(c.default) if isinstance(c.default, (int, float)) else np.nan

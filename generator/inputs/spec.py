@@ -8,8 +8,15 @@ Conventions of the loaded DataFrames (what every computation module may rely on)
 * column names are lower-case, exactly as named here; unknown columns are kept (warned)
   as categorical text (stripped like text columns; compare with ``==`` or ``.astype(object)``);
 * ``_row`` (int) is the line number of the record in its source file (header = line 1);
-* ``id``/``text``/``choice`` columns hold Python ``str``; a blank cell is ``""``;
-  choices are lower-cased (ears and sex upper-cased: ``L``/``R``, ``M``/``F``);
+* ``id``/``text`` columns hold Python ``str``; a blank cell is ``""``;
+* ``choice`` columns are ``pd.Categorical``: each cell in its declared spelling (matched
+  without regard to case: ``L``/``R``, ``M``/``F``, ``personal``, ...), ``""`` for a blank
+  or rejected cell. The categories are always the declared choices plus ``""`` in text
+  order (:attr:`Column.categories`), whatever the file holds, so sorting by the column
+  sorts as its text and tables of one file concatenate with one dtype. Compare with
+  ``==``/``.eq``/``isin``; read codes and categories (``frames.text_codes``) rather than
+  turning every row into text; ``.astype(object)`` before ``map(...).fillna(...)``,
+  ``replace`` or ``.str``; group on such a column only with ``observed=True`` given;
 * ``date`` columns are ``datetime64[ns]`` (``NaT`` when blank); ``datetime`` likewise;
 * ``float``/``level``/``hours`` columns are ``float64`` (``NaN`` when blank);
 * ``int`` columns are ``float64`` too (so blanks stay ``NaN``); cast where needed;
@@ -59,6 +66,12 @@ class Column:
     private: bool = False
     #: dates in this column may not lie in the future
     past_only: bool = True
+
+    @property
+    def categories(self) -> tuple[str, ...]:
+        """The categories of a loaded ``choice`` column: the declared choices and ``""`` (a
+        blank or rejected cell), in text order, so sorting by the column sorts as its text."""
+        return tuple(sorted(set(self.choices) | {""}))
 
 
 @dataclass(frozen=True)

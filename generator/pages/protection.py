@@ -32,7 +32,8 @@ def _num(v: Any, digits: int = 1) -> str:
 def catalogue_table(cat: pd.DataFrame) -> Table:
     """Return the protector catalogue with the derated values by method."""
     df = cat.copy()
-    df["type_label"] = df["type"].map(TYPE_LABELS).fillna(df["type"])
+    types = df["type"].astype(object)  # a categorical column: its map would keep the categories
+    df["type_label"] = types.map(TYPE_LABELS).fillna(types)
     df["hml"] = [charts.BLANK if np.isnan(h) else f"{h:g}/{m:g}/{lo:g}"
                  for h, m, lo in zip(df["h"].astype(float), df["m"].astype(float), df["l"].astype(float))]
     df["octave"] = np.where(df["has_octave"], "yes", "no")
