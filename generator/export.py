@@ -301,6 +301,29 @@ def public_table(spec: ExportSpec, frame: pd.DataFrame, ctx: SiteContext) -> pd.
     return table
 
 
+def _holds_text(col: pd.Series) -> bool:
+    """Return True when *col* is a column of texts, whatever pandas stores them as: Python objects,
+    the string dtype (pandas 3's default, Arrow-backed with pyarrow) or a categorical of texts."""
+    kind = col.dtype
+    if isinstance(kind, pd.CategoricalDtype):
+        return _holds_text(pd.Series(kind.categories))
+    if not (kind == object or isinstance(kind, pd.StringDtype)):
+        return False
+    return all(isinstance(v, str) for v in col.dropna().tolist())
+
+
+def redact_texts(table: pd.DataFrame, redact: Callable[[str], str]) -> pd.DataFrame:
+    """Return *table* with every text column but the person columns (already coded) passed through
+    *redact*, each distinct text once; such a column comes back as Python text objects."""
+    out = table.copy(deep=False)
+    for col in out.columns:
+        if col in PERSON_COLUMNS or not _holds_text(out[col]):
+            continue
+        texts = out[col].astype(object).where(out[col].notna(), "").astype(str)
+        out[col] = texts.map({t: redact(t) for t in sorted(set(texts.tolist()))}).astype(object)
+    return out
+
+
 def export_tables(ctx: SiteContext) -> dict[str, pd.DataFrame]:
     """Return every exported table as name -> frame, as the export writes it (coded, redacted, suppressed)."""
     people = ctx.programme.table("people")
@@ -313,12 +336,7 @@ def export_tables(ctx: SiteContext) -> dict[str, pd.DataFrame]:
             continue
         table = public_table(spec, frame, ctx)
         if not ctx.restricted:
-            table = pseudonymise(table, ctx.code, ids)
-            for col in table.columns:
-                if col not in PERSON_COLUMNS and table[col].dtype == object and \
-                        all(isinstance(v, str) for v in table[col].dropna().tolist()):
-                    texts = table[col].astype("string").fillna("")
-                    table[col] = texts.map({t: ctx.redact(t) for t in sorted(set(texts.tolist()))}).astype(object)
+            table = redact_texts(pseudonymise(table, ctx.code, ids), ctx.redact)
         tables[spec.file] = table.drop(columns=[c for c in ("subject_type",) if c in table.columns])
     return tables
 

@@ -11,6 +11,7 @@ import re
 from pathlib import Path
 
 import pandas as pd
+import pytest
 
 from generator.demo import write_demo
 from generator.inputs.spec import FILES
@@ -147,3 +148,27 @@ def test_walk_redacts_text_inside_lists_of_numbers_and_skips_number_runs() -> No
     # numpy scalars are not plain numbers: they take the general path and come back unchanged
     mixed = [np.float64(1.0), "E0001"]
     assert redact_value(mixed, redact) == [1.0, "P-AAAA"]
+
+
+@pytest.mark.parametrize("storage", ["object", "str", "string", "category", "arrow"])
+def test_export_redacts_text_columns_whatever_their_dtype(storage: str) -> None:
+    # pandas 2 keeps text as Python objects, pandas 3 as its string dtype (Arrow-backed with pyarrow),
+    # and choice columns load as categoricals: every one of them is free text to redact on public exports
+    from generator.export import PERSON_COLUMNS, redact_texts
+
+    if storage == "arrow":
+        pytest.importorskip("pyarrow")
+        dtype: object = pd.StringDtype("pyarrow")
+    else:
+        dtype = {"object": object, "str": pd.StringDtype(), "string": "string", "category": "category"}[storage]
+    subs = {"E0001": "P-AAAA", "Ann Bo": "[name withheld]"}
+    redact = _oracle(subs)
+    person = sorted(PERSON_COLUMNS)[0]
+    table = pd.DataFrame({"detail": pd.Series(["retest of E0001", None, "Ann Bo asked", "nothing"], dtype=dtype),
+                          person: ["E0001"] * 4, "level": [85.0, 86.0, None, 90.0]})
+    before = table.copy()
+    out = redact_texts(table, redact)
+    assert out["detail"].tolist() == ["retest of P-AAAA", "", "[name withheld]" + " asked", "nothing"]
+    assert out[person].tolist() == ["E0001"] * 4  # person columns are coded elsewhere, not here
+    assert out["level"].equals(table["level"])
+    pd.testing.assert_frame_equal(table, before)  # the input is left as it was
