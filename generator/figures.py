@@ -196,7 +196,8 @@ def _share(name: str, num: Any, den: Any) -> FigureValue:
 
 def _must_active(s: pd.DataFrame) -> pd.Series:
     """People who must have a current audiogram: exposed, employed, past their baseline time limit."""
-    return s["must_enrol"] & s["active"] & ~s["baseline_status"].isin(["scheduled", "due_soon"])
+    base = s["baseline_status"].to_numpy(object, na_value="")
+    return s["must_enrol"] & s["active"] & ~((base == "scheduled") | (base == "due_soon"))
 
 
 def top_edge(rule: RuleSet) -> float | None:
@@ -294,8 +295,12 @@ def _status_share(name: str, num: Callable[[pd.DataFrame], pd.Series],
 
 
 def _overdue_audiograms(s: pd.DataFrame) -> int:
-    return int(s["audiogram_status"].eq("overdue").sum() + s["baseline_status"].eq("overdue").sum()
-               + s["exit_status"].eq("overdue").sum())
+    return _overdue(s, "audiogram_status") + _overdue(s, "baseline_status") + _overdue(s, "exit_status")
+
+
+def _overdue(s: pd.DataFrame, col: str) -> int:
+    """Return how many rows of status column *col* say "overdue" (compared as Python texts, whatever the dtype)."""
+    return int(np.count_nonzero(s[col].to_numpy(object, na_value="") == "overdue"))
 
 
 # ---------------------------------------------------------------------------------------
@@ -353,10 +358,10 @@ FIGURES: tuple[Figure, ...] = (
     Figure("overdue_baselines", "Overdue baseline audiograms", COUNT,
            "people in scope whose baseline audiogram is past its time limit", _AS_OF, "", "baseline",
            "programme.html#due", _EVERYWHERE + ("trends",), True, True,
-           _status("overdue_baselines", lambda s: s["baseline_status"].eq("overdue").sum())),
+           _status("overdue_baselines", lambda s: _overdue(s, "baseline_status"))),
     Figure("overdue_training", "Overdue training", COUNT, "people in scope whose training is past due", _AS_OF,
            "", "training", "programme.html#due", _EVERYWHERE + ("programme", "trends"), True, True,
-           _status("overdue_training", lambda s: s["training_status"].eq("overdue").sum())),
+           _status("overdue_training", lambda s: _overdue(s, "training_status"))),
     Figure("current_audiogram_share", "With a current audiogram", SHARE,
            "people who must be in the programme with an audiogram within the audiogram interval", _AS_OF,
            "people who must be in the programme, employed, past their baseline time limit", "periodic",

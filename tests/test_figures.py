@@ -208,3 +208,21 @@ def test_snapshot_share_and_top_band() -> None:
     assert (share.numerator, share.denominator) == (2, 3) and share.value == pytest.approx(0.6667)
     # 29 CFR 1910.95(b)(1): 90 dB(A) TWA; b is exposed only from 2026, after the as-of date
     assert F.BY_NAME["exposed_top_band"].evaluate(snap).value == 1
+
+
+@pytest.mark.parametrize("dtype", [object, "string", "str"])
+def test_status_counts_read_any_text_dtype(dtype: object) -> None:
+    # the status counts compare texts as Python objects; pandas' own eq/isin are the oracle, missing cells included
+    import random
+
+    from generator.figures import _must_active, _overdue
+
+    rng = random.Random(7)
+    words = ["overdue", "open", "scheduled", "due_soon", "done", None]
+    s = pd.DataFrame({c: pd.Series([rng.choice(words) for _ in range(300)], dtype=dtype)
+                      for c in ("audiogram_status", "baseline_status")})
+    s["must_enrol"] = [rng.random() < 0.7 for _ in range(300)]
+    s["active"] = [rng.random() < 0.8 for _ in range(300)]
+    assert _overdue(s, "audiogram_status") == int(s["audiogram_status"].eq("overdue").fillna(False).sum()) > 0
+    expected = s["must_enrol"] & s["active"] & ~s["baseline_status"].isin(["scheduled", "due_soon"]).fillna(False)
+    assert _must_active(s).astype(bool).tolist() == expected.astype(bool).tolist()
