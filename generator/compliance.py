@@ -27,7 +27,7 @@ from . import audiometers
 from .audiometers import (  # noqa: F401  (re-exported for the pages and tests)
     ACOUSTIC_MONTHS, BOOTH_LIMITS, EXHAUSTIVE_MONTHS, FLAGGED_COLUMNS, STATUS_COLUMNS, AudiometerChecks,
     booth_judgement)
-from .frames import add_months, as_bool as _bool, as_dates as _as_dates, col as _col, dates as _dates, empty as _empty, lookup as _lookup, person_codes, share as _share, text_codes, table as _table, ts as _ts
+from .frames import add_months, as_bool as _bool, as_dates as _as_dates, col as _col, dates as _dates, empty as _empty, lookup as _lookup, loaded_person_codes, person_codes, share as _share, text_codes, table as _table, ts as _ts
 from .hearing import LEFT_STATUS
 from .model import Programme
 from .exposure import ExposureResult
@@ -132,6 +132,9 @@ class ComplianceInputs:
     baseline_months: float | None
     interval_months: float | None
     training_months: float | None
+    #: the person code of each row of people, audiograms, training and fits, in one code space
+    #: in which codes sort as the ids do (frames.loaded_person_codes); None: coded from the ids
+    codes: dict[str, np.ndarray] | None = field(default=None, repr=False, compare=False)
     #: the person keys below, made on first use (every as-of date uses the same)
     _keys: PersonKeys | None = field(default=None, init=False, repr=False, compare=False)
 
@@ -164,26 +167,45 @@ class PersonKeys:
 
     @staticmethod
     def of(inp: ComplianceInputs) -> PersonKeys:
-        p = inp.people.sort_values("person_id", kind="mergesort").reset_index(drop=True)
-        ids = pd.Index(p["person_id"].astype(str).to_numpy())
-        if not ids.is_unique:  # one person on several rows: each row gets the person's records
-            ids = pd.Index(ids.drop_duplicates())
-        person, acode = _codes(ids, p["person_id"]), _codes(ids, inp.audiograms["person_id"])
+        c = inp.codes
+        if c is not None and not all(len(c[k]) == len(df) for k, df in (
+                ("people", inp.people), ("audiograms", inp.audiograms), ("training", inp.training),
+                ("fits", inp.fits))):
+            c = None
+        if c is None:  # no codes from the load: code the ids here
+            p = inp.people.sort_values("person_id", kind="mergesort").reset_index(drop=True)
+            ids = pd.Index(p["person_id"].astype(str).to_numpy())
+            if not ids.is_unique:  # one person on several rows: each row gets the person's records
+                ids = pd.Index(ids.drop_duplicates())
+            person, acode = _codes(ids, p["person_id"]), _codes(ids, inp.audiograms["person_id"])
+            tcode, fcode = _codes(ids, inp.training["person_id"]), _codes(ids, inp.fits["person_id"])
+        else:  # the person codes of the load, renumbered by binary search among the people's
+            order = np.argsort(c["people"], kind="stable")
+            p = inp.people.iloc[order].reset_index(drop=True)
+            gp = c["people"][order]
+            distinct = np.ones(len(gp), dtype=bool)
+            distinct[1:] = gp[1:] != gp[:-1]
+            ids = pd.Index(p["person_id"].astype(str).to_numpy()[distinct])
+            person, acode = _code_among(gp[distinct], gp), _code_among(gp[distinct], c["audiograms"])
+            tcode, fcode = _code_among(gp[distinct], c["training"]), _code_among(gp[distinct], c["fits"])
         a = inp.audiograms
         known = acode >= 0
         adate = a["date"].to_numpy(dtype="datetime64[ns]")[known]
         # exit audiogram: one of kind exit, or one dated within the window before the leave date
-        rows = pd.DataFrame({"code": person, "row": np.arange(len(p)),
-                             "leave": p["leave_date"].to_numpy(dtype="datetime64[ns]")})
-        ex = pd.DataFrame({"code": acode[known], "date": adate, "is_exit": a["is_exit"].to_numpy(dtype=bool)[known]}
-                          ).merge(rows, on="code", how="inner")
+        leave = p["leave_date"].to_numpy(dtype="datetime64[ns]")
+        if len(ids) == len(p):  # one row per person: the row is the person's code
+            ex = pd.DataFrame({"row": acode[known], "date": adate, "is_exit": a["is_exit"].to_numpy(dtype=bool)[known]})
+            ex["leave"] = leave[ex["row"].to_numpy()]
+        else:
+            rows = pd.DataFrame({"code": person, "row": np.arange(len(p)), "leave": leave})
+            ex = pd.DataFrame({"code": acode[known], "date": adate,
+                               "is_exit": a["is_exit"].to_numpy(dtype=bool)[known]}).merge(rows, on="code", how="inner")
         ex = ex[ex["is_exit"] | (ex["date"] >= ex["leave"] - pd.Timedelta(days=EXIT_WINDOW_DAYS))]
         f = inp.fits
-        fcode = _codes(ids, f["person_id"])
         fdate = f["date"].to_numpy(dtype="datetime64[ns]")
         firsts = [_first_by_code(fcode[sel], fdate[sel], len(ids)) for sel in (
             f["protector_id"].ne("").to_numpy() & (fcode >= 0), f["par"].notna().to_numpy() & (fcode >= 0))]
-        return PersonKeys(p, ids, person, acode, _codes(ids, inp.training["person_id"]), fcode,
+        return PersonKeys(p, ids, person, acode, tcode, fcode,
                           _first_by_code(acode[known], adate, len(ids)), firsts[0], firsts[1],
                           _first_by_code(ex["row"].to_numpy(), ex["date"].to_numpy(dtype="datetime64[ns]"), len(p)))
 
@@ -240,26 +262,8 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
     p["first_exposed_date"] = p["first_exposed_date"].where(
         p["first_exposed_date"].notna() | ~p["must_enrol"], p["hire_date"])
 
-    aud = _table(programme, "audiograms")
-    when = _dates(aud)
-    dated = when.notna().to_numpy()
-    # one row per person and test date; an "exit" kind on either ear marks the test as exit.
-    # The rows are grouped on integer codes: person ids factorised in sorted order, and dates
-    who, person_ids = person_codes(programme, "audiograms", dated)
-    # the kind as integer codes of the loaded column (its words looked at once, not per row)
-    kcode, kword = text_codes(_col(aud, "kind", "periodic"))
-    kcode = kcode[dated]
-    a = pd.DataFrame({"kind": kcode, "is_exit": (kword == "exit")[kcode]})
-    a = a[who >= 0].groupby([who[who >= 0], when.to_numpy(dtype="datetime64[ns]")[dated][who >= 0]], sort=True) \
-        .agg(kind=("kind", "first"), is_exit=("is_exit", "any"))
-    a = pd.DataFrame({"person_id": person_ids.take(a.index.get_level_values(0).to_numpy()),
-                      "date": a.index.get_level_values(1).to_numpy(dtype="datetime64[ns]"),
-                      "kind": np.where(kword == "", "periodic", kword).astype(object)[a["kind"].to_numpy(np.int64)],
-                      "is_exit": a["is_exit"].to_numpy()})
-
-    tr = _table(programme, "training")
-    t = pd.DataFrame({"person_id": _col(tr, "person_id", "").astype(str), "date": _dates(tr)})
-    t = t.dropna(subset=["date"]).drop_duplicates().sort_values(["person_id", "date"], kind="mergesort")
+    a, arows = _audiogram_days(programme)
+    t, trows = _training_days(programme)
 
     fits = _table(programme, "protector_fits")
     f = pd.DataFrame({"person_id": _col(fits, "person_id", "").astype(str),
@@ -281,7 +285,49 @@ def _gather(programme: Programme, exposure: ExposureResult | None, rule: RuleSet
                      "judged as due.")
     if training is None:
         notes.append(f"{rule.short} sets no training interval: only a first training is judged as due.")
-    return ComplianceInputs(p, a, t, f, rule, baseline, interval, training), notes
+    codes = None
+    loaded = loaded_person_codes(programme, "people", "audiograms", "training", "protector_fits")
+    if loaded is not None:
+        codes = {"people": loaded[0], "audiograms": loaded[1][arows], "training": loaded[2][trows],
+                 "fits": loaded[3]}
+    return ComplianceInputs(p, a, t, f, rule, baseline, interval, training, codes), notes
+
+
+def _audiogram_days(programme: Programme) -> tuple[pd.DataFrame, np.ndarray]:
+    """Return one row per person and test date (person_id, date, kind, is_exit), sorted by
+    person and date, and the position in the audiograms table of each one's first row.
+
+    An "exit" kind on either ear marks the test as exit. The rows are grouped on integer
+    codes (person ids factorised in sorted order, and dates), never on the id text.
+    """
+    aud = _table(programme, "audiograms")
+    when = _dates(aud)
+    dated = when.notna().to_numpy()
+    who, person_ids = person_codes(programme, "audiograms", dated)
+    # the kind as integer codes of the loaded column (its words looked at once, not per row)
+    kcode, kword = text_codes(_col(aud, "kind", "periodic"))
+    kcode = kcode[dated]
+    is_exit = (kword == "exit")[kcode]
+    adate = when.to_numpy(dtype="datetime64[ns]")[dated]
+    run, at = _runs(who, adate.view(np.int64), who >= 0)
+    kinds = np.where(kword == "", "periodic", kword).astype(object)[kcode[at]]
+    a = pd.DataFrame({"person_id": person_ids.take(who[at]), "date": adate[at], "kind": kinds,
+                      "is_exit": np.bincount(run[who >= 0], weights=is_exit[who >= 0], minlength=len(at)) > 0})
+    return a, np.flatnonzero(dated)[at]
+
+
+def _training_days(programme: Programme) -> tuple[pd.DataFrame, np.ndarray]:
+    """Return the dated training records, one per person and date (the first row), sorted by
+    person and date, with their labels, and the position of each in the training table."""
+    tr = _table(programme, "training")
+    tdate = _dates(tr)
+    tdated = tdate.notna().to_numpy()
+    tcode, _ = person_codes(programme, "training", tdated)
+    _, tat = _runs(tcode, tdate.to_numpy(dtype="datetime64[ns]")[tdated].view(np.int64),
+                   np.ones(len(tcode), dtype=bool))
+    tpos = np.flatnonzero(tdated)[tat]
+    return pd.DataFrame({"person_id": _col(tr, "person_id", "").astype(str).iloc[tpos],
+                         "date": tdate.iloc[tpos]}), tpos
 
 
 # ---------------------------------------------------------------------------------------
@@ -356,6 +402,32 @@ def _present(first: np.ndarray, q_dates: np.ndarray) -> np.ndarray:
 
 def _codes(ids: pd.Index, values: pd.Series) -> np.ndarray:
     return ids.get_indexer(values.astype(str).to_numpy())
+
+
+def _code_among(known: np.ndarray, codes: np.ndarray) -> np.ndarray:
+    """Return the position of each of *codes* in the sorted distinct *known* codes (-1: not there)."""
+    if len(known) == 0:
+        return np.full(len(codes), -1, dtype=np.int64)
+    at = np.minimum(np.searchsorted(known, codes), len(known) - 1)
+    return np.where(known[at] == codes, at, -1).astype(np.int64)
+
+
+def _runs(codes: np.ndarray, values: np.ndarray, use: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Group the rows *use* selects by (code, value), both integers, in sorted order.
+
+    Return (the group number of each row, -1 for rows not used; the first row of each group,
+    in group order): a sorted groupby's groups, and drop_duplicates' rows sorted by the keys.
+    """
+    rows = np.flatnonzero(use)
+    rank, uniq = pd.factorize(values[rows], sort=True)  # few distinct values (dates)
+    key = codes[rows].astype(np.int64) * max(len(uniq), 1) + rank
+    order = rows[np.argsort(key, kind="stable")]  # stable: a group's rows in row order (records come sorted)
+    k = np.sort(key, kind="stable")
+    new = np.ones(len(order), dtype=bool)
+    new[1:] = k[1:] != k[:-1]
+    run = np.full(len(codes), -1, dtype=np.int64)
+    run[order] = np.cumsum(new) - 1
+    return run, order[new]
 
 
 def _plus_months(dates: pd.Series, months: float | None) -> pd.Series:

@@ -100,3 +100,37 @@ def person_codes(programme: Programme, name: str, rows: np.ndarray | None = None
     ids = col(df, "person_id", "").astype(str).to_numpy(dtype=object)
     codes, uniques = pd.factorize(ids if rows is None else ids[rows], sort=True)
     return np.asarray(codes, dtype=np.int64), np.asarray(uniques, dtype=object)
+
+
+def shared_codes(*columns: Any) -> list[np.ndarray]:
+    """Return the code of each value of every column in *columns*, in one code space: the
+    values of all of them factorised together in sorted order (equal text, equal code; codes
+    sort as the text does). Missing cells count as ``""``."""
+    cells = [pd.Series(c).fillna("").astype(str).to_numpy(dtype=object) for c in columns]
+    joined = np.concatenate(cells) if cells else np.array([], dtype=object)
+    codes = np.asarray(pd.factorize(joined, sort=True)[0], dtype=np.int64)
+    return np.split(codes, np.cumsum([len(c) for c in cells])[:-1].tolist()) if cells else []
+
+
+def person_keys(programme: Programme, *names: str) -> list[np.ndarray]:
+    """Return the person code of every row of each table in *names*, in one code space in which
+    codes sort as the ids do (equal id, equal code): the person key coded at load
+    (model.PersonIndex) when it covers these tables, else their ids factorised together."""
+    got = loaded_person_codes(programme, *names)
+    return got if got is not None else shared_codes(*[col(table(programme, n), "person_id", "") for n in names])
+
+
+def loaded_person_codes(programme: Programme, *names: str) -> list[np.ndarray] | None:
+    """Return the person code (model.PersonIndex) of every row of each table in *names*, or None
+    when the person key coded at load does not cover them all (or has a missing cell)."""
+    persons = getattr(programme, "persons", None)
+    if persons is None:
+        return None
+    got = []
+    for n in names:
+        df = table(programme, n)
+        c = persons.codes.get(n)
+        if "person_id" not in df.columns or c is None or len(c) != len(df) or (len(c) and c.min() < 0):
+            return None
+        got.append(np.asarray(c, dtype=np.int64))
+    return got

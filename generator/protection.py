@@ -34,6 +34,7 @@ import numpy as np
 import pandas as pd
 
 from .findings import Finding, WARNING
+from .frames import person_keys, shared_codes
 from .inputs.spec import OCTAVE_BANDS
 from .exposure import ExposureResult
 from .model import Programme
@@ -231,80 +232,89 @@ def en458_band(protected: Any, action_level: float = EN458_ACTION_LEVEL) -> np.n
 # tables
 
 
-def _energy_mean(df: pd.DataFrame, by: str, cols: list[str], weight: str) -> pd.DataFrame:
-    """Return duration-weighted energy means of *cols* per *by* (NaN where any row lacks a value)."""
-    e = np.power(10.0, 0.1 * df[cols].to_numpy(dtype=float)) * df[[weight]].to_numpy(dtype=float)
-    tmp = pd.DataFrame(e, columns=cols, index=df.index)
-    tmp[by] = df[by].to_numpy()
-    tmp["_w"] = df[weight].to_numpy(dtype=float)
-    g = tmp.groupby(by, sort=True)
-    s = g[cols].sum(min_count=1)
-    missing = tmp[cols].isna().groupby(tmp[by]).any()
-    w = g["_w"].sum()
-    out = 10.0 * np.log10(s.div(w, axis=0))
-    return out.mask(missing.reindex(out.index))
+def _energy_mean(keys: np.ndarray, values: np.ndarray, weight: np.ndarray, n: int) -> np.ndarray:
+    """Return per key 0..n-1 the weight-weighted energy mean of each column of *values* (rows
+    of *keys*): NaN where any row of the key lacks a value, and for a key without rows."""
+    out = np.full((n, values.shape[1]), np.nan)
+    if len(keys) == 0:
+        return out
+    e = np.power(10.0, 0.1 * values) * weight[:, None]
+    # the sums are pandas' grouped sums (compensated), as the id-keyed groupby made them
+    sums = pd.DataFrame(np.column_stack([e, weight])).groupby(keys, sort=True).sum()
+    at = sums.index.to_numpy(dtype=np.int64)
+    s = sums.to_numpy(dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out[at] = 10.0 * np.log10(s[:, :-1] / s[:, -1:])
+    for j in range(values.shape[1]):
+        out[np.bincount(keys, weights=np.isnan(e[:, j]), minlength=n) > 0, j] = np.nan
+    return out
 
 
-def spectra(noise: pd.DataFrame, people: pd.DataFrame, end: pd.Timestamp | None = None) -> pd.DataFrame:
+def spectra(noise: pd.DataFrame, people: pd.DataFrame, end: pd.Timestamp | None = None, *,
+            codes: tuple[np.ndarray, np.ndarray] | None = None) -> pd.DataFrame:
     """Return per person the octave spectrum and LC − LA to use (own personal runs, else the group's).
 
-    Runs dated after *end* are left out.
+    Runs dated after *end* are left out. *codes*: the person code of each row of *noise* and
+    of *people* in one code space (frames.person_keys); made from the ids when not given.
 
     Columns: person_id, spectrum_source ('personal' | 'group' | ''), oct_63 … oct_8000,
-    la_spec, lc_minus_la.
+    la_spec, lc_minus_la; one row per row of *people*, in its order.
     """
     oct_cols = [f"oct_{f}" for f in OCTAVE_BANDS]
-    base = people[["person_id", "group"]].copy()
+    base = people[["person_id", "group"]]
     empty = base.assign(spectrum_source="", **{c: np.nan for c in oct_cols}, la_spec=np.nan,
                         lc_minus_la=np.nan)[["person_id", "spectrum_source"] + oct_cols
                                             + ["la_spec", "lc_minus_la"]]
     if noise.empty:
         return empty
-    n = noise.copy() if end is None or "date" not in noise.columns else \
-        noise[noise["date"].isna() | (noise["date"] <= end)].copy()
-    if n.empty:
+    rows = np.ones(len(noise), dtype=bool) if end is None or "date" not in noise.columns else \
+        (noise["date"].isna() | (noise["date"] <= end)).to_numpy(dtype=bool)
+    if not rows.any():
         return empty
-    for c in oct_cols + ["lceq", "laeq", "duration_h"]:
-        if c not in n.columns:
-            n[c] = np.nan
-    bands = n[oct_cols].to_numpy(dtype=float)
+    m = int(rows.sum())
+
+    def num(c: str) -> np.ndarray:
+        return noise[c].to_numpy(dtype=float)[rows] if c in noise.columns else np.full(m, np.nan)
+
+    bands = np.column_stack([num(c) for c in oct_cols])
     has_bands = ~np.isnan(bands[:, 1:]).any(axis=1)
-    la_b = weighted_level(bands, "A")
-    lc_b = weighted_level(bands, "C")
-    n["_la"] = np.where(has_bands, la_b, n["laeq"].to_numpy(dtype=float))
-    n["_lc"] = np.where(has_bands, lc_b, n["lceq"].to_numpy(dtype=float))
-    n.loc[n["_lc"].isna(), "_la"] = np.nan
-    n["_has_bands"] = has_bands
-    person_group = people.set_index("person_id")["group"]
-    pid = n["person_id"] if "person_id" in n.columns else pd.Series("", index=n.index)
-    grp = n["group"] if "group" in n.columns else pd.Series("", index=n.index)
-    n["_group"] = grp.where(grp != "", pid.map(person_group)).fillna("")
-    n["_pid"] = pid.fillna("")
+    lc = np.where(has_bands, weighted_level(bands, "C"), num("lceq"))
+    la = np.where(has_bands, weighted_level(bands, "A"), num("laeq"))
+    la[np.isnan(lc)] = np.nan
+    dur = num("duration_h")
+    blank = pd.Series("", index=noise.index, dtype=object)
+    pid = (noise["person_id"] if "person_id" in noise.columns else blank).fillna("").to_numpy(dtype=object)[rows]
+    if codes is None:
+        codes = (shared_codes(noise["person_id"] if "person_id" in noise.columns else blank, base["person_id"]))
+    ncode, pcode = np.asarray(codes[0], dtype=np.int64)[rows], np.asarray(codes[1], dtype=np.int64)
+    size = int(max(ncode.max(initial=-1), pcode.max(initial=-1))) + 1
+    # a run without a group counts for the group of its person (people of *people* only)
+    group_of = np.full(size, "", dtype=object)
+    group_of[pcode] = base["group"].fillna("").to_numpy(dtype=object)
+    grp = (noise["group"] if "group" in noise.columns else blank).to_numpy(dtype=object)[rows]
+    grp = np.where(grp == "", group_of[ncode], grp)
+    grp[pd.isna(grp)] = ""
+    gcode, pgcode = shared_codes(grp, base["group"])
+    ng = int(max(gcode.max(initial=-1), pgcode.max(initial=-1))) + 1
 
-    def agg(sub: pd.DataFrame, by: str) -> pd.DataFrame:
-        sub = sub[sub[by] != ""]
-        lev = sub[sub["_lc"].notna()]
-        cl = _energy_mean(lev, by, ["_la", "_lc"], "duration_h")
-        sp = sub[sub["_has_bands"]]
-        ob = _energy_mean(sp, by, oct_cols, "duration_h")
-        res = ob.join(cl, how="outer")
-        res["la_spec"] = res["_la"]
-        res["lc_minus_la"] = res["_lc"] - res["_la"]
-        for c in oct_cols:
-            if c not in res.columns:
-                res[c] = np.nan
-        return res[oct_cols + ["la_spec", "lc_minus_la"]]
+    def agg(sub: np.ndarray, keys: np.ndarray, n: int) -> np.ndarray:
+        lev = sub & ~np.isnan(lc)
+        cl = _energy_mean(keys[lev], np.column_stack([la, lc])[lev], dur[lev], n)
+        sp = sub & has_bands
+        ob = _energy_mean(keys[sp], bands[sp], dur[sp], n)
+        return np.column_stack([ob, cl[:, 0], cl[:, 1] - cl[:, 0]])
 
-    pers = n[(n["kind"] == "personal") & (n["_pid"] != "")] if "kind" in n.columns else n.iloc[:0]
-    by_person = agg(pers, "_pid")
-    by_group = agg(n, "_group")
-    own = base.join(by_person, on="person_id")
-    grp_vals = base.join(by_group, on="group")
-    use_own = own[["oct_125", "lc_minus_la"]].notna().any(axis=1).to_numpy()
+    kind = noise["kind"].eq("personal").to_numpy(dtype=bool)[rows] if "kind" in noise.columns \
+        else np.zeros(m, dtype=bool)
+    by_person = agg(kind & (pid != ""), ncode, size)
+    by_group = agg(grp != "", gcode, ng)
+    own, grp_vals = by_person[pcode], by_group[pgcode]
+    i125, ilc = oct_cols.index("oct_125"), len(oct_cols) + 1
+    use_own = ~(np.isnan(own[:, i125]) & np.isnan(own[:, ilc]))
     cols = oct_cols + ["la_spec", "lc_minus_la"]
-    vals = np.where(use_own[:, None], own[cols].to_numpy(dtype=float), grp_vals[cols].to_numpy(dtype=float))
+    vals = np.where(use_own[:, None], own, grp_vals)
     out = pd.DataFrame(vals, columns=cols, index=base.index)
-    have_grp = grp_vals[["oct_125", "lc_minus_la"]].notna().any(axis=1).to_numpy()
+    have_grp = ~(np.isnan(grp_vals[:, i125]) & np.isnan(grp_vals[:, ilc]))
     out.insert(0, "spectrum_source", np.where(use_own, "personal", np.where(have_grp, "group", "")))
     out.insert(0, "person_id", base["person_id"].to_numpy())
     return out.reset_index(drop=True)
@@ -331,46 +341,59 @@ def catalogue(protectors: pd.DataFrame) -> pd.DataFrame:
     return out.sort_values("protector_id", kind="stable").reset_index(drop=True)
 
 
-def current_protectors(fits: pd.DataFrame, cat: pd.DataFrame, period_end: pd.Timestamp) -> pd.DataFrame:
+def current_protectors(fits: pd.DataFrame, cat: pd.DataFrame, period_end: pd.Timestamp, *,
+                       codes: np.ndarray | None = None) -> pd.DataFrame:
     """Return per person the protector(s) of the latest issue up to *period_end* and the PAR to use.
 
     Columns: person_id, protector_id ('A+B' when two are worn together), protector_type
     ('dual' then), n_protectors, issue_date, par, fit_date, and the ratings of a single
-    protector (nrr, snr, h, m, l, apv_*), with nrr_2 the second NRR of a dual pair.
+    protector (nrr, snr, h, m, l, apv_*), with nrr_2 the second NRR of a dual pair; one row
+    per person, in person id order. *codes*: the person code of each row of *fits* (codes
+    sort as the ids do, frames.person_keys); made from the ids when not given. With codes,
+    the frame has the person's code too, in ``_pc``.
     """
     cols = ["person_id", "protector_id", "protector_type", "n_protectors", "issue_date", "par", "fit_date"]
     if fits.empty:
         return pd.DataFrame(columns=cols)
-    f = fits[(fits["date"].isna()) | (fits["date"] <= period_end)].copy()
-    if f.empty:
+    keep = ((fits["date"].isna()) | (fits["date"] <= period_end)).to_numpy(dtype=bool)
+    if not keep.any():
         return pd.DataFrame(columns=cols)
-    f["_d"] = f["date"].astype("datetime64[ns]").fillna(pd.Timestamp("1900-01-01"))
-    latest = f.groupby("person_id")["_d"].transform("max")
-    cur = f[f["_d"] == latest].drop_duplicates(["person_id", "protector_id"])
+    coded = codes is not None
+    pc = (np.asarray(codes, dtype=np.int64) if coded else shared_codes(fits["person_id"])[0])[keep]
+    # the person is grouped and sorted by its integer code (in id order), never by its text
+    f = fits.loc[keep, [c for c in ("person_id", "protector_id", "date", "par", "_row") if c in fits.columns]].copy()
+    f["_pc"] = pc
+    d = f["date"].to_numpy(dtype="datetime64[ns]").copy()
+    d[np.isnat(d)] = np.datetime64("1900-01-01", "ns")
+    f["_d"] = d
+    latest = np.full(int(pc.max()) + 1, np.iinfo(np.int64).min, dtype=np.int64)
+    np.maximum.at(latest, pc, d.view(np.int64))
+    cur = f[d.view(np.int64) == latest[pc]].drop_duplicates(["_pc", "protector_id"])
     cur = cur.merge(cat, on="protector_id", how="left")
     if "_row" not in cur.columns:
         cur["_row"] = np.arange(len(cur))
     # an earmuff and a plug issued together are worn together (dual); otherwise the last row counts
-    cur["_muff"] = cur["type"].eq("earmuff")
-    kinds = cur.groupby("person_id")["_muff"].agg(["any", "all"])
+    cur["_muff"] = cur["type"].eq("earmuff").to_numpy(dtype=bool)
+    kinds = cur.groupby("_pc")["_muff"].agg(["any", "all"])
     dual_ids = kinds.index[kinds["any"] & ~kinds["all"]]
-    is_dual = cur["person_id"].isin(dual_ids)
-    single_rows = cur[~is_dual].sort_values(["person_id", "_row"], kind="stable").drop_duplicates(
-        "person_id", keep="last")
-    dual_rows = cur[is_dual].sort_values(["person_id", "_muff", "nrr"], ascending=[True, True, False],
+    is_dual = cur["_pc"].isin(dual_ids)
+    single_rows = cur[~is_dual].sort_values(["_pc", "_row"], kind="stable").drop_duplicates(
+        "_pc", keep="last")
+    dual_rows = cur[is_dual].sort_values(["_pc", "_muff", "nrr"], ascending=[True, True, False],
                                          kind="stable", na_position="last").drop_duplicates(
-        ["person_id", "_muff"], keep="first")
+        ["_pc", "_muff"], keep="first")
     cur = pd.concat([single_rows, dual_rows])
-    cur = cur.sort_values(["person_id", "nrr", "protector_id"], ascending=[True, False, True], kind="stable",
+    cur = cur.sort_values(["_pc", "nrr", "protector_id"], ascending=[True, False, True], kind="stable",
                           na_position="last")
-    g = cur.groupby("person_id", sort=True)
-    first = cur.drop_duplicates("person_id", keep="first").set_index("person_id").sort_index()
+    g = cur.groupby("_pc", sort=True)
+    first = cur.drop_duplicates("_pc", keep="first").set_index("_pc").sort_index()
     out = pd.DataFrame(index=first.index)
+    out["person_id"] = first["person_id"]
     out["n_protectors"] = g.size()
     out["protector_id"] = first["protector_id"]
-    multi = cur[cur["person_id"].isin(out.index[out["n_protectors"] > 1])]
+    multi = cur[cur["_pc"].isin(out.index[out["n_protectors"] > 1])]
     if not multi.empty:  # rare: two protectors worn together
-        joined = multi.sort_values(["person_id", "protector_id"]).groupby("person_id")["protector_id"].agg("+".join)
+        joined = multi.sort_values(["_pc", "protector_id"]).groupby("_pc")["protector_id"].agg("+".join)
         out.loc[joined.index, "protector_id"] = joined
     out["protector_type"] = np.where(out["n_protectors"] > 1, "dual", first["type"].fillna(""))
     out["issue_date"] = first["date"]
@@ -378,18 +401,24 @@ def current_protectors(fits: pd.DataFrame, cat: pd.DataFrame, period_end: pd.Tim
     single = out["n_protectors"] == 1
     for c in rating_cols:
         out[c] = first[c].where(single) if c != "nrr" else first[c]
-    second = cur[g.cumcount() == 1].set_index("person_id")["nrr"]
+    second = cur[g.cumcount() == 1].set_index("_pc")["nrr"]
     out["nrr_2"] = second.reindex(out.index)
     out["dual_type"] = first["type"]
     # PAR: the latest fit test with a PAR of a protector currently worn
-    pairs = cur[["person_id", "protector_id"]]
-    withpar = f[f["par"].notna()].merge(pairs, on=["person_id", "protector_id"], how="inner")
-    withpar = withpar.sort_values(["person_id", "_d", "_row"] if "_row" in withpar.columns
-                                  else ["person_id", "_d"], kind="stable")
-    lastpar = withpar.drop_duplicates("person_id", keep="last").set_index("person_id")
+    prot, _ = pd.factorize(np.concatenate([f["protector_id"].to_numpy(dtype=object),
+                                           cur["protector_id"].to_numpy(dtype=object)]), use_na_sentinel=False)
+    pair = f["_pc"].to_numpy() * (int(prot.max(initial=0)) + 1) + prot[:len(f)]
+    worn = np.isin(pair, cur["_pc"].to_numpy() * (int(prot.max(initial=0)) + 1) + prot[len(f):])
+    withpar = f[f["par"].notna().to_numpy() & worn]
+    withpar = withpar.sort_values(["_pc", "_d", "_row"] if "_row" in withpar.columns
+                                  else ["_pc", "_d"], kind="stable")
+    lastpar = withpar.drop_duplicates("_pc", keep="last").set_index("_pc")
     out["par"] = lastpar["par"].reindex(out.index)
     out["fit_date"] = lastpar["date"].reindex(out.index)
-    return out.reset_index()
+    out = out.set_index("person_id").reset_index()
+    if coded:
+        out["_pc"] = first.index.to_numpy()
+    return out
 
 
 def protected_levels(df: pd.DataFrame) -> pd.DataFrame:
@@ -492,13 +521,18 @@ class ProtectionResult:
     period_end: pd.Timestamp | None = None
 
 
-def _exposure_people(programme: Programme, exp: ExposureResult | None) -> pd.DataFrame:
-    """Return person_id, group, lex_8h, twa, exposed from the exposure stage (or blanks)."""
+def _exposure_people(programme: Programme, exp: ExposureResult | None,
+                     codes: np.ndarray | None = None) -> pd.DataFrame:
+    """Return person_id, group, lex_8h, twa, exposed from the exposure stage (or blanks);
+    with *codes* (the person code of each row of the people table), the row's code in ``_pc``."""
     people = programme.table("people")
     start = pd.Timestamp(programme.config.period.start)
+    rows = np.ones(len(people), dtype=bool)
     if "leave_date" in people.columns:
-        people = people[people["leave_date"].isna() | (people["leave_date"] >= start)]
-    base = people[["person_id", "group"]].copy()
+        rows = (people["leave_date"].isna() | (people["leave_date"] >= start)).to_numpy(dtype=bool)
+    base = people.loc[rows, ["person_id", "group"]].copy()
+    if codes is not None:
+        base["_pc"] = np.asarray(codes, dtype=np.int64)[rows]
     ep = None if exp is None else exp.people
     if ep is None or ep.empty:
         return base.assign(lex_8h=np.nan, twa=np.nan, exposed=False)
@@ -509,6 +543,45 @@ def _exposure_people(programme: Programme, exp: ExposureResult | None) -> pd.Dat
             merged[c] = np.nan
     merged["exposed"] = merged.get("exposed", pd.Series(False, index=merged.index)).fillna(False).astype(bool)
     return merged
+
+
+def _join_people(people: pd.DataFrame, cur: pd.DataFrame, spec: pd.DataFrame) -> pd.DataFrame:
+    """Return *people* (one row per person, sorted by ``_pc``) with the columns of *cur* (from
+    current_protectors with codes) and of *spec* (one row per row of *people*): the left
+    merges on person_id, by the person codes."""
+    pc = people["_pc"].to_numpy()
+    pos = np.full(len(pc), -1, dtype=np.int64)
+    if "_pc" in cur.columns and len(cur):
+        have = cur["_pc"].to_numpy(dtype=np.int64)  # sorted, one row per person
+        at = np.minimum(np.searchsorted(have, pc), len(have) - 1)
+        pos = np.where(have[at] == pc, at, -1)
+    right = cur.drop(columns=["person_id", "_pc"], errors="ignore").reset_index(drop=True).reindex(pos)
+    return pd.concat([people, right.set_axis(people.index), spec.drop(columns=["person_id"]).set_axis(people.index)],
+                     axis=1)
+
+
+def _methods(lv: pd.DataFrame, person_id: pd.Series, governing_method: pd.Series) -> pd.DataFrame:
+    """Return the long table of every level under the protector (person_id, method,
+    protected_level, governs), sorted by person and method, of *lv* (one row per person, in
+    person order, one column per method) and each person's governing method."""
+    names = np.asarray(lv.columns, dtype=object)
+    order = np.argsort(names, kind="stable")  # the methods in text order
+    vals = lv.to_numpy(dtype=float)[:, order]
+    r, c = np.nonzero(~np.isnan(vals))
+    method = pd.Series(lv.columns[order].take(c), dtype=lv.columns.dtype)
+    return pd.DataFrame({"person_id": person_id.take(r).reset_index(drop=True), "method": method,
+                         "protected_level": vals[r, c],
+                         "governs": governing_method.to_numpy(dtype=object)[r] == names[order][c]})
+
+
+def _methods_merged(lv: pd.DataFrame, df: pd.DataFrame, out_people: pd.DataFrame) -> pd.DataFrame:
+    """_methods where a person may have several rows (the id-keyed formulation)."""
+    methods = lv.assign(person_id=df["person_id"]).melt(id_vars="person_id", var_name="method",
+                                                        value_name="protected_level")
+    methods = methods[methods["protected_level"].notna()]
+    methods["governs"] = methods.set_index(["person_id", "method"]).index.isin(
+        pd.MultiIndex.from_frame(out_people[["person_id", "method"]]))
+    return methods.sort_values(["person_id", "method"], kind="stable").reset_index(drop=True)
 
 
 def _groups(people: pd.DataFrame) -> pd.DataFrame:
@@ -618,14 +691,22 @@ def compute(programme: Programme, *, exposure: ExposureResult | None, sts_people
     if rules is None:
         rules = load_rule_set(programme.config.rules, programme.config)
     end = pd.Timestamp(programme.config.period.end)
-    people = _exposure_people(programme, exposure)
-    people = people.sort_values("person_id", kind="stable").reset_index(drop=True)
+    # people are joined, grouped and sorted on integer person codes (in id order), not on id text
+    pk = person_keys(programme, "people", "protector_fits", "noise")
+    people = _exposure_people(programme, exposure, pk[0])
+    people = people.iloc[np.argsort(people["_pc"].to_numpy(), kind="stable")].reset_index(drop=True)
+    pc = people["_pc"].to_numpy()
     cat = catalogue(programme.table("protectors"))
-    cur = current_protectors(programme.table("protector_fits"), cat, end)
-    spec = spectra(programme.table("noise"), people, end)
+    cur = current_protectors(programme.table("protector_fits"), cat, end, codes=pk[1])
+    spec = spectra(programme.table("noise"), people, end, codes=(pk[2], pc))
     metric_col = "twa" if rules.metric == "twa" else "lex_8h"
     other_col = "lex_8h" if metric_col == "twa" else "twa"
-    df = people.merge(cur, on="person_id", how="left").merge(spec.drop(columns=[]), on="person_id", how="left")
+    one_each = bool((np.diff(pc) > 0).all())  # one row per person (the people table's key)
+    if one_each:
+        df = _join_people(people, cur, spec)
+    else:
+        df = people.merge(cur.drop(columns=["_pc"], errors="ignore"), on="person_id", how="left").merge(
+            spec, on="person_id", how="left")
     df["exposure_level"] = df[metric_col].fillna(df[other_col])
     for c in ["nrr", "nrr_2", "snr", "h", "m", "l", "par", "n_protectors"] + [f"apv_{b}" for b in OCTAVE_BANDS]:
         if c not in df.columns:
@@ -648,12 +729,7 @@ def compute(programme: Programme, *, exposure: ExposureResult | None, sts_people
     out_people = judged[PEOPLE_COLUMNS + ["issue_date", "n_protectors", "osha_50_level", "target", "after_sts",
                                           "en458", "exposed", "spectrum_source"]].copy()
     out_people["n_protectors"] = out_people["n_protectors"].fillna(0).astype(int)
-    methods = lv.assign(person_id=df["person_id"]).melt(id_vars="person_id", var_name="method",
-                                                        value_name="protected_level")
-    methods = methods[methods["protected_level"].notna()]
-    methods["governs"] = methods.set_index(["person_id", "method"]).index.isin(
-        pd.MultiIndex.from_frame(out_people[["person_id", "method"]]))
-    methods = methods.sort_values(["person_id", "method"], kind="stable").reset_index(drop=True)
+    methods = _methods(lv, df["person_id"], out_people["method"]) if one_each else _methods_merged(lv, df, out_people)
     worn = _wearers(cur)
     cat["n_wearers"] = cat["protector_id"].map(worn).fillna(0).astype(int)
     findings = _findings(programme, cat, set(worn.index))
