@@ -183,6 +183,9 @@ def _noise(rng: np.random.Generator, n: int) -> pd.DataFrame:
     df.insert(0, "person_id", _text(rng.choice(POOL + ["", "X9"], n)))  # X9: in no people table
     df.insert(0, "kind", _text(rng.choice(["personal", "area"], n)))
     df.insert(0, "date", _dates(rng, n))
+    if rng.random() < 0.5:  # missing cells (a frame made in code): blank, as the stage reads them
+        df.loc[rng.random(n) < 0.1, "group"] = np.nan
+        df.loc[rng.random(n) < 0.1, "person_id"] = np.nan
     if n and rng.random() < 0.5:
         df = pd.concat([df, df.iloc[rng.integers(0, n, 3)]], ignore_index=True)  # duplicate rows
     return df
