@@ -419,8 +419,14 @@ def _runs(codes: np.ndarray, values: np.ndarray, use: np.ndarray) -> tuple[np.nd
     in group order): a sorted groupby's groups, and drop_duplicates' rows sorted by the keys.
     """
     rows = np.flatnonzero(use)
-    rank, uniq = pd.factorize(values[rows], sort=True)  # few distinct values (dates)
-    key = codes[rows].astype(np.int64) * max(len(uniq), 1) + rank
+    v = values[rows]
+    day = 86_400 * 10**9  # dates at midnight (nanoseconds): the day number is the value's rank
+    if len(v) and not (v % day).any() and (v.max() - v.min()) // day < 10**6:
+        rank, span = (v - v.min()) // day, int((v.max() - v.min()) // day) + 1
+    else:
+        rank, uniq = pd.factorize(v, sort=True)  # few distinct values (dates)
+        span = max(len(uniq), 1)
+    key = codes[rows].astype(np.int64) * span + rank
     order = rows[np.argsort(key, kind="stable")]  # stable: a group's rows in row order (records come sorted)
     k = np.sort(key, kind="stable")
     new = np.ones(len(order), dtype=bool)
@@ -791,7 +797,9 @@ def compute(programme: Programme, *, rule: RuleSet | None = None, exposure: Expo
             detail="has audiometry or training records but is not judged exposed (information only)"),
     ], ignore_index=True).sort_values(["mismatch", "person_id"], kind="mergesort").reset_index(drop=True)
 
-    eg = s.assign(_nr=s["must_enrol"] & ~s["has_records"], _rn=s["has_records"] & ~s["must_enrol"]).groupby(
+    # the groupings read a few columns of the wide status frame (a selection copies only those)
+    eg = s[["group", "person_id", "must_enrol", "enrolled"]].assign(
+        _nr=s["must_enrol"] & ~s["has_records"], _rn=s["has_records"] & ~s["must_enrol"]).groupby(
         "group", sort=True).agg(n_in_scope=("person_id", "size"), n_must_enrol=("must_enrol", "sum"),
                                 n_enrolled=("enrolled", "sum"), n_exposed_no_records=("_nr", "sum"),
                                 n_records_not_exposed=("_rn", "sum")).reset_index()
@@ -811,12 +819,12 @@ def compute(programme: Programme, *, rule: RuleSet | None = None, exposure: Expo
     due = due.sort_values(["due_date", "person_id", "kind"], kind="mergesort", na_position="first") \
         .reset_index(drop=True)
 
-    req = s[s["training_duty"] & s["active"]]
+    req = s.loc[s["training_duty"] & s["active"], ["group", "person_id", "trained_current"]]
     tg = req.groupby("group", sort=True).agg(n_required=("person_id", "size"),
                                              n_trained=("trained_current", "sum")).reset_index()
     tg["n_trained"] = tg["n_trained"].astype(int)
     tg["completion"] = (tg["n_trained"] / tg["n_required"]).round(4)
-    preq = s[s["protector_required"]]
+    preq = s.loc[s["protector_required"], ["group", "person_id", "has_protector", "has_fit_test"]]
     pg = preq.groupby("group", sort=True).agg(n_required=("person_id", "size"),
                                               n_with_protector=("has_protector", "sum"),
                                               n_fit_tested=("has_fit_test", "sum")).reset_index()

@@ -338,7 +338,9 @@ def test_runs_are_the_sorted_groups_and_their_first_rows(seed):
     first row in group order, as drop_duplicates + a stable sort by the keys."""
     rng = np.random.default_rng(seed)
     n = int(rng.integers(0, 50))
-    codes, values = rng.integers(-1, 5, n), rng.choice([7, -3, 10**15, 0], n)
+    day = 86_400 * 10**9
+    pool = [7, -3, 10**15, 0] if seed % 2 else [-400 * day, 0, 3 * day, 20_000 * day]  # dates at midnight
+    codes, values = rng.integers(-1, 5, n), rng.choice(pool, n)
     use = codes >= 0
     run, first = compliance._runs(codes, values, use)
     df = pd.DataFrame({"c": codes, "v": values})[use]
