@@ -368,8 +368,17 @@ def current_protectors(fits: pd.DataFrame, cat: pd.DataFrame, period_end: pd.Tim
     f["_d"] = d
     latest = np.full(int(pc.max()) + 1, np.iinfo(np.int64).min, dtype=np.int64)
     np.maximum.at(latest, pc, d.view(np.int64))
-    cur = f[d.view(np.int64) == latest[pc]].drop_duplicates(["_pc", "protector_id"])
-    cur = cur.merge(cat, on="protector_id", how="left")
+    # protector ids coded too, in sorted order (a missing one last, as the sorts put it)
+    prc, prot_ids = pd.factorize(f["protector_id"].to_numpy(dtype=object), sort=True, use_na_sentinel=False)
+    f["_pr"] = prc
+    cur = f[d.view(np.int64) == latest[pc]].drop_duplicates(["_pc", "_pr"])
+    cat_ids = pd.Index(cat["protector_id"])
+    if cat_ids.is_unique and not (set(cur.columns) & set(cat.columns) - {"protector_id"}):
+        at = cat_ids.get_indexer(prot_ids)[cur["_pr"].to_numpy()]  # the left merge on protector_id
+        cur = pd.concat([cur.reset_index(drop=True), cat.drop(columns=["protector_id"]).reset_index(
+            drop=True).reindex(at).reset_index(drop=True)], axis=1)
+    else:
+        cur = cur.merge(cat, on="protector_id", how="left")
     if "_row" not in cur.columns:
         cur["_row"] = np.arange(len(cur))
     # an earmuff and a plug issued together are worn together (dual); otherwise the last row counts
@@ -383,7 +392,7 @@ def current_protectors(fits: pd.DataFrame, cat: pd.DataFrame, period_end: pd.Tim
                                          kind="stable", na_position="last").drop_duplicates(
         ["_pc", "_muff"], keep="first")
     cur = pd.concat([single_rows, dual_rows])
-    cur = cur.sort_values(["_pc", "nrr", "protector_id"], ascending=[True, False, True], kind="stable",
+    cur = cur.sort_values(["_pc", "nrr", "_pr"], ascending=[True, False, True], kind="stable",
                           na_position="last")
     g = cur.groupby("_pc", sort=True)
     first = cur.drop_duplicates("_pc", keep="first").set_index("_pc").sort_index()
@@ -393,7 +402,7 @@ def current_protectors(fits: pd.DataFrame, cat: pd.DataFrame, period_end: pd.Tim
     out["protector_id"] = first["protector_id"]
     multi = cur[cur["_pc"].isin(out.index[out["n_protectors"] > 1])]
     if not multi.empty:  # rare: two protectors worn together
-        joined = multi.sort_values(["_pc", "protector_id"]).groupby("_pc")["protector_id"].agg("+".join)
+        joined = multi.sort_values(["_pc", "_pr"]).groupby("_pc")["protector_id"].agg("+".join)
         out.loc[joined.index, "protector_id"] = joined
     out["protector_type"] = np.where(out["n_protectors"] > 1, "dual", first["type"].fillna(""))
     out["issue_date"] = first["date"]
@@ -405,10 +414,8 @@ def current_protectors(fits: pd.DataFrame, cat: pd.DataFrame, period_end: pd.Tim
     out["nrr_2"] = second.reindex(out.index)
     out["dual_type"] = first["type"]
     # PAR: the latest fit test with a PAR of a protector currently worn
-    prot, _ = pd.factorize(np.concatenate([f["protector_id"].to_numpy(dtype=object),
-                                           cur["protector_id"].to_numpy(dtype=object)]), use_na_sentinel=False)
-    pair = f["_pc"].to_numpy() * (int(prot.max(initial=0)) + 1) + prot[:len(f)]
-    worn = np.isin(pair, cur["_pc"].to_numpy() * (int(prot.max(initial=0)) + 1) + prot[len(f):])
+    n_pr = len(prot_ids) + 1
+    worn = np.isin(f["_pc"].to_numpy() * n_pr + prc, cur["_pc"].to_numpy() * n_pr + cur["_pr"].to_numpy())
     withpar = f[f["par"].notna().to_numpy() & worn]
     withpar = withpar.sort_values(["_pc", "_d", "_row"] if "_row" in withpar.columns
                                   else ["_pc", "_d"], kind="stable")
