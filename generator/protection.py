@@ -285,7 +285,8 @@ def spectra(noise: pd.DataFrame, people: pd.DataFrame, end: pd.Timestamp | None 
     blank = pd.Series("", index=noise.index, dtype=object)
     pid = (noise["person_id"] if "person_id" in noise.columns else blank).fillna("").to_numpy(dtype=object)[rows]
     if codes is None:
-        codes = (shared_codes(noise["person_id"] if "person_id" in noise.columns else blank, base["person_id"]))
+        made = shared_codes(noise["person_id"] if "person_id" in noise.columns else blank, base["person_id"])
+        codes = (made[0], made[1])
     ncode, pcode = np.asarray(codes[0], dtype=np.int64)[rows], np.asarray(codes[1], dtype=np.int64)
     size = int(max(ncode.max(initial=-1), pcode.max(initial=-1))) + 1
     # a run without a group counts for the group of its person (people of *people* only)
