@@ -106,7 +106,11 @@ def shared_codes(*columns: Any) -> list[np.ndarray]:
     """Return the code of each value of every column in *columns*, in one code space: the
     values of all of them factorised together in sorted order (equal text, equal code; codes
     sort as the text does). Missing cells count as ``""``."""
-    cells = [pd.Series(c).fillna("").astype(str).to_numpy(dtype=object) for c in columns]
+    cells = []
+    for c in columns:  # (text, categorical or object cells alike)
+        v = pd.Series(c).to_numpy(dtype=object, copy=True)
+        v[pd.isna(v)] = ""
+        cells.append(pd.Series(v, dtype=object).astype(str).to_numpy(dtype=object))
     joined = np.concatenate(cells) if cells else np.array([], dtype=object)
     codes = np.asarray(pd.factorize(joined, sort=True)[0], dtype=np.int64)
     return np.split(codes, np.cumsum([len(c) for c in cells])[:-1].tolist()) if cells else []

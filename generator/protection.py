@@ -291,7 +291,9 @@ def spectra(noise: pd.DataFrame, people: pd.DataFrame, end: pd.Timestamp | None 
     size = int(max(ncode.max(initial=-1), pcode.max(initial=-1))) + 1
     # a run without a group counts for the group of its person (people of *people* only)
     group_of = np.full(size, "", dtype=object)
-    group_of[pcode] = base["group"].fillna("").to_numpy(dtype=object)
+    pgroup = base["group"].to_numpy(dtype=object, copy=True)
+    pgroup[pd.isna(pgroup)] = ""
+    group_of[pcode] = pgroup
     grp = (noise["group"] if "group" in noise.columns else blank).to_numpy(dtype=object)[rows]
     grp = np.where(grp == "", group_of[ncode], grp)
     grp[pd.isna(grp)] = ""
