@@ -622,9 +622,12 @@ def _actions(people: pd.DataFrame, rules: RuleSet) -> pd.DataFrame:
     sts_clause = rules.clause("protected_target_after_sts")
     # the texts are made for the people who get an action only
     p = people[people["adequacy"].isin(["insufficient", "over-protected"])]
+    if p.empty:  # nobody to act on (and no texts to join: an empty column keeps a number dtype)
+        return pd.DataFrame({c: pd.Series(dtype="datetime64[ns]" if c == "due_date" else object)
+                             for c in ACTION_COLUMNS})
     clause = pd.Series(np.where(p["after_sts"].to_numpy(dtype=bool), sts_clause, base_clause), index=p.index)
     lvl = p["protected_level"].round(1).astype(str)
-    tgt = p["target"].map(lambda v: f"{v:g}")
+    tgt = p["target"].map(lambda v: f"{v:g}").astype(object)
     meth = p["method"].map(METHOD_LABELS).fillna("")
     kinds = {
         "insufficient": ("protection insufficient",

@@ -164,3 +164,25 @@ def test_missing_python_is_a_clear_skip(monkeypatch: pytest.MonkeyPatch) -> None
     assert exe is None and why.startswith("no Python 2.9 on this machine")
     python, message = envs.setup({"name": "py29", "python": "2.9", "extra": [], "pins": []}, [])
     assert python is None and message.startswith("SKIPPED py29: no Python 2.9")
+
+
+@pytest.mark.parametrize("storage", STORAGES + ["object"])
+@pytest.mark.parametrize("adequacy", [["adequate", "no protector"], ["insufficient", "adequate"]])
+def test_protection_actions_with_text_in_any_storage(storage: str, adequacy: list[str]) -> None:
+    # with Arrow strings, joining texts with an empty number column failed when nobody needed an action
+    # (29 CFR 1910.95(j)(3): the target after a shift is 85 dB; the texts name the level, protector and target)
+    from generator import protection as P
+    from generator.rules import load_rule_set
+
+    with strings(storage):
+        people = pd.DataFrame({"person_id": ["A1", "A2"], "adequacy": adequacy, "after_sts": [True, False],
+                               "protected_level": [86.04, 80.0], "target": [85.0, 90.0],
+                               "method": ["nrr-50", ""], "protector_id": ["PLUG-1", ""]})
+        out = P._actions(people, load_rule_set("osha-1910.95"))
+    assert list(out.columns) == P.ACTION_COLUMNS
+    if "insufficient" in adequacy:
+        assert out["subject"].tolist() == ["A1"]
+        assert out["detail"].iloc[0].startswith("estimated 86.0 dB(A) under PLUG-1 (")
+        assert "target of 85 dB(A)" in out["detail"].iloc[0]
+    else:
+        assert out.empty
