@@ -302,6 +302,14 @@ def _twa_from_dose(dose: np.ndarray) -> np.ndarray:
 
 
 _SD = np.dtypes.StringDType()
+
+
+def _zfill(digits: np.ndarray, width: int) -> np.ndarray:
+    """Return the texts of non-negative numbers *digits* padded with zeros on the left to *width*
+    (``str.zfill``; the zfill of numpy 2.0 does not take variable-width text)."""
+    digits = np.asarray(digits, dtype=_SD)
+    pad = np.maximum(width - np.strings.str_len(digits), 0)
+    return np.strings.add(np.strings.multiply(np.array("0", dtype=_SD), pad), digits)
 #: Columns holding codes, dates and choices only (never quoted).
 _CODE_COLUMNS = frozenset({"person_id", "date", "ear", "kind", "measurement_id", "start", "group",
                            "audiometer_id", "check", "result", "protector_id", "decision", "about",
@@ -328,7 +336,7 @@ def _num_text(values: Any, decimals: int = 1) -> np.ndarray:
         a = np.abs(t)
         txt = np.strings.add(np.where(t < 0, "-", "").astype(_SD), (a // scale).astype(_SD))
         if decimals:
-            frac = np.strings.zfill((a % scale).astype(_SD), decimals)
+            frac = _zfill((a % scale).astype(_SD), decimals)
             txt = np.strings.add(np.strings.add(txt, "."), frac)
     return np.where(ok, txt, np.array("", dtype=_SD))
 
@@ -511,7 +519,7 @@ def _people(rng: np.random.Generator, headcount: int, start: int, end: int) -> p
     df.loc[df["leave"] > end - 7, "leave"] = np.nan
     df = df.sort_values(["hire", "slot", "occupant"], kind="mergesort").reset_index(drop=True)
     n = len(df)
-    df["person_id"] = np.strings.add("P", np.strings.zfill((np.arange(n) + 1).astype(_SD), 5)).astype(object)
+    df["person_id"] = np.strings.add("P", _zfill((np.arange(n) + 1).astype(_SD), 5)).astype(object)
     fshare = np.array([g.female_share for g in GROUPS])[df["gi"].to_numpy()]
     u = rng.random(n)
     sex = np.where(u < fshare, "F", "M").astype(object)
@@ -1001,7 +1009,7 @@ def _noise(rng: np.random.Generator, ppl: pd.DataFrame, start: int, end: int, he
     yr = _year_of(noise["date"].to_numpy())
     seq = noise.groupby(yr).cumcount().to_numpy() + 1
     noise["measurement_id"] = np.strings.add(np.strings.add(np.strings.add("NM-", yr.astype(_SD)), "-"),
-                                             np.strings.zfill(seq.astype(_SD), 5)).astype(object)
+                                             _zfill(seq.astype(_SD), 5)).astype(object)
     for c in ("osha_dose_pct", "osha_twa", "notes"):
         noise[c] = np.nan if c != "notes" else ""
     for f in OCTAVE_BANDS:

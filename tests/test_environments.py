@@ -186,3 +186,18 @@ def test_protection_actions_with_text_in_any_storage(storage: str, adequacy: lis
         assert "target of 85 dB(A)" in out["detail"].iloc[0]
     else:
         assert out.empty
+
+
+def test_demo_zero_padding_matches_python() -> None:
+    # the demo writer pads ids and decimals on every numpy the project declares (2.0's zfill refuses
+    # variable-width text); Python's str.zfill is the oracle
+    import random
+
+    from generator.demo import _SD, _zfill
+
+    rng = random.Random(5)
+    values = [0, 1, 9, 10, 99999, 100000, 123456789] + [rng.randrange(10 ** rng.randint(1, 9)) for _ in range(300)]
+    for width in (1, 2, 5, 8):
+        got = _zfill(np.array(values).astype(_SD), width)
+        assert [str(v) for v in got.tolist()] == [str(v).zfill(width) for v in values]
+    assert _zfill(np.zeros(0, dtype=np.int64).astype(_SD), 5).tolist() == []
