@@ -40,7 +40,7 @@ class PersonIndex:
     def of(tables: Mapping[str, pd.DataFrame]) -> "PersonIndex":
         """Code the person_id column of every table that has one, in one pass."""
         names = [n for n, df in tables.items() if "person_id" in df.columns]
-        cells = [tables[n]["person_id"].astype(str).to_numpy(dtype=object) for n in names]
+        cells = [_id_texts(tables[n]["person_id"]) for n in names]
         joined = np.concatenate(cells) if cells else np.array([], dtype=object)
         codes, ids = pd.factorize(joined, sort=True)
         ends = np.cumsum([len(c) for c in cells]).tolist()
@@ -57,6 +57,16 @@ class PersonIndex:
         seen[0] = False  # (a missing cell keeps the code -1)
         new = np.cumsum(seen) - 1
         return new[c + 1].astype(np.int64), self.ids[seen[1:]]
+
+
+def _id_texts(ids: pd.Series) -> np.ndarray:
+    """Return the ids as text objects, a missing cell as NaN (pandas 2 would turn it into 'nan')."""
+    missing = ids.isna().to_numpy(dtype=bool)
+    if not missing.any():
+        return ids.astype(str).to_numpy(dtype=object)
+    out = np.full(len(ids), np.nan, dtype=object)
+    out[~missing] = ids[~missing].astype(str).to_numpy(dtype=object)
+    return out
 
 
 @dataclass

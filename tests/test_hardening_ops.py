@@ -256,6 +256,14 @@ def test_read_only_parent(tmp_path: Path, capsys: pytest.CaptureFixture[str],
                 raise PermissionError(errno.EACCES, os.strerror(errno.EACCES), str(path))
             return real_mkdir(path, *a, **kw)
         monkeypatch.setattr(os, "mkdir", mkdir)
+        real_path_mkdir = Path.mkdir
+
+        def path_mkdir(self, *a, **kw):  # type: ignore[no-untyped-def]
+            # (Python 3.10's pathlib holds its own reference to os.mkdir)
+            if self.parent == locked:
+                raise PermissionError(errno.EACCES, os.strerror(errno.EACCES), str(self))
+            return real_path_mkdir(self, *a, **kw)
+        monkeypatch.setattr(Path, "mkdir", path_mkdir)
     try:
         with env(SOURCE_DATE_EPOCH=FIXED_EPOCH, HCPSITE_ID_KEY=TEST_KEY):
             assert main(["build", str(root), "--out", str(locked / "site")]) == 1

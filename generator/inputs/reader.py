@@ -1315,7 +1315,15 @@ def _to_float_each(values: np.ndarray, blank: np.ndarray) -> np.ndarray:
         return arr.astype("float64")
     except (ValueError, TypeError, OverflowError):
         arr[blank] = ""
-        return pd.to_numeric(pd.Series(arr, dtype=object), errors="coerce").to_numpy(dtype="float64")
+        out = pd.to_numeric(pd.Series(arr, dtype=object), errors="coerce").to_numpy(dtype="float64")
+        # a text pandas did not take (not a number, or out of range for pandas 2): Python's float decides,
+        # as it does for the texts converted above (an out-of-range exponent is then inf in every pandas)
+        for i in np.flatnonzero(np.isnan(out) & ~np.asarray(blank, dtype=bool)).tolist():
+            try:
+                out[i] = float(arr[i])
+            except (ValueError, TypeError, OverflowError):
+                pass
+        return out
 
 
 def _to_date(s: pd.Series) -> pd.Series:
