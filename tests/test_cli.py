@@ -284,3 +284,20 @@ def test_a_full_folder_is_not_a_command_line_mistake(tmp_path: Path, capsys: pyt
     assert sorted(p.name for p in full.iterdir()) == ["notes.txt"]
     err = capsys.readouterr().err
     assert "Traceback" not in err and "internal error" not in err
+
+
+def test_garbage_collector_tuned_only_for_the_command_process() -> None:
+    # the hcpsite process tunes the collector for itself; main() called from Python leaves it alone
+    import gc
+    import subprocess
+    import sys
+
+    from generator.cli import GC_THRESHOLDS, main
+
+    before = gc.get_threshold()
+    assert main(["--version"]) == 0
+    assert gc.get_threshold() == before
+    code = ("import gc, sys; from generator.cli import main; sys.argv = ['hcpsite', '--version']; "
+            "rc = main(); print(gc.get_threshold(), gc.get_freeze_count() > 0, rc)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip().splitlines()[-1] == f"{GC_THRESHOLDS} True 0"
