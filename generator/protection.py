@@ -741,7 +741,7 @@ def compute(programme: Programme, *, exposure: ExposureResult | None, sts_people
     judged = judge(df, rules, set(sts_people))
     out_people = judged[PEOPLE_COLUMNS + ["issue_date", "n_protectors", "osha_50_level", "target", "after_sts",
                                           "en458", "exposed", "spectrum_source"]].copy()
-    out_people["n_protectors"] = out_people["n_protectors"].fillna(0).astype(int)
+    out_people["n_protectors"] = pd.to_numeric(out_people["n_protectors"], errors="coerce").fillna(0).astype(int)
     methods = _methods(lv, df["person_id"], out_people["method"]) if one_each else _methods_merged(lv, df, out_people)
     worn = _wearers(cur)
     cat["n_wearers"] = cat["protector_id"].map(worn).fillna(0).astype(int)

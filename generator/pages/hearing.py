@@ -295,6 +295,8 @@ def rate_by_group_chart(pg: pd.DataFrame, suppressed: frozenset[str], cid: str) 
     """Return the STS rate per group in the period with exact 95 % intervals (suppressed groups left out)."""
     agg = pg[pg["group"] != "all"].rename(columns={"sts_rate": "rate", "sts_ci_low": "lo", "sts_ci_high": "hi"})
     shown = agg[~agg["group"].isin(sorted(suppressed))]
+    # (a frame without rows may hold its figures as objects, which pandas 2.3 refuses to round)
+    shown = shown.assign(**{c: pd.to_numeric(shown[c], errors="coerce").astype(float) for c in ("rate", "lo", "hi")})
     fig = charts.Figure(charts.trace("bar", x=shown["group"].tolist(), y=(shown["rate"] * 100).round(2).tolist(),
                                      error_y=dict(type="data", symmetric=False,
                                                   array=((shown["hi"] - shown["rate"]) * 100).round(2).tolist(),
