@@ -118,7 +118,7 @@ def test_unknown_rule_set() -> None:
 
 @pytest.mark.parametrize("rule_id", RULE_IDS)
 def test_rule_files_are_read_as_the_safe_loader_reads_them(rule_id: str) -> None:
-    # the rule files are parsed once per process with PyYAML's safe loader (libyaml's when installed);
+    # the rule files are parsed once per process with PyYAML's safe loader;
     # the oracle is yaml.safe_load, and each call gets its own copy (a change to one is not seen by the next)
     from generator.rules import _read
 

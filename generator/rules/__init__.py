@@ -168,14 +168,10 @@ class RuleSet:
 RULE_IDS = ("osha-1910.95", "niosh-rel", "eu-2003-10", "custom")
 
 
-#: PyYAML's safe loader, in C where libyaml is installed (same grammar and types, several times faster)
-_SAFE_LOADER = getattr(yaml, "CSafeLoader", yaml.SafeLoader)
-
-
 @lru_cache(maxsize=None)
 def _parsed(name: str) -> dict[str, Any]:
     with open(_HERE / f"{name}.yaml", encoding="utf-8") as fh:
-        return yaml.load(fh, Loader=_SAFE_LOADER)  # a safe loader: core YAML types only
+        return yaml.safe_load(fh)
 
 
 def _read(name: str) -> dict[str, Any]:
