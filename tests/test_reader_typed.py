@@ -194,3 +194,70 @@ def test_person_dates_looked_up_once_match_one_by_one(ids):
     both = reader._per_person_dates(keys, people, ["birth_date", "leave_date"])
     for got, column in zip(both, ["birth_date", "leave_date"]):
         pd.testing.assert_series_equal(got, reader._per_person(keys, people, column), check_exact=True)
+
+
+class _CellsAt:
+    """The cells of one column laid out as the reader's _Fields gives them (bytes, first byte of each)."""
+
+    def __init__(self, cells: list[str]) -> None:
+        raw = ("h\n" + "\n".join(cells) + "\n").encode()
+        self.arr = np.frombuffer(raw, dtype=np.uint8)
+        first = 2 + np.cumsum([0] + [len(c) + 1 for c in cells[:-1]])
+        self.a, self.b = first, first + np.array([len(c) for c in cells])
+
+    def fixed(self, j: int, width: int):
+        size = self.b - self.a
+        blank = size == 0
+        return (blank, self.a[~blank]) if ((size == width) | blank).all() else None
+
+
+def _iso_oracle(cells: list[str], with_time: bool) -> np.ndarray | None:
+    """pandas' own parser with the exact ISO format: None where a cell is not a date (or time) of 1900-2200."""
+    fmt = "%Y-%m-%dT%H:%M:%S" if with_time else "%Y-%m-%d"
+    width = 19 if with_time else 10
+    if any(c and len(c) != width for c in cells):
+        return None
+    if any(c and not all(ch.isdigit() for i, ch in enumerate(c) if i not in (4, 7, 10, 13, 16)) for c in cells):
+        return None  # (strptime takes signs and spaces in places the reader does not)
+    if with_time and any(c and (int(c[17:19]) > 59 or c[10] != "T") for c in cells):
+        return None  # (strptime takes the leap seconds 60 and 61 and a small t; ISO 8601 has neither)
+    got = pd.to_datetime(pd.Series([c or None for c in cells], dtype=object), format=fmt, errors="coerce")
+    if (got.isna() & pd.Series([bool(c) for c in cells])).any():
+        return None
+    years = got.dt.year.dropna()
+    if ((years < 1900) | (years > 2200)).any():
+        return None
+    return got.to_numpy("datetime64[ns]")
+
+
+@pytest.mark.parametrize("with_time", [False, True])
+def test_iso_cells_match_pandas_parser(with_time):
+    """Dates and times read from the bytes equal pandas.to_datetime with the ISO format, over random columns
+    of good, blank and damaged cells (the byte reader refuses a column with any cell pandas cannot read)."""
+    rng = np.random.default_rng(11 + with_time)
+    parsed = 0
+    for _ in range(3000):
+        cells = []
+        for _ in range(int(rng.integers(1, 12))):
+            y = int(rng.integers(1890, 2210)) if rng.random() < 0.02 else int(rng.integers(1990, 2030))
+            m = int(rng.integers(0, 14)) if rng.random() < 0.02 else int(rng.integers(1, 13))
+            d = int(rng.integers(0, 33)) if rng.random() < 0.02 else int(rng.integers(1, 32))
+            c = f"{y:04d}-{m:02d}-{d:02d}"
+            if with_time:
+                h = int(rng.integers(0, 26)) if rng.random() < 0.02 else int(rng.integers(0, 24))
+                s = int(rng.integers(0, 62)) if rng.random() < 0.02 else int(rng.integers(0, 60))
+                c += f"T{h:02d}:{int(rng.integers(0, 60)):02d}:{s:02d}"
+            r = rng.random()
+            if r < 0.04:
+                c = ""
+            elif r < 0.06:
+                k = int(rng.integers(len(c)))
+                c = c[:k] + chr(int(rng.integers(32, 127))) + c[k + 1:]
+            cells.append(c)
+        want = _iso_oracle(cells, with_time)
+        got = reader._iso_cells(_CellsAt(cells), 0, with_time)
+        assert (got is None) == (want is None), cells
+        if want is not None:
+            parsed += 1
+            assert np.array_equal(got.view("i8"), want.view("i8")), cells  # (NaT is one integer)
+    assert parsed > 1000

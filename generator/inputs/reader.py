@@ -624,11 +624,20 @@ _DIGIT_PAIRS[np.frombuffer(b"".join(f"{v:02d}".encode() for v in range(100)), dt
 _NS_PER_S = 1_000_000_000
 
 
+def _pairs16(arr: np.ndarray) -> np.ndarray:
+    """Return a view of *arr* (bytes) as the native 16-bit number at every byte position (no copy)."""
+    if arr.size < 2:
+        return np.zeros(0, dtype=np.uint16)
+    return np.ndarray(shape=(arr.size - 1,), dtype=np.uint16, buffer=arr, offset=0, strides=(1,))
+
+
 def _iso_cells(fields: _Fields, j: int, with_time: bool) -> np.ndarray | None:
     """Return column *j* written as YYYY-MM-DD (or YYYY-MM-DDTHH:MM:SS) as datetime64[ns], NaT where blank.
 
     None when a cell is written otherwise, is no calendar date or clock time, or lies outside
     the years YEAR_MIN to YEAR_MAX: such a column is read as text, whose findings quote it.
+    Each pair of digits is read as one 16-bit number straight from the bytes and looked up
+    in a table; the parts stay small integers until the day and second numbers are joined.
     """
     width = 19 if with_time else 10
     got = fields.fixed(j, width)
@@ -637,28 +646,33 @@ def _iso_cells(fields: _Fields, j: int, with_time: bool) -> np.ndarray | None:
     blank, at = got
     if not at.size:  # (every cell blank; the bytes may be fewer than one cell's width)
         return np.full(blank.size, np.datetime64("NaT"), dtype="datetime64[ns]")
-    block = np.lib.stride_tricks.sliding_window_view(fields.arr, width)[at]  # the bytes of each cell
+    arr = fields.arr
     seps = [(4, 45), (7, 45)] + ([(10, 84), (13, 58), (16, 58)] if with_time else [])  # - - T : :
-    if not (block[:, [k for k, _ in seps]] == np.asarray([ch for _, ch in seps], dtype=np.uint8)).all():
-        return None
+    for k, ch in seps:
+        if not (arr[at + k] == ch).all():
+            return None
+    pairs16 = _pairs16(arr)
     pairs = []
     for k in (0, 2, 5, 8) + ((11, 14, 17) if with_time else ()):
-        v = _DIGIT_PAIRS[np.ascontiguousarray(block[:, k:k + 2]).view(np.uint16)[:, 0]]
-        if (v < 0).any():
+        v = _DIGIT_PAIRS[pairs16[at + k]]
+        if v.min() < 0:
             return None
-        pairs.append(v.astype(np.int64))
-    year, month, day = pairs[0] * 100 + pairs[1], pairs[2], pairs[3]
-    if ((year < YEAR_MIN) | (year > YEAR_MAX) | (month < 1) | (month > 12) | (day < 1)).any():
+        pairs.append(v)
+    year = pairs[0] * np.int16(100) + pairs[1]
+    month, day = pairs[2], pairs[3]
+    if (year.min() < YEAR_MIN) | (year.max() > YEAR_MAX) | (month.min() < 1) | (month.max() > 12) | (day.min() < 1):
         return None
-    ym = (year - YEAR_MIN) * 12 + month - 1
+    ym = (year - np.int16(YEAR_MIN)) * np.int16(12) + (month - np.int16(1))
     if (day > _MONTH_DAYS[ym]).any():
         return None
-    ns = (_MONTH_FIRST[ym] + day - 1) * (86400 * _NS_PER_S)
+    ns = _MONTH_FIRST[ym] + (day - 1)
+    ns *= 86400
     if with_time:
         hour, minute, second = pairs[4], pairs[5], pairs[6]
-        if ((hour > 23) | (minute > 59) | (second > 59)).any():
+        if (hour.max() > 23) | (minute.max() > 59) | (second.max() > 59):
             return None
-        ns += ((hour * 60 + minute) * 60 + second) * _NS_PER_S
+        ns += (hour.astype(np.int32) * 60 + minute) * 60 + second
+    ns *= _NS_PER_S
     out = np.full(blank.size, np.datetime64("NaT"), dtype="datetime64[ns]")
     out[~blank] = ns.view("datetime64[ns]")
     return out
