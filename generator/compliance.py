@@ -563,7 +563,9 @@ def _statuses(inp: ComplianceInputs, dates: list[tuple[pd.Timestamp, pd.Timestam
         firstf = firsts[pcode]
         s[col] = pd.Series(_present(firstf, q) & (firstf != never))
     s["protector_required"] = s["protector_duty"] & active
-    return [s.loc[when == j].reset_index(drop=True) for j in range(k)]
+    # the rows are in date order (people repeated per date): each date's frame is a slice, not a copy
+    edge = np.searchsorted(when, np.arange(k + 1), side="left")
+    return [s.iloc[edge[j]:edge[j + 1]].reset_index(drop=True) for j in range(k)]
 
 
 # ---------------------------------------------------------------------------------------

@@ -456,7 +456,7 @@ def _prepare(programme: Programme) -> pd.DataFrame:
         "quiet_hours": pd.to_numeric(take(_col(raw, "quiet_hours")), errors="coerce"),
         "audiometer_id": take(_col(raw, "audiometer_id", "")).fillna("").astype(str),
         "_row": pd.to_numeric(take(_col(raw, "_row")), errors="coerce"),
-    })
+    }, copy=False)
     for f in AUDIO_FREQS:
         nr = take(_col(raw, f"nr_{f}", False)).fillna(False).astype(bool).to_numpy(bool)
         hl = pd.to_numeric(take(_col(raw, f"hl_{f}")), errors="coerce").to_numpy(float)

@@ -1596,7 +1596,7 @@ def _typed(spec: FileSpec, frame: pd.DataFrame, unknown: list[str], rows: np.nda
         s = _as_category(frame[name], conv.strip)
         conv._formula(name, s)
         out[name] = s
-    result = pd.DataFrame(out, index=pd.RangeIndex(len(rows)))
+    result = pd.DataFrame(out, index=pd.RangeIndex(len(rows)), copy=False)  # (no copy into blocks by dtype)
     result["_row"] = np.asarray(rows, dtype=np.int64)
     return result
 
@@ -2113,7 +2113,7 @@ def _log_typed(raw: bytes, cols: tuple[str, ...], fields: _Fields) -> pd.DataFra
         return None  # a blank or written NaN, a value out of range ...
     index = pd.RangeIndex(len(values))
     return pd.DataFrame({"start": pd.Series(start, index=index), "laeq": pd.Series(values, index=index)},
-                        index=index)
+                        index=index, copy=False)
 
 
 def _increasing(f: np.ndarray, r: np.ndarray) -> bool:
