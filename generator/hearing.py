@@ -198,6 +198,16 @@ def _col(df: pd.DataFrame, name: str, default: Any = np.nan) -> pd.Series:
     return pd.Series([default] * len(df), index=df.index)
 
 
+def _numbers_at(s: pd.Series, pos: np.ndarray) -> pd.Series:
+    """Return pd.to_numeric(s, errors="coerce") at positions *pos* (a new 0..n-1 index).
+
+    A column read as numbers (float or integer) is taken by position, with no conversion.
+    """
+    if s.dtype.kind in "fi" and not isinstance(s.dtype, pd.api.extensions.ExtensionDtype):
+        return pd.Series(s.to_numpy()[pos])
+    return pd.to_numeric(s.take(pos).reset_index(drop=True), errors="coerce")
+
+
 def _dates(s: pd.Series) -> pd.Series:
     """Return *s* as datetime64[ns]."""
     return pd.to_datetime(s, errors="coerce").astype("datetime64[ns]")
@@ -258,6 +268,18 @@ def _upper(s: pd.Series) -> pd.Series:
     up = pd.Series(uniques, dtype=s.dtype).str.upper().to_numpy(object)
     out = np.where(codes >= 0, up[np.clip(codes, 0, None)] if len(up) else None, None)
     return pd.Series(out, index=s.index, dtype=object).astype(s.dtype).where(codes >= 0, s)
+
+
+def _upper_text(s: pd.Series) -> pd.Series:
+    """Return ``s.fillna("").astype(str).str.upper()``; a categorical column (the reader's
+    choice columns) has each of its categories folded once."""
+    if isinstance(s.dtype, pd.CategoricalDtype) and not s.isna().any():
+        codes, words = text_codes(s)
+        up = pd.Series(words, dtype=object).str.upper().to_numpy(object)
+        out = text_at(codes, up)
+        out.index = s.index
+        return out
+    return s.fillna("").astype(str).str.upper()
 
 
 def _drop(df: pd.DataFrame, columns: Any) -> pd.DataFrame:
@@ -437,7 +459,11 @@ def _prepare(programme: Programme) -> pd.DataFrame:
     pid = codes.astype(np.int64)
     right = side[kept] == 1
     t = date_all.to_numpy("datetime64[ns]")[kept]
-    order = np.lexsort((t, right, pid))
+    # the rank of each test date among the distinct dates; (person, ear, date rank) as one
+    # integer sorts the rows in the order a lexsort by person, ear and date gives (ties kept in file order)
+    drank, udates = pd.factorize(t, sort=True)
+    order = np.argsort((pid * 2 + right) * max(len(udates), 1) + drank, kind="stable")
+    drank = drank[order]
     pos = kept[order]
     pid = pid[order]
     right = right[order]
@@ -453,20 +479,22 @@ def _prepare(programme: Programme) -> pd.DataFrame:
         "ear": _words(right.astype(np.int64), ["L", "R"]),
         "date": pd.Series(t[order], dtype="datetime64[ns]"),
         "kind": text_at(kcode[pos], np.where(kword == "", "periodic", kword)),
-        "quiet_hours": pd.to_numeric(take(_col(raw, "quiet_hours")), errors="coerce"),
+        "quiet_hours": _numbers_at(_col(raw, "quiet_hours"), pos),
         "audiometer_id": take(_col(raw, "audiometer_id", "")).fillna("").astype(str),
-        "_row": pd.to_numeric(take(_col(raw, "_row")), errors="coerce"),
+        "_row": _numbers_at(_col(raw, "_row"), pos),
     }, copy=False)
     for f in AUDIO_FREQS:
-        nr = take(_col(raw, f"nr_{f}", False)).fillna(False).astype(bool).to_numpy(bool)
-        hl = pd.to_numeric(take(_col(raw, f"hl_{f}")), errors="coerce").to_numpy(float)
+        nr_col = _col(raw, f"nr_{f}", False)
+        nr = nr_col.to_numpy(bool)[pos] if nr_col.dtype == bool else \
+            take(nr_col).fillna(False).astype(bool).to_numpy(bool)
+        hl = _numbers_at(_col(raw, f"hl_{f}"), pos).to_numpy(float)
         # NR is never a number, whatever the reader left in the cell
         ag[f"hl_{f}"] = np.where(nr, np.nan, hl)
         ag[f"nr_{f}"] = nr
     pp = pd.DataFrame({
         "person_id": _col(people, "person_id", "").astype(str),
         "group": _col(people, "group", "").astype(str),
-        "sex": _col(people, "sex", "").fillna("").astype(str).str.upper(),
+        "sex": _upper_text(_col(people, "sex", "")),
         "birth_date": _dates(_col(people, "birth_date", pd.NaT)),
         "hire_date": _dates(_col(people, "hire_date", pd.NaT)),
     }).drop_duplicates("person_id")
@@ -490,7 +518,6 @@ def _prepare(programme: Programme) -> pd.DataFrame:
             per_person = pd.Series(np.where(found, vals, empty), dtype=object).astype(str)
             ag[c] = per_person.take(pid).reset_index(drop=True)
     # calendar parts worked out once per distinct test date and once per person
-    drank, udates = pd.factorize(t[order], sort=True)
     ud = pd.Series(np.asarray(udates, dtype="datetime64[ns]"))
     bp = pd.Series(birth if birth is not None else np.zeros(0, dtype="datetime64[ns]"), dtype="datetime64[ns]")
     ag["year"] = ud.dt.year.to_numpy(np.int64)[drank]

@@ -124,3 +124,21 @@ def test_age_from_calendar_parts_matches_age_at():
     got = hearing._age_years(births.astype("datetime64[ns]"), dates.astype("datetime64[ns]"), who, when)
     want = hearing.age_at(births.iloc[who].reset_index(drop=True), dates.iloc[when].reset_index(drop=True))
     np.testing.assert_array_equal(got, want.to_numpy(float))
+
+
+def test_prepare_orders_rows_as_lexsort_by_person_ear_date(built_example):
+    """The audiogram rows come out in the order numpy's lexsort by (person id text, ear, date) gives,
+    rows of one person, ear and day in file order; the per-row date rank matches the sorted distinct dates."""
+    prog = built_example.context.programme
+    raw = prog.table("audiograms")
+    ag = hearing._prepare(prog)
+    ear = raw["ear"].astype(str).str.upper()
+    date = pd.to_datetime(raw["date"], errors="coerce").astype("datetime64[ns]")
+    kept = np.flatnonzero(date.notna().to_numpy() & ear.isin(["L", "R"]).to_numpy())
+    ids = raw["person_id"].astype(str).to_numpy(object)[kept]
+    uniq, pid = np.unique(ids, return_inverse=True)  # (codes in sorted id order, as the stage's)
+    order = np.lexsort((date.to_numpy()[kept], ear.to_numpy(object)[kept] == "R", pid))
+    assert ag["_row"].tolist() == raw["_row"].to_numpy()[kept][order].tolist()
+    assert (ag["person_id"].to_numpy(object) == ids[order]).all()
+    days = np.unique(ag["date"].to_numpy())
+    assert (days[ag["_drank"].to_numpy()] == ag["date"].to_numpy()).all()
