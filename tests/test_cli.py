@@ -301,3 +301,56 @@ def test_garbage_collector_tuned_only_for_the_command_process() -> None:
             "rc = main(); print(gc.get_threshold(), gc.get_freeze_count() > 0, rc)")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
     assert out.strip().splitlines()[-1] == f"{GC_THRESHOLDS} True 0"
+
+
+@pytest.mark.parametrize("command", ["check", "build", "export"])
+def test_command_process_ends_at_once_with_all_its_output(command: str, tmp_path: Path,
+                                                          capsys: pytest.CaptureFixture[str]) -> None:
+    # the hcpsite process of check, build and export leaves without tearing the interpreter down
+    # (cli._leave): the exit code, everything written to stdout and stderr (through pipes, which
+    # buffer) and the files are those main() gives when called from Python
+    import os
+
+    prog = make_programme(tmp_path / "prog")
+    extra = {"check": [], "build": ["--out"], "export": ["--to"]}[command]
+    args = [command, str(prog)] + (extra + [str(tmp_path / "in-process")] if extra else [])
+    with env(HCPSITE_ID_KEY=TEST_KEY, SOURCE_DATE_EPOCH="1767225600"):
+        rc = main(args)
+    inner = capsys.readouterr()
+    sub_args = [command, str(prog)] + (extra + [str(tmp_path / "own-process")] if extra else [])
+    proc = subprocess.run([sys.executable, "-m", "generator", *sub_args], capture_output=True, text=True,
+                          env={**os.environ, "HCPSITE_ID_KEY": TEST_KEY, "SOURCE_DATE_EPOCH": "1767225600"})
+    assert proc.returncode == rc
+    assert proc.stdout == inner.out.replace(str(tmp_path / "in-process"), str(tmp_path / "own-process"))
+    assert proc.stderr == inner.err.replace(str(tmp_path / "in-process"), str(tmp_path / "own-process"))
+    if extra:
+        a, b = tmp_path / "in-process", tmp_path / "own-process"
+        names = sorted(p.relative_to(a).as_posix() for p in a.rglob("*") if p.is_file())
+        assert names and names == sorted(p.relative_to(b).as_posix() for p in b.rglob("*") if p.is_file())
+        for n in names:
+            assert (a / n).read_bytes() == (b / n).read_bytes(), n
+    # a finding on stdout or stderr that a pipe still held would be missing above; so would a last line
+    assert (proc.stdout + proc.stderr).strip()
+
+
+def test_quick_exit_only_for_commands_that_finish_their_files() -> None:
+    from generator.cli import QUICK_EXIT_COMMANDS, make_parser
+
+    commands = set(make_parser()._subparsers._group_actions[0].choices)  # type: ignore[union-attr]
+    assert QUICK_EXIT_COMMANDS == {"check", "build", "export"} and QUICK_EXIT_COMMANDS <= commands
+    assert "serve" not in QUICK_EXIT_COMMANDS  # serve runs until interrupted and cleans up after itself
+
+
+def test_command_process_skips_interpreter_teardown(tmp_path: Path) -> None:
+    # the evidence of a process that ended at once: a handler registered to run at exit does not run
+    # after check (a quick-exit command), and does after --version (no command ran)
+    import os
+
+    prog = make_programme(tmp_path / "prog")
+    code = ("import atexit, sys; atexit.register(lambda: print('torn down')); from generator.cli import main; "
+            "sys.argv = ['hcpsite'] + sys.argv[1:]; rc = main(); print('returned', rc)")
+    run = {"env": {**os.environ, "HCPSITE_ID_KEY": TEST_KEY}, "capture_output": True, "text": True}
+    quick = subprocess.run([sys.executable, "-c", code, "check", str(prog)], **run)
+    assert quick.returncode == 0 and "torn down" not in quick.stdout and "returned" not in quick.stdout
+    normal = subprocess.run([sys.executable, "-c", code, "--version"], **run)
+    assert normal.returncode == 0 and normal.stdout.splitlines()[-2:] == ["returned 0", "torn down"]
