@@ -48,7 +48,7 @@ import pandas as pd
 from . import levels as lv
 from .findings import WARNING, Finding
 from .inputs.spec import OCTAVE_BANDS
-from .model import Programme
+from .model import NoiseLogs, Programme
 from .rules import CONTRACT_RULES, DUTY_KEYS, RuleSet, load_rule_set, rule_sets_for
 
 log = logging.getLogger(__name__)
@@ -444,15 +444,19 @@ def _log_arrays(programme: Programme, mids: np.ndarray) -> tuple[np.ndarray, np.
     if not have:
         e = np.empty(0)
         return e.astype(np.int64), e, e, e.astype(np.int64), []
-    frames = [programme.noise_logs[m] for m in have]
-    sizes = np.array([len(f) for f in frames], dtype=np.int64)
+    logs = programme.noise_logs
+    if isinstance(logs, NoiseLogs):  # (the reader's: every log's rows already in one frame)
+        sizes, start, lev = logs.arrays(have)
+    else:
+        frames = [logs[m] for m in have]
+        sizes = np.array([len(f) for f in frames], dtype=np.int64)
+        # one concatenation of every log (taking the columns of each log in turn costs more)
+        every = pd.concat(frames, ignore_index=True)
+        lev = every["laeq"].to_numpy(float)
+        start = every["start"].to_numpy("datetime64[ns]").astype(np.int64)
     idx = np.repeat(np.array([pos[m] for m in have], dtype=np.int64), sizes)
-    # one concatenation of every log (taking the columns of each log in turn costs more)
-    every = pd.concat(frames, ignore_index=True)
-    lev = every["laeq"].to_numpy(float)
     step = np.repeat(np.array([programme.log_interval_s.get(m, 60.0) for m in have], dtype=float) / 3600.0,
                      sizes)
-    start = every["start"].to_numpy("datetime64[ns]").astype(np.int64)
     return idx, lev, step, start, have
 
 

@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Mapping
+from typing import Iterator, Mapping
 
 import numpy as np
 import pandas as pd
@@ -69,6 +69,50 @@ def _id_texts(ids: pd.Series) -> np.ndarray:
     return out
 
 
+class NoiseLogs(Mapping[str, pd.DataFrame]):
+    """The noise logs by measurement id (in id order), read into one frame.
+
+    *frame* holds the rows of every log (start, laeq, _row), each log one run of rows from
+    *first* to *end* (aligned with the sorted *ids*). A log's own frame (a 0..n-1 index) is
+    made when it is first asked for; :meth:`arrays` gives the rows of many logs at once,
+    without making a frame for each.
+    """
+
+    def __init__(self, frame: pd.DataFrame, ids: list[str], first: np.ndarray, end: np.ndarray) -> None:
+        self._frame = frame
+        self._pos = {m: i for i, m in enumerate(ids)}
+        self._first = np.asarray(first, dtype=np.int64)
+        self._end = np.asarray(end, dtype=np.int64)
+        self._made: dict[str, pd.DataFrame] = {}
+
+    def __getitem__(self, mid: str) -> pd.DataFrame:
+        made = self._made.get(mid)
+        if made is None:
+            i = self._pos[mid]
+            made = self._frame.iloc[self._first[i]:self._end[i]]
+            made.index = pd.RangeIndex(len(made))
+            self._made[mid] = made
+        return made
+
+    def __iter__(self) -> Iterator[str]:
+        return iter(self._pos)
+
+    def __len__(self) -> int:
+        return len(self._pos)
+
+    def __contains__(self, mid: object) -> bool:
+        return mid in self._pos
+
+    def arrays(self, ids: list[str]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Return (rows of each log, start in ns as int64, laeq) of the logs *ids*, one after another."""
+        at = np.asarray([self._pos[m] for m in ids], dtype=np.int64)
+        first, sizes = self._first[at], self._end[at] - self._first[at]
+        # the rows of each log in turn: its first row, then one more row at a time
+        rows = np.repeat(first - np.concatenate(([0], np.cumsum(sizes)[:-1])), sizes) + np.arange(int(sizes.sum()))
+        start = self._frame["start"].to_numpy("datetime64[ns]").view(np.int64)[rows]
+        return sizes, start, self._frame["laeq"].to_numpy(float)[rows]
+
+
 @dataclass
 class Programme:
     """Everything read from one programme folder, validated."""
@@ -81,7 +125,8 @@ class Programme:
     #: file name -> path read, relative to root (absent files are missing here)
     present: dict[str, str]
     #: measurement_id -> DataFrame(start: datetime64, laeq: float64, _row: int), sorted by start
-    noise_logs: dict[str, pd.DataFrame]
+    #: (the reader gives a NoiseLogs: every log in one frame)
+    noise_logs: Mapping[str, pd.DataFrame]
     #: measurement_id -> interval length in seconds (fixed per log)
     log_interval_s: dict[str, float]
     pages: list[NarrativePage]

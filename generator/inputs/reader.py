@@ -32,7 +32,7 @@ from .. import clock
 from ..config import CONFIG_FILE, MAX_CONFIG_BYTES, Config, load_config
 from ..findings import ERROR, WARNING, Findings
 from ..inputfile import InputFileError, read_regular, size_text
-from ..model import NarrativePage, PersonIndex, Programme
+from ..model import NarrativePage, NoiseLogs, PersonIndex, Programme
 from ..yamltext import YamlError, load_yaml
 from .dress import Dresser
 from .spec import FILES, GROUPS, NOISE_LOG, Column, FileSpec
@@ -1943,7 +1943,7 @@ def _unknown_data_files(root: Path, findings: Findings, named: set[str] | frozen
 
 
 def _load_logs(root: Path, inputs: _Inputs, findings: Findings, noise: pd.DataFrame,
-               today: dt.date) -> tuple[dict[str, pd.DataFrame], dict[str, float]]:
+               today: dt.date) -> tuple[NoiseLogs | dict[str, pd.DataFrame], dict[str, float]]:
     """Read data/noise_logs/ID.csv for every logged measurement (one batch parse where possible)."""
     folder = root / LOG_DIR
     if not folder.is_dir():
@@ -2122,7 +2122,7 @@ def _increasing(f: np.ndarray, r: np.ndarray) -> bool:
 
 
 def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
-              findings: Findings) -> tuple[dict[str, pd.DataFrame], dict[str, float]]:
+              findings: Findings) -> tuple[NoiseLogs | dict[str, pd.DataFrame], dict[str, float]]:
     """Check order and interval of every log, sort by start and split per measurement."""
     if not _increasing(allf["_file"].to_numpy(), allf["_row"].to_numpy()):
         allf = allf.sort_values(["_file", "_row"], kind="stable").reset_index(drop=True)
@@ -2159,23 +2159,24 @@ def _log_tidy(allf: pd.DataFrame, names: list[str], paths: np.ndarray,
               m=np.round(med_row[at], 1)),
         key="start: irregular interval")
     del t, diff, dser, med_row, off, same
-    logs: dict[str, pd.DataFrame] = {}
+    runs: dict[str, tuple[int, int]] = {}
     intervals: dict[str, float] = {}
     bounds = np.flatnonzero(np.concatenate(([True], f[1:] != f[:-1], [True])))
     allf = allf[["start", "laeq", "_row"]]
     med_of = dict(zip(med.index.tolist(), med.to_numpy().tolist()))
     for a, b in zip(bounds[:-1].tolist(), bounds[1:].tolist()):
         k = int(f[a])
-        part = allf.iloc[a:b]
-        part.index = pd.RangeIndex(b - a)
-        logs[names[k]] = part
+        runs[names[k]] = (a, b)  # (each log a run of rows of the one frame)
         m = med_of.get(k, np.nan)
         if np.isfinite(m) and m > 0:
             intervals[names[k]] = float(m)
         else:
             findings.warning(str(paths[k]), None, "start", "fewer than two increasing timestamps: the "
                              "interval is unknown", key="log: no interval")
-    return dict(sorted(logs.items())), dict(sorted(intervals.items()))
+    ids = sorted(runs)
+    logs = NoiseLogs(allf, ids, np.asarray([runs[m][0] for m in ids], dtype=np.int64),
+                     np.asarray([runs[m][1] for m in ids], dtype=np.int64))
+    return logs, dict(sorted(intervals.items()))
 
 
 # ---------------------------------------------------------------------------------------
