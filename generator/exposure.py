@@ -505,8 +505,11 @@ class LogHistories(Mapping[str, pd.DataFrame]):
 
 
 def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.ndarray,
-                have: list[str]) -> LogHistories:
-    """Return per-measurement downsampled histories (≤ LOG_POINTS bins: energy mean, max, start)."""
+                have: list[str], energy: np.ndarray | None = None) -> LogHistories:
+    """Return per-measurement downsampled histories (≤ LOG_POINTS bins: energy mean, max, start).
+
+    *energy* is lv.energy(lev) when the caller has it already.
+    """
     if not have:
         none, no_ints = np.empty(0), np.empty(0, dtype=np.int64)
         return LogHistories([], no_ints, no_ints, no_ints, none, none, no_ints)
@@ -521,7 +524,7 @@ def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.nd
     bin_off = np.concatenate([[0], np.cumsum(nbins)[:-1]])
     b = bin_off[idx] + order // per_bin[idx]
     total = int(nbins.sum())
-    e = np.bincount(b, weights=lv.energy(lev), minlength=total)
+    e = np.bincount(b, weights=lv.energy(lev) if energy is None else energy, minlength=total)
     c = np.bincount(b, minlength=total)
     # bins are contiguous runs of the concatenated samples: reduce each run at its first sample
     firsts = np.flatnonzero(np.r_[True, b[1:] != b[:-1]])
@@ -581,10 +584,11 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
 
     # logs
     idx, lev, step, start, have = _log_arrays(programme, mids)
+    lev_energy = lv.energy(lev)  # (each sample's energy, worked out once for both uses)
     has_log = np.bincount(idx, minlength=n) > 0
     if have:
         log_hours = np.bincount(idx, weights=step, minlength=n)
-        log_laeq = lv.level(np.bincount(idx, weights=lv.energy(lev) * step, minlength=n) /
+        log_laeq = lv.level(np.bincount(idx, weights=lev_energy * step, minlength=n) /
                             np.where(log_hours > 0, log_hours, 1.0))
         dl = np.abs(log_laeq - m["laeq_reported"].to_numpy())
         for i in np.flatnonzero(has_log & (dl > LOG_LAEQ_TOLERANCE_DB)):
@@ -689,7 +693,7 @@ def _measurements(programme: Programme, rules: dict[str, RuleSet], groups: pd.Da
             findings.append(Finding(f"data/noise_logs/{mid}.csv", first, "laeq", WARNING,
                                     f"levels above {ul:g} dB(A), the upper end of the integration range, are "
                                     "counted at their measured level", key="above-integration-range"))
-    logs = _downsample(idx, lev, start, mids, have)
+    logs = _downsample(idx, lev, start, mids, have, lev_energy)
     front = MEASUREMENT_COLUMNS + ["dose_estimate", "kind", "location", "x_m", "y_m", "te_h", "laeq_reported",
                                    "duration_reported_h", "laeq_octaves", "lceq_octaves", "instrument_class",
                                    "_row"]
