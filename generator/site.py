@@ -123,7 +123,12 @@ def render_markdown(text: str) -> str:
 
 @lru_cache(maxsize=1)
 def _markdown() -> md.Markdown:
-    return md.Markdown(extensions=["tables", "fenced_code", "toc"], output_format="html")
+    """Return the one converter: tables, fenced code and heading ids (the extensions given as
+    objects: by name, markdown would look them up among every installed package's entry points)."""
+    from markdown.extensions.fenced_code import FencedCodeExtension
+    from markdown.extensions.tables import TableExtension
+    from markdown.extensions.toc import TocExtension
+    return md.Markdown(extensions=[TableExtension(), FencedCodeExtension(), TocExtension()], output_format="html")
 
 
 def _markdown_filter(text: str) -> Markup:
