@@ -354,3 +354,16 @@ def test_command_process_skips_interpreter_teardown(tmp_path: Path) -> None:
     assert quick.returncode == 0 and "torn down" not in quick.stdout and "returned" not in quick.stdout
     normal = subprocess.run([sys.executable, "-c", code, "--version"], **run)
     assert normal.returncode == 0 and normal.stdout.splitlines()[-2:] == ["returned 0", "torn down"]
+
+
+def test_command_process_under_a_profiler_exits_normally(tmp_path: Path) -> None:
+    # a profiler (python -m cProfile -o FILE -m generator ..., as bench/bench_build.py --profile runs it)
+    # writes its data at exit: the quick exit steps aside for it
+    import os
+
+    prog = make_programme(tmp_path / "prog")
+    prof = tmp_path / "check.prof"
+    proc = subprocess.run([sys.executable, "-m", "cProfile", "-o", str(prof), "-m", "generator", "check", str(prog)],
+                          capture_output=True, text=True, env={**os.environ, "HCPSITE_ID_KEY": TEST_KEY})
+    assert proc.returncode == 0, proc.stderr
+    assert prof.is_file() and prof.stat().st_size > 0
