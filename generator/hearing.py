@@ -1254,14 +1254,22 @@ def _per_person_year(ag: pd.DataFrame, last: np.ndarray) -> pd.DataFrame:
     rec = np.bincount(gid, weights=ag["case"].to_numpy(bool), minlength=len(u)) > 0
     pids = u // ny
     firsts = _person_rows(ag)  # person code -> first row (id and group are the person's)
-    lcode = code[last]
-    avg = ag[["avg_234", "nr_234"]].take(last).groupby(lcode, sort=True).agg(avg_234=("avg_234", "mean"),
-                                                                     n_nr=("nr_234", "sum")).reindex(u)
+    # the mean 2/3/4 kHz average and the NR count over each person-year's latest row per ear
+    # (at most two rows a person-year, so a plain sum is the sum pandas' mean adds up)
+    at = np.searchsorted(u, code[last])
+    la = ag["avg_234"].to_numpy(float)[last]
+    known = ~np.isnan(la)
+    n_avg = np.bincount(at[known], minlength=len(u))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(n_avg > 0, np.bincount(at[known], weights=la[known], minlength=len(u)) / n_avg, np.nan)
+    n_nr = np.bincount(at, weights=ag["nr_234"].to_numpy(bool)[last], minlength=len(u)).astype(np.int64)
+    with_last = np.bincount(at, minlength=len(u)) > 0
+    avg = {"avg_234": mean,  # (a person-year with no latest row has no figures: NaN, as a reindex gives)
+           "n_nr": n_nr if with_last.all() else np.where(with_last, n_nr, np.nan)}
     py = pd.DataFrame({"_pid": pids, "year": u % ny + y0,
                        "person_id": ag["person_id"].take(firsts).to_numpy()[pids],
                        "group": ag["group"].take(firsts).to_numpy()[pids],
-                       "sts": sts, "recordable": rec, "avg_234": avg["avg_234"].to_numpy(),
-                       "n_nr": avg["n_nr"].to_numpy()})
+                       "sts": sts, "recordable": rec, "avg_234": avg["avg_234"], "n_nr": avg["n_nr"]})
     same = np.r_[False, pids[1:] == pids[:-1]]
     py["prev_avg"] = np.where(same, np.r_[np.nan, py["avg_234"].to_numpy(float)[:-1]], np.nan)
     py["prev_year"] = np.where(same, np.r_[np.nan, py["year"].to_numpy(float)[:-1]], np.nan)

@@ -142,3 +142,29 @@ def test_prepare_orders_rows_as_lexsort_by_person_ear_date(built_example):
     assert (ag["person_id"].to_numpy(object) == ids[order]).all()
     days = np.unique(ag["date"].to_numpy())
     assert (days[ag["_drank"].to_numpy()] == ag["date"].to_numpy()).all()
+
+
+def test_person_year_means_match_pandas_groupby():
+    """The per person-year mean 2/3/4 kHz average and NR count equal pandas' groupby mean and sum over the
+    latest row per ear (reindexed to every person-year, so one without such a row is NaN), over random frames."""
+    rng = np.random.default_rng(3)
+    for _ in range(1500):
+        n = int(rng.integers(1, 40))
+        pid = np.sort(pd.factorize(rng.integers(0, 6, n))[0])
+        year, ear = rng.integers(2018, 2022, n), rng.integers(0, 2, n)
+        o = np.lexsort((year, ear, pid))
+        pid, year, ear = pid[o], year[o], ear[o]
+        avg = np.round(rng.normal(20, 10, n), 1)
+        avg[rng.random(n) < 0.2] = np.nan
+        ag = pd.DataFrame({"_pid": pid, "year": year, "avg_234": avg, "nr_234": rng.random(n) < 0.3,
+                           "sts": rng.random(n) < 0.1, "case": rng.random(n) < 0.05,
+                           "is_retest_of_shift": rng.random(n) < 0.2, "_key": pid * 2 + ear,
+                           "person_id": [f"P{p}" for p in pid], "group": "G", "ear": np.where(ear == 1, "R", "L")})
+        last = hearing._last_per_year(ag)
+        got = hearing._per_person_year(ag, last)
+        code = pid * (int(year.max()) - int(year.min()) + 1) + (year - int(year.min()))
+        want = ag[["avg_234", "nr_234"]].take(last).groupby(code[last], sort=True).agg(
+            avg_234=("avg_234", "mean"), n_nr=("nr_234", "sum")).reindex(np.unique(code))
+        assert np.array_equal(got["avg_234"].to_numpy(), want["avg_234"].to_numpy(), equal_nan=True)
+        assert got["n_nr"].dtype == want["n_nr"].dtype
+        assert np.array_equal(got["n_nr"].to_numpy(float), want["n_nr"].to_numpy(float), equal_nan=True)
