@@ -38,7 +38,7 @@ from __future__ import annotations
 
 import logging
 import math
-from collections.abc import Iterator, Mapping
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -48,7 +48,7 @@ import pandas as pd
 from . import levels as lv
 from .findings import WARNING, Finding
 from .inputs.spec import OCTAVE_BANDS
-from .model import NoiseLogs, Programme
+from .model import LazyFrames, NoiseLogs, Programme
 from .rules import CONTRACT_RULES, DUTY_KEYS, RuleSet, load_rule_set, rule_sets_for
 
 log = logging.getLogger(__name__)
@@ -460,7 +460,7 @@ def _log_arrays(programme: Programme, mids: np.ndarray) -> tuple[np.ndarray, np.
     return idx, lev, step, start, have
 
 
-class LogHistories(Mapping[str, pd.DataFrame]):
+class LogHistories(LazyFrames):
     """The downsampled time history of each logged measurement, by measurement id (sorted).
 
     The bins of every log are computed at once into flat arrays; the frame of one log
@@ -470,21 +470,15 @@ class LogHistories(Mapping[str, pd.DataFrame]):
 
     def __init__(self, ids: list[str], first: np.ndarray, nbins: np.ndarray, start: np.ndarray,
                  energy: np.ndarray, lmax: np.ndarray, count: np.ndarray) -> None:
-        self._pos = {m: i for i, m in enumerate(ids)}
+        super().__init__(ids)
         self._first, self._nbins = first, nbins
         self._start, self._energy, self._lmax, self._count = start, energy, lmax, count
-        self._frames: dict[str, pd.DataFrame] = {}
 
-    def __getitem__(self, mid: str) -> pd.DataFrame:
-        frame = self._frames.get(mid)
-        if frame is None:
-            i = self._pos[mid]
-            sl = slice(self._first[i], self._first[i] + self._nbins[i])
-            c = self._count[sl]
-            frame = pd.DataFrame({"start": self._start[sl].view("datetime64[ns]"),
-                                  "laeq": lv.level(self._energy[sl] / c), "lmax": self._lmax[sl], "n": c})
-            self._frames[mid] = frame
-        return frame
+    def _make(self, i: int) -> pd.DataFrame:
+        sl = slice(self._first[i], self._first[i] + self._nbins[i])
+        c = self._count[sl]
+        return pd.DataFrame({"start": self._start[sl].view("datetime64[ns]"),
+                             "laeq": lv.level(self._energy[sl] / c), "lmax": self._lmax[sl], "n": c})
 
     def peak(self, mid: str) -> float:
         """Return the highest bin maximum of log *mid* (NaN when none is known): its frame's
@@ -493,15 +487,6 @@ class LogHistories(Mapping[str, pd.DataFrame]):
         values = self._lmax[self._first[i]:self._first[i] + self._nbins[i]]
         values = values[~np.isnan(values)]
         return float(values.max()) if values.size else float("nan")
-
-    def __iter__(self) -> Iterator[str]:
-        return iter(self._pos)
-
-    def __len__(self) -> int:
-        return len(self._pos)
-
-    def __contains__(self, mid: object) -> bool:
-        return mid in self._pos
 
 
 def _downsample(idx: np.ndarray, lev: np.ndarray, start: np.ndarray, mids: np.ndarray,

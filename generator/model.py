@@ -69,29 +69,21 @@ def _id_texts(ids: pd.Series) -> np.ndarray:
     return out
 
 
-class NoiseLogs(Mapping[str, pd.DataFrame]):
-    """The noise logs by measurement id (in id order), read into one frame.
+class LazyFrames(Mapping[str, pd.DataFrame]):
+    """A mapping of ids (in the order given) to frames, each made when it is first asked for
+    (``_make(i)`` for the id at position i) and kept."""
 
-    *frame* holds the rows of every log (start, laeq, _row), each log one run of rows from
-    *first* to *end* (aligned with the sorted *ids*). A log's own frame (a 0..n-1 index) is
-    made when it is first asked for; :meth:`arrays` gives the rows of many logs at once,
-    without making a frame for each.
-    """
-
-    def __init__(self, frame: pd.DataFrame, ids: list[str], first: np.ndarray, end: np.ndarray) -> None:
-        self._frame = frame
+    def __init__(self, ids: list[str]) -> None:
         self._pos = {m: i for i, m in enumerate(ids)}
-        self._first = np.asarray(first, dtype=np.int64)
-        self._end = np.asarray(end, dtype=np.int64)
         self._made: dict[str, pd.DataFrame] = {}
+
+    def _make(self, i: int) -> pd.DataFrame:
+        raise NotImplementedError
 
     def __getitem__(self, mid: str) -> pd.DataFrame:
         made = self._made.get(mid)
         if made is None:
-            i = self._pos[mid]
-            made = self._frame.iloc[self._first[i]:self._end[i]]
-            made.index = pd.RangeIndex(len(made))
-            self._made[mid] = made
+            made = self._made[mid] = self._make(self._pos[mid])
         return made
 
     def __iter__(self) -> Iterator[str]:
@@ -102,6 +94,27 @@ class NoiseLogs(Mapping[str, pd.DataFrame]):
 
     def __contains__(self, mid: object) -> bool:
         return mid in self._pos
+
+
+class NoiseLogs(LazyFrames):
+    """The noise logs by measurement id (in id order), read into one frame.
+
+    *frame* holds the rows of every log (start, laeq, _row), each log one run of rows from
+    *first* to *end* (aligned with the sorted *ids*). A log's own frame (a 0..n-1 index) is
+    made when it is first asked for; :meth:`arrays` gives the rows of many logs at once,
+    without making a frame for each.
+    """
+
+    def __init__(self, frame: pd.DataFrame, ids: list[str], first: np.ndarray, end: np.ndarray) -> None:
+        super().__init__(ids)
+        self._frame = frame
+        self._first = np.asarray(first, dtype=np.int64)
+        self._end = np.asarray(end, dtype=np.int64)
+
+    def _make(self, i: int) -> pd.DataFrame:
+        made = self._frame.iloc[self._first[i]:self._end[i]]
+        made.index = pd.RangeIndex(len(made))
+        return made
 
     def arrays(self, ids: list[str]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Return (rows of each log, start in ns as int64, laeq) of the logs *ids*, one after another."""
