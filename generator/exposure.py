@@ -47,6 +47,7 @@ import pandas as pd
 
 from . import levels as lv
 from .findings import WARNING, Finding
+from .frames import shared_codes
 from .inputs.spec import OCTAVE_BANDS
 from .model import LazyFrames, NoiseLogs, Programme
 from .rules import CONTRACT_RULES, DUTY_KEYS, RuleSet, load_rule_set, rule_sets_for
@@ -897,18 +898,23 @@ def _people(people: pd.DataFrame, m: pd.DataFrame, g: pd.DataFrame, head: RuleSe
     """Return one row per person: personal (or group) exposure, exposed, first exposure date."""
     hid = head.id
     every = m[(m["kind"] == "personal") & (m["person_id"] != "") & (m["date"] <= end) & m["laeq"].notna()]
+    p = people[["person_id", "group"]].copy()
+    # person ids as integers once, shared by the people rows and the measurements: each grouping
+    # below is by person, in row order within a person, as a grouping on the id text is
+    every = every[every["person_id"].notna().to_numpy()]  # (a grouping on the id text drops a missing id)
+    pcode, ecode = shared_codes(p["person_id"], every["person_id"])
     # a person's own figure uses their measurements within the survey interval of their latest one
-    last = every.groupby("person_id")["date"].transform("max")
-    pm = every[every["date"] >= last - pd.to_timedelta(years * 365.25, unit="D")].copy()
+    last = every["date"].groupby(ecode).transform("max")
+    recent = (every["date"] >= last - pd.to_timedelta(years * 365.25, unit="D")).to_numpy()
+    pm = every[recent].copy()
     pm["_e"] = lv.energy(pm["lex_8h"].to_numpy(float))
     pm["_sd"] = pm[f"dose_{hid}"] * pm["te_h"] / pm["duration_h"]
-    agg = pm.groupby("person_id").agg(_e=("_e", "mean"), _sd=("_sd", "mean"), _pk=("lcpeak", "max"))
-    p = people[["person_id", "group"]].copy()
+    agg = pm.groupby(ecode[recent]).agg(_e=("_e", "mean"), _sd=("_sd", "mean"), _pk=("lcpeak", "max"))
     if "hire_date" in people:
         p["_hire"] = pd.to_datetime(people["hire_date"])
     else:
         p["_hire"] = pd.NaT
-    a = agg.reindex(p["person_id"])
+    a = agg.reindex(pcode)
     own_lex = lv.level(a["_e"].to_numpy(float))
     if head.metric == "lex":
         own = own_lex
@@ -939,12 +945,12 @@ def _people(people: pd.DataFrame, m: pd.DataFrame, g: pd.DataFrame, head: RuleSe
     #: the level compared with the headline rule set's values (with U where it judges with U)
     p["judged_level"] = np.where(np.isneginf(judged), np.nan, judged)
     # first exposure: first personal measurement at/above, else first group measurement at/above
-    over = every[exposed_for(head, "audiometry", every[f"level_{hid}"], every["lcpeak"])]
-    first_own = over.groupby("person_id")["date"].min()
+    hit = np.asarray(exposed_for(head, "audiometry", every[f"level_{hid}"], every["lcpeak"]), dtype=bool)
+    first_own = every["date"][hit].groupby(ecode[hit]).min()
     pers = m[(m["kind"] == "personal") & (m["group"] != "") & (m["date"] <= end)]
     gm = pers[exposed_for(head, "audiometry", pers[f"level_{hid}"], pers["lcpeak"])]
     first_grp = gm.groupby("group")["date"].min()
-    fo = pd.to_datetime(_lookup(p["person_id"], first_own.astype("datetime64[ns]")))
+    fo = pd.to_datetime(pd.Series(first_own.astype("datetime64[ns]").reindex(pcode).to_numpy(), index=p.index))
     fg = pd.to_datetime(_lookup(p["group"], first_grp.astype("datetime64[ns]")))
     first = fo.where(fo.notna(), fg)
     first = first.where(~(first.notna() & p["_hire"].notna() & (first < p["_hire"])), p["_hire"])

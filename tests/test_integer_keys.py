@@ -418,3 +418,50 @@ def test_person_keys_from_loaded_codes_match_the_text_codes(seed):
     for name in ("person", "audiogram", "training", "fit", "first_audiogram", "first_protector",
                  "first_fit_test", "first_exit"):
         assert getattr(got, name).tolist() == getattr(want, name).tolist(), name
+
+
+@pytest.mark.parametrize("rule_id", ["osha-1910.95", "eu-2003-10"])
+def test_exposure_people_own_figures_match_a_loop_over_people(rule_id):
+    """Each person's own figures in exposure._people (grouped on integer person codes) equal a plain loop
+    over the people on the id text: the energy mean LEX,8h of their personal measurements within the survey
+    interval of their latest one, their highest LCpeak and their first measurement at the duty's start.
+    Random measurements with blank and missing ids, people on two rows, ids that differ only in case or space."""
+    from generator import exposure, levels as lv
+    from generator.rules import load_rule_set
+
+    head = load_rule_set(rule_id)
+    hid, years = head.id, 3.0
+    end = pd.Timestamp("2025-12-31")
+    rng = np.random.default_rng(17)
+    for _ in range(120):
+        n = int(rng.integers(0, 60))
+        ids = rng.choice(POOL + ["", None], size=n).tolist()
+        level = np.round(rng.normal(84, 6, n), 1)
+        m = pd.DataFrame({
+            "kind": rng.choice(["personal", "area"], size=n, p=[0.8, 0.2]),
+            "person_id": pd.Series(ids, dtype=object),
+            "group": rng.choice(["G1", "G2", ""], size=n),
+            "date": pd.Timestamp("2019-01-01") + pd.to_timedelta(rng.integers(0, 2900, n), unit="D"),
+            "laeq": level, "lex_8h": level, f"level_{hid}": level, f"dose_{hid}": rng.uniform(10, 300, n),
+            "te_h": 8.0, "duration_h": rng.uniform(6, 8, n), "lcpeak": np.round(rng.normal(125, 8, n), 1)})
+        people = pd.DataFrame({"person_id": rng.choice(POOL, size=int(rng.integers(1, 12))).tolist(),
+                               "group": "G9"})  # (a group without measurements: no group fallback)
+        g = pd.DataFrame({"group": ["G9"], "lex_8h": [np.nan], f"level_{hid}": [np.nan], "u_expanded": [np.nan],
+                          "max_lcpeak": [np.nan]})
+        got = exposure._people(people, m, g, head, end, years)
+        ordered = people.sort_values("person_id", kind="stable").reset_index(drop=True)
+        assert got["person_id"].tolist() == ordered["person_id"].tolist()
+        for i, pid in enumerate(ordered["person_id"]):
+            mine = m[(m["kind"] == "personal") & (m["person_id"] == pid) & (m["date"] <= end) & m["laeq"].notna()]
+            if mine.empty:
+                assert np.isnan(got["lex_8h"].iat[i]) and np.isnan(got["max_lcpeak"].iat[i])
+                assert pd.isna(got["first_exposed_date"].iat[i])
+                continue
+            recent = mine[mine["date"] >= mine["date"].max() - pd.to_timedelta(years * 365.25, unit="D")]
+            energy = np.mean([10 ** (v / 10) for v in recent["lex_8h"]])
+            assert got["lex_8h"].iat[i] == pytest.approx(10 * np.log10(energy), abs=1e-9)
+            assert got["max_lcpeak"].iat[i] == recent["lcpeak"].max()
+            hit = mine[exposure.exposed_for(head, "audiometry", mine[f"level_{hid}"], mine["lcpeak"])]
+            want = hit["date"].min() if len(hit) else pd.NaT
+            assert (pd.isna(want) and pd.isna(got["first_exposed_date"].iat[i])) or got["first_exposed_date"].iat[i] == want
+            assert lv.level(lv.energy(got["lex_8h"].iat[i])) == pytest.approx(got["lex_8h"].iat[i])
