@@ -1305,12 +1305,19 @@ def _population(py: pd.DataFrame) -> pd.DataFrame:
     own = np.flatnonzero(gcode >= 0)  # a missing group counts in "all" only
     both = np.r_[own, np.arange(len(py))]
     d = py[["year", "sts", "recordable", "avg_234", "n_nr", "within_change"]].take(both)
-    d.insert(0, "g", np.r_[gcode[own], np.full(len(py), all_code)])
-    p = d.groupby(["g", "year"], sort=True).agg(
+    # group and year as one integer key (sorted as the pair): one grouping key instead of two
+    year = d["year"].to_numpy(np.int64)
+    y0 = int(year.min())
+    ny = int(year.max()) - y0 + 1
+    key = np.r_[gcode[own], np.full(len(py), all_code)].astype(np.int64) * ny + (year - y0)
+    p = d.groupby(key, sort=True).agg(
         n_tested=("year", "size"), n_sts=("sts", "sum"), n_recordable=("recordable", "sum"),
         mean_avg_234=("avg_234", "mean"), n_avg=("avg_234", "count"), n_nr_excluded=("n_nr", "sum"),
-        mean_within_change=("within_change", "mean"), n_within=("within_change", "count")).reset_index()
-    p.insert(0, "group", np.asarray(glabel, dtype=object)[p.pop("g").to_numpy()])
+        mean_within_change=("within_change", "mean"), n_within=("within_change", "count"))
+    k = p.index.to_numpy(np.int64)
+    p = p.reset_index(drop=True)
+    p.insert(0, "year", (k % ny + y0).astype(d["year"].dtype))
+    p.insert(0, "group", np.asarray(glabel, dtype=object)[k // ny])
     for c in ("n_tested", "n_sts", "n_recordable", "n_avg", "n_nr_excluded", "n_within"):
         p[c] = p[c].astype(int)
     _add_rates(p)

@@ -168,3 +168,31 @@ def test_person_year_means_match_pandas_groupby():
         assert np.array_equal(got["avg_234"].to_numpy(), want["avg_234"].to_numpy(), equal_nan=True)
         assert got["n_nr"].dtype == want["n_nr"].dtype
         assert np.array_equal(got["n_nr"].to_numpy(float), want["n_nr"].to_numpy(float), equal_nan=True)
+
+
+def test_population_counts_match_pandas_groupby_on_group_and_year():
+    """The per group and year counts and means (one integer key per group-year, every person-year counted
+    again in 'all') equal pandas' groupby on the group text and the year over the rows plus a copy labelled
+    'all', over random person-year frames with missing groups and NaN averages."""
+    rng = np.random.default_rng(8)
+    for _ in range(300):
+        n = int(rng.integers(1, 50))
+        avg = np.round(rng.normal(20, 10, n), 1)
+        avg[rng.random(n) < 0.2] = np.nan
+        within = np.where(rng.random(n) < 0.5, np.round(rng.normal(1, 3, n), 1), np.nan)
+        py = pd.DataFrame({"group": pd.Series(rng.choice(["ASM", "WHS", "b", None], size=n).tolist(), dtype=object),
+                           "year": rng.integers(2015, 2026, n), "sts": rng.random(n) < 0.1,
+                           "recordable": rng.random(n) < 0.05, "avg_234": avg, "n_nr": rng.integers(0, 3, n),
+                           "within_change": within})
+        got = hearing._population(py)
+        both = pd.concat([py, py.assign(group="all")], ignore_index=True)
+        want = both.groupby(["group", "year"], sort=True).agg(
+            n_tested=("year", "size"), n_sts=("sts", "sum"), n_recordable=("recordable", "sum"),
+            mean_avg_234=("avg_234", "mean"), n_avg=("avg_234", "count"), n_nr_excluded=("n_nr", "sum"),
+            mean_within_change=("within_change", "mean"), n_within=("within_change", "count")).reset_index()
+        assert got["group"].tolist() == want["group"].tolist()
+        assert got["year"].tolist() == want["year"].tolist() and got["year"].dtype == want["year"].dtype
+        for c in ("n_tested", "n_sts", "n_recordable", "n_avg", "n_nr_excluded", "n_within"):
+            assert got[c].tolist() == want[c].astype(int).tolist(), c
+        for c in ("mean_avg_234", "mean_within_change"):
+            assert np.array_equal(got[c].to_numpy(float), want[c].to_numpy(float), equal_nan=True), c
