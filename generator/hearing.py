@@ -270,18 +270,6 @@ def _upper(s: pd.Series) -> pd.Series:
     return pd.Series(out, index=s.index, dtype=object).astype(s.dtype).where(codes >= 0, s)
 
 
-def _upper_text(s: pd.Series) -> pd.Series:
-    """Return ``s.fillna("").astype(str).str.upper()``; a categorical column (the reader's
-    choice columns) has each of its categories folded once."""
-    if isinstance(s.dtype, pd.CategoricalDtype) and not s.isna().any():
-        codes, words = text_codes(s)
-        up = pd.Series(words, dtype=object).str.upper().to_numpy(object)
-        out = text_at(codes, up)
-        out.index = s.index
-        return out
-    return s.fillna("").astype(str).str.upper()
-
-
 def _drop(df: pd.DataFrame, columns: Any) -> pd.DataFrame:
     """Return *df* without *columns*, the other columns shared (no copy), so the dropped ones are freed."""
     gone = set(columns)
@@ -494,7 +482,7 @@ def _prepare(programme: Programme) -> pd.DataFrame:
     pp = pd.DataFrame({
         "person_id": _col(people, "person_id", "").astype(str),
         "group": _col(people, "group", "").astype(str),
-        "sex": _upper_text(_col(people, "sex", "")),
+        "sex": _upper(_col(people, "sex", "").fillna("").astype(str)),
         "birth_date": _dates(_col(people, "birth_date", pd.NaT)),
         "hire_date": _dates(_col(people, "hire_date", pd.NaT)),
     }).drop_duplicates("person_id")
